@@ -1,0 +1,135 @@
+"""Exceptions and warnings of the inversion package.
+
+`InputError` is the one exception for a mistake in a user's study file or observation
+table. Its string form is a single line that names where the mistake is (file, line,
+row, column, key), shows the bad value, states the rule and suggests a fix, so the
+command line can print it as it is and exit with code 2.
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Iterable
+from os import PathLike
+
+__all__ = ["InputError", "NotConvergedWarning", "suggest"]
+
+
+class InputError(ValueError):
+    """A mistake in user input (study file, observation table or API argument).
+
+    Parameters
+    ----------
+    message : str
+        What is wrong and how to fix it, e.g. ``"value -0.3 must be > 0"``.
+    file : str or path-like, optional
+        The file the mistake is in.
+    row : int, optional
+        Line number in a table file as a user sees it in an editor (header = line 1).
+    column : str, optional
+        Column name in a table file.
+    key : str, optional
+        Dotted key in the study file, e.g. ``"parameters.water.value"``.
+    line : int, optional
+        Line number in a study (TOML) file.
+
+    Examples
+    --------
+    >>> err = InputError("value -0.3 must be > 0", file="crust.csv", row=4, column="sigma_km")
+    >>> str(err)
+    "crust.csv, row 4, column 'sigma_km': value -0.3 must be > 0"
+    >>> str(InputError("unknown key 'wter'; did you mean 'water'?", key="parameters.wter"))
+    "key 'parameters.wter': unknown key 'wter'; did you mean 'water'?"
+    """
+
+    def __init__(
+        self,
+        message: str,
+        *,
+        file: str | PathLike[str] | None = None,
+        row: int | None = None,
+        column: str | None = None,
+        key: str | None = None,
+        line: int | None = None,
+    ) -> None:
+        self.message = " ".join(str(message).split())  # always one line
+        self.file = None if file is None else str(file)
+        self.row = row
+        self.column = column
+        self.key = key
+        self.line = line
+        super().__init__(self.__str__())
+
+    def __str__(self) -> str:
+        where = []
+        if self.file is not None:
+            where.append(self.file)
+        if self.line is not None:
+            where.append(f"line {self.line}")
+        if self.row is not None:
+            where.append(f"row {self.row}")
+        if self.column is not None:
+            where.append(f"column '{self.column}'")
+        if self.key is not None:
+            where.append(f"key '{self.key}'")
+        if not where:
+            return self.message
+        return f"{', '.join(where)}: {self.message}"
+
+    def __reduce__(self):  # keep the keyword fields when pickled (e.g. across processes)
+        return (
+            _rebuild_input_error,
+            (self.message, self.file, self.row, self.column, self.key, self.line),
+        )
+
+
+def _rebuild_input_error(message, file, row, column, key, line) -> InputError:
+    return InputError(message, file=file, row=row, column=column, key=key, line=line)
+
+
+class NotConvergedWarning(UserWarning):
+    """The sampler stopped at its step cap before the convergence criteria were met.
+
+    Parameters
+    ----------
+    message : str
+        What was not reached (chain length in autocorrelation times, effective samples).
+    tau : array_like, optional
+        Last estimate of the integrated autocorrelation time per free parameter, in steps.
+    steps : int, optional
+        Number of steps taken.
+    """
+
+    def __init__(self, message: str = "", *, tau=None, steps: int | None = None) -> None:
+        super().__init__(message)
+        self.tau = tau
+        self.steps = steps
+
+
+def suggest(word: str, valid: Iterable[str]) -> str:
+    """Return a ``"; did you mean 'x'?"`` hint for a misspelt `word`, or a list of choices.
+
+    Parameters
+    ----------
+    word : str
+        The unrecognised word.
+    valid : iterable of str
+        The accepted words.
+
+    Returns
+    -------
+    str
+        A hint starting with ``"; "``, ready to append to an error message.
+
+    Examples
+    --------
+    >>> suggest("wter", ["water", "solidus_shift"])
+    "; did you mean 'water'?"
+    >>> suggest("zzz", ["top", "pooled"])
+    "; valid choices: 'top', 'pooled'"
+    """
+    valid = list(valid)
+    close = difflib.get_close_matches(str(word), valid, n=1, cutoff=0.6)
+    if close:
+        return f"; did you mean '{close[0]}'?"
+    return "; valid choices: " + ", ".join(f"'{v}'" for v in valid)
