@@ -1,0 +1,41 @@
+"""lidmelt forward model: decompression melting of peridotite beneath a lithospheric lid.
+
+Results are scientific estimates that depend on the chosen melting parameterization.
+"""
+
+from ._validation import PARAMETER_DOMAIN, DomainError, in_domain
+from .adiabat import MAX_PRESSURE, depth_per_pressure, solid_adiabat
+from .column import GEOMETRIES, MeltColumn, MeltingPath, melt_column
+from .parameterizations import (
+    PARAMETERIZATIONS,
+    Katz2003,
+    KatzConstants,
+    McKenzieBickle1988,
+    McKenzieBickleConstants,
+    MeltFraction,
+    Parameterization,
+    ThermoConstants,
+    get_parameterization,
+)
+
+__all__ = [
+    "GEOMETRIES",
+    "MAX_PRESSURE",
+    "PARAMETERIZATIONS",
+    "PARAMETER_DOMAIN",
+    "DomainError",
+    "Katz2003",
+    "KatzConstants",
+    "McKenzieBickle1988",
+    "McKenzieBickleConstants",
+    "MeltColumn",
+    "MeltFraction",
+    "MeltingPath",
+    "Parameterization",
+    "ThermoConstants",
+    "depth_per_pressure",
+    "get_parameterization",
+    "in_domain",
+    "melt_column",
+    "solid_adiabat",
+]

@@ -1,0 +1,146 @@
+"""Tabulated melting paths: the fast route behind ``melt_column``.
+
+A path depends on the potential temperature, the solidus shift and the water
+content; the lid only truncates it. Paths are integrated once on a grid of
+``theta = Tp - shift`` (the temperature relative to the shifted solidus, along which
+the onset moves smoothly), ``shift`` and water (uniform in ``water^0.75``, to which
+the solidus depression is proportional), each on a pressure grid uniform in
+``sqrt(P)``. Queries interpolate multilinearly across paths and linearly in sqrt(P)
+along them. The melt fraction is never interpolated: it is recomputed exactly from
+the interpolated path state, so its kinks (onset, cpx exhaustion) stay sharp.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+
+from ._integrate import integrate_paths
+from ._validation import PARAMETER_DOMAIN
+from .adiabat import MAX_PRESSURE, onset_state, solid_adiabat
+
+__all__ = ["PathTable", "path_table"]
+
+_THETA_STEP = 5.0  # K
+_SHIFT_STEP = 100.0  # K; the shift acts only through T/c_p at fixed theta: near-linear
+_WATER_NODES = 9
+_WATER_EXPONENT = 0.75  # Katz et al. (2003): dT = K X^0.75
+_PRESSURE_NODES = 1001
+
+
+@dataclass(frozen=True)
+class _Axis:
+    """A uniform interpolation axis; a single node means "exact, no interpolation"."""
+
+    start: float
+    step: float
+    size: int
+
+    @property
+    def nodes(self):
+        return self.start + self.step * np.arange(self.size)
+
+    def locate(self, x):
+        """Lower node index and fraction (0..1) of ``x`` on this axis."""
+        if self.size == 1:
+            return np.zeros(np.shape(x), np.intp), np.zeros(np.shape(x))
+        pos = np.clip((np.asarray(x, float) - self.start) / self.step, 0.0, self.size - 1.0)
+        idx = np.minimum(pos.astype(np.intp), self.size - 2)
+        return idx, pos - idx
+
+
+@dataclass(frozen=True)
+class PathTable:
+    """Melting paths on a grid; see the module docstring for the axes.
+
+    ``state`` has shape ``(n_theta, n_shift, n_water, n_pressure, 3)`` holding sigma
+    (degC), I1 = int_P^P0 F dP and I2 = int_P^P0 P F dP (GPa, GPa^2); ``onset`` has
+    shape ``(n_theta, n_shift, n_water)`` in GPa.
+    """
+
+    theta: _Axis
+    shift: _Axis
+    water: _Axis  # in water**0.75 units
+    sqrt_pressure: _Axis
+    state: np.ndarray
+    onset: np.ndarray
+
+    def _corners(self, theta, shift, water):
+        """Flat path indices and weights of the interpolation corners, each (k, ...)."""
+        located = [ax.locate(x) for ax, x in ((self.theta, theta), (self.shift, shift),
+                                               (self.water, water ** _WATER_EXPONENT))]
+        sizes = (self.shift.size * self.water.size, self.water.size, 1)
+        choices = [((0,),) if ax.size == 1 else ((0,), (1,)) for ax in
+                   (self.theta, self.shift, self.water)]
+        flats, weights = [], []
+        for combo in itertools.product(*choices):
+            flat, weight = 0, 1.0
+            for (idx, frac), (offset,), size in zip(located, combo, sizes, strict=True):
+                flat = flat + (idx + offset) * size
+                weight = weight * (frac if offset else 1.0 - frac)
+            flats.append(flat)
+            weights.append(weight)
+        return np.stack(np.broadcast_arrays(*flats)), np.stack(np.broadcast_arrays(*weights))
+
+    def onset_pressure(self, theta, shift, water):
+        """Interpolated onset pressure (GPa)."""
+        flats, weights = self._corners(theta, shift, water)
+        return np.sum(self.onset.reshape(-1)[flats] * weights, axis=0)
+
+    def lookup(self, theta, shift, water, pressure):
+        """Interpolated ``(sigma, I1, I2)`` at ``pressure`` (GPa); inputs broadcast."""
+        theta, shift, water, pressure = np.broadcast_arrays(theta, shift, water, pressure)
+        flats, weights = self._corners(theta, shift, water)
+        u_idx, u_frac = self.sqrt_pressure.locate(np.sqrt(np.asarray(pressure, float)))
+        rows = self.state.reshape(-1, self.sqrt_pressure.size, 3)
+        lower = rows[flats, u_idx[None]].astype(float)
+        upper = rows[flats, u_idx[None] + 1].astype(float)
+        blended = lower + u_frac[None, ..., None] * (upper - lower)
+        values = np.sum(blended * weights[..., None], axis=0)
+        return values[..., 0], values[..., 1], values[..., 2]
+
+
+def _build(param, theta_axis, shift_axis, water_axis):
+    theta, shift, water_q = np.meshgrid(theta_axis.nodes, shift_axis.nodes, water_axis.nodes,
+                                        indexing="ij")
+    theta, shift = theta.ravel(), shift.ravel()
+    water = water_q.ravel() ** (1.0 / _WATER_EXPONENT)
+    tp = theta + shift
+    onset, sigma0, melts = onset_state(param, tp, water, shift)
+    u_axis = _Axis(0.0, np.sqrt(MAX_PRESSURE) / (_PRESSURE_NODES - 1), _PRESSURE_NODES)
+    u = u_axis.nodes
+    with np.errstate(all="ignore"):  # inactive (subsolidus) lanes are discarded
+        paths = integrate_paths(param, u, onset, sigma0, melts, water, shift)
+    p = u[None, :] ** 2
+    depression = param.water_depression(0.0, p, water[:, None])[0]
+    sub_sigma = solid_adiabat(tp[:, None], p, param.thermo) + depression - shift[:, None]
+    below_onset = ~melts[:, None] | (p >= onset[:, None])
+    paths[0] = np.where(below_onset, sub_sigma, paths[0])
+    paths[1:] = np.where(below_onset[None], 0.0, paths[1:])
+    shape = (theta_axis.size, shift_axis.size, water_axis.size)
+    state = np.moveaxis(paths, 0, -1).reshape(*shape, _PRESSURE_NODES, 3).astype(np.float32)
+    return PathTable(theta_axis, shift_axis, water_axis, u_axis, state, onset.reshape(shape))
+
+
+def _param_axes():
+    tp_lo, tp_hi = PARAMETER_DOMAIN["potential_temperature"]
+    s_lo, s_hi = PARAMETER_DOMAIN["solidus_shift"]
+    lo, hi = tp_lo - s_hi, tp_hi - s_lo
+    theta = _Axis(lo, _THETA_STEP, int(round((hi - lo) / _THETA_STEP)) + 1)
+    shift = _Axis(s_lo, _SHIFT_STEP, int(round((s_hi - s_lo) / _SHIFT_STEP)) + 1)
+    return theta, shift
+
+
+@lru_cache(maxsize=8)
+def path_table(param, water: float | None) -> PathTable:
+    """The table for ``param`` at one exact water content, or (None) across water."""
+    theta, shift = _param_axes()
+    if water is not None:
+        water_axis = _Axis(float(water) ** _WATER_EXPONENT, 1.0, 1)
+    else:
+        top = PARAMETER_DOMAIN["water"][1] ** _WATER_EXPONENT
+        water_axis = _Axis(0.0, top / (_WATER_NODES - 1), _WATER_NODES)
+    return _build(param, theta, shift, water_axis)

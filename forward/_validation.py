@@ -1,0 +1,72 @@
+"""Checks of forward-model inputs, done once at the boundary."""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["PARAMETER_DOMAIN", "DomainError", "check_inputs", "in_domain"]
+
+#: Valid range (inclusive unless noted) of every numeric input of ``melt_column``.
+#: The tabulated fast path covers exactly this box; the upwelling ratio must be > 0.
+PARAMETER_DOMAIN: dict[str, tuple[float, float]] = {
+    "potential_temperature": (1000.0, 1800.0),  # degC
+    "lithosphere_thickness": (0.0, 400.0),  # km
+    "water": (0.0, 1000.0),  # ppm H2O of the bulk source
+    "upwelling_ratio": (0.0, 20.0),  # dimensionless, lower bound exclusive
+    "solidus_shift": (-100.0, 100.0),  # degC
+    "crust_density": (2000.0, 3500.0),  # kg/m^3
+    "mantle_density": (2500.0, 4000.0),  # kg/m^3
+}
+
+_UNITS = {
+    "potential_temperature": "degC",
+    "lithosphere_thickness": "km",
+    "water": "ppm",
+    "upwelling_ratio": "",
+    "solidus_shift": "degC",
+    "crust_density": "kg/m^3",
+    "mantle_density": "kg/m^3",
+}
+
+
+class DomainError(ValueError):
+    """An input lies outside the forward model's domain (carries the name and range)."""
+
+    def __init__(self, name: str, value: float, low: float, high: float):
+        self.name, self.value, self.low, self.high = name, value, low, high
+        unit = _UNITS.get(name, "")
+        super().__init__(
+            f"{name} = {value:g} {unit} is outside the model domain "
+            f"[{low:g}, {high:g}] {unit}".replace("  ", " ")
+        )
+
+
+def _outside(name: str, values: np.ndarray) -> np.ndarray:
+    low, high = PARAMETER_DOMAIN[name]
+    bad = ~np.isfinite(values) | (values < low) | (values > high)
+    if name == "upwelling_ratio":
+        bad |= values <= low
+    return bad
+
+
+def in_domain(**values) -> np.ndarray:
+    """Boolean mask, broadcast over the inputs, of points inside ``PARAMETER_DOMAIN``."""
+    arrays = {k: np.asarray(v, float) for k, v in values.items()}
+    shape = np.broadcast_shapes(*(a.shape for a in arrays.values()))
+    ok = np.ones(shape, bool)
+    for name, arr in arrays.items():
+        ok &= ~_outside(name, arr)
+    return ok
+
+
+def check_inputs(**values) -> dict[str, np.ndarray]:
+    """Convert inputs to float arrays and raise ``DomainError`` on the first bad one."""
+    arrays = {}
+    for name, value in values.items():
+        arr = np.asarray(value, dtype=float)
+        bad = _outside(name, arr)
+        if np.any(bad):
+            low, high = PARAMETER_DOMAIN[name]
+            raise DomainError(name, float(arr[bad].flat[0]), low, high)
+        arrays[name] = arr
+    return arrays
