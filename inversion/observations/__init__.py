@@ -1,0 +1,41 @@
+"""Observation kinds: tables of measurements and their likelihoods.
+
+`KINDS` maps the study-file ``kind`` of an ``[[observations]]`` block to its class.
+Adding a kind: subclass `ObservationSet` in a new module, then register it here.
+"""
+
+from .base import NO_MELT_SLOPE, ObservationSet, gaussian_logpdf, melting_distance
+from .crust import COMPARE_TO, CrustalThickness
+from .pressure import (
+    EQUILIBRATION,
+    NO_MELT_OFFSET,
+    PRESSURE_RANGE,
+    TEMPERATURE_RANGE,
+    MeltingPressure,
+)
+from .tables import ColumnRule, Table, read_table, validate_frame
+
+__all__ = [
+    "COMPARE_TO",
+    "EQUILIBRATION",
+    "KINDS",
+    "NO_MELT_OFFSET",
+    "NO_MELT_SLOPE",
+    "PRESSURE_RANGE",
+    "TEMPERATURE_RANGE",
+    "ColumnRule",
+    "CrustalThickness",
+    "MeltingPressure",
+    "ObservationSet",
+    "Table",
+    "gaussian_logpdf",
+    "melting_distance",
+    "read_table",
+    "validate_frame",
+]
+
+#: Study-file ``kind`` -> observation class.
+KINDS: dict[str, type[ObservationSet]] = {
+    CrustalThickness.kind: CrustalThickness,
+    MeltingPressure.kind: MeltingPressure,
+}

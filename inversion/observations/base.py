@@ -1,0 +1,283 @@
+"""The interface every observation kind implements, and the shared likelihood pieces.
+
+An observation set is one ``[[observations]]`` block of a study file: a table of
+measurements of one kind with their 1-sigma uncertainties. Its likelihood is Gaussian and
+independent between rows; an optional ``model_error`` (same unit as the data) is added to
+each row's sigma in quadrature, sigma_total = sqrt(sigma^2 + model_error^2), to allow for
+what the forward model leaves out.
+
+No-melt penalty
+---------------
+Where a parameter vector makes no melt (the lid base is at or below the onset of melting,
+or the mantle is too cold to meet the solidus), an observed melt product cannot be
+explained. Instead of ``-inf`` (which would leave a sampler or optimiser started there no
+direction to move) the log-likelihood of each row that records melt is lowered by
+
+    NO_MELT_OFFSET_kind + NO_MELT_SLOPE * d
+
+where d (km, `melting_distance`) is how far the point is from making melt: the lid
+thickness below the onset depth, plus, for mantle too cold to melt at all, the extra
+height the onset would need, estimated as (1100 degC - (Tp - solidus shift)) / 3.66 degC/km
+(the surface solidus of dry peridotite, about 1086-1100 degC, and the difference between
+the solidus and adiabat slopes, about 113 K/GPa; SCIENCE.md sections 1-3, value used only
+to give the penalty its direction). The penalty is finite, never NaN, and grows steadily
+away from the melting boundary, so the search slopes back toward melting. It needs the
+parameter values (``parameters=`` of `log_likelihood`); without them d is 0.
+"""
+
+from __future__ import annotations
+
+import math
+from abc import ABC, abstractmethod
+from collections.abc import Mapping, Sequence
+from os import PathLike
+from pathlib import Path
+from typing import ClassVar
+
+import numpy as np
+import pandas as pd
+
+from .._errors import InputError, suggest
+from .tables import ColumnRule, read_table, validate_frame
+
+__all__ = [
+    "NO_MELT_SLOPE",
+    "ObservationSet",
+    "gaussian_logpdf",
+    "melting_distance",
+]
+
+#: Nats per km of distance from melting, per row that records melt (see module docstring).
+NO_MELT_SLOPE = 1.0
+_COLD_REFERENCE = 1100.0  # degC, surface solidus of dry peridotite (SCIENCE.md 2-3)
+_COLD_GRADIENT = 3.66  # degC/km, solidus minus adiabat slope, 113 K/GPa / 30.89 km/GPa
+_COMMON_KEYS = ("kind", "file", "model_error")
+_LOG_SQRT_2PI = 0.5 * math.log(2.0 * math.pi)
+
+
+def gaussian_logpdf(x, mean, sd) -> np.ndarray:
+    """Log density of the normal distribution N(mean, sd^2) at `x` (broadcasting)."""
+    z = (np.asarray(x, float) - mean) / sd
+    return -0.5 * z * z - np.log(sd) - _LOG_SQRT_2PI
+
+
+def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
+    """How far each point is from making melt, km; 0 where it makes melt.
+
+    Parameters
+    ----------
+    column : forward.MeltColumn
+        Melting columns, shape (n,) (any shape works).
+    parameters : mapping, optional
+        The melt_column inputs per point (``lithosphere_thickness`` in km,
+        ``potential_temperature`` and ``solidus_shift`` in degC), each broadcastable to
+        the column shape. Without them the distance is 0.
+
+    Returns
+    -------
+    numpy.ndarray
+        Distance d >= 0, the column's shape (see the module docstring for the formula).
+    """
+    shape = np.shape(column.melt_thickness)
+    melts = np.asarray(column.produces_melt, bool)
+    if parameters is None or "lithosphere_thickness" not in parameters:
+        return np.zeros(shape)
+    lid = np.broadcast_to(np.asarray(parameters["lithosphere_thickness"], float), shape)
+    onset = np.asarray(column.onset_depth, float)
+    distance = np.maximum(lid - onset, 0.0)
+    if "potential_temperature" in parameters:
+        theta = np.asarray(parameters["potential_temperature"], float) - np.asarray(
+            parameters.get("solidus_shift", 0.0), float)
+        cold = np.maximum(_COLD_REFERENCE - theta, 0.0) / _COLD_GRADIENT
+        distance = np.where(onset <= 0.0, lid + cold, distance)
+    return np.where(melts, 0.0, distance)
+
+
+class ObservationSet(ABC):
+    """One block of observations of one kind, with its Gaussian likelihood.
+
+    Subclasses set the class attributes and implement `log_likelihood`, `predict`,
+    `simulate`, `column_rules` and (if they take options) `_parse_options`.
+
+    Attributes
+    ----------
+    kind : str
+        Study-file ``kind``.
+    quantity, unit : str
+        What the main value column measures and its unit (for labels).
+    id_column, value_column, sigma_column : str
+        Column names of row labels, measured values and their 1-sigma uncertainties.
+    file : pathlib.Path or None
+        The table file (None when built in code).
+    data : pandas.DataFrame
+        The validated table, one row per observation, in file order.
+    lines : tuple of int
+        File line number of each row.
+    model_error : float
+        Added to every sigma in quadrature (unit of the values).
+    """
+
+    kind: ClassVar[str]
+    quantity: ClassVar[str]
+    unit: ClassVar[str]
+    id_column: ClassVar[str]
+    value_column: ClassVar[str]
+    sigma_column: ClassVar[str]
+    option_keys: ClassVar[tuple[str, ...]] = ()
+
+    def __init__(self, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
+                 model_error: float = 0.0, lines: Sequence[int] | None = None) -> None:
+        self.data = data
+        self.file = None if file is None else Path(file)
+        self.model_error = float(model_error)
+        self.lines = tuple(range(2, 2 + len(data))) if lines is None else tuple(lines)
+
+    # ---- construction ------------------------------------------------------------------
+
+    @classmethod
+    @abstractmethod
+    def column_rules(cls, **options) -> tuple[list[ColumnRule], list[list[ColumnRule]]]:
+        """Required column rules and optional all-or-none groups of column rules."""
+
+    @classmethod
+    def _parse_options(cls, spec: Mapping, where: str) -> dict:
+        """Validate kind-specific keys of a study-file block; return constructor options."""
+        return {}
+
+    @classmethod
+    def from_spec(cls, spec: Mapping, *, base_dir: str | PathLike[str] = ".",
+                  where: str = "observations") -> ObservationSet:
+        """Build from one ``[[observations]]`` table, reading its file.
+
+        Parameters
+        ----------
+        spec : mapping
+            The block: ``kind``, ``file``, optional ``model_error`` and kind options.
+        base_dir : str or path-like
+            Folder the ``file`` path is relative to (the study file's folder).
+        where : str
+            Dotted key of the block, named in messages (e.g. ``"observations[2]"``).
+        """
+        allowed = _COMMON_KEYS + cls.option_keys
+        for key in spec:
+            if key not in allowed:
+                raise InputError(f"unknown key '{key}' for kind '{cls.kind}'"
+                                 + suggest(key, allowed), key=f"{where}.{key}")
+        if "file" not in spec:
+            raise InputError("missing 'file' (the table of observations, relative to the "
+                             "study file)", key=f"{where}.file")
+        if not isinstance(spec["file"], str) or not spec["file"].strip():
+            raise InputError(f"{spec['file']!r} must be a file name in quotes",
+                             key=f"{where}.file")
+        model_error = _non_negative(spec.get("model_error", 0.0), f"{where}.model_error")
+        options = cls._parse_options(spec, where)
+        path = Path(base_dir) / spec["file"]
+        required, optional = cls.column_rules(**options)
+        table = read_table(path, required, optional=optional, key=f"{where}.file")
+        return cls(table.data, file=path, model_error=model_error, lines=table.lines,
+                   **options)
+
+    @classmethod
+    def from_frame(cls, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
+                   model_error: float = 0.0, **options) -> ObservationSet:
+        """Build from a table in memory, checked by the same rules as a file."""
+        model_error = _non_negative(model_error, "model_error")
+        options = cls._parse_options(options, "observations")
+        required, optional = cls.column_rules(**options)
+        rules = list(required) + [r for group in optional if all(
+            rule.name in data.columns for rule in group) for r in group]
+        table = validate_frame(data, rules, file=file)
+        return cls(table.data, file=file, model_error=model_error, lines=table.lines,
+                   **options)
+
+    # ---- data views -------------------------------------------------------------------
+
+    def __len__(self) -> int:
+        return len(self.data)
+
+    @property
+    def ids(self) -> tuple[str, ...]:
+        """Row labels (site or sample names), in file order."""
+        return tuple(str(v) for v in self.data[self.id_column])
+
+    @property
+    def values(self) -> np.ndarray:
+        """Measured values, shape (rows,), unit `unit`."""
+        return self.data[self.value_column].to_numpy(float)
+
+    @property
+    def sigma(self) -> np.ndarray:
+        """Total 1-sigma uncertainty per row incl. model error, shape (rows,)."""
+        sigma = self.data[self.sigma_column].to_numpy(float)
+        return np.hypot(sigma, self.model_error)
+
+    def observed(self) -> dict[str, np.ndarray]:
+        """Observed values for plotting: ``{"value": (rows,), "sigma": (rows,)}``."""
+        return {"value": self.values, "sigma": self.sigma}
+
+    @property
+    def name(self) -> str:
+        """Short label: the file name, or the kind when built in code."""
+        return self.file.name if self.file is not None else self.kind
+
+    # ---- model comparison --------------------------------------------------------------
+
+    @abstractmethod
+    def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
+        """Log-likelihood summed over rows for each melting column.
+
+        Parameters
+        ----------
+        column : forward.MeltColumn
+            Computed for n parameter vectors (arrays of shape (n,)).
+        parameters : mapping, optional
+            The melt_column inputs per vector, each shape (n,); used only by the no-melt
+            penalty (see `melting_distance`).
+
+        Returns
+        -------
+        numpy.ndarray
+            Shape (n,); finite everywhere (never NaN).
+        """
+
+    @abstractmethod
+    def predict(self, column) -> dict[str, np.ndarray]:
+        """Model prediction for each row, ``{"value": (n, rows), ...}``."""
+
+    @abstractmethod
+    def simulate(self, column, rng: np.random.Generator) -> ObservationSet:
+        """A copy whose values are drawn from the likelihood at one melting column.
+
+        The sigmas stay; `column` must hold a single parameter vector. The draws are not
+        re-validated (a simulated thickness may come out negative).
+        """
+
+    @abstractmethod
+    def describe(self) -> str:
+        """One line in words: kind, file, number of rows, what the data are compared to."""
+
+    def _replace_values(self, new: dict[str, np.ndarray], **options) -> ObservationSet:
+        data = self.data.copy()
+        for column, values in new.items():
+            data[column] = np.asarray(values, float)
+        return type(self)(data, file=self.file, model_error=self.model_error,
+                          lines=self.lines, **options)
+
+    def __repr__(self) -> str:
+        return f"<{type(self).__name__} {self.describe()}>"
+
+
+def _non_negative(value, key: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise InputError(f"{value!r} must be a finite number", key=key)
+    if value < 0:
+        raise InputError(f"{value:g} must be >= 0 (it is added to sigma in quadrature)",
+                         key=key)
+    return float(value)
+
+
+def require_single(column, who: str) -> None:
+    """Raise ValueError unless `column` holds exactly one parameter vector."""
+    size = np.size(column.melt_thickness)
+    if size != 1:
+        raise ValueError(f"{who} needs a column for one parameter vector, got {size}")

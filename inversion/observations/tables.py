@@ -1,0 +1,249 @@
+"""Reading and validating observation tables (comma-separated text files).
+
+Format: UTF-8 text, comma-separated, one header line naming the columns, one row per
+observation. Blank lines and lines starting with ``#`` (comments, e.g. data sources) are
+skipped. Extra columns are kept as text (e.g. coordinates or references). Quoted fields
+may contain commas but not line breaks.
+
+Every check raises an `InputError` naming the file, the row (the line number a user sees
+in an editor; header = line 1 unless comments precede it), the column and the rule.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from os import PathLike
+from pathlib import Path
+
+import pandas as pd
+
+from .._errors import InputError, suggest
+
+__all__ = ["ColumnRule", "Table", "read_table", "validate_frame"]
+
+
+@dataclass(frozen=True)
+class ColumnRule:
+    """What a column must hold.
+
+    Parameters
+    ----------
+    name : str
+        Column name in the header.
+    numeric : bool
+        True: every cell is a finite number; False: every cell is a non-empty text.
+    low, high : float, optional
+        Allowed range of a numeric column.
+    low_open : bool
+        The value must be strictly greater than `low` (e.g. a standard deviation > 0).
+    unit : str
+        Unit shown in messages.
+    why : str
+        Short reason appended to a range message, e.g. ``"a thickness cannot be negative"``.
+    """
+
+    name: str
+    numeric: bool = True
+    low: float | None = None
+    high: float | None = None
+    low_open: bool = False
+    unit: str = ""
+    why: str = ""
+
+    def rule_text(self) -> str:
+        """The range rule in words, e.g. ``"must be > 0 GPa"``."""
+        unit = f" {self.unit}" if self.unit else ""
+        if self.low is not None and self.high is not None:
+            return f"must be between {self.low:g} and {self.high:g}{unit}"
+        if self.low is not None:
+            return f"must be {'>' if self.low_open else '>='} {self.low:g}{unit}"
+        if self.high is not None:
+            return f"must be <= {self.high:g}{unit}"
+        return "must be a finite number"
+
+    def broken(self, value: float) -> bool:
+        """True if `value` breaks the range rule."""
+        if self.low is not None and (value <= self.low if self.low_open else value < self.low):
+            return True
+        return self.high is not None and value > self.high
+
+
+@dataclass(frozen=True)
+class Table:
+    """A validated table: the data and the file line number of each row."""
+
+    data: pd.DataFrame
+    lines: tuple[int, ...]
+
+
+def read_table(
+    path: str | PathLike[str],
+    required: Sequence[ColumnRule],
+    *,
+    optional: Sequence[Sequence[ColumnRule]] = (),
+    key: str | None = None,
+) -> Table:
+    """Read a comma-separated observation table and check every cell.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The table file.
+    required : sequence of ColumnRule
+        Columns that must be present.
+    optional : sequence of sequences of ColumnRule
+        Groups of columns that are either all present or all absent (e.g. a value and its
+        uncertainty).
+    key : str, optional
+        Study-file key that names this file, quoted when the file is missing.
+
+    Returns
+    -------
+    Table
+        Numeric columns as float64, text columns as str; rows in file order.
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable file, missing column, empty file, wrong number of fields,
+        non-numeric, empty, NaN or infinite cell, or a value outside its range.
+    """
+    path = Path(path)
+    if not path.is_file():
+        why = "is a folder, not a table" if path.is_dir() else "not found"
+        raise InputError(f"observation file {why}; paths are relative to the study file",
+                         file=path, key=key)
+    header, header_line, rows, lines = _read_rows(path)
+    rules = _rules_for(header, header_line, required, optional, path)
+    return validate_frame(pd.DataFrame(rows, columns=header, dtype=object), rules,
+                          file=path, lines=lines)
+
+
+def _read_rows(path: Path) -> tuple[list[str], int, list[list[str]], list[int]]:
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError as err:
+        raise InputError(f"not UTF-8 text (byte {err.start}); save the table as UTF-8 CSV",
+                         file=path) from None
+    header, header_line, rows, lines = None, 0, [], []
+    for number, raw in enumerate(text.splitlines(), start=1):
+        if not raw.strip() or raw.lstrip().startswith("#"):
+            continue
+        fields = [cell.strip() for cell in next(csv.reader([raw]))]
+        if header is None:
+            header, header_line = fields, number
+            _check_header(header, path, number)
+            continue
+        if len(fields) != len(header):
+            raise InputError(f"has {len(fields)} fields but the header (line {header_line}) "
+                             f"has {len(header)}; check for missing or extra commas",
+                             file=path, row=number)
+        rows.append(fields)
+        lines.append(number)
+    if header is None:
+        raise InputError("the file is empty; it needs a header line and data rows", file=path)
+    if not rows:
+        raise InputError("no data rows below the header", file=path, row=header_line)
+    return header, header_line, rows, lines
+
+
+def _check_header(header: list[str], path: Path, line: int) -> None:
+    seen = set()
+    for name in header:
+        if not name:
+            raise InputError("empty column name in the header", file=path, row=line)
+        if name in seen:
+            raise InputError(f"column '{name}' appears twice in the header", file=path,
+                             row=line, column=name)
+        seen.add(name)
+
+
+def _rules_for(header, header_line, required, optional, path) -> list[ColumnRule]:
+    def missing(rule: ColumnRule, extra: str = "") -> InputError:
+        hint = suggest(rule.name, header)
+        if len(header) == 1 and any(sep in header[0] for sep in ";\t|"):
+            hint = "; the header has one column only: is the file comma-separated?"
+        return InputError(f"missing column '{rule.name}'{extra} (found: "
+                          + ", ".join(header) + ")" + hint, file=path, row=header_line,
+                          column=rule.name)
+
+    rules = []
+    for rule in required:
+        if rule.name not in header:
+            raise missing(rule)
+        rules.append(rule)
+    for group in optional:
+        present = [rule.name in header for rule in group]
+        if any(present) and not all(present):
+            absent = next(rule for rule, here in zip(group, present, strict=True) if not here)
+            others = ", ".join(r.name for r in group if r is not absent)
+            raise missing(absent, f", needed together with {others}")
+        if all(present):
+            rules.extend(group)
+    return rules
+
+
+def validate_frame(
+    frame: pd.DataFrame,
+    rules: Sequence[ColumnRule],
+    *,
+    file: str | PathLike[str] | None = None,
+    lines: Sequence[int] | None = None,
+) -> Table:
+    """Check and convert the columns of a table held in memory (text or numbers).
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        One row per observation; must contain every column of `rules`.
+    rules : sequence of ColumnRule
+    file : str or path-like, optional
+        Named in messages.
+    lines : sequence of int, optional
+        File line number of each row; default ``2, 3, ...`` (header on line 1).
+
+    Returns
+    -------
+    Table
+    """
+    lines = tuple(range(2, 2 + len(frame))) if lines is None else tuple(lines)
+    if len(frame) == 0:
+        raise InputError("no data rows", file=file)
+    out = frame.copy()
+    for rule in rules:
+        if rule.name not in out.columns:
+            raise InputError(f"missing column '{rule.name}'" + suggest(rule.name, out.columns),
+                             file=file, column=rule.name)
+        values = [_cell(v, rule, file, line) for v, line in zip(out[rule.name], lines,
+                                                               strict=True)]
+        out[rule.name] = pd.Series(values, index=out.index,
+                                   dtype=float if rule.numeric else object)
+    return Table(out.reset_index(drop=True), lines)
+
+
+def _cell(value, rule: ColumnRule, file, line: int):
+    def fail(message: str) -> InputError:
+        return InputError(message, file=file, row=line, column=rule.name)
+
+    text = "" if value is None else str(value).strip()
+    if not rule.numeric:
+        if not text or text.lower() == "nan":
+            raise fail("empty cell; every row needs a name here")
+        return text
+    if not text:
+        raise fail("empty cell; every row needs a number here")
+    try:
+        number = float(text)
+    except ValueError:
+        raise fail(f"'{text}' is not a number; write a plain decimal such as 1.5") from None
+    if math.isnan(number):
+        raise fail(f"value '{text}' (NaN) is not allowed; remove the row or give a number")
+    if math.isinf(number):
+        raise fail(f"value '{text}' is not a finite number")
+    if rule.broken(number):
+        why = f" ({rule.why})" if rule.why else ""
+        raise fail(f"value {number:g} {rule.rule_text()}{why}")
+    return number
