@@ -2,7 +2,7 @@
 
 Each subcommand lives in its own module exposing ``add_arguments(parser)`` and
 ``run(args) -> int``; this module only dispatches and turns user mistakes into
-exit code 2 with a one-line message.
+exit code 2 with a one-line message on stderr (no traceback, no result folder).
 """
 
 from __future__ import annotations
@@ -12,9 +12,14 @@ import sys
 
 from forward import _cli_column
 
-# name -> (module, one-line help); the fit and demo commands register here too.
+from . import _cli_demo, _cli_fit
+from ._errors import InputError
+
+# name -> (module, one-line help)
 _COMMANDS = {
     "column": (_cli_column, "tabulate the melting column for given conditions"),
+    "fit": (_cli_fit, "fit a study file: posterior of potential temperature and lid thickness"),
+    "demo": (_cli_demo, "fit the bundled demo study end to end (under a minute)"),
 }
 
 
@@ -36,14 +41,19 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
     args = parser.parse_args(argv)
+    args.argv = ["lidmelt", *argv]
     module, _ = _COMMANDS[args.command]
     try:
         return module.run(args)
-    except (UsageError, ValueError) as err:
+    except (InputError, UsageError, ValueError) as err:
         print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)
         return 2
+    except OSError as err:  # e.g. a result folder that cannot be written
+        print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":

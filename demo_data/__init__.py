@@ -1,0 +1,41 @@
+"""Bundled demo study: an invented rift segment ("Orvanta Rift, Kessel segment").
+
+The place names, sites, samples and numbers are invented for demonstration; they were
+simulated from lidmelt's forward model (Katz 2003 hydrous melting, 1-D column) at a
+potential temperature of 1400 degC, a 46 km lid, 150 ppm source water and no solidus
+shift, with Gaussian noise of the listed uncertainties added. They describe no real place.
+"""
+
+from __future__ import annotations
+
+from importlib import resources
+from pathlib import Path
+
+__all__ = ["DEMO_STUDY", "DEMO_TRUTH", "study_path"]
+
+#: Folder of the demo study inside this package.
+DEMO_STUDY = "orvanta_rift"
+
+#: Values the demo data were simulated at (for checks; a real study has no such thing).
+DEMO_TRUTH = {
+    "potential_temperature": 1400.0,
+    "lithosphere_thickness": 46.0,
+    "water": 150.0,
+    "solidus_shift": 0.0,
+}
+
+
+def study_path() -> Path:
+    """Path of the demo study file ``study.toml``.
+
+    Returns
+    -------
+    pathlib.Path
+        The study file; its observation tables sit beside it.
+
+    Examples
+    --------
+    >>> study_path().name
+    'study.toml'
+    """
+    return Path(str(resources.files(__name__).joinpath(DEMO_STUDY, "study.toml")))

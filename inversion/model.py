@@ -1,0 +1,169 @@
+"""The vectorised log-posterior of a study, as emcee calls it.
+
+A point in parameter space is a row of free-parameter values in the order of
+`Study.free_parameters`; the fixed parameters of the study are filled in, the prior and
+the forward model's valid domain are checked (``-inf`` outside either), the melting column
+is computed once for all valid rows, and the log-likelihoods of every observation set are
+summed:
+
+    log p(theta | d) = sum_j log pi_j(theta_j) + sum_blocks log L_block(column(theta)) + const
+
+The call returns an array of shape ``(n, 1 + k)``: column 0 is the log-posterior and
+columns 1..k the derived quantities of `DERIVED` (emcee "blobs"; NaN where rejected).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+import forward
+
+__all__ = ["DERIVED", "PARAMETERS", "UNITS", "LogPosterior"]
+
+#: Every numeric input of forward.melt_column that a study can make free, canonical order.
+PARAMETERS = (
+    "potential_temperature",
+    "lithosphere_thickness",
+    "water",
+    "upwelling_ratio",
+    "solidus_shift",
+)
+
+#: Derived quantities reported with every posterior sample (attributes of the column).
+DERIVED = ("onset_depth", "crustal_thickness", "mean_melt_fraction", "mean_melting_pressure")
+
+#: Unit of every parameter and derived quantity ("-" = dimensionless).
+UNITS = {
+    "potential_temperature": "degC",
+    "lithosphere_thickness": "km",
+    "water": "ppm",
+    "upwelling_ratio": "-",
+    "solidus_shift": "degC",
+    "onset_depth": "km",
+    "crustal_thickness": "km",
+    "mean_melt_fraction": "-",
+    "mean_melting_pressure": "GPa",
+}
+
+# Lower bounds of forward.PARAMETER_DOMAIN that are exclusive (upwelling_ratio > 0).
+_EXCLUSIVE_LOW = frozenset({"upwelling_ratio"})
+
+
+class LogPosterior:
+    """Vectorised log-posterior of a study for ``emcee.EnsembleSampler(vectorize=True)``.
+
+    Parameters
+    ----------
+    study : inversion.Study
+        Priors, fixed values, model settings and observation sets.
+
+    Attributes
+    ----------
+    names : tuple of str
+        Free parameters, in the column order of `theta`.
+    ndim : int
+        Number of free parameters.
+    nblobs : int
+        Number of derived quantities (``len(DERIVED)``).
+
+    Examples
+    --------
+    The call maps an ``(n, ndim)`` array to ``(n, 1 + nblobs)``::
+
+        logpost = LogPosterior(study)
+        out = logpost(theta)          # out[:, 0] log-posterior, out[:, 1:] derived
+    """
+
+    def __init__(self, study) -> None:
+        self.study = study
+        self.names = tuple(study.free_parameters)
+        self.ndim = len(self.names)
+        self.nblobs = len(DERIVED)
+        self._priors = [study.priors[name] for name in self.names]
+
+    @property
+    def priors(self) -> list:
+        """The prior of each free parameter, in the order of `names`."""
+        return list(self._priors)
+
+    def __call__(self, theta: np.ndarray) -> np.ndarray:
+        """Log-posterior and derived quantities, shape ``(n, 1 + nblobs)``."""
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        out = np.full((theta.shape[0], 1 + self.nblobs), np.nan)
+        out[:, 0] = -np.inf
+        log_prior = self.log_prior(theta)
+        ok = np.isfinite(log_prior) & self.in_domain(theta)
+        if np.any(ok):
+            values = self.parameters(theta[ok])
+            column = self._column(values)
+            out[ok, 0] = log_prior[ok] + self._log_likelihood(column, values)
+            out[ok, 1:] = derived_quantities(column)
+        return out
+
+    def log_prior(self, theta: np.ndarray) -> np.ndarray:
+        """Sum of the log prior densities, shape ``(n,)`` (``-inf`` outside a support)."""
+        theta = np.atleast_2d(theta)
+        total = np.zeros(theta.shape[0])
+        for j, prior in enumerate(self._priors):
+            total += prior.logpdf(theta[:, j])
+        return total
+
+    def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
+        """Sum of the observation log-likelihoods, shape ``(n,)``; ``-inf`` off-domain."""
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        out = np.full(theta.shape[0], -np.inf)
+        ok = self.in_domain(theta)
+        if np.any(ok):
+            values = self.parameters(theta[ok])
+            out[ok] = self._log_likelihood(self._column(values), values)
+        return out
+
+    def in_domain(self, theta: np.ndarray) -> np.ndarray:
+        """True where every free value lies in forward.PARAMETER_DOMAIN, shape ``(n,)``."""
+        theta = np.atleast_2d(theta)
+        ok = np.all(np.isfinite(theta), axis=1)
+        for j, name in enumerate(self.names):
+            low, high = forward.PARAMETER_DOMAIN[name]
+            above = theta[:, j] > low if name in _EXCLUSIVE_LOW else theta[:, j] >= low
+            ok &= above & (theta[:, j] <= high)
+        return ok
+
+    def parameters(self, theta: np.ndarray) -> dict[str, np.ndarray]:
+        """All five melt_column inputs for each row of `theta`, each shape ``(n,)``."""
+        theta = np.atleast_2d(theta)
+        n = theta.shape[0]
+        values = {name: np.full(n, float(value)) for name, value in self.study.fixed.items()}
+        for j, name in enumerate(self.names):
+            values[name] = theta[:, j]
+        return values
+
+    def column(self, theta: np.ndarray):
+        """The melting columns (forward.melt_column result) for each row of `theta`."""
+        return self._column(self.parameters(theta))
+
+    def _column(self, values: dict[str, np.ndarray]):
+        model = self.study.model
+        return forward.melt_column(
+            values["potential_temperature"],
+            values["lithosphere_thickness"],
+            water=values["water"],
+            upwelling_ratio=values["upwelling_ratio"],
+            solidus_shift=values["solidus_shift"],
+            parameterization=model.parameterization,
+            geometry=model.geometry,
+            crust_density=model.crust_density,
+            mantle_density=model.mantle_density,
+        )
+
+    def _log_likelihood(self, column, values: dict[str, np.ndarray]) -> np.ndarray:
+        # `parameters` lets the no-melt penalty slope toward melting (lid vs onset depth).
+        total = np.zeros(np.shape(column.melt_thickness))
+        for block in self.study.observations:
+            total = total + block.log_likelihood(column, parameters=values)
+        return total
+
+
+def derived_quantities(column) -> np.ndarray:
+    """Stack the `DERIVED` attributes of a melting column, shape ``(n, len(DERIVED))``."""
+    return np.stack([np.asarray(getattr(column, name), dtype=float) for name in DERIVED],
+                    axis=-1)

@@ -1,0 +1,189 @@
+"""The sampling machinery alone: known posteriors, autocorrelation, seeding, resume."""
+
+from __future__ import annotations
+
+import emcee
+import h5py
+import numpy as np
+import pytest
+from scipy import stats
+
+from inversion import InputError, NotConvergedWarning
+from inversion._diagnostics import split_rhat
+from inversion.sampler import assess_chain, read_chain, run_chain, write_chain
+
+
+class LinearGaussian:
+    """y = X beta + noise, noise ~ N(0, sigma^2 I), prior beta ~ N(0, tau^2 I).
+
+    The posterior is Gaussian with covariance S = (X^T X / sigma^2 + I / tau^2)^-1 and
+    mean m = S X^T y / sigma^2 (conjugate Bayesian linear regression; Bishop 2006,
+    Pattern Recognition and Machine Learning, eqs. 3.53-3.54).
+    """
+
+    def __init__(self, seed: int = 0, *, ndata: int = 12, sigma: float = 0.5, tau: float = 3.0):
+        rng = np.random.default_rng(seed)
+        x = np.linspace(-1.0, 1.0, ndata)
+        self.design = np.column_stack([np.ones(ndata), x, x**2])
+        self.y = self.design @ np.array([1.0, -2.0, 0.5]) + rng.normal(0.0, sigma, ndata)
+        self.sigma, self.tau = sigma, tau
+        precision = self.design.T @ self.design / sigma**2 + np.eye(3) / tau**2
+        self.cov = np.linalg.inv(precision)
+        self.mean = self.cov @ self.design.T @ self.y / sigma**2
+        self.calls = 0
+
+    def __call__(self, theta: np.ndarray) -> np.ndarray:
+        self.calls += 1
+        resid = self.y[None, :] - theta @ self.design.T
+        log_like = -0.5 * np.sum(resid**2, axis=1) / self.sigma**2
+        log_prior = -0.5 * np.sum(theta**2, axis=1) / self.tau**2
+        total = log_like + log_prior
+        # Two blobs (a derived quantity and a constant) to exercise blob storage.
+        return np.column_stack([total, theta.sum(axis=1), np.full(len(theta), 7.0)])
+
+    def start(self, nwalkers: int, seed: int = 1) -> np.ndarray:
+        return np.random.default_rng(seed).normal(0.0, 1.0, (nwalkers, 3))
+
+
+class Interrupting(LinearGaussian):
+    """The same model, but the run is interrupted (as by Ctrl-C) at call `stop_at`."""
+
+    def __init__(self, stop_at: int, **kwargs):
+        super().__init__(**kwargs)
+        self.stop_at = stop_at
+
+    def __call__(self, theta):
+        if self.calls == self.stop_at:
+            raise KeyboardInterrupt
+        return super().__call__(theta)
+
+
+def _run(model, *, seed=5, path=None, resume=False, **kwargs):
+    options = dict(seed=seed, nblobs=2, ess_target=1500, tau_multiple=50,
+                   max_steps=5000, check_interval=100, quiet=True)
+    options.update(kwargs)
+    return run_chain(model, model.start(32), path=path, resume=resume, **options)
+
+
+def test_linear_gaussian_posterior_mean_and_covariance():
+    model = LinearGaussian()
+    result = _run(model)
+    assessment = result.assessment
+    assert assessment["converged"]
+    kept = result.chain[assessment["discard"]:].reshape(-1, 3)
+    ess = assessment["ess"]
+    sd = np.sqrt(np.diag(model.cov))
+    # Monte Carlo standard error of a mean is sd / sqrt(ESS); 4 of them is a 1-in-15000 miss.
+    np.testing.assert_array_less(np.abs(kept.mean(axis=0) - model.mean), 4 * sd / np.sqrt(ess))
+    # Relative standard error of a sample sd is about 1 / sqrt(2 ESS) (Gaussian case).
+    np.testing.assert_array_less(np.abs(kept.std(axis=0) / sd - 1), 4 / np.sqrt(2 * ess))
+    corr = np.corrcoef(kept.T)
+    true_corr = model.cov / np.outer(sd, sd)
+    # Correlations: standard error (1 - rho^2) / sqrt(ESS), loosened to 0.05 absolute
+    # because ESS differs between the parameter pairs.
+    np.testing.assert_allclose(corr, true_corr, atol=0.05)
+    # Quantiles against scipy.stats.norm quantiles of the exact marginals, within 4 Monte
+    # Carlo standard errors of a sample p-quantile, sqrt(p (1 - p) / ESS) / density there
+    # (asymptotic normality of sample quantiles; e.g. van der Vaart 1998, Cor. 21.5).
+    p = np.array([0.025, 0.16, 0.84, 0.975])[:, None]
+    exact = stats.norm.ppf(p, loc=model.mean, scale=sd)
+    density = stats.norm.pdf(exact, loc=model.mean, scale=sd)
+    se = np.sqrt(p * (1 - p) / ess) / density
+    np.testing.assert_array_less(np.abs(np.quantile(kept, p[:, 0], axis=0) - exact), 4 * se)
+
+
+def test_blobs_are_stored_and_match_positions():
+    model = LinearGaussian()
+    result = _run(model, ess_target=200, tau_multiple=5, max_steps=400)
+    assert result.blobs.shape == result.chain.shape[:2] + (2,)
+    np.testing.assert_allclose(result.blobs[..., 0], result.chain.sum(axis=2), rtol=1e-12)
+    assert np.all(result.blobs[..., 1] == 7.0)
+    assert 0.1 < result.acceptance.mean() < 0.9  # sensible moves on a Gaussian
+
+
+def test_autocorrelation_time_of_ar1_process():
+    # AR(1) x_t = rho x_{t-1} + e_t has tau = (1 + rho) / (1 - rho) (Sokal 1997).
+    rho, nsteps, nwalkers = 0.8, 20000, 8
+    rng = np.random.default_rng(3)
+    x = np.zeros((nsteps, nwalkers, 1))
+    noise = rng.normal(size=(nsteps, nwalkers, 1))
+    for t in range(1, nsteps):
+        x[t] = rho * x[t - 1] + noise[t]
+    assessment = assess_chain(x, tau_multiple=50, ess_target=100)
+    # 10 %: the windowed estimator is biased low by a few % and has ~3 % scatter here.
+    np.testing.assert_allclose(assessment["tau"][0], (1 + rho) / (1 - rho), rtol=0.1)
+    kept = nsteps - assessment["discard"]
+    np.testing.assert_allclose(assessment["ess"], kept * nwalkers / assessment["tau"])
+    assert assessment["converged"]
+
+
+def test_same_seed_same_chain_and_different_seed_different_chain():
+    first = _run(LinearGaussian(), seed=11, ess_target=300, max_steps=600)
+    second = _run(LinearGaussian(), seed=11, ess_target=300, max_steps=600)
+    other = _run(LinearGaussian(), seed=12, ess_target=300, max_steps=600)
+    np.testing.assert_array_equal(first.chain, second.chain)
+    np.testing.assert_array_equal(first.log_prob, second.log_prob)
+    np.testing.assert_array_equal(first.blobs, second.blobs)
+    assert not np.array_equal(first.chain, other.chain)
+
+
+def test_resume_after_interruption_equals_uninterrupted_run(tmp_path):
+    reference = _run(LinearGaussian(), path=tmp_path / "whole.h5")
+    # Each step makes two calls (one per half-ensemble); stop in the middle of chunk 4.
+    broken = Interrupting(stop_at=2 * 350 + 7)
+    path = tmp_path / "broken.h5"
+    with pytest.raises(KeyboardInterrupt):
+        _run(broken, path=path)
+    stored, _ = read_chain(path)
+    assert stored.nsteps == 300  # the three finished chunks, nothing half-written
+    resumed = _run(LinearGaussian(), path=path, resume=True)
+    assert resumed.resumed_from == 300
+    np.testing.assert_array_equal(resumed.chain, reference.chain)
+    np.testing.assert_array_equal(resumed.log_prob, reference.log_prob)
+    np.testing.assert_array_equal(resumed.blobs, reference.blobs)
+    np.testing.assert_array_equal(resumed.accepted, reference.accepted)
+    assert resumed.assessment["converged"] == reference.assessment["converged"]
+
+
+def test_chain_file_is_readable_by_emcee(tmp_path):
+    path = tmp_path / "chain.h5"
+    result = _run(LinearGaussian(), path=path, ess_target=200, tau_multiple=5, max_steps=300)
+    backend = emcee.backends.HDFBackend(str(path), read_only=True)
+    np.testing.assert_array_equal(backend.get_chain(), result.chain)
+    np.testing.assert_array_equal(backend.get_log_prob(), result.log_prob)
+    np.testing.assert_array_equal(backend.get_blobs(), result.blobs)
+    np.testing.assert_array_equal(backend.accepted, result.accepted)
+    # The stored generator state is the one after the last step: resuming continues it.
+    assert backend.get_last_sample().random_state[0] == "MT19937"
+    copy = tmp_path / "copy.h5"
+    write_chain(copy, result)
+    with h5py.File(copy) as f:
+        np.testing.assert_array_equal(f["mcmc/chain"][...], result.chain)
+
+
+def test_step_cap_warns_and_flags_not_converged():
+    with pytest.warns(NotConvergedWarning, match="NOT converged after 200 steps") as record:
+        result = _run(LinearGaussian(), ess_target=10**6, max_steps=200)
+    assert not result.assessment["converged"]
+    assert result.nsteps == 200
+    assert record[0].message.steps == 200
+    assert record[0].message.tau is not None
+
+
+def test_resume_refuses_missing_or_foreign_chain(tmp_path):
+    with pytest.raises(InputError, match="no interrupted run to resume"):
+        _run(LinearGaussian(), path=tmp_path / "none.h5", resume=True)
+    path = tmp_path / "chain.h5"
+    _run(LinearGaussian(), path=path, meta={"seed": 1}, ess_target=100, tau_multiple=5,
+         max_steps=100)
+    with pytest.raises(InputError, match="stored run has seed = 1 but this run has 2"):
+        _run(LinearGaussian(), path=path, resume=True, meta={"seed": 2})
+
+
+def test_split_rhat_near_one_for_mixed_and_large_for_stuck_chains():
+    rng = np.random.default_rng(0)
+    mixed = rng.normal(size=(2000, 16, 2))
+    # iid chains: R-hat - 1 is of order 1 / (number of draws); 0.01 is common practice.
+    np.testing.assert_allclose(split_rhat(mixed), 1.0, atol=0.01)
+    stuck = mixed + np.linspace(-2, 2, 16)[None, :, None]  # walkers at different means
+    assert np.all(split_rhat(stuck) > 1.5)
