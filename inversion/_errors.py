@@ -125,11 +125,16 @@ def suggest(word: str, valid: Iterable[str]) -> str:
     --------
     >>> suggest("wter", ["water", "solidus_shift"])
     "; did you mean 'water'?"
+    >>> suggest("melt", ["crustal_thickness", "melt_thickness"])
+    "; did you mean 'melt_thickness'?"
     >>> suggest("zzz", ["top", "pooled"])
     "; valid choices: 'top', 'pooled'"
     """
-    valid = list(valid)
-    close = difflib.get_close_matches(str(word), valid, n=1, cutoff=0.6)
+    valid = [str(v) for v in valid]
+    word = str(word)
+    close = difflib.get_close_matches(word, valid, n=1, cutoff=0.6)
+    if not close and word:  # an abbreviation such as 'melt' for 'melt_thickness'
+        close = [v for v in valid if v.lower().startswith(word.lower())][:1]
     if close:
         return f"; did you mean '{close[0]}'?"
     return "; valid choices: " + ", ".join(f"'{v}'" for v in valid)

@@ -184,10 +184,13 @@ class Study:
 
     Examples
     --------
-    >>> study = Study.from_file(EXAMPLE_STUDY)          # doctest: +SKIP
-    >>> study.free_parameters                           # doctest: +SKIP
+    >>> import demo_data
+    >>> study = Study.from_file(demo_data.study_path())
+    >>> study.free_parameters
     ('potential_temperature', 'lithosphere_thickness', 'solidus_shift')
-    >>> hotter = study.with_overrides({"potential_temperature": 1450.0})   # doctest: +SKIP
+    >>> hotter = study.with_overrides({"potential_temperature": 1450.0})
+    >>> hotter.free_parameters, hotter.fixed["potential_temperature"]
+    (('lithosphere_thickness', 'solidus_shift'), 1450.0)
     """
 
     name: str
@@ -340,8 +343,11 @@ class Study:
 
         Examples
         --------
+        >>> import demo_data
+        >>> study = Study.from_file(demo_data.study_path())
         >>> dry = study.with_overrides({"water": 0.0}, parameterization="mckenzie-bickle1988")
-        ... # doctest: +SKIP
+        >>> dry.model.parameterization, dry.fixed["water"]
+        ('mckenzie-bickle1988', 0.0)
         """
         _check_keys(model_settings, _MODEL_KEYS, "model")
         model = dataclasses.replace(self.model, **model_settings)

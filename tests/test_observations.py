@@ -1,0 +1,417 @@
+"""Observation tables and likelihoods: hand-computed Gaussians, quadrature, penalty, rules."""
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+from scipy import integrate, stats
+
+import forward
+from inversion._errors import InputError
+from inversion.observations import (
+    KINDS,
+    NO_MELT_OFFSET,
+    CrustalThickness,
+    MeltingPressure,
+    melting_distance,
+)
+
+DATA = Path(__file__).parent / "data"
+
+
+# ---- a melting column with closed-form paths -------------------------------------------------
+
+
+@dataclass
+class FakePath:
+    pressure: np.ndarray
+    depth: np.ndarray
+    temperature: np.ndarray
+    melt_fraction: np.ndarray
+    weight: np.ndarray
+
+
+class ConstantProductivityColumn:
+    """Melting columns with constant productivity (F linear in P) and T linear in P.
+
+    Implements the parts of forward.MeltColumn the observation kinds use. The path is built
+    exactly as forward documents it: midpoints of `num` equal-pressure intervals, weights
+    the melt fraction made in each (here equal).
+    """
+
+    def __init__(self, top, onset, *, t_top=1350.0, t_slope=60.0, crust=7.0, melt=6.0,
+                 melts=None):
+        self.top_pressure = np.asarray(top, float)
+        self.onset_pressure = np.asarray(onset, float)
+        self.onset_depth = self.onset_pressure * 30.89
+        self.top_depth = self.top_pressure * 30.89
+        self.produces_melt = (self.onset_pressure > self.top_pressure if melts is None
+                              else np.asarray(melts, bool))
+        shape = self.top_pressure.shape
+        self.crustal_thickness = np.where(self.produces_melt, np.broadcast_to(crust, shape), 0.0)
+        self.melt_thickness = np.where(self.produces_melt, np.broadcast_to(melt, shape), 0.0)
+        self.mean_melting_pressure = np.where(
+            self.produces_melt, 0.5 * (self.top_pressure + self.onset_pressure), self.top_pressure)
+        self.t_top, self.t_slope = t_top, t_slope
+
+    def temperature_at(self, pressure):
+        return self.t_top + self.t_slope * (pressure - self.top_pressure[..., None])
+
+    def profile(self, pressure):
+        pressure = np.asarray(pressure, float)
+        return self.temperature_at(pressure), np.zeros(np.broadcast(
+            pressure, self.top_pressure[..., None]).shape)
+
+    def path(self, num=64):
+        top, onset = self.top_pressure[..., None], self.onset_pressure[..., None]
+        edges = top + (np.maximum(onset, top) - top) * np.linspace(0.0, 1.0, num + 1)
+        mids = 0.5 * (edges[..., 1:] + edges[..., :-1])
+        weight = np.where(self.produces_melt[..., None], 1.0 / num, 0.0) * np.ones(num)
+        return FakePath(mids, mids * 30.89, self.temperature_at(mids), np.zeros_like(mids),
+                        weight)
+
+
+def _frame(**columns):
+    return pd.DataFrame(columns)
+
+
+PRESSURES = _frame(sample=["a", "b", "c"], pressure_gpa=[1.2, 1.9, 2.6],
+                   sigma_gpa=[0.2, 0.15, 0.3])
+PT = PRESSURES.assign(temperature_c=[1360.0, 1400.0, 1420.0], sigma_c=[25.0, 30.0, 20.0])
+
+
+# ---- crustal thickness ------------------------------------------------------------------------
+
+
+def test_crust_loglike_is_a_sum_of_gaussians_with_model_error():
+    obs = CrustalThickness.from_frame(
+        _frame(site=["A", "B"], thickness_km=[7.0, 8.2], sigma_km=[0.8, 1.1]), model_error=0.5)
+    column = ConstantProductivityColumn([1.0, 1.2], [3.0, 3.1], crust=[6.5, 9.0],
+                                        melt=[5.7, 7.9])
+    sd = np.hypot([0.8, 1.1], 0.5)  # quadrature sum
+    expected = [stats.norm.logpdf([7.0, 8.2], loc=m, scale=sd).sum() for m in (6.5, 9.0)]
+    assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
+    melt = CrustalThickness.from_frame(obs.data, model_error=0.5, compare_to="melt_thickness")
+    expected = [stats.norm.logpdf([7.0, 8.2], loc=m, scale=sd).sum() for m in (5.7, 7.9)]
+    assert_allclose(melt.log_likelihood(column), expected, rtol=1e-12)
+    assert obs.predict(column)["value"].shape == (2, 2)
+    assert_allclose(obs.predict(column)["value"][1], [9.0, 9.0])
+
+
+def test_crust_against_the_real_forward_model():
+    study_obs = CrustalThickness.from_spec({"file": "crust.csv", "kind": "crustal_thickness"},
+                                           base_dir=DATA)
+    column = forward.melt_column(np.array([1350.0, 1450.0]), np.array([20.0, 40.0]))
+    sd = study_obs.data["sigma_km"].to_numpy()
+    expected = [stats.norm.logpdf(study_obs.values, loc=m, scale=sd).sum()
+                for m in column.crustal_thickness]
+    assert_allclose(study_obs.log_likelihood(column), expected, rtol=1e-12)
+
+
+# ---- melting pressures: top and pooled ---------------------------------------------------------
+
+
+def test_top_pressure_and_temperature_against_scipy():
+    column = ConstantProductivityColumn([1.1, 1.5], [3.2, 2.9], t_top=1340.0)
+    obs = MeltingPressure.from_frame(PT, model_error=0.1, temperature_model_error=15.0)
+    sp, st = np.hypot(PT.sigma_gpa, 0.1), np.hypot(PT.sigma_c, 15.0)
+    expected = [stats.norm.logpdf(PT.pressure_gpa, p, sp).sum()
+                + stats.norm.logpdf(PT.temperature_c, 1340.0, st).sum() for p in (1.1, 1.5)]
+    assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
+    pressure_only = MeltingPressure.from_frame(PRESSURES)
+    expected = [stats.norm.logpdf(PRESSURES.pressure_gpa, p, PRESSURES.sigma_gpa).sum()
+                for p in (1.1, 1.5)]
+    assert_allclose(pressure_only.log_likelihood(column), expected, rtol=1e-12)
+
+
+def test_pooled_uses_mean_pressure_and_path_mean_temperature():
+    column = ConstantProductivityColumn([1.0], [3.0], t_top=1330.0, t_slope=50.0)
+    obs = MeltingPressure.from_frame(PT, equilibration="pooled")
+    # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (SCIENCE.md section 5), and
+    # the melt-weighted mean of a linear T(P) is T at that pressure, 1330 + 50 * 1.0.
+    expected = (stats.norm.logpdf(PT.pressure_gpa, 2.0, PT.sigma_gpa).sum()
+                + stats.norm.logpdf(PT.temperature_c, 1380.0, PT.sigma_c).sum())
+    assert_allclose(obs.log_likelihood(column), [expected], rtol=1e-10)
+    pred = obs.predict(column)
+    assert_allclose(pred["value"], [[2.0] * 3])
+    assert_allclose(pred["temperature"], [[1380.0] * 3])
+    assert_allclose(pred["low"], [[1.0] * 3]) and assert_allclose(pred["high"], [[3.0] * 3])
+
+
+# ---- melting pressures: the path marginal ------------------------------------------------------
+
+
+def _closed_form_path(obs, sd, top, onset):
+    # Uniform equilibration pressure on [top, onset] convolved with a Gaussian:
+    # (Phi((P0 - y)/s) - Phi((Pf - y)/s)) / (P0 - Pf).
+    return np.log((stats.norm.cdf((onset - obs) / sd) - stats.norm.cdf((top - obs) / sd))
+                  / (onset - top))
+
+
+def test_path_marginal_against_closed_form():
+    column = ConstantProductivityColumn([1.0, 0.6], [3.0, 2.2])
+    exact = [_closed_form_path(PRESSURES.pressure_gpa, PRESSURES.sigma_gpa, t, o).sum()
+             for t, o in ((1.0, 3.0), (0.6, 2.2))]
+    fine = MeltingPressure.from_frame(PRESSURES, equilibration="path", path_points=1024)
+    assert_allclose(fine.log_likelihood(column), exact, rtol=1e-6)
+    coarse = MeltingPressure.from_frame(PRESSURES, equilibration="path", path_points=64)
+    # Loose: the midpoint rule on 64 intervals errs by about (h / sigma)^2 / 24 ~ 1e-3
+    # of each row's likelihood (h = 0.03 GPa, sigma = 0.15 GPa).
+    assert_allclose(coarse.log_likelihood(column), exact, rtol=5e-3)
+
+
+def test_path_marginal_with_temperature_against_quadrature():
+    top, onset, t_top, slope = 1.0, 3.0, 1330.0, 50.0
+    column = ConstantProductivityColumn([top], [onset], t_top=t_top, t_slope=slope)
+    obs = MeltingPressure.from_frame(PT, equilibration="path", path_points=512)
+    expected = 0.0
+    for _, row in PT.iterrows():
+        def integrand(p, row=row):
+            return (stats.norm.pdf(row.pressure_gpa, p, row.sigma_gpa)
+                    * stats.norm.pdf(row.temperature_c, t_top + slope * (p - top), row.sigma_c)
+                    / (onset - top))
+        value, _ = integrate.quad(integrand, top, onset, epsabs=0, epsrel=1e-10)
+        expected += np.log(value)
+    assert_allclose(obs.log_likelihood(column), [expected], rtol=1e-5)
+
+
+# forward tabulates F, so its slope has small kinks; quad warns about roundoff there
+# although the integral agrees with the path marginal to ~1e-6.
+@pytest.mark.filterwarnings("ignore::scipy.integrate.IntegrationWarning")
+@pytest.mark.parametrize("geometry", ["column", "ridge"])
+def test_path_marginal_real_forward_against_slow_quadrature(geometry):
+    # Reference route: adaptive quadrature of the same marginal written without the path
+    # or its weights. The equilibration-pressure density is -dF/dP (column) or
+    # -dF/dP (P0 - P) (ridge; Plank & Langmuir 1992 triangle), with F(P) from
+    # MeltColumn.profile. Integrating by parts avoids differentiating F:
+    #   int g(P) (-dF/dP) dP = g(Pf) F(Pf) + int F(P) g'(P) dP      (F(P0) = 0)
+    # with g = N(y; P, s) for the column and g = N(y; P, s) (P0 - P) for the ridge.
+    column = forward.melt_column(np.array([1420.0]), np.array([30.0]), geometry=geometry)
+    top, onset = float(column.top_pressure[0]), float(column.onset_pressure[0])
+
+    def melt_fraction(p):
+        return float(column.profile(np.array([p]))[1][0, 0])
+
+    def width(p):
+        return (onset - p) if geometry == "ridge" else 1.0
+
+    def d_width(p):
+        return -1.0 if geometry == "ridge" else 0.0
+
+    def marginal(g, dg):
+        body, _ = integrate.quad(lambda p: melt_fraction(p) * dg(p), top, onset,
+                                 epsabs=1e-12, epsrel=1e-7, limit=200)
+        return g(top) * melt_fraction(top) + body
+
+    norm = marginal(width, d_width)
+    obs = MeltingPressure.from_frame(PRESSURES, equilibration="path", path_points=512)
+    expected = 0.0
+    for y, s in zip(PRESSURES.pressure_gpa, PRESSURES.sigma_gpa, strict=True):
+        def g(p, y=y, s=s):
+            return stats.norm.pdf(y, p, s) * width(p)
+
+        def dg(p, y=y, s=s):
+            pdf = stats.norm.pdf(y, p, s)
+            return pdf * (y - p) / s**2 * width(p) + pdf * d_width(p)
+
+        expected += np.log(marginal(g, dg) / norm)
+    # Loose-ish (measured 3-4e-6): the midpoint rule on 512 intervals of ~0.004 GPa against
+    # sigma >= 0.15 GPa, and quad on a tabulated F, each err by about 1e-6.
+    assert_allclose(obs.log_likelihood(column), [expected], rtol=2e-5)
+
+
+def test_path_is_vectorised_over_columns():
+    tps = np.array([1350.0, 1400.0, 1450.0, 1500.0])
+    lids = np.array([10.0, 30.0, 50.0, 70.0])
+    column = forward.melt_column(tps, lids)
+    obs = MeltingPressure.from_frame(PT, equilibration="path", path_points=32)
+    together = obs.log_likelihood(column)
+    one_by_one = [obs.log_likelihood(forward.melt_column(tps[i:i + 1], lids[i:i + 1]))[0]
+                  for i in range(4)]
+    assert together.shape == (4,)
+    assert_allclose(together, one_by_one, rtol=1e-12)
+
+
+# ---- no melt: finite, steep, sloping -----------------------------------------------------------
+
+
+def _params(tp, lid):
+    tp, lid = np.broadcast_arrays(np.asarray(tp, float), np.asarray(lid, float))
+    return {"potential_temperature": tp, "lithosphere_thickness": lid,
+            "solidus_shift": np.zeros_like(tp)}
+
+
+@pytest.mark.parametrize("equilibration", ["top", "pooled", "path"])
+def test_no_melt_penalty_is_finite_and_slopes_toward_melting(equilibration):
+    obs = MeltingPressure.from_frame(PT, equilibration=equilibration, path_points=16)
+    tp = np.full(6, 1350.0)
+    lids = np.array([60.0, 90.0, 100.0, 120.0, 160.0, 250.0])  # onset at 1350 degC: 82 km
+    column = forward.melt_column(tp, lids)
+    ll = obs.log_likelihood(column, parameters=_params(tp, lids))
+    assert np.all(np.isfinite(ll))
+    assert column.produces_melt[0] and not column.produces_melt[1:].any()
+    assert np.all(np.diff(ll[1:]) < 0)  # thicker lid, further from melting: lower
+    assert ll[0] - ll[1] > len(obs) * NO_MELT_OFFSET * 0.5  # a steep step at the boundary
+    # Mantle too cold to meet the solidus at all (onset depth 0): still finite, and
+    # lower the colder it is, so an optimiser is led toward hotter mantle.
+    cold = np.array([1000.0, 1030.0, 1060.0])
+    column = forward.melt_column(cold, np.zeros(3))
+    assert np.all(column.onset_depth == 0.0)
+    ll = obs.log_likelihood(column, parameters=_params(cold, 0.0))
+    assert np.all(np.isfinite(ll)) and np.all(np.diff(ll) > 0)
+
+
+def test_crust_no_melt_keeps_the_zero_thickness_gaussian_and_slopes():
+    obs = CrustalThickness.from_spec({"file": "crust.csv"}, base_dir=DATA)
+    tp, lids = np.full(3, 1350.0), np.array([90.0, 120.0, 150.0])
+    column = forward.melt_column(tp, lids)
+    ll = obs.log_likelihood(column, parameters=_params(tp, lids))
+    gaussian_at_zero = stats.norm.logpdf(obs.values, 0.0, obs.sigma).sum()
+    distance = melting_distance(column, _params(tp, lids))
+    assert_allclose(distance, lids - column.onset_depth, rtol=1e-12)
+    # 4 rows record crust, 1 nat per km of distance per row (NO_MELT_SLOPE).
+    assert_allclose(ll, gaussian_at_zero - 4 * 1.0 * distance, rtol=1e-12)
+    # Without parameters the penalty has no slope but stays finite.
+    assert_allclose(obs.log_likelihood(column), gaussian_at_zero, rtol=1e-12)
+
+
+def test_loglike_finite_across_the_whole_domain():
+    rng = np.random.default_rng(11)
+    n = 300
+    params = {name: rng.uniform(*forward.PARAMETER_DOMAIN[name], n) for name in
+              ("potential_temperature", "lithosphere_thickness", "solidus_shift")}
+    params["water"] = rng.uniform(0.0, 1000.0, n)
+    column = forward.melt_column(params["potential_temperature"],
+                                 params["lithosphere_thickness"], water=params["water"],
+                                 solidus_shift=params["solidus_shift"])
+    blocks = [CrustalThickness.from_spec({"file": "crust.csv"}, base_dir=DATA)] + [
+        MeltingPressure.from_frame(PT, equilibration=e, path_points=16)
+        for e in ("top", "pooled", "path")]
+    for block in blocks:
+        ll = block.log_likelihood(column, parameters=params)
+        assert ll.shape == (n,) and np.all(np.isfinite(ll)), block.describe()
+
+
+# ---- simulation from the likelihood ------------------------------------------------------------
+
+
+def test_simulate_is_seeded_and_centred_on_the_model():
+    column = ConstantProductivityColumn([1.0], [3.0], crust=[7.5])
+    crust = CrustalThickness.from_frame(_frame(site=["A"] * 400, thickness_km=[7.0] * 400,
+                                               sigma_km=[0.8] * 400))
+    a = crust.simulate(column, np.random.default_rng(4))
+    b = crust.simulate(column, np.random.default_rng(4))
+    assert_allclose(a.values, b.values)
+    assert abs(a.values.mean() - 7.5) < 5 * 0.8 / np.sqrt(400)  # 5 standard errors
+    path = MeltingPressure.from_frame(
+        _frame(sample=["s"] * 400, pressure_gpa=[2.0] * 400, sigma_gpa=[0.1] * 400),
+        equilibration="path")
+    sim = path.simulate(column, np.random.default_rng(5))
+    # Uniform equilibration on [1, 3] GPa plus N(0, 0.1^2): mean 2, variance 1/3 + 0.01.
+    assert abs(sim.values.mean() - 2.0) < 5 * np.sqrt(1 / 3 + 0.01) / np.sqrt(400)
+    assert sim.equilibration == "path" and sim.lines == path.lines
+    with pytest.raises(ValueError, match="one parameter vector"):
+        crust.simulate(ConstantProductivityColumn([1.0, 1.0], [3.0, 3.0]),
+                       np.random.default_rng(1))
+
+
+# ---- reading tables: every rule (issue 3, item 6) -------------------------------------------------
+
+CRUST = {"kind": "crustal_thickness", "file": "t.csv"}
+BASALT = {"kind": "melting_pressure", "file": "t.csv"}
+
+TABLE_CASES = {
+    "missing-column": (CRUST, "site,thickness,sigma_km\nA,7,1\n",
+                       r"t.csv, row 1, column 'thickness_km': missing column 'thickness_km' \(found: site, thickness, sigma_km\); did you mean 'thickness'"),
+    "semicolons": (CRUST, "site;thickness_km;sigma_km\nA;7;1\n",
+                   r"missing column 'site'.*is the file comma-separated\?"),
+    "non-numeric": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,seven,1\n",
+                    r"t.csv, row 3, column 'thickness_km': 'seven' is not a number"),
+    "nan": (CRUST, "site,thickness_km,sigma_km\nA,NaN,1\n",
+            r"row 2, column 'thickness_km': value 'NaN' \(NaN\) is not allowed"),
+    "infinite": (CRUST, "site,thickness_km,sigma_km\nA,inf,1\n", r"value 'inf' is not a finite number"),
+    "empty-cell": (CRUST, "site,thickness_km,sigma_km\nA,,1\n",
+                   r"row 2, column 'thickness_km': empty cell"),
+    "empty-name": (CRUST, "site,thickness_km,sigma_km\n,7,1\n", r"column 'site': empty cell"),
+    "sigma-zero": (CRUST, "site,thickness_km,sigma_km\nA,7,0\n",
+                   r"row 2, column 'sigma_km': value 0 must be > 0 km"),
+    "sigma-negative": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,1.5,-0.2\n",
+                       r"column 'sigma_gpa': value -0.2 must be > 0 GPa"),
+    "negative-thickness": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,-2,1\n",
+                           r"row 3, column 'thickness_km': value -2 must be >= 0 km \(a thickness cannot be negative\)"),
+    "pressure-high": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,12.5,0.2\n",
+                      r"column 'pressure_gpa': value 12.5 must be between 0 and 10 GPa"),
+    "pressure-negative": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,-0.1,0.2\n",
+                          r"value -0.1 must be between 0 and 10 GPa"),
+    "temperature-kelvin": (BASALT, "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\nA,1,0.2,2650,20\n",
+                           r"column 'temperature_c': value 2650 must be between 800 and 2000 degC"),
+    "sigma-c-zero": (BASALT, "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\nA,1,0.2,1350,0\n",
+                     r"column 'sigma_c': value 0 must be > 0 degC"),
+    "temperature-without-sigma": (BASALT, "sample,pressure_gpa,sigma_gpa,temperature_c\nA,1,0.2,1350\n",
+                                  r"missing column 'sigma_c', needed together with temperature_c"),
+    "field-count": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,7\n",
+                    r"row 3: has 2 fields but the header \(line 1\) has 3"),
+    "empty-file": (CRUST, "\n# nothing here\n", r"the file is empty"),
+    "header-only": (CRUST, "site,thickness_km,sigma_km\n", r"row 1: no data rows"),
+    "duplicate-column": (CRUST, "site,thickness_km,sigma_km,site\nA,7,1,B\n",
+                         r"column 'site': column 'site' appears twice"),
+}
+
+
+@pytest.mark.parametrize("case", list(TABLE_CASES))
+def test_bad_table(tmp_path, case):
+    spec, text, match = TABLE_CASES[case]
+    (tmp_path / "t.csv").write_text(text)
+    with pytest.raises(InputError, match=match) as info:
+        KINDS[spec["kind"]].from_spec(spec, base_dir=tmp_path, where="observations[1]")
+    assert "\n" not in str(info.value)
+    assert str(info.value).startswith(str(tmp_path / "t.csv"))
+
+
+def test_missing_table_file(tmp_path):
+    with pytest.raises(InputError, match=r"t.csv, key 'observations\[1\].file': observation "
+                                         r"file not found"):
+        CrustalThickness.from_spec(CRUST, base_dir=tmp_path, where="observations[1]")
+
+
+def test_comments_blank_lines_bom_and_extra_columns(tmp_path):
+    text = ("\ufeff# source: invented survey\n\nsite,thickness_km,sigma_km,note\n"
+            "A,7.0,0.8,first\n# a comment between rows\n\nB,6.0,-1,second\n")
+    (tmp_path / "t.csv").write_text(text, encoding="utf-8")
+    # The bad row is on line 7 of the file as an editor shows it.
+    with pytest.raises(InputError, match=r"row 7, column 'sigma_km'"):
+        CrustalThickness.from_spec(CRUST, base_dir=tmp_path)
+    (tmp_path / "t.csv").write_text(text.replace("-1", "1.2"), encoding="utf-8")
+    obs = CrustalThickness.from_spec(CRUST, base_dir=tmp_path)
+    assert obs.ids == ("A", "B") and obs.lines == (4, 7)
+    assert list(obs.data["note"]) == ["first", "second"]
+    assert obs.data["thickness_km"].dtype == float
+
+
+def test_unknown_option_key_for_a_kind():
+    with pytest.raises(InputError, match=r"observations\[1\].equilibration': unknown key "
+                                         r"'equilibration' for kind 'crustal_thickness'"):
+        CrustalThickness.from_spec({**CRUST, "equilibration": "top"}, base_dir=DATA,
+                                   where="observations[1]")
+
+
+@pytest.mark.parametrize(("options", "match"), [
+    ({"path_points": 3}, r"path_points': 3 must be a whole number from 8 to 1024"),
+    ({"path_points": 64.0}, r"64.0 must be a whole number"),
+    ({"temperature_model_error": -5.0}, r"temperature_model_error': -5 must be >= 0"),
+])
+def test_bad_pressure_options(options, match):
+    with pytest.raises(InputError, match=match):
+        MeltingPressure.from_frame(PRESSURES, **options)
+
+
+def test_observed_and_describe():
+    obs = MeltingPressure.from_frame(PT, model_error=0.1, equilibration="path")
+    seen = obs.observed()
+    assert set(seen) == {"value", "sigma", "temperature", "temperature_sigma"}
+    assert_allclose(seen["sigma"], np.hypot(PT.sigma_gpa, 0.1))
+    assert "3 melting pressure-temperature point(s)" in obs.describe()
+    assert "weighted by melt production" in obs.describe()
