@@ -274,8 +274,12 @@ def test_crust_no_melt_keeps_the_zero_thickness_gaussian_and_slopes():
     assert_allclose(distance, lids - column.onset_depth, rtol=1e-12)
     # 4 rows record crust, 1 nat per km of distance per row (NO_MELT_SLOPE).
     assert_allclose(ll, gaussian_at_zero - 4 * 1.0 * distance, rtol=1e-12)
-    # Without parameters the penalty has no slope but stays finite.
-    assert_allclose(obs.log_likelihood(column), gaussian_at_zero, rtol=1e-12)
+    # forward's column carries its lid thickness, so the parameters are not needed.
+    assert_allclose(obs.log_likelihood(column), ll, rtol=1e-12)
+    # A column that carries no lid thickness, and no parameters: finite, no slope.
+    dry = ConstantProductivityColumn([2.0, 2.5], [2.0, 2.5])
+    assert not dry.produces_melt.any()
+    assert_allclose(obs.log_likelihood(dry), gaussian_at_zero, rtol=1e-12)
 
 
 def test_loglike_finite_across_the_whole_domain():

@@ -16,13 +16,16 @@ direction to move) the log-likelihood of each row that records melt is lowered b
     NO_MELT_OFFSET_kind + NO_MELT_SLOPE * d
 
 where d (km, `melting_distance`) is how far the point is from making melt: the lid
-thickness below the onset depth, plus, for mantle too cold to melt at all, the extra
-height the onset would need, estimated as (1100 degC - (Tp - solidus shift)) / 3.66 degC/km
-(the surface solidus of dry peridotite, about 1086-1100 degC, and the difference between
-the solidus and adiabat slopes, about 113 K/GPa; SCIENCE.md sections 1-3, value used only
-to give the penalty its direction). The penalty is finite, never NaN, and grows steadily
-away from the melting boundary, so the search slopes back toward melting. It needs the
-parameter values (``parameters=`` of `log_likelihood`); without them d is 0.
+thickness below the onset depth or, for mantle too cold to meet the solidus at all
+(onset depth 0), the lid thickness plus the height the onset would have to rise: the
+amount (K) by which the adiabat misses the solidus (``MeltColumn.solidus_margin``; for a
+column without it, 1100 degC - (Tp - solidus shift), 1100 degC being about the surface
+solidus of dry peridotite) divided by 3.66 K/km, the difference between the solidus and
+adiabat slopes (about 113 K/GPa at 30.89 km/GPa; SCIENCE.md sections 1-3; the value only
+sets the penalty's direction and scale). The penalty is finite, never NaN, and grows
+steadily away from the melting boundary, so the search slopes back toward melting. The
+lid thickness comes from the column (``MeltColumn.lithosphere_thickness``) or from
+``parameters=`` of `log_likelihood`; without either, d is 0 and the penalty is constant.
 """
 
 from __future__ import annotations
@@ -67,11 +70,14 @@ def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
     Parameters
     ----------
     column : forward.MeltColumn
-        Melting columns, shape (n,) (any shape works).
+        Melting columns, shape (n,) (any shape works). Its ``lithosphere_thickness`` and
+        ``solidus_margin`` (K; negative when the adiabat never meets the solidus) are used
+        when present.
     parameters : mapping, optional
         The melt_column inputs per point (``lithosphere_thickness`` in km,
         ``potential_temperature`` and ``solidus_shift`` in degC), each broadcastable to
-        the column shape. Without them the distance is 0.
+        the column shape; used for what the column does not carry. Without either
+        source of the lid thickness the distance is 0.
 
     Returns
     -------
@@ -80,17 +86,29 @@ def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
     """
     shape = np.shape(column.melt_thickness)
     melts = np.asarray(column.produces_melt, bool)
-    if parameters is None or "lithosphere_thickness" not in parameters:
+    parameters = {} if parameters is None else parameters
+    lid = getattr(column, "lithosphere_thickness", parameters.get("lithosphere_thickness"))
+    if lid is None:
         return np.zeros(shape)
-    lid = np.broadcast_to(np.asarray(parameters["lithosphere_thickness"], float), shape)
+    lid = np.broadcast_to(np.asarray(lid, float), shape)
     onset = np.asarray(column.onset_depth, float)
     distance = np.maximum(lid - onset, 0.0)
-    if "potential_temperature" in parameters:
-        theta = np.asarray(parameters["potential_temperature"], float) - np.asarray(
-            parameters.get("solidus_shift", 0.0), float)
-        cold = np.maximum(_COLD_REFERENCE - theta, 0.0) / _COLD_GRADIENT
+    cold = _cold_distance(column, parameters, shape)
+    if cold is not None:
         distance = np.where(onset <= 0.0, lid + cold, distance)
     return np.where(melts, 0.0, distance)
+
+
+def _cold_distance(column, parameters: Mapping, shape) -> np.ndarray | None:
+    """km the onset would have to rise to reach the surface, for too-cold mantle."""
+    margin = getattr(column, "solidus_margin", None)
+    if margin is not None:  # K by which the adiabat misses the solidus (negative)
+        return np.maximum(-np.asarray(margin, float), 0.0) / _COLD_GRADIENT
+    if "potential_temperature" not in parameters:
+        return None
+    theta = np.asarray(parameters["potential_temperature"], float) - np.asarray(
+        parameters.get("solidus_shift", 0.0), float)
+    return np.broadcast_to(np.maximum(_COLD_REFERENCE - theta, 0.0) / _COLD_GRADIENT, shape)
 
 
 class ObservationSet(ABC):
