@@ -149,6 +149,10 @@ class ObservationSet(ABC):
         self.file = None if file is None else Path(file)
         self.model_error = float(model_error)
         self.lines = tuple(range(2, 2 + len(data))) if lines is None else tuple(lines)
+        # The likelihood runs in the sampler's inner loop: convert the columns once.
+        self._values = _frozen(data[self.value_column])
+        self._sigma = _frozen(np.hypot(data[self.sigma_column].to_numpy(float),
+                                       self.model_error))
 
     # ---- construction ------------------------------------------------------------------
 
@@ -220,14 +224,13 @@ class ObservationSet(ABC):
 
     @property
     def values(self) -> np.ndarray:
-        """Measured values, shape (rows,), unit `unit`."""
-        return self.data[self.value_column].to_numpy(float)
+        """Measured values, shape (rows,), unit `unit` (read-only)."""
+        return self._values
 
     @property
     def sigma(self) -> np.ndarray:
-        """Total 1-sigma uncertainty per row incl. model error, shape (rows,)."""
-        sigma = self.data[self.sigma_column].to_numpy(float)
-        return np.hypot(sigma, self.model_error)
+        """Total 1-sigma uncertainty per row incl. model error, shape (rows,) (read-only)."""
+        return self._sigma
 
     def observed(self) -> dict[str, np.ndarray]:
         """Observed values for plotting: ``{"value": (rows,), "sigma": (rows,)}``."""
@@ -283,6 +286,12 @@ class ObservationSet(ABC):
 
     def __repr__(self) -> str:
         return f"<{type(self).__name__} {self.describe()}>"
+
+
+def _frozen(values) -> np.ndarray:
+    array = np.array(values, dtype=float)
+    array.flags.writeable = False
+    return array
 
 
 def _non_negative(value, key: str) -> float:

@@ -36,6 +36,7 @@ from .._errors import InputError, suggest
 from .base import (
     NO_MELT_SLOPE,
     ObservationSet,
+    _frozen,
     _non_negative,
     gaussian_logpdf,
     melting_distance,
@@ -95,6 +96,10 @@ class MeltingPressure(ObservationSet):
         self.equilibration = options["equilibration"]
         self.path_points = options["path_points"]
         self.temperature_model_error = options["temperature_model_error"]
+        if self.has_temperature:
+            self._temperature = _frozen(data["temperature_c"])
+            self._temperature_sigma = _frozen(np.hypot(data["sigma_c"].to_numpy(float),
+                                                       self.temperature_model_error))
 
     @classmethod
     def column_rules(cls, **options):
@@ -144,13 +149,13 @@ class MeltingPressure(ObservationSet):
 
     @property
     def temperature(self) -> np.ndarray:
-        """Observed temperatures, degC, shape (rows,)."""
-        return self.data["temperature_c"].to_numpy(float)
+        """Observed temperatures, degC, shape (rows,) (read-only)."""
+        return self._temperature
 
     @property
     def temperature_sigma(self) -> np.ndarray:
         """Total 1-sigma temperature uncertainty incl. model error, degC, shape (rows,)."""
-        return np.hypot(self.data["sigma_c"].to_numpy(float), self.temperature_model_error)
+        return self._temperature_sigma
 
     def observed(self) -> dict[str, np.ndarray]:
         out = super().observed()
