@@ -217,7 +217,8 @@ class TruncatedNormal(Prior):
         if self.sd <= 0:
             raise ValueError(f"sd = {_fmt(self.sd)} must be > 0")
         if math.isnan(self.min) or math.isnan(self.max) or not self.min < self.max:
-            raise ValueError(f"min ({_fmt(self.min)}) must be less than max ({_fmt(self.max)})")
+            raise ValueError(
+                f"min ({_fmt(self.min)}) must be less than max ({_fmt(self.max)})")
         if math.isinf(self.min) and math.isinf(self.max):
             raise ValueError("a truncated normal needs a finite min or max; use Normal")
         if self._a > 30.0 or self._b < -30.0:  # beyond ~37 sd, Phi underflows to 0
@@ -397,8 +398,8 @@ def prior_from_spec(
 
     if not isinstance(spec, dict):
         raise fail(
-            f"expected a table such as {{ value = ... }} or {{ prior = \"uniform\", min = ..., "
-            f"max = ... }} for '{name}', got {spec!r}"
+            "expected a table such as { value = ... } or { prior = \"uniform\", "
+            f"min = ..., max = ... }} for '{name}', got {spec!r}"
         )
     if "value" in spec:
         return _fixed_from_spec(name, spec, where, fail, domain, exclusive_low)
@@ -477,8 +478,8 @@ def _build_prior(family: str, numbers: dict[str, float], fail, where: str) -> Pr
     if "sd" in numbers and numbers["sd"] <= 0:
         raise fail(f"sd = {_fmt(numbers['sd'])} must be > 0", f"{where}.sd")
     if family == "truncated-normal" and "min" not in numbers and "max" not in numbers:
-        raise fail("a truncated-normal prior needs min, max or both; or use prior = \"normal\"",
-                   where)
+        raise fail("a truncated-normal prior needs min, max or both; or use "
+                   "prior = \"normal\"", where)
     if family == "log-uniform" and numbers["min"] <= 0:
         raise fail(f"min = {_fmt(numbers['min'])} must be > 0 for a log-uniform prior",
                    f"{where}.min")

@@ -113,11 +113,16 @@ def test_with_overrides_makes_a_scenario():
 @pytest.mark.parametrize(
     ("parameters", "settings", "match"),
     [
-        ({"potential_temperatur": 1400.0}, {}, r"key 'parameters.potential_temperatur': unknown parameter.*did you mean 'potential_temperature'"),
-        ({"potential_temperature": 2500.0}, {}, r"fixed value 2500 is outside the physical range \[1000, 1800\]"),
+        ({"potential_temperatur": 1400.0}, {},
+        r"key 'parameters.potential_temperatur': unknown parameter.*did you mean"
+        r" 'potential_temperature'"),
+        ({"potential_temperature": 2500.0}, {},
+            r"fixed value 2500 is outside the physical range \[1000, 1800\]"),
         ({"upwelling_ratio": 0.0}, {}, r"outside the physical range \(0, 20\]"),
-        ({"lithosphere_thickness": Uniform(-5.0, 50.0)}, {}, r"reaches outside the physical range \[0, 400\]"),
-        ({}, {"geometri": "ridge"}, r"key 'model.geometri': unknown key.*did you mean 'geometry'"),
+        ({"lithosphere_thickness": Uniform(-5.0, 50.0)}, {},
+            r"reaches outside the physical range \[0, 400\]"),
+        ({}, {"geometri": "ridge"},
+            r"key 'model.geometri': unknown key.*did you mean 'geometry'"),
         ({}, {"geometry": "sheet"}, r"key 'model.geometry': unknown value 'sheet'"),
     ],
 )
@@ -129,7 +134,8 @@ def test_with_overrides_validates(parameters, settings, match):
 
 def test_dry_parameterization_refuses_free_water():
     study = Study.from_file(DATA / "study.toml")
-    dry = study.with_overrides(parameterization="mckenzie-bickle1988")  # water fixed at 0: fine
+    # water is fixed at 0, so a dry parameterization is fine
+    dry = study.with_overrides(parameterization="mckenzie-bickle1988")
     assert dry.model.supports_water is False
     with pytest.raises(InputError, match=r"parameters.water'.*dry parameterization"):
         study.with_overrides({"water": 50.0}, parameterization="mckenzie-bickle1988")
@@ -168,69 +174,83 @@ CASES = {
                        r"study.toml, line 3: malformed TOML"),
     # misspelt keys at every level, with the nearest valid one
     "misspelt-section": (("[sampler]", "[smapler]"),
-                         r"line 28, key 'smapler': unknown section 'smapler'; did you mean 'sampler'"),
+        r"line 28, key 'smapler': unknown section 'smapler'; did you mean 'sampler'"),
     "misspelt-study-key": (('name = "Vell', 'nme = "Vell'),
                            r"key 'study.nme': unknown key 'nme'; did you mean 'name'"),
     "misspelt-model-key": (("geometry = ", "geometri = "),
                            r"line 8, key 'model.geometri'.*did you mean 'geometry'"),
     "misspelt-parameter": (("solidus_shift = {", "solidus_shfit = {"),
-                           r"line 16, key 'parameters.solidus_shfit': unknown parameter.*did you mean 'solidus_shift'"),
+        r"line 16, key 'parameters.solidus_shfit': unknown parameter.*did you"
+        r" mean 'solidus_shift'"),
     "misspelt-prior-key": (("min = 0.0, max = 150.0", "min = 0.0, mx = 150.0"),
-                           r"line 13, key 'parameters.lithosphere_thickness.mx'.*did you mean 'max'"),
+        r"line 13, key 'parameters.lithosphere_thickness.mx'.*did you mean 'max'"),
     "misspelt-observation-key": (('equilibration = "top"', 'equilibraton = "top"'),
-                                 r"line 26, key 'observations\[2\].equilibraton'.*did you mean 'equilibration'"),
+        r"line 26, key 'observations\[2\].equilibraton'.*did you mean 'equilibration'"),
     "misspelt-sampler-key": (("walkers = 32", "walker = 32"),
                              r"key 'sampler.walker'.*did you mean 'walkers'"),
     # priors
     "unknown-prior": (('prior = "normal"', 'prior = "gaussian"'),
-                      r"key 'parameters.solidus_shift.prior': unknown prior 'gaussian'; valid choices: 'uniform', 'normal'"),
+        r"key 'parameters.solidus_shift.prior': unknown prior 'gaussian'; valid"
+        r" choices: 'uniform', 'normal'"),
     "misspelt-prior": (('prior = "normal"', 'prior = "normall"'),
                        r"unknown prior 'normall'; did you mean 'normal'"),
     "min-equals-max": (("min = 1200.0, max = 1700.0", "min = 1700.0, max = 1700.0"),
-                       r"key 'parameters.potential_temperature.min': min \(1700\) must be less than max \(1700\)"),
+        r"key 'parameters.potential_temperature.min': min \(1700\) must be less"
+        r" than max \(1700\)"),
     "min-above-max": (("min = 1200.0, max = 1700.0", "min = 1700.0, max = 1200.0"),
                       r"min \(1700\) must be less than max \(1200\)"),
-    "sd-zero": (("sd = 20.0", "sd = 0.0"), r"key 'parameters.solidus_shift.sd': sd = 0 must be > 0"),
+    "sd-zero": (("sd = 20.0", "sd = 0.0"),
+        r"key 'parameters.solidus_shift.sd': sd = 0 must be > 0"),
     "sd-negative": (("sd = 20.0", "sd = -3.0"), r"sd = -3 must be > 0"),
     "prior-outside-domain": (("min = 1200.0, max = 1700.0", "min = 1200.0, max = 1900.0"),
-                             r"potential_temperature.max': prior max 1900 is outside the physical range \[1000, 1800\]"),
-    "value-and-prior": (("water = { value = 0.0 }", 'water = { value = 0.0, prior = "uniform" }'),
+        r"potential_temperature.max': prior max 1900 is outside the physical"
+        r" range \[1000, 1800\]"),
+    "value-and-prior": (("water = { value = 0.0 }",
+                         'water = { value = 0.0, prior = "uniform" }'),
                         r"has value = \.\.\. \(fixed\) and also 'prior'"),
     "string-number": (("min = 1200.0", 'min = "1200"'), r"'1200' is not a number"),
-    "missing-tp": (('potential_temperature = { prior = "uniform", min = 1200.0, max = 1700.0 }\n', ""),
-                   r"key 'parameters.potential_temperature': 'potential_temperature' must be given"),
+    "missing-tp": (('potential_temperature = { prior = "uniform", min = 1200.0, '
+                    'max = 1700.0 }\n', ""),
+        r"key 'parameters.potential_temperature': 'potential_temperature' must be given"),
     # fixed values outside the physical range
     "fixed-water-negative": (("water = { value = 0.0 }", "water = { value = -5.0 }"),
-                             r"line 14, key 'parameters.water.value': fixed value -5 is outside the physical range \[0, 1000\]"),
-    "fixed-upwelling-zero": (("upwelling_ratio = { value = 1.0 }", "upwelling_ratio = { value = 0.0 }"),
+        r"line 14, key 'parameters.water.value': fixed value -5 is outside the"
+        r" physical range \[0, 1000\]"),
+    "fixed-upwelling-zero": (("upwelling_ratio = { value = 1.0 }",
+                              "upwelling_ratio = { value = 0.0 }"),
                              r"fixed value 0 is outside the physical range \(0, 20\]"),
     "crust-density": (("crust_density = 2900.0", "crust_density = 29000.0"),
-                      r"key 'model.crust_density': 29000 kg/m\^3 is outside the physical range"),
+        r"key 'model.crust_density': 29000 kg/m\^3 is outside the physical range"),
     # model choices
     "unknown-parameterization": (('"katz2003"', '"katz2004"'),
-                                 r"line 7, key 'model.parameterization': unknown value 'katz2004'; did you mean 'katz2003'"),
+        r"line 7, key 'model.parameterization': unknown value 'katz2004'; did you"
+        r" mean 'katz2003'"),
     "unknown-geometry": (('geometry = "column"', 'geometry = "plume"'),
-                         r"key 'model.geometry': unknown value 'plume'; valid choices: 'column', 'ridge'"),
+        r"key 'model.geometry': unknown value 'plume'; valid choices: 'column', 'ridge'"),
     # observation blocks
     "unknown-kind": (('kind = "crustal_thickness"', 'kind = "crustal_thicknes"'),
-                     r"key 'observations\[1\].kind': unknown kind 'crustal_thicknes'; did you mean 'crustal_thickness'"),
-    "missing-kind": (('kind = "crustal_thickness"\n', ""), r"observations\[1\].kind': missing 'kind'"),
+        r"key 'observations\[1\].kind': unknown kind 'crustal_thicknes'; did you"
+        r" mean 'crustal_thickness'"),
+    "missing-kind": (('kind = "crustal_thickness"\n', ""),
+        r"observations\[1\].kind': missing 'kind'"),
     "unknown-equilibration": (('equilibration = "top"', 'equilibration = "pooledd"'),
-                              r"observations\[2\].equilibration': unknown value 'pooledd'; did you mean 'pooled'"),
+        r"observations\[2\].equilibration': unknown value 'pooledd'; did you mean 'pooled'"),
     "unknown-compare-to": (("model_error = 0.5", 'model_error = 0.5\ncompare_to = "melt"'),
-                           r"observations\[1\].compare_to': unknown value 'melt'; did you mean 'melt_thickness'"),
+        r"observations\[1\].compare_to': unknown value 'melt'; did you mean 'melt_thickness'"),
     "negative-model-error": (("model_error = 0.5", "model_error = -0.5"),
                              r"observations\[1\].model_error': -0.5 must be >= 0"),
     "missing-observation-file": (('file = "crust.csv"', 'file = "crust_2019.csv"'),
-                                 r"crust_2019.csv, key 'observations\[1\].file': observation file not found"),
-    "missing-file-key": (('file = "crust.csv"\n', ""), r"observations\[1\].file': missing 'file'"),
+        r"crust_2019.csv, key 'observations\[1\].file': observation file not found"),
+    "missing-file-key": (('file = "crust.csv"\n', ""),
+        r"observations\[1\].file': missing 'file'"),
     # sampler
     "too-few-walkers": (("walkers = 32", "walkers = 4"),
-                        r"key 'sampler.walkers': walkers = 4 is too few for 3 free parameters.*at least 6"),
-    "negative-seed": (("seed = 1", "seed = -1"), r"key 'sampler.seed': -1 must be a whole number >= 0"),
+        r"key 'sampler.walkers': walkers = 4 is too few for 3 free parameters.*at least 6"),
+    "negative-seed": (("seed = 1", "seed = -1"),
+        r"key 'sampler.seed': -1 must be a whole number >= 0"),
     "fractional-walkers": (("walkers = 32", "walkers = 32.5"), r"32.5 must be a whole number"),
     "unknown-start": (("seed = 1", 'seed = 1\nstart = "maximum"'),
-                      r"key 'sampler.start': unknown value 'maximum'; valid choices: 'prior', 'map'"),
+        r"key 'sampler.start': unknown value 'maximum'; valid choices: 'prior', 'map'"),
 }
 
 
@@ -269,12 +289,14 @@ def test_not_utf8(make_study):
 
 def test_no_observations(make_study):
     text = BASE.split("[[observations]]")[0] + "[sampler]\nwalkers = 32\n"
-    with pytest.raises(InputError, match=r"key 'observations': no observations; add at least one"):
+    with pytest.raises(InputError,
+                       match=r"key 'observations': no observations; add at least one"):
         Study.from_file(make_study(text=text))
 
 
 def test_everything_fixed(make_study):
-    path = make_study(('{ prior = "uniform", min = 1200.0, max = 1700.0 }', "{ value = 1400.0 }"),
+    path = make_study(('{ prior = "uniform", min = 1200.0, max = 1700.0 }',
+                       "{ value = 1400.0 }"),
                       ('{ prior = "uniform", min = 0.0, max = 150.0 }', "{ value = 40.0 }"),
                       ('{ prior = "normal", mean = 0.0, sd = 20.0 }', "{ value = 0.0 }"))
     with pytest.raises(InputError, match=r"every parameter is fixed"):
@@ -283,9 +305,11 @@ def test_everything_fixed(make_study):
 
 def test_bad_table_row_is_named_through_the_study(make_study):
     path = make_study()
-    (path.parent / "crust.csv").write_text("site,thickness_km,sigma_km\nA,7.0,0.8\nB,6.5,-0.3\n")
+    table = "site,thickness_km,sigma_km\nA,7.0,0.8\nB,6.5,-0.3\n"
+    (path.parent / "crust.csv").write_text(table)
     with pytest.raises(InputError,
-                       match=r"crust.csv, row 3, column 'sigma_km': value -0.3 must be > 0 km"):
+                       match=r"crust.csv, row 3, column 'sigma_km': "
+                             r"value -0.3 must be > 0 km"):
         Study.from_file(path)
 
 

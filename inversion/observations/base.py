@@ -295,7 +295,8 @@ def _frozen(values) -> np.ndarray:
 
 
 def _non_negative(value, key: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+    if isinstance(value, bool) or not isinstance(value, int | float) or \
+            not math.isfinite(value):
         raise InputError(f"{value!r} must be a finite number", key=key)
     if value < 0:
         raise InputError(f"{value:g} must be >= 0 (it is added to sigma in quadrature)",

@@ -20,7 +20,13 @@ from collections.abc import Mapping
 import numpy as np
 
 from .._errors import InputError, suggest
-from .base import NO_MELT_SLOPE, ObservationSet, gaussian_logpdf, melting_distance, require_single
+from .base import (
+    NO_MELT_SLOPE,
+    ObservationSet,
+    gaussian_logpdf,
+    melting_distance,
+    require_single,
+)
 from .tables import ColumnRule
 
 __all__ = ["COMPARE_TO", "CrustalThickness"]
@@ -64,7 +70,8 @@ class CrustalThickness(ObservationSet):
     def column_rules(cls, **options):
         return [
             ColumnRule("site", numeric=False),
-            ColumnRule("thickness_km", low=0.0, unit="km", why="a thickness cannot be negative"),
+            ColumnRule("thickness_km", low=0.0, unit="km",
+                       why="a thickness cannot be negative"),
             ColumnRule("sigma_km", low=0.0, low_open=True, unit="km",
                        why="a 1-sigma uncertainty must be positive"),
         ], []

@@ -128,7 +128,8 @@ class MeltingPressure(ObservationSet):
                              key=f"{where}.equilibration")
         points = spec.get("path_points", 64)
         low, high = _PATH_POINTS
-        if isinstance(points, bool) or not isinstance(points, int) or not low <= points <= high:
+        if isinstance(points, bool) or not isinstance(points, int) or \
+                not low <= points <= high:
             raise InputError(f"{points!r} must be a whole number from {low} to {high}",
                              key=f"{where}.path_points")
         t_error = _non_negative(spec.get("temperature_model_error", 0.0),
