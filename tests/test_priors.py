@@ -4,6 +4,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy import stats
 
@@ -202,3 +204,36 @@ def test_spec_errors_name_the_key_and_rule(spec, kw, match):
     text = str(info.value)
     assert text.startswith("s.toml, key 'parameters.lithosphere_thickness")
     assert "\n" not in text
+
+
+# ---- properties over many parameter values (hypothesis) -----------------------------------
+
+_finite = st.floats(-1e4, 1e4, allow_nan=False)
+_positive = st.floats(1e-3, 1e3, allow_nan=False)
+
+
+@settings(max_examples=60, deadline=None)
+@given(mean=_finite, sd=_positive, lo=st.floats(-3.0, 2.5), width=st.floats(0.05, 6.0),
+       q=st.floats(0.0, 1.0))
+def test_truncated_normal_properties(mean, sd, lo, width, q):
+    low, high = mean + lo * sd, mean + (lo + width) * sd
+    if not low < high:  # float rounding at extreme magnitudes
+        return
+    prior = TruncatedNormal(mean, sd, low, high)
+    x = prior.ppf(q)
+    assert low <= x <= high
+    # ppf inverts cdf (tolerance relative to the interval, float64 rounding of Phi).
+    assert abs(float(prior.cdf(x)) - q) < 1e-6
+    ref = stats.truncnorm(lo, lo + width, loc=mean, scale=sd)
+    mid = 0.5 * (low + high)
+    assert_allclose(prior.logpdf(mid), ref.logpdf(mid), rtol=1e-7, atol=1e-9)
+
+
+@settings(max_examples=60, deadline=None)
+@given(low=st.floats(1e-3, 1e3), ratio=st.floats(1.01, 1e4), q=st.floats(0.0, 1.0))
+def test_log_uniform_properties(low, ratio, q):
+    prior = LogUniform(low, low * ratio)
+    x = prior.ppf(q)
+    assert low * (1 - 1e-12) <= x <= low * ratio * (1 + 1e-12)
+    assert abs(float(prior.cdf(x)) - q) < 1e-9
+    assert_allclose(prior.logpdf(x), stats.loguniform(low, low * ratio).logpdf(x), rtol=1e-9)

@@ -11,8 +11,9 @@ Where in the melting interval a primary melt last equilibrated is a modelling ch
     At the top of melting (the lid base, or the onset when the lid is deeper):
     log L_i = log N(P_i; P_top, s_P^2) [+ log N(T_i; T(P_top), s_T^2)].
 ``"pooled"``
-    At the melt-production weighted mean melting pressure of the pooled melt, with the
-    equally weighted mean temperature along the path.
+    At the melt-production weighted mean melting pressure of the pooled melt
+    (``MeltColumn.mean_melting_pressure``), with the melt-production weighted mean
+    temperature along the path.
 ``"path"``
     Anywhere along the melting path, with probability proportional to the melt made
     there: L_i = sum_k w_k N(P_i; P_k, s_P^2) [N(T_i; T_k, s_T^2)], the midpoint rule on
