@@ -1,0 +1,239 @@
+"""``lidmelt fit`` and ``lidmelt demo`` used like a user would, including mistakes."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import re
+import select
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import emcee
+import numpy as np
+import pandas as pd
+import pytest
+
+import demo_data
+from inversion import OUTPUT_FILES, SUMMARY_COLUMNS
+from inversion.cli import main
+
+DEMO = demo_data.study_path().parent
+
+
+def _small_study(folder: Path, *, sampler: str = "", basalts: str | None = None,
+                 parameters: str | None = None, extra: str = "") -> Path:
+    """A copy of the demo study with a cheaper sampler section (and optional edits)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    shutil.copy(DEMO / "crust.csv", folder / "crust.csv")
+    if basalts is None:
+        shutil.copy(DEMO / "basalts.csv", folder / "basalts.csv")
+    else:
+        (folder / "basalts.csv").write_text(basalts)
+    text = (DEMO / "study.toml").read_text()
+    head, _ = text.split("[sampler]")
+    if parameters is not None:
+        before, rest = head.split("[parameters]")
+        _, after = rest.split("[[observations]]", 1)
+        head = f"{before}[parameters]\n{parameters}\n[[observations]]{after}"
+    sampler = sampler or ("walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 600\n"
+                          "check_interval = 50\n")
+    path = folder / "study.toml"
+    path.write_text(head + extra + "[sampler]\n" + sampler)
+    return path
+
+
+def _fit(capsys, *argv):
+    code = main(list(argv))
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_demo_end_to_end(tmp_path, capsys):
+    out_dir = tmp_path / "demo-results"
+    start = time.perf_counter()
+    code, out, err = _fit(capsys, "demo", "--out", str(out_dir), "--quiet")
+    elapsed = time.perf_counter() - start
+    assert code == 0, err
+    assert elapsed < 60  # issue 3: the demo runs end to end in under a minute
+    assert f"Results written to {out_dir.resolve()}" in out
+    assert "Mantle potential temperature" in out and "°C" in out
+    assert sorted(p.name for p in out_dir.iterdir()) == sorted(OUTPUT_FILES)
+    assert not out_dir.with_name(out_dir.name + ".partial").exists()
+
+    summary = pd.read_csv(out_dir / "summary.csv")
+    assert tuple(summary.columns) == SUMMARY_COLUMNS
+    assert summary["parameter"].tolist() == ["potential_temperature", "lithosphere_thickness",
+                                             "solidus_shift"]
+    assert summary["unit"].tolist() == ["degC", "km", "degC"]
+    assert (summary["ess"] >= 2000).all()  # the default ESS target of the demo
+    assert ((summary["q2.5"] < summary["q16"]) & (summary["q16"] < summary["median"])
+            & (summary["median"] < summary["q84"]) & (summary["q84"] < summary["q97.5"])).all()
+    # The demo data were simulated at Tp 1400 degC and a 46 km lid (demo_data docstring).
+    truth = summary.set_index("parameter")
+    assert truth.loc["potential_temperature", "q2.5"] < 1400 < truth.loc[
+        "potential_temperature", "q97.5"]
+    assert truth.loc["lithosphere_thickness", "q2.5"] < 46 < truth.loc[
+        "lithosphere_thickness", "q97.5"]
+    derived = pd.read_csv(out_dir / "derived.csv")
+    assert derived["parameter"].tolist() == ["onset_depth", "crustal_thickness",
+                                             "mean_melt_fraction", "mean_melting_pressure"]
+    samples = pd.read_csv(out_dir / "samples.csv")
+    assert {"potential_temperature", "crustal_thickness", "log_posterior"} <= set(samples)
+    assert np.isfinite(samples.to_numpy(float)).all()
+
+    diagnostics = json.loads((out_dir / "diagnostics.json").read_text())
+    assert diagnostics["converged"] is True
+    assert set(diagnostics["split_rhat_approximate"]) == set(summary["parameter"])
+    assert 0.1 < diagnostics["acceptance_fraction"]["mean"] < 0.9
+    run = json.loads((out_dir / "run.json").read_text())
+    study_bytes = demo_data.study_path().read_bytes()
+    assert run["study_sha256"] == hashlib.sha256(study_bytes).hexdigest()
+    assert run["seed"] == 1 and run["command_line"][:2] == ["lidmelt", "demo"]
+    assert run["versions"]["emcee"] == emcee.__version__
+
+    backend = emcee.backends.HDFBackend(str(out_dir / "chain.h5"), read_only=True)
+    assert backend.get_chain().shape[1:] == (48, 3)
+    report = (out_dir / "report.md").read_text()
+    for phrase in ("68 %", "95 %", "converged", "no basis on their own", "katz2003"):
+        assert phrase in report
+    for name in ("corner.png", "fit.png", "pt.png"):
+        data = (out_dir / name).read_bytes()
+        assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 20_000
+
+
+def test_same_seed_gives_identical_outputs(tmp_path, capsys):
+    study = _small_study(tmp_path / "study")
+    runs = {}
+    for label, seed in (("a", "3"), ("b", "3"), ("c", "4")):
+        code, _, err = _fit(capsys, "fit", str(study), "--out", str(tmp_path / label),
+                            "--seed", seed, "--quiet")
+        assert code == 0, err
+        runs[label] = tmp_path / label
+    for name in OUTPUT_FILES:
+        if name in ("run.json", "chain.h5"):
+            continue  # run.json records wall time; chain.h5 is compared by content below
+        assert (runs["a"] / name).read_bytes() == (runs["b"] / name).read_bytes(), name
+    chains = [emcee.backends.HDFBackend(str(runs[k] / "chain.h5"), read_only=True).get_chain()
+              for k in "abc"]
+    np.testing.assert_array_equal(chains[0], chains[1])
+    assert not np.array_equal(chains[0][-1], chains[2][-1])
+    assert (runs["a"] / "summary.csv").read_bytes() != (runs["c"] / "summary.csv").read_bytes()
+
+
+def test_existing_folder_is_refused_without_force(tmp_path, capsys):
+    study = _small_study(tmp_path / "study")
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    (out_dir / "keep.txt").write_text("old result")
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet")
+    assert code == 2
+    assert "already exists" in err and "--force" in err and len(err.splitlines()) == 1
+    assert (out_dir / "keep.txt").exists()
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet", "--force")
+    assert code == 0, err
+    assert sorted(p.name for p in out_dir.iterdir()) == sorted(OUTPUT_FILES)
+
+
+BAD_BASALTS = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\nA,1.5,0.2,1380,30\n"
+
+
+@pytest.mark.parametrize(
+    ("edit", "message"),
+    [
+        ({"basalts": BAD_BASALTS + "B,1.8,-0.1,1400,30\n"}, r"basalts.csv, row 3, column 'sigma_gpa'"),
+        ({"basalts": BAD_BASALTS + "B,12.0,0.2,1400,30\n"}, r"basalts.csv, row 3, column 'pressure_gpa'"),
+        ({"basalts": BAD_BASALTS + "B,abc,0.2,1400,30\n"}, r"row 3, column 'pressure_gpa'"),
+        ({"basalts": BAD_BASALTS + "B,nan,0.2,1400,30\n"}, r"row 3, column 'pressure_gpa'"),
+        ({"basalts": "sample,pressure_gpa\nA,1.5\n"}, r"sigma_gpa"),
+        ({"sampler": "walkrs = 16\nseed = 4\n"}, r"key 'sampler.walkrs'.*did you mean 'walkers'"),
+        ({"parameters": 'potential_temperature = { prior = "uniformm", min = 1.0, max = 2.0 }\n'
+                        'lithosphere_thickness = { value = 40.0 }'}, r"uniform"),
+        ({"parameters": 'potential_temperature = { prior = "uniform", min = 1500.0, max = 1400.0 }\n'
+                        'lithosphere_thickness = { value = 40.0 }'}, r"potential_temperature"),
+        ({"parameters": 'potential_temperature = { value = 1400.0 }\n'
+                        'lithosphere_thickness = { value = -5.0 }'}, r"lithosphere_thickness"),
+        ({"sampler": "walkers = 16\nseed = [1\n"}, r"malformed TOML"),
+    ],
+)
+def test_bad_input_exits_2_with_one_line_and_no_folder(tmp_path, capsys, edit, message):
+    study = _small_study(tmp_path / "study", **edit)
+    out_dir = tmp_path / "out"
+    code, out, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet")
+    assert code == 2
+    assert len(err.strip().splitlines()) == 1, err
+    assert err.startswith("lidmelt fit: error: ")
+    assert "Traceback" not in err
+    assert re.search(message, err), err
+    assert not out_dir.exists()
+    assert not out_dir.with_name("out.partial").exists()
+    assert [p.name for p in tmp_path.iterdir()] == ["study"]  # no temporary folders either
+
+
+def test_missing_study_file_exits_2(tmp_path, capsys):
+    code, _, err = _fit(capsys, "fit", str(tmp_path / "nope.toml"), "--out",
+                        str(tmp_path / "out"))
+    assert code == 2 and "nope.toml" in err and "not found" in err
+    assert not (tmp_path / "out").exists()
+
+
+def test_resume_without_checkpoint_is_refused(tmp_path, capsys):
+    study = _small_study(tmp_path / "study")
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(tmp_path / "out"), "--resume")
+    assert code == 2 and "no interrupted run" in err
+
+
+def _wait_for(process, text: bytes, timeout: float) -> bytes:
+    """Read the process's stderr until `text` appears (tqdm writes no newlines)."""
+    seen = b""
+    deadline = time.monotonic() + timeout
+    fd = process.stderr.fileno()
+    while text not in seen:
+        if time.monotonic() > deadline or process.poll() is not None:
+            raise AssertionError(f"did not see {text!r}: {seen[-500:]!r}")
+        ready, _, _ = select.select([fd], [], [], 0.2)
+        if ready:
+            seen += os.read(fd, 65536)
+    return seen
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to a child process")
+def test_interrupted_fit_resumes_to_the_uninterrupted_result(tmp_path, capsys):
+    study = _small_study(tmp_path / "study", sampler=(
+        "walkers = 16\nseed = 9\nstart = \"map\"\ness_target = 1200\ncheck_interval = 50\n"))
+    out_dir = tmp_path / "run"
+    env = dict(os.environ, MPLBACKEND="Agg")
+    process = subprocess.Popen(
+        [sys.executable, "-m", "inversion.cli", "fit", str(study), "--out", str(out_dir)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+    try:
+        # The postfix "tau_max=" appears after the first check, i.e. after the first
+        # chunk of steps has been written to the checkpoint.
+        _wait_for(process, b"tau_max=", timeout=120)
+        process.send_signal(signal.SIGINT)  # what Ctrl-C does
+        _, err = process.communicate(timeout=60)
+    finally:
+        if process.poll() is None:
+            process.kill()
+    assert process.returncode == 130, err
+    assert b"--resume" in err
+    assert not out_dir.exists()
+    assert (tmp_path / "run.partial" / "chain.h5").exists()
+
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--resume", "--quiet")
+    assert code == 0, err
+    assert not (tmp_path / "run.partial").exists()
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(tmp_path / "ref"), "--quiet")
+    assert code == 0, err
+    resumed = json.loads((out_dir / "diagnostics.json").read_text())
+    assert resumed["resumed_from_step"] > 0  # it really continued a stored chain
+    for name in ("summary.csv", "derived.csv", "samples.csv"):
+        assert (out_dir / name).read_bytes() == (tmp_path / "ref" / name).read_bytes(), name
+    chains = [emcee.backends.HDFBackend(str(d / "chain.h5"), read_only=True).get_chain()
+              for d in (out_dir, tmp_path / "ref")]
+    np.testing.assert_array_equal(*chains)
