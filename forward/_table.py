@@ -2,19 +2,24 @@
 
 A path depends on the potential temperature, the solidus shift and the water
 content; the lid only truncates it. Paths are integrated once on a grid of
-``theta = Tp - shift`` (the temperature relative to the shifted solidus, along which
-the onset moves smoothly), ``shift`` and water (uniform in ``water^0.75``, to which
-the solidus depression is proportional), each on a pressure grid uniform in
-``sqrt(P)``. Queries interpolate multilinearly across paths and linearly in sqrt(P)
+``theta = Tp - shift + dT0(water)`` (the potential temperature relative to the
+shifted wet solidus at depth, ``dT0`` the unsaturated water depression at F -> 0,
+so the onset moves smoothly along it), ``shift`` and water (uniform in
+``water^0.75``, to which that depression is proportional), each on a pressure grid
+uniform in ``sqrt(P)``. Queries interpolate multilinearly across paths and linearly in sqrt(P)
 along them. The melt fraction is never interpolated: it is recomputed exactly from
 the interpolated path state, so its kinks (onset, cpx exhaustion) stay sharp.
 """
 
 from __future__ import annotations
 
+import hashlib
 import itertools
+import os
+import tempfile
 from dataclasses import dataclass
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 
@@ -26,9 +31,15 @@ __all__ = ["PathTable", "path_table"]
 
 _THETA_STEP = 5.0  # K
 _SHIFT_STEP = 100.0  # K; the shift acts only through T/c_p at fixed theta: near-linear
-_WATER_NODES = 9
+_WATER_NODES = 25
 _WATER_EXPONENT = 0.75  # Katz et al. (2003): dT = K X^0.75
-_PRESSURE_NODES = 1001
+_PRESSURE_NODES = 1001  # exact-water tables
+_PRESSURE_NODES_ACROSS_WATER = 401  # keeps the 4-D table near 90 MB
+_RK_STEPS = 2000  # Runge-Kutta steps from the model base to the surface, whatever is stored
+
+
+def _pressure_axis(nodes):
+    return _Axis(0.0, np.sqrt(MAX_PRESSURE) / (nodes - 1), nodes)
 
 
 @dataclass(frozen=True)
@@ -103,17 +114,22 @@ class PathTable:
         return values[..., 0], values[..., 1], values[..., 2]
 
 
-def _build(param, theta_axis, shift_axis, water_axis):
+def deep_depression(param, water):
+    """Water solidus depression (K) at F -> 0 where unsaturated (at the model base)."""
+    return param.water_depression(0.0, MAX_PRESSURE, water)[0]
+
+
+def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     theta, shift, water_q = np.meshgrid(theta_axis.nodes, shift_axis.nodes, water_axis.nodes,
                                         indexing="ij")
     theta, shift = theta.ravel(), shift.ravel()
     water = water_q.ravel() ** (1.0 / _WATER_EXPONENT)
-    tp = theta + shift
+    tp = theta + shift - deep_depression(param, water)
     onset, sigma0, melts = onset_state(param, tp, water, shift)
-    u_axis = _Axis(0.0, np.sqrt(MAX_PRESSURE) / (_PRESSURE_NODES - 1), _PRESSURE_NODES)
     u = u_axis.nodes
     with np.errstate(all="ignore"):  # inactive (subsolidus) lanes are discarded
-        paths = integrate_paths(param, u, onset, sigma0, melts, water, shift)
+        paths = integrate_paths(param, u, onset, sigma0, melts, water, shift,
+                                sub_steps=max(2, round(_RK_STEPS / (u_axis.size - 1))))
     p = u[None, :] ** 2
     depression = param.water_depression(0.0, p, water[:, None])[0]
     sub_sigma = solid_adiabat(tp[:, None], p, param.thermo) + depression - shift[:, None]
@@ -121,26 +137,60 @@ def _build(param, theta_axis, shift_axis, water_axis):
     paths[0] = np.where(below_onset, sub_sigma, paths[0])
     paths[1:] = np.where(below_onset[None], 0.0, paths[1:])
     shape = (theta_axis.size, shift_axis.size, water_axis.size)
-    state = np.moveaxis(paths, 0, -1).reshape(*shape, _PRESSURE_NODES, 3).astype(np.float32)
+    state = np.moveaxis(paths, 0, -1).reshape(*shape, u_axis.size, 3).astype(np.float32)
     return PathTable(theta_axis, shift_axis, water_axis, u_axis, state, onset.reshape(shape))
 
 
-def _param_axes():
+def _param_axes(param, water):
     tp_lo, tp_hi = PARAMETER_DOMAIN["potential_temperature"]
     s_lo, s_hi = PARAMETER_DOMAIN["solidus_shift"]
-    lo, hi = tp_lo - s_hi, tp_hi - s_lo
+    depressions = deep_depression(param, np.asarray(water, float))
+    lo, hi = tp_lo - s_hi + np.min(depressions), tp_hi - s_lo + np.max(depressions)
+    lo, hi = np.floor(lo / _THETA_STEP) * _THETA_STEP, np.ceil(hi / _THETA_STEP) * _THETA_STEP
     theta = _Axis(lo, _THETA_STEP, int(round((hi - lo) / _THETA_STEP)) + 1)
     shift = _Axis(s_lo, _SHIFT_STEP, int(round((s_hi - s_lo) / _SHIFT_STEP)) + 1)
     return theta, shift
 
 
+_FORMAT = 1  # bump when the table layout or the integration changes
+
+
+def _cache_file(param, axes) -> Path | None:
+    """Where a table is kept between runs; LIDMELT_CACHE="" switches caching off."""
+    root = os.environ.get("LIDMELT_CACHE", str(Path.home() / ".cache" / "lidmelt"))
+    if not root:
+        return None
+    key = repr((_FORMAT, _RK_STEPS, param, axes)).encode()
+    return Path(root) / f"paths-{param.name}-{hashlib.sha256(key).hexdigest()[:16]}.npz"
+
+
+def _load_or_build(param, theta, shift, water_axis, u_axis) -> PathTable:
+    path = _cache_file(param, (theta, shift, water_axis, u_axis))
+    if path is not None and path.exists():
+        with np.load(path) as stored:
+            return PathTable(theta, shift, water_axis, u_axis, stored["state"], stored["onset"])
+    table = _build(param, theta, shift, water_axis, u_axis)
+    if path is not None:
+        try:  # a cache is a convenience: a read-only home must not stop the model
+            path.parent.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(suffix=".npz", dir=path.parent)
+            with os.fdopen(fd, "wb") as handle:
+                np.savez(handle, state=table.state, onset=table.onset)
+            os.replace(tmp, path)
+        except OSError:
+            pass
+    return table
+
+
 @lru_cache(maxsize=8)
 def path_table(param, water: float | None) -> PathTable:
     """The table for ``param`` at one exact water content, or (None) across water."""
-    theta, shift = _param_axes()
+    theta, shift = _param_axes(param, PARAMETER_DOMAIN["water"] if water is None else water)
     if water is not None:
         water_axis = _Axis(float(water) ** _WATER_EXPONENT, 1.0, 1)
+        u_axis = _pressure_axis(_PRESSURE_NODES)
     else:
         top = PARAMETER_DOMAIN["water"][1] ** _WATER_EXPONENT
         water_axis = _Axis(0.0, top / (_WATER_NODES - 1), _WATER_NODES)
-    return _build(param, theta, shift, water_axis)
+        u_axis = _pressure_axis(_PRESSURE_NODES_ACROSS_WATER)
+    return _load_or_build(param, theta, shift, water_axis, u_axis)

@@ -12,6 +12,7 @@ __all__ = [
     "MAX_PRESSURE",
     "depth_per_pressure",
     "onset_state",
+    "refine_onset",
     "solid_adiabat",
 ]
 
@@ -38,6 +39,24 @@ def _tau_gap(param, potential_temperature, pressure, water, shift):
     depression = param.water_depression(0.0, pressure, water)[0]
     t_ad = solid_adiabat(potential_temperature, pressure, param.thermo)
     return t_ad + depression - shift - param.solidus(pressure)
+
+
+def refine_onset(param, pressure, potential_temperature, water, shift, iterations=2):
+    """Newton steps on the adiabat-solidus gap from an interpolated onset guess.
+
+    Only points with ``0 < pressure < MAX_PRESSURE`` move; steps are limited to
+    0.2 GPa so the iteration stays on the root it started near.
+    """
+    p = np.asarray(pressure, float)
+    movable = (p > 0.0) & (p < MAX_PRESSURE)
+    delta = 1e-4
+    for _ in range(iterations):
+        gap = _tau_gap(param, potential_temperature, p, water, shift)
+        slope = (_tau_gap(param, potential_temperature, p + delta, water, shift)
+                 - _tau_gap(param, potential_temperature, p - delta, water, shift)) / (2 * delta)
+        step = np.clip(-gap / np.where(slope < 0.0, slope, -1.0), -0.2, 0.2)
+        p = np.where(movable, np.clip(p + step, 1e-9, MAX_PRESSURE), p)
+    return p
 
 
 def _bisect(func, low, high, iterations=60):

@@ -3,13 +3,15 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
 from ._integrate import column_temperature
 from ._table import PathTable, path_table
 from ._validation import check_inputs
-from .adiabat import depth_per_pressure
+from ._table import deep_depression
+from .adiabat import MAX_PRESSURE, depth_per_pressure, refine_onset, solid_adiabat
 from .parameterizations import Parameterization, get_parameterization
 
 __all__ = ["GEOMETRIES", "MeltColumn", "MeltingPath", "melt_column"]
@@ -44,6 +46,7 @@ class _Query:
     water: np.ndarray
     geometry: str
     km_per_gpa: np.ndarray
+    potential_temperature: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -63,6 +66,11 @@ class MeltColumn:
     mean_melting_pressure : GPa, melt-production weighted (ridge: also weighted by
         the width of the melting region); equals top_pressure where no melt forms.
     produces_melt : bool, melt_thickness > 0.
+    potential_temperature, lithosphere_thickness, water, solidus_shift : the inputs,
+        broadcast (degC, km, ppm, degC).
+    solidus_margin : K (computed on first access); the largest excess of the solid
+        adiabat over the wet, shifted solidus over 0-10 GPa: negative, a smooth distance
+        from melting, where the mantle is too cold to melt at any depth.
     """
 
     melt_thickness: np.ndarray
@@ -75,7 +83,19 @@ class MeltColumn:
     mean_melt_fraction: np.ndarray
     mean_melting_pressure: np.ndarray
     produces_melt: np.ndarray
+    potential_temperature: np.ndarray
+    lithosphere_thickness: np.ndarray
+    water: np.ndarray
+    solidus_shift: np.ndarray
     _query: _Query = field(repr=False, compare=False)
+
+    @cached_property
+    def solidus_margin(self):
+        pressures = np.linspace(0.0, MAX_PRESSURE, 201)
+        param = self._query.param
+        adiabat = solid_adiabat(self.potential_temperature[..., None], pressures, param.thermo)
+        wet = param.wet_solidus(pressures, self.water[..., None])
+        return np.max(adiabat - wet - self.solidus_shift[..., None], axis=-1)
 
     def profile(self, pressure):
         """Temperature (degC) and melt fraction along the whole adiabat at ``pressure``.
@@ -173,13 +193,15 @@ def melt_column(
     water_values = np.unique(b["water"])
     table = path_table(param, float(water_values[0]) if water_values.size <= 1 else None)
     km_per_gpa = depth_per_pressure(b["mantle_density"])
-    query = _Query(param, table, b["potential_temperature"] - b["solidus_shift"],
-                   b["solidus_shift"], b["water"], geometry, km_per_gpa)
+    theta = b["potential_temperature"] - b["solidus_shift"] + deep_depression(param, b["water"])
+    query = _Query(param, table, theta, b["solidus_shift"], b["water"], geometry, km_per_gpa,
+                   b["potential_temperature"])
     return _column_outputs(query, b, km_per_gpa)
 
 
 def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
     onset = query.table.onset_pressure(query.theta, query.shift, query.water)
+    onset = refine_onset(query.param, onset, query.potential_temperature, query.water, query.shift)
     top = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
     sigma, int_f, int_pf = query.table.lookup(query.theta, query.shift, query.water, top)
     _, frac_top = column_temperature(query.param, sigma, top, query.water, query.shift)
@@ -209,5 +231,9 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
         mean_melt_fraction=mean_f,
         mean_melting_pressure=mean_p,
         produces_melt=melts,
+        potential_temperature=b["potential_temperature"],
+        lithosphere_thickness=b["lithosphere_thickness"],
+        water=b["water"],
+        solidus_shift=b["solidus_shift"],
         _query=query,
     )

@@ -1,0 +1,5 @@
+"""Shared test set-up: headless plotting."""
+
+import os
+
+os.environ.setdefault("MPLBACKEND", "Agg")
