@@ -74,10 +74,10 @@ def corner_figure(posterior) -> Figure:
     diagonal = np.array(fig.axes).reshape(ndim, ndim).diagonal()
     for ax, (_, row) in zip(diagonal, posterior.summary().iterrows(), strict=True):
         ax.set_title(_title(row), fontsize=9.5)
-    fig.suptitle(f"{posterior.study.name}\nposterior of the free parameters (contours "
-                 "39 % and 86 %, i.e. 1σ and 2σ in 2-D; red: MAP; dashed: 16/50/84 %)",
-                 fontsize=9.5, y=0.995)
-    fig.subplots_adjust(top=0.86 if ndim > 1 else 0.72, left=0.14, bottom=0.12)
+    fig.suptitle(f"{posterior.study.name}: posterior of the free parameters\n"
+                 "contours enclose 39 % and 86 % (1σ and 2σ in 2-D); red: MAP;\n"
+                 "dashed: 16, 50 and 84 % quantiles", fontsize=9, y=0.995)
+    fig.subplots_adjust(top=0.85 if ndim > 1 else 0.7, left=0.14, bottom=0.12)
     return fig
 
 
@@ -126,7 +126,13 @@ def _fit_panels(blocks, column):
                    title=f"{block.name}: melting pressure, equilibrated {how}", invert=True,
                    weighted=weighted)
         if "temperature" in observed and "temperature" in predicted:
-            yield dict(names=names, obs=observed["temperature"],
+            t_interval = None
+            if block.equilibration == "path":
+                path = column.path(num=16)
+                rows = len(names)
+                t_interval = tuple(np.repeat(np.asarray(t, float)[:, None], rows, axis=1)
+                                   for t in (path.temperature[:, 0], path.temperature[:, -1]))
+            yield dict(names=names, obs=observed["temperature"], interval=t_interval,
                        sigma=observed["temperature_sigma"], pred=predicted["temperature"],
                        ylabel="Temperature (°C)", weighted=weighted,
                        title=f"{block.name}: melting temperature, equilibrated {how}")
@@ -141,7 +147,7 @@ def _draw_fit_panel(ax, *, names, obs, sigma, pred, ylabel, title, interval=None
     if interval is not None:
         top, onset = (np.median(np.asarray(a, float), axis=0) for a in interval)
         ax.bar(x, onset - top, bottom=top, width=2.6 * width, color="tab:purple",
-               alpha=0.12, label="melting interval (top to onset), median")
+               alpha=0.12, label="along the melting path (top to onset), median")
     ax.bar(x, hi95 - lo95, bottom=lo95, width=2 * width, color="tab:blue", alpha=0.18,
            label="model, 95 % posterior range")
     ax.bar(x, hi68 - lo68, bottom=lo68, width=2 * width, color="tab:blue", alpha=0.38,
@@ -175,6 +181,7 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
     ax = fig.subplots()
     plotting.draw_pt_diagram(ax, study.model.parameterization, water=water,
                              solidus_shift=shift, max_pressure=max_p, temperature_range=t_range)
+    _label_contours(ax)
     _draw_lid_band(ax, posterior, study.model.mantle_density)
     _draw_paths(ax, path, column)
     map_column = posterior.logpost.column(
@@ -192,12 +199,25 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
     return fig
 
 
+def _label_contours(ax) -> None:
+    """Legend entry for the melt-fraction contours drawn by forward.plotting."""
+    from matplotlib.contour import ContourSet
+
+    for artist in ax.get_children():
+        if isinstance(artist, ContourSet):
+            color = artist.get_edgecolor()[0]
+            ax.plot([], [], color=color, lw=0.8, label="equilibrium melt fraction F")
+            return
+
+
 def _visible_legend_entries(ax):
     """Legend entries, leaving out curves that lie entirely outside the axes."""
     (x0, x1), (y1, y0) = ax.get_xlim(), ax.get_ylim()
     keep_h, keep_l = [], []
     for handle, label in zip(*ax.get_legend_handles_labels(), strict=True):
-        if hasattr(handle, "get_xdata") and len(handle.get_xdata()):
+        # Only data-coordinate curves can fall outside (axhline spans the axes anyway).
+        if (hasattr(handle, "get_xdata") and handle.get_transform() is ax.transData
+                and len(handle.get_xdata())):
             x = np.asarray(handle.get_xdata(), float)
             y = np.asarray(handle.get_ydata(), float)
             if not np.any((x >= x0) & (x <= x1) & (y >= y0) & (y <= y1)):
@@ -215,9 +235,12 @@ def _central(posterior, medians, name) -> float:
 
 def _curve_note(posterior, water, shift) -> str:
     param = posterior.study.model.parameterization
-    free = [n for n in ("water", "solidus_shift") if n in posterior.names]
-    text = f"curves: {param}, water {water:.0f} ppm, solidus shift {shift:+.1f} °C"
-    return text + (" (posterior medians)" if free else "")
+
+    def how(name):
+        return "posterior median" if name in posterior.names else "fixed"
+
+    return (f"curves: {param}, water {water:.0f} ppm ({how('water')}), solidus shift "
+            f"{shift:+.1f} °C ({how('solidus_shift')})")
 
 
 def _draw_paths(ax, path, column) -> None:

@@ -1,0 +1,152 @@
+"""The log-posterior, the Posterior object, its atomic save and the report."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+import demo_data
+import forward
+import inversion
+from inversion import figures
+from inversion.model import DERIVED, LogPosterior
+
+
+@pytest.fixture(scope="module")
+def study():
+    return inversion.Study.from_file(demo_data.study_path())
+
+
+@pytest.fixture(scope="module")
+def quick(study):
+    # A short run (ESS 300) is enough to test the bookkeeping, not the statistics.
+    return inversion.fit(study.with_sampler(walkers=16, ess_target=300, tau_multiple=20,
+                                            check_interval=50), quiet=True)
+
+
+def test_log_posterior_is_prior_plus_likelihoods_from_forward_model(study):
+    logpost = LogPosterior(study)
+    theta = np.array([[1400.0, 46.0, 0.0], [1350.0, 30.0, 12.0], [1500.0, 80.0, -20.0]])
+    out = logpost(theta)
+    assert out.shape == (3, 1 + len(DERIVED))
+    column = forward.melt_column(theta[:, 0], theta[:, 1], water=150.0, solidus_shift=theta[:, 2],
+                                 upwelling_ratio=1.0, parameterization="katz2003")
+    values = {"potential_temperature": theta[:, 0], "lithosphere_thickness": theta[:, 1],
+              "water": np.full(3, 150.0), "upwelling_ratio": np.ones(3),
+              "solidus_shift": theta[:, 2]}
+    expected = sum(study.priors[n].logpdf(theta[:, j]) for j, n in enumerate(logpost.names))
+    expected = expected + sum(b.log_likelihood(column, parameters=values)
+                              for b in study.observations)
+    np.testing.assert_allclose(out[:, 0], expected, rtol=1e-12)
+    for k, name in enumerate(DERIVED):
+        np.testing.assert_allclose(out[:, 1 + k], getattr(column, name), rtol=1e-12)
+
+
+def test_crust_only_log_posterior_against_scipy_stats(study):
+    crust = next(b for b in study.observations if b.kind == "crustal_thickness")
+    only = study.with_observations([crust])
+    logpost = LogPosterior(only)
+    theta = np.array([[1420.0, 40.0, 5.0]])
+    column = forward.melt_column(1420.0, 40.0, water=150.0, solidus_shift=5.0)
+    data = crust.data
+    sd = np.hypot(data["sigma_km"], crust.model_error)
+    like = stats.norm.logpdf(data["thickness_km"], float(column.crustal_thickness), sd).sum()
+    prior = (stats.uniform.logpdf(1420.0, 1250.0, 350.0) + stats.uniform.logpdf(40.0, 10.0, 100.0)
+             + stats.truncnorm.logpdf(5.0, -5.0, 5.0, loc=0.0, scale=20.0))
+    np.testing.assert_allclose(logpost(theta)[0, 0], like + prior, rtol=1e-10)
+
+
+def test_outside_prior_or_domain_is_minus_infinity_with_nan_blobs(study):
+    logpost = LogPosterior(study)
+    theta = np.array([[1200.0, 46.0, 0.0],      # below the Tp prior
+                      [1400.0, 200.0, 0.0],     # lid above its prior
+                      [1400.0, 46.0, 150.0],    # shift outside the forward domain
+                      [1400.0, 46.0, 0.0]])
+    out = logpost(theta)
+    assert np.all(np.isneginf(out[:3, 0])) and np.isfinite(out[3, 0])
+    assert np.all(np.isnan(out[:3, 1:])) and np.all(np.isfinite(out[3, 1:]))
+    assert not np.any(np.isnan(out[:, 0]))
+
+
+def test_fixed_parameters_are_filled_in(study):
+    values = LogPosterior(study).parameters(np.array([[1400.0, 46.0, 3.0]]))
+    assert values["water"][0] == 150.0 and values["upwelling_ratio"][0] == 1.0
+    assert values["solidus_shift"][0] == 3.0
+
+
+def test_summary_matches_numpy_quantiles_of_kept_chain(quick):
+    summary = quick.summary()
+    kept = quick.chain[quick.discard:].reshape(-1, len(quick.names))
+    for j, name in enumerate(quick.names):
+        row = summary.set_index("parameter").loc[name]
+        # Independent route: numpy.percentile (as corner checks its own quantiles).
+        np.testing.assert_allclose([row["q2.5"], row["q16"], row["median"], row["q84"],
+                                    row["q97.5"]],
+                                   np.percentile(kept[:, j], [2.5, 16, 50, 84, 97.5]))
+        np.testing.assert_allclose(row["sd"], np.std(kept[:, j], ddof=1))
+    # The MAP is at least as probable as every sample.
+    assert quick.map["log_posterior"] >= quick.log_prob.max() - 1e-9
+    derived = quick.derived_summary()
+    assert derived["parameter"].tolist() == list(DERIVED)
+    assert derived.set_index("parameter").loc["crustal_thickness", "unit"] == "km"
+
+
+def test_samples_are_thinned_after_burn_in(quick):
+    samples = quick.samples
+    assert samples["step"].min() >= quick.discard
+    assert np.all(np.diff(np.unique(samples["step"])) == quick.thin)
+    assert set(quick.names) | set(DERIVED) <= set(samples.columns)
+    row = samples.iloc[5]
+    np.testing.assert_array_equal(
+        quick.chain[int(row["step"]), int(row["walker"])], row[list(quick.names)].to_numpy(float))
+
+
+def test_failed_save_leaves_nothing_behind(quick, tmp_path, monkeypatch):
+    def broken(*args, **kwargs):
+        raise RuntimeError("disk full while drawing")
+
+    monkeypatch.setattr(figures, "save_figures", broken)
+    with pytest.raises(RuntimeError, match="disk full"):
+        quick.save(tmp_path / "result")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_save_refuses_existing_folder_unless_forced(quick, tmp_path):
+    target = tmp_path / "result"
+    target.mkdir()
+    with pytest.raises(inversion.InputError, match="already exists; pass --force"):
+        quick.save(target)
+    quick.save(target, force=True)
+    assert pd.read_csv(target / "summary.csv").shape[0] == len(quick.names)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["result"]
+
+
+def test_step_cap_flags_not_converged_everywhere(study, tmp_path):
+    capped = study.with_sampler(walkers=16, ess_target=5000, max_steps=100, check_interval=50)
+    with pytest.warns(inversion.NotConvergedWarning, match="NOT converged after 100 steps"):
+        posterior = inversion.fit(capped, quiet=True, out=tmp_path / "capped")
+    assert not posterior.converged
+    diagnostics = json.loads((tmp_path / "capped" / "diagnostics.json").read_text())
+    assert diagnostics["converged"] is False and diagnostics["steps"] == 100
+    report = (tmp_path / "capped" / "report.md").read_text()
+    assert "did NOT converge" in report and "max_steps" in report
+
+
+def test_report_states_numbers_with_units_and_caution(quick):
+    from inversion.report import render
+
+    text = render(quick)
+    row = quick.summary().set_index("parameter").loc["potential_temperature"]
+    assert f"{row['median']:.0f}" in text and "°C" in text and " km" in text
+    assert "68 %" in text and "95 %" in text
+    assert "no basis on their own for hazard or resource decisions" in text
+    assert "katz2003" in text
+
+
+def test_fit_refuses_too_few_walkers(study):
+    with pytest.raises(inversion.InputError, match="walkers"):
+        inversion.fit(study.with_sampler(walkers=4), quiet=True)
