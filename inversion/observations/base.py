@@ -93,9 +93,11 @@ def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
     lid = np.broadcast_to(np.asarray(lid, float), shape)
     onset = np.asarray(column.onset_depth, float)
     distance = np.maximum(lid - onset, 0.0)
-    cold = _cold_distance(column, parameters, shape)
-    if cold is not None:
-        distance = np.where(onset <= 0.0, lid + cold, distance)
+    too_cold = (onset <= 0.0) & ~melts
+    if np.any(too_cold):  # the solidus margin costs a scan of the adiabat: only if needed
+        cold = _cold_distance(column, parameters, shape)
+        if cold is not None:
+            distance = np.where(too_cold, lid + cold, distance)
     return np.where(melts, 0.0, distance)
 
 
