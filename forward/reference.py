@@ -103,7 +103,7 @@ def reference_column(potential_temperature: float, lithosphere_thickness: float,
 def _summarise(param, sol, p0, top, km, water, shift, geometry, chi):
     """Column outputs by dense quadrature of the path (no integration by parts)."""
     int_f = float(sol.y[1, -1])
-    pressures = np.linspace(p0, top, 801)
+    pressures = np.linspace(p0, top, 401)
     temps = sol.sol(pressures)[0]
     frac = np.array([float(param.melt_fraction(t, p, water, solidus_shift=shift).fraction)
                      for t, p in zip(temps, pressures, strict=True)])
