@@ -79,38 +79,45 @@ class PathTable:
     state: np.ndarray
     onset: np.ndarray
 
-    def _corners(self, theta, shift, water):
-        """Flat path indices and weights of the interpolation corners, each (k, ...)."""
+    def corners(self, theta, shift, water):
+        """Flat path indices and weights of the interpolation corners, each ``(k, ...)``.
+
+        Compute once per set of paths and pass to ``onset_pressure`` and ``lookup``.
+        """
+        theta, shift, water = np.broadcast_arrays(theta, shift, water)
         located = [ax.locate(x) for ax, x in ((self.theta, theta), (self.shift, shift),
                                                (self.water, water ** _WATER_EXPONENT))]
         sizes = (self.shift.size * self.water.size, self.water.size, 1)
-        choices = [((0,),) if ax.size == 1 else ((0,), (1,)) for ax in
-                   (self.theta, self.shift, self.water)]
+        choices = [(0,) if ax.size == 1 else (0, 1) for ax in (self.theta, self.shift, self.water)]
         flats, weights = [], []
         for combo in itertools.product(*choices):
             flat, weight = 0, 1.0
-            for (idx, frac), (offset,), size in zip(located, combo, sizes, strict=True):
+            for (idx, frac), offset, size in zip(located, combo, sizes, strict=True):
                 flat = flat + (idx + offset) * size
                 weight = weight * (frac if offset else 1.0 - frac)
             flats.append(flat)
             weights.append(weight)
-        return np.stack(np.broadcast_arrays(*flats)), np.stack(np.broadcast_arrays(*weights))
+        return np.stack(flats), np.stack(weights)
 
-    def onset_pressure(self, theta, shift, water):
-        """Interpolated onset pressure (GPa)."""
-        flats, weights = self._corners(theta, shift, water)
+    def onset_pressure(self, corners):
+        """Interpolated onset pressure (GPa) of the paths at ``corners``."""
+        flats, weights = corners
         return np.sum(self.onset.reshape(-1)[flats] * weights, axis=0)
 
-    def lookup(self, theta, shift, water, pressure):
-        """Interpolated ``(sigma, I1, I2)`` at ``pressure`` (GPa); inputs broadcast."""
-        theta, shift, water, pressure = np.broadcast_arrays(theta, shift, water, pressure)
-        flats, weights = self._corners(theta, shift, water)
+    def lookup(self, corners, pressure):
+        """Interpolated ``(sigma, I1, I2)`` at ``pressure`` (GPa) along the paths.
+
+        ``pressure`` broadcasts against the corners' path shape.
+        """
+        flats, weights = corners
         u_idx, u_frac = self.sqrt_pressure.locate(np.sqrt(np.asarray(pressure, float)))
-        rows = self.state.reshape(-1, self.sqrt_pressure.size, 3)
-        lower = rows[flats, u_idx[None]].astype(float)
-        upper = rows[flats, u_idx[None] + 1].astype(float)
-        blended = lower + u_frac[None, ..., None] * (upper - lower)
-        values = np.sum(blended * weights[..., None], axis=0)
+        rows = self.state.reshape(-1, 3)  # node (path, u) -> 3 values; u+1 is the next row
+        index = flats * self.sqrt_pressure.size + u_idx[None]
+        lower = np.take(rows, index, axis=0)
+        upper = np.take(rows, index + 1, axis=0)
+        blended = lower + u_frac[None, ..., None].astype(np.float32) * (upper - lower)
+        weights = np.broadcast_to(weights, index.shape)
+        values = np.einsum("k...v,k...->...v", blended.astype(float), weights)
         return values[..., 0], values[..., 1], values[..., 2]
 
 

@@ -52,8 +52,7 @@ def refine_onset(param, pressure, potential_temperature, water, shift, iteration
     delta = 1e-4
     for _ in range(iterations):
         gap = _tau_gap(param, potential_temperature, p, water, shift)
-        slope = (_tau_gap(param, potential_temperature, p + delta, water, shift)
-                 - _tau_gap(param, potential_temperature, p - delta, water, shift)) / (2 * delta)
+        slope = (_tau_gap(param, potential_temperature, p + delta, water, shift) - gap) / delta
         step = np.clip(-gap / np.where(slope < 0.0, slope, -1.0), -0.2, 0.2)
         p = np.where(movable, np.clip(p + step, 1e-9, MAX_PRESSURE), p)
     return p

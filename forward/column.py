@@ -47,6 +47,7 @@ class _Query:
     geometry: str
     km_per_gpa: np.ndarray
     potential_temperature: np.ndarray
+    corners: tuple
 
 
 @dataclass(frozen=True)
@@ -105,9 +106,9 @@ class MeltColumn:
         adiabat; the lid is ignored (it only truncates melting).
         """
         q = self._query
-        expand = (lambda a: np.asarray(a)[..., None])
-        sigma, _, _ = q.table.lookup(expand(q.theta), expand(q.shift), expand(q.water), pressure)
-        return column_temperature(q.param, sigma, pressure, expand(q.water), expand(q.shift))
+        flats, weights = q.corners
+        sigma, _, _ = q.table.lookup((flats[..., None], weights[..., None]), pressure)
+        return column_temperature(q.param, sigma, pressure, q.water[..., None], q.shift[..., None])
 
     def path(self, num: int = 64) -> MeltingPath:
         """The melting path between top and onset, in ``num`` intervals of equal pressure.
@@ -118,9 +119,11 @@ class MeltColumn:
         bottom = np.maximum(self.onset_pressure, self.top_pressure)[..., None]
         edges = top + (bottom - top) * np.linspace(0.0, 1.0, num + 1)
         mids = 0.5 * (edges[..., 1:] + edges[..., :-1])
-        _, frac_edges = self.profile(edges)
+        temp_edges, frac_edges = self.profile(edges)
+        # midpoint values by averaging: interval widths are far below the path's curvature
+        temp = 0.5 * (temp_edges[..., 1:] + temp_edges[..., :-1])
+        frac = 0.5 * (frac_edges[..., 1:] + frac_edges[..., :-1])
         frac_edges[..., -1] = 0.0  # melt present at the onset counts as made there
-        temp, frac = self.profile(mids)
         made = np.maximum(frac_edges[..., :-1] - frac_edges[..., 1:], 0.0)
         if self._query.geometry == "ridge":
             made = made * (bottom - mids)
@@ -195,15 +198,15 @@ def melt_column(
     km_per_gpa = depth_per_pressure(b["mantle_density"])
     theta = b["potential_temperature"] - b["solidus_shift"] + deep_depression(param, b["water"])
     query = _Query(param, table, theta, b["solidus_shift"], b["water"], geometry, km_per_gpa,
-                   b["potential_temperature"])
+                   b["potential_temperature"], table.corners(theta, b["solidus_shift"], b["water"]))
     return _column_outputs(query, b, km_per_gpa)
 
 
 def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
-    onset = query.table.onset_pressure(query.theta, query.shift, query.water)
+    onset = query.table.onset_pressure(query.corners)
     onset = refine_onset(query.param, onset, query.potential_temperature, query.water, query.shift)
     top = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
-    sigma, int_f, int_pf = query.table.lookup(query.theta, query.shift, query.water, top)
+    sigma, int_f, int_pf = query.table.lookup(query.corners, top)
     _, frac_top = column_temperature(query.param, sigma, top, query.water, query.shift)
     melts = (onset > top) & (int_f > 0.0) & (frac_top > 0.0)
     int_f = np.where(melts, int_f, 0.0)
@@ -219,6 +222,8 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
     else:
         mean_f = frac_top
         mean_p = np.where(melts, top + int_f / safe_f, top)
+    # interpolation across a path that barely melts can stray; the mean lies in the interval
+    mean_p = np.clip(mean_p, top, np.maximum(onset, top))
     melt = b["upwelling_ratio"] * int_f * km_per_gpa
     return MeltColumn(
         melt_thickness=melt,
