@@ -64,8 +64,13 @@ def run_fit(study, args: argparse.Namespace, *, command: list[str]) -> int:
                             quiet=args.quiet, force=args.force, command=command)
         except KeyboardInterrupt:
             partial = out.with_name(out.name + ".partial")
-            print(f"lidmelt: interrupted; the chain so far is kept in {partial}/ - "
-                  f"continue it by running the same command with --resume", file=sys.stderr)
+            if partial.exists():
+                print(f"lidmelt: interrupted; the chain so far is kept in {partial}/ - "
+                      "continue it by running the same command with --resume",
+                      file=sys.stderr)
+            else:
+                print("lidmelt: interrupted before the first checkpoint; nothing was kept",
+                      file=sys.stderr)
             return 130
     for warning in caught:
         if issubclass(warning.category, NotConvergedWarning):

@@ -49,8 +49,8 @@ def diagnostics_dict(posterior) -> dict:
         "converged": posterior.converged,
         "stopping_rule": (
             f"kept chain >= {settings.tau_multiple:g} x max tau and every effective sample "
-            f"size >= {settings.ess_target:g}, checked every few hundred steps; cap "
-            f"{settings.max_steps} steps"
+            f"size >= {settings.ess_target:g}, checked every "
+            f"{getattr(settings, 'check_interval', 250)} steps; cap {settings.max_steps} steps"
         ),
         "steps": int(posterior.chain.shape[0]),
         "walkers": int(posterior.chain.shape[1]),

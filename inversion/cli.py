@@ -18,7 +18,8 @@ from ._errors import InputError
 # name -> (module, one-line help)
 _COMMANDS = {
     "column": (_cli_column, "tabulate the melting column for given conditions"),
-    "fit": (_cli_fit, "fit a study file: posterior of potential temperature and lid thickness"),
+    "fit": (_cli_fit, "fit a study file: posterior of potential temperature and lid "
+            "thickness"),
     "demo": (_cli_demo, "fit the bundled demo study end to end (under a minute)"),
 }
 

@@ -22,7 +22,6 @@ from matplotlib.figure import Figure
 import forward
 from forward import plotting
 
-from .model import UNITS
 
 __all__ = ["LABELS", "corner_figure", "fit_figure", "pt_figure", "save_figures"]
 
@@ -60,8 +59,8 @@ def save_figures(posterior, folder: str | Path) -> None:
 
 def corner_figure(posterior) -> Figure:
     """Corner plot of the free parameters, MAP marked, 16/50/84 % quantiles in titles."""
-    kept = posterior.chain[posterior.discard:: posterior.thin].reshape(-1, len(posterior.names))
-    ndim = kept.shape[1]
+    ndim = len(posterior.names)
+    kept = posterior.chain[posterior.discard:: posterior.thin].reshape(-1, ndim)
     size = max(3.6, 2.4 * ndim)
     fig = Figure(figsize=(size, size))
     corner.corner(
@@ -180,7 +179,8 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
     fig = Figure(figsize=(7.6, 6.4), layout="constrained")
     ax = fig.subplots()
     plotting.draw_pt_diagram(ax, study.model.parameterization, water=water,
-                             solidus_shift=shift, max_pressure=max_p, temperature_range=t_range)
+                             solidus_shift=shift, max_pressure=max_p,
+                             temperature_range=t_range)
     _label_contours(ax)
     _draw_lid_band(ax, posterior, study.model.mantle_density)
     _draw_paths(ax, path, column)

@@ -22,7 +22,7 @@ import pandas as pd
 from . import _start
 from ._errors import InputError
 from .model import DERIVED, UNITS, LogPosterior
-from .sampler import ChainResult, assess_chain, run_chain
+from .sampler import ChainResult, assess_chain, read_chain, run_chain
 
 __all__ = ["SUMMARY_COLUMNS", "Posterior", "fit"]
 
@@ -87,17 +87,14 @@ def fit(
     logpost = LogPosterior(study)
     _check_walkers(logpost, settings)
     checkpoint = None if out is None else _prepare_checkpoint(out, resume=resume, force=force)
+    resume = resume and _has_steps(checkpoint)  # nothing stored yet: start afresh
     started = time.time()
-    s_emcee, s_start = np.random.SeedSequence(seed).spawn(2)
-    rng = np.random.default_rng(s_start)
-    initial = _initial_positions(logpost, settings, rng, skip=resume)
-    result = run_chain(
-        logpost, initial, seed=int(s_emcee.generate_state(1)[0]), nblobs=logpost.nblobs,
-        ess_target=settings.ess_target, tau_multiple=settings.tau_multiple,
-        max_steps=settings.max_steps, check_interval=_check_interval(settings),
-        path=checkpoint, resume=resume, meta=_chain_meta(study, seed, logpost),
-        quiet=quiet, names=logpost.names,
-    )
+    try:
+        result = _sample(logpost, study, seed, checkpoint, resume=resume, quiet=quiet)
+    except BaseException:
+        if checkpoint is not None and not _has_steps(checkpoint):
+            shutil.rmtree(checkpoint.parent, ignore_errors=True)  # nothing worth keeping
+        raise
     posterior = Posterior(study, result, seed=seed, run_info={
         "command_line": list(command) if command is not None else ["inversion.fit"],
         "wall_seconds": round(time.time() - started, 3),
@@ -109,6 +106,31 @@ def fit(
     return posterior
 
 
+def _sample(logpost, study, seed: int, checkpoint, *, resume: bool, quiet: bool):
+    """Start the walkers (unless resuming) and run the sampler to its stopping rule."""
+    settings = study.sampler
+    s_emcee, s_start = np.random.SeedSequence(seed).spawn(2)
+    rng = np.random.default_rng(s_start)
+    initial = _initial_positions(logpost, settings, rng, skip=resume)
+    return run_chain(
+        logpost, initial, seed=int(s_emcee.generate_state(1)[0]), nblobs=logpost.nblobs,
+        ess_target=settings.ess_target, tau_multiple=settings.tau_multiple,
+        max_steps=settings.max_steps, check_interval=_check_interval(settings),
+        path=checkpoint, resume=resume, meta=_chain_meta(study, seed, logpost),
+        quiet=quiet, names=logpost.names,
+    )
+
+
+def _has_steps(checkpoint) -> bool:
+    """Whether a checkpoint file holds at least one stored step."""
+    if checkpoint is None or not Path(checkpoint).is_file():
+        return False
+    try:
+        return read_chain(checkpoint)[0].nsteps > 0
+    except (OSError, KeyError):
+        return False
+
+
 def _prepare_checkpoint(out: Path, *, resume: bool, force: bool) -> Path:
     """Check the output folder rules before any work; return the checkpoint file path."""
     partial = out.with_name(out.name + ".partial")
@@ -116,6 +138,11 @@ def _prepare_checkpoint(out: Path, *, resume: bool, force: bool) -> Path:
         raise InputError(
             "the result folder already exists; pass --force to replace it or choose "
             "another --out", file=out,
+        )
+    if resume and not partial.exists():
+        raise InputError(
+            "there is no interrupted run to resume here; run again without --resume",
+            file=partial,
         )
     if partial.exists() and not resume:
         if not force:

@@ -62,7 +62,8 @@ def _headline(posterior) -> str:
     flag = "" if posterior.converged else (
         "\n**Warning: the sampler did NOT converge** (see Convergence); the numbers below "
         "may be unreliable.\n")
-    return "In short (median, 68 % interval, 95 % interval):\n\n" + "\n".join(lines) + "\n" + flag
+    intro = "In short (median, 68 % interval, 95 % interval):\n\n"
+    return intro + "\n".join(lines) + "\n" + flag
 
 
 def _interval_words(row) -> str:
@@ -78,13 +79,14 @@ def _interval_words(row) -> str:
 
 
 def _table(frame) -> str:
-    head = ("| quantity | unit | median | 68 % interval | 95 % interval | MAP | ESS | τ (steps) |\n"
-            "|---|---|---|---|---|---|---|---|")
+    head = ("| quantity | unit | median | 68 % interval | 95 % interval | MAP | ESS "
+            "| τ (steps) |\n|---|---|---|---|---|---|---|---|")
     rows = [head]
     for _, r in frame.iterrows():
         d = _decimals(r["sd"])
         rows.append(
-            f"| {_NAMES[r['parameter']]} | {_UNIT_TEXT[r['unit']] or '–'} | {_f(r['median'], d)} "
+            f"| {_NAMES[r['parameter']]} | {_UNIT_TEXT[r['unit']] or '–'} "
+            f"| {_f(r['median'], d)} "
             f"| {_f(r['q16'], d)} – {_f(r['q84'], d)} | {_f(r['q2.5'], d)} – "
             f"{_f(r['q97.5'], d)} | {_f(r['map'], d)} | {r['ess']:.0f} | {r['tau']:.1f} |"
         )
@@ -95,7 +97,8 @@ def _model_section(posterior) -> str:
     study = posterior.study
     model = study.model
     lines = ["## Model, priors and data\n",
-             f"- Melting parameterization: {model.parameterization}; geometry: {model.geometry}; "
+             f"- Melting parameterization: {model.parameterization}; geometry: "
+             f"{model.geometry}; "
              f"crust density {model.crust_density:g} kg/m³, mantle density "
              f"{model.mantle_density:g} kg/m³."]
     for name in posterior.names:

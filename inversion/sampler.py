@@ -25,7 +25,10 @@ uninterrupted run would have.
 
 from __future__ import annotations
 
+import contextlib
 import math
+import signal
+import threading
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -395,9 +398,29 @@ def _create_file(path, shape, nblobs, meta) -> None:
                              dtype=np.dtype(("f8", (nblobs,))), chunks=chunks[:2])
 
 
+@contextlib.contextmanager
+def _deferred_interrupt():
+    """Hold back Ctrl-C (SIGINT) until the block is done, then raise KeyboardInterrupt.
+
+    Rows, acceptance counts, generator state and ``iteration`` must change together, or
+    a resumed chain would pair old positions with a newer generator state.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught = []
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    if caught:
+        raise KeyboardInterrupt
+
+
 def _append(path, part: ChainResult, random_state) -> None:
     """Append rows; `iteration` is written last so a crash never exposes partial rows."""
-    with h5py.File(path, "a") as f:
+    with _deferred_interrupt(), h5py.File(path, "a") as f:
         g = f[_GROUP]
         start = int(g.attrs["iteration"])
         stop = start + part.nsteps

@@ -41,8 +41,8 @@ def _small_study(folder: Path, *, sampler: str = "", basalts: str | None = None,
         before, rest = head.split("[parameters]")
         _, after = rest.split("[[observations]]", 1)
         head = f"{before}[parameters]\n{parameters}\n[[observations]]{after}"
-    sampler = sampler or ("walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 600\n"
-                          "check_interval = 50\n")
+    sampler = sampler or ("walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 300\n"
+                          "tau_multiple = 25\ncheck_interval = 50\n")
     path = folder / "study.toml"
     path.write_text(head + extra + "[sampler]\n" + sampler)
     return path
@@ -141,21 +141,25 @@ def test_existing_folder_is_refused_without_force(tmp_path, capsys):
 
 
 BAD_BASALTS = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\nA,1.5,0.2,1380,30\n"
+LID_40 = "\nlithosphere_thickness = { value = 40.0 }"
 
 
 @pytest.mark.parametrize(
     ("edit", "message"),
     [
-        ({"basalts": BAD_BASALTS + "B,1.8,-0.1,1400,30\n"}, r"basalts.csv, row 3, column 'sigma_gpa'"),
-        ({"basalts": BAD_BASALTS + "B,12.0,0.2,1400,30\n"}, r"basalts.csv, row 3, column 'pressure_gpa'"),
+        ({"basalts": BAD_BASALTS + "B,1.8,-0.1,1400,30\n"},
+         r"basalts.csv, row 3, column 'sigma_gpa'"),
+        ({"basalts": BAD_BASALTS + "B,12.0,0.2,1400,30\n"},
+         r"basalts.csv, row 3, column 'pressure_gpa'"),
         ({"basalts": BAD_BASALTS + "B,abc,0.2,1400,30\n"}, r"row 3, column 'pressure_gpa'"),
         ({"basalts": BAD_BASALTS + "B,nan,0.2,1400,30\n"}, r"row 3, column 'pressure_gpa'"),
         ({"basalts": "sample,pressure_gpa\nA,1.5\n"}, r"sigma_gpa"),
-        ({"sampler": "walkrs = 16\nseed = 4\n"}, r"key 'sampler.walkrs'.*did you mean 'walkers'"),
-        ({"parameters": 'potential_temperature = { prior = "uniformm", min = 1.0, max = 2.0 }\n'
-                        'lithosphere_thickness = { value = 40.0 }'}, r"uniform"),
-        ({"parameters": 'potential_temperature = { prior = "uniform", min = 1500.0, max = 1400.0 }\n'
-                        'lithosphere_thickness = { value = 40.0 }'}, r"potential_temperature"),
+        ({"sampler": "walkrs = 16\nseed = 4\n"},
+         r"key 'sampler.walkrs'.*did you mean 'walkers'"),
+        ({"parameters": 'potential_temperature = { prior = "uniformm", min = 1.0, max = 2.0 }'
+                        + LID_40}, r"uniform"),
+        ({"parameters": 'potential_temperature = { prior = "uniform", min = 1500.0, '
+                        'max = 1400.0 }' + LID_40}, r"potential_temperature"),
         ({"parameters": 'potential_temperature = { value = 1400.0 }\n'
                         'lithosphere_thickness = { value = -5.0 }'}, r"lithosphere_thickness"),
         ({"sampler": "walkers = 16\nseed = [1\n"}, r"malformed TOML"),
@@ -225,7 +229,8 @@ def test_interrupted_fit_resumes_to_the_uninterrupted_result(tmp_path, capsys):
     assert not out_dir.exists()
     assert (tmp_path / "run.partial" / "chain.h5").exists()
 
-    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--resume", "--quiet")
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--resume",
+                        "--quiet")
     assert code == 0, err
     assert not (tmp_path / "run.partial").exists()
     code, _, err = _fit(capsys, "fit", str(study), "--out", str(tmp_path / "ref"), "--quiet")

@@ -33,8 +33,9 @@ def test_log_posterior_is_prior_plus_likelihoods_from_forward_model(study):
     theta = np.array([[1400.0, 46.0, 0.0], [1350.0, 30.0, 12.0], [1500.0, 80.0, -20.0]])
     out = logpost(theta)
     assert out.shape == (3, 1 + len(DERIVED))
-    column = forward.melt_column(theta[:, 0], theta[:, 1], water=150.0, solidus_shift=theta[:, 2],
-                                 upwelling_ratio=1.0, parameterization="katz2003")
+    column = forward.melt_column(theta[:, 0], theta[:, 1], water=150.0,
+                                 solidus_shift=theta[:, 2], upwelling_ratio=1.0,
+                                 parameterization="katz2003")
     values = {"potential_temperature": theta[:, 0], "lithosphere_thickness": theta[:, 1],
               "water": np.full(3, 150.0), "upwelling_ratio": np.ones(3),
               "solidus_shift": theta[:, 2]}
@@ -55,7 +56,8 @@ def test_crust_only_log_posterior_against_scipy_stats(study):
     data = crust.data
     sd = np.hypot(data["sigma_km"], crust.model_error)
     like = stats.norm.logpdf(data["thickness_km"], float(column.crustal_thickness), sd).sum()
-    prior = (stats.uniform.logpdf(1420.0, 1250.0, 350.0) + stats.uniform.logpdf(40.0, 10.0, 100.0)
+    prior = (stats.uniform.logpdf(1420.0, 1250.0, 350.0)
+             + stats.uniform.logpdf(40.0, 10.0, 100.0)
              + stats.truncnorm.logpdf(5.0, -5.0, 5.0, loc=0.0, scale=20.0))
     np.testing.assert_allclose(logpost(theta)[0, 0], like + prior, rtol=1e-10)
 
@@ -102,7 +104,8 @@ def test_samples_are_thinned_after_burn_in(quick):
     assert set(quick.names) | set(DERIVED) <= set(samples.columns)
     row = samples.iloc[5]
     np.testing.assert_array_equal(
-        quick.chain[int(row["step"]), int(row["walker"])], row[list(quick.names)].to_numpy(float))
+        quick.chain[int(row["step"]), int(row["walker"])],
+        row[list(quick.names)].to_numpy(float))
 
 
 def test_failed_save_leaves_nothing_behind(quick, tmp_path, monkeypatch):

@@ -21,7 +21,8 @@ class LinearGaussian:
     Pattern Recognition and Machine Learning, eqs. 3.53-3.54).
     """
 
-    def __init__(self, seed: int = 0, *, ndata: int = 12, sigma: float = 0.5, tau: float = 3.0):
+    def __init__(self, seed: int = 0, *, ndata: int = 12, sigma: float = 0.5,
+                 tau: float = 3.0):
         rng = np.random.default_rng(seed)
         x = np.linspace(-1.0, 1.0, ndata)
         self.design = np.column_stack([np.ones(ndata), x, x**2])
