@@ -77,8 +77,10 @@ def _replace(tmp: Path, directory: Path) -> None:
         old = directory.with_name(f".{directory.name}.old-{tmp.name.rsplit('-', 1)[-1]}")
         directory.rename(old)
     tmp.rename(directory)
-    if old is not None:
+    if old is not None and old.is_dir():
         shutil.rmtree(old, ignore_errors=True)
+    elif old is not None:
+        old.unlink()
 
 
 def _write_json(path: Path, data: dict) -> None:

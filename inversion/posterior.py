@@ -97,7 +97,8 @@ def fit(
         raise
     posterior = Posterior(study, result, seed=seed, run_info={
         "command_line": list(command) if command is not None else ["inversion.fit"],
-        "wall_seconds": round(time.time() - started, 3),
+        "sampling_seconds": round(time.time() - started, 3),
+        "finished_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         "resumed_from_step": result.resumed_from,
     })
     if out is not None:

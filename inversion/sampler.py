@@ -29,6 +29,7 @@ import contextlib
 import math
 import signal
 import threading
+import time
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -250,32 +251,17 @@ def run_chain(
         previous, state = None, emcee.State(initial.copy())
         if path is not None:
             _create_file(path, initial.shape, nblobs, meta)
-    nwalkers, ndim = initial.shape
     sampler = emcee.EnsembleSampler(
-        nwalkers, ndim, log_prob, vectorize=True,
+        *initial.shape, log_prob, vectorize=True,
         moves=list(moves) if moves is not None else default_moves(),
     )
     if previous is None:
         sampler.random_state = np.random.RandomState(seed).get_state()
-    done = 0 if previous is None else previous.nsteps
+    rule = _Rule(ess_target, tau_multiple, max_steps, check_interval)
     parts = [] if previous is None else [previous]
-    bar = tqdm(total=max(done, check_interval), initial=done, disable=quiet,
-               desc="sampling", unit="step", leave=False)
-    try:
-        while True:
-            chunk = min(check_interval - done % check_interval, max_steps - done)
-            state, part = _advance(sampler, state, chunk, bar)
-            parts.append(part)
-            done += chunk
-            if path is not None:
-                _append(path, part, state.random_state)
-            assessment = _assess_parts(parts, tau_multiple, ess_target)
-            _show(bar, assessment, names, _expected_steps(assessment, nwalkers, tau_multiple,
-                                                          ess_target, done, max_steps))
-            if assessment["converged"] or done >= max_steps:
-                break
-    finally:
-        bar.close()
+    state, assessment = _loop(sampler, state, parts, rule, path=path, quiet=quiet,
+                              names=names)
+    done = sum(p.nsteps for p in parts)
     result = _concatenate(parts, assessment, 0 if previous is None else previous.nsteps,
                           state.random_state)
     if not assessment["converged"]:
@@ -283,6 +269,46 @@ def run_chain(
         warnings.warn(NotConvergedWarning(message, tau=assessment["tau"], steps=done),
                       stacklevel=2)
     return result
+
+
+@dataclass(frozen=True)
+class _Rule:
+    """The stopping rule and check cadence of a run."""
+
+    ess_target: float
+    tau_multiple: float
+    max_steps: int
+    check_interval: int
+
+    def done(self, assessment, steps: int) -> bool:
+        return assessment is not None and (assessment["converged"] or steps >= self.max_steps)
+
+
+def _loop(sampler, state, parts, rule: _Rule, *, path, quiet, names):
+    """Advance chunk by chunk (store, assess) until the rule says stop.
+
+    A resumed chain that already satisfies the rule is not extended, so resuming after
+    an interruption between the last write and the end of the run changes nothing.
+    """
+    done = sum(p.nsteps for p in parts)
+    assessment = _assess_parts(parts, rule) if parts else None
+    bar = tqdm(total=max(done, rule.check_interval), initial=done, disable=quiet,
+               desc="sampling", unit="step", leave=False)
+    try:
+        while not rule.done(assessment, done):
+            chunk = min(rule.check_interval - done % rule.check_interval,
+                        rule.max_steps - done)
+            state, part = _advance(sampler, state, chunk, bar)
+            parts.append(part)
+            done += chunk
+            if path is not None:
+                _append(path, part, state.random_state)
+            assessment = _assess_parts(parts, rule)
+            _show(bar, assessment, names, _expected_steps(assessment, sampler.nwalkers, rule,
+                                                          done))
+    finally:
+        bar.close()
+    return state, assessment
 
 
 def _advance(sampler, state, nsteps: int, bar) -> tuple[emcee.State, ChainResult]:
@@ -310,9 +336,9 @@ def _advance(sampler, state, nsteps: int, bar) -> tuple[emcee.State, ChainResult
     return state, ChainResult(chain, log_prob, blobs, accepted)
 
 
-def _assess_parts(parts, tau_multiple, ess_target) -> dict:
+def _assess_parts(parts, rule: _Rule) -> dict:
     chain = np.concatenate([p.chain for p in parts], axis=0)
-    return assess_chain(chain, tau_multiple=tau_multiple, ess_target=ess_target)
+    return assess_chain(chain, tau_multiple=rule.tau_multiple, ess_target=rule.ess_target)
 
 
 def _concatenate(parts, assessment, resumed_from, random_state) -> ChainResult:
@@ -330,11 +356,11 @@ def _concatenate(parts, assessment, resumed_from, random_state) -> ChainResult:
     )
 
 
-def _expected_steps(assessment, nwalkers, tau_multiple, ess_target, done, max_steps) -> int:
+def _expected_steps(assessment, nwalkers, rule: _Rule, done) -> int:
     """Chain length the stopping rule will need if tau stays at its current estimate."""
     tau = float(np.nanmax(assessment["tau"])) if np.any(np.isfinite(assessment["tau"])) else 0
-    kept = max(tau_multiple * tau, ess_target * tau / nwalkers)
-    return int(min(max_steps, max(done, assessment["discard"] + math.ceil(kept))))
+    kept = max(rule.tau_multiple * tau, rule.ess_target * tau / nwalkers)
+    return int(min(rule.max_steps, max(done, assessment["discard"] + math.ceil(kept))))
 
 
 def _show(bar, assessment, names, expected: int) -> None:
@@ -418,9 +444,19 @@ def _deferred_interrupt():
         raise KeyboardInterrupt
 
 
+def _open_for_append(path, *, tries: int = 10, wait: float = 0.5) -> h5py.File:
+    """Open the chain file, waiting a little if another process holds its HDF5 lock."""
+    for _ in range(tries - 1):
+        try:
+            return h5py.File(path, "a")
+        except BlockingIOError:
+            time.sleep(wait)
+    return h5py.File(path, "a")
+
+
 def _append(path, part: ChainResult, random_state) -> None:
     """Append rows; `iteration` is written last so a crash never exposes partial rows."""
-    with _deferred_interrupt(), h5py.File(path, "a") as f:
+    with _deferred_interrupt(), _open_for_append(path) as f:
         g = f[_GROUP]
         start = int(g.attrs["iteration"])
         stop = start + part.nsteps

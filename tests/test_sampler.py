@@ -146,6 +146,14 @@ def test_resume_after_interruption_equals_uninterrupted_run(tmp_path):
     assert resumed.assessment["converged"] == reference.assessment["converged"]
 
 
+def test_resuming_a_finished_chain_does_not_extend_it(tmp_path):
+    path = tmp_path / "chain.h5"
+    finished = _run(LinearGaussian(), path=path, ess_target=300, max_steps=1000)
+    again = _run(LinearGaussian(), path=path, resume=True, ess_target=300, max_steps=1000)
+    assert again.nsteps == finished.nsteps == again.resumed_from
+    np.testing.assert_array_equal(again.chain, finished.chain)
+
+
 def test_chain_file_is_readable_by_emcee(tmp_path):
     path = tmp_path / "chain.h5"
     result = _run(LinearGaussian(), path=path, ess_target=200, tau_multiple=5, max_steps=300)
