@@ -18,36 +18,21 @@ import numpy as np
 
 import forward
 
-__all__ = ["DERIVED", "PARAMETERS", "UNITS", "LogPosterior"]
+from .study import PARAMETER_UNITS, PARAMETERS
 
-#: Every numeric input of forward.melt_column that a study can make free, canonical order.
-PARAMETERS = (
-    "potential_temperature",
-    "lithosphere_thickness",
-    "water",
-    "upwelling_ratio",
-    "solidus_shift",
-)
+__all__ = ["DERIVED", "PARAMETERS", "UNITS", "LogPosterior"]
 
 #: Derived quantities reported with every posterior sample (attributes of the column).
 DERIVED = ("onset_depth", "crustal_thickness", "mean_melt_fraction", "mean_melting_pressure")
 
 #: Unit of every parameter and derived quantity ("-" = dimensionless).
 UNITS = {
-    "potential_temperature": "degC",
-    "lithosphere_thickness": "km",
-    "water": "ppm",
-    "upwelling_ratio": "-",
-    "solidus_shift": "degC",
+    **PARAMETER_UNITS,
     "onset_depth": "km",
     "crustal_thickness": "km",
     "mean_melt_fraction": "-",
     "mean_melting_pressure": "GPa",
 }
-
-# Lower bounds of forward.PARAMETER_DOMAIN that are exclusive (upwelling_ratio > 0).
-_EXCLUSIVE_LOW = frozenset({"upwelling_ratio"})
-
 
 class LogPosterior:
     """Vectorised log-posterior of a study for ``emcee.EnsembleSampler(vectorize=True)``.
@@ -122,11 +107,8 @@ class LogPosterior:
         """True where every free value lies in forward.PARAMETER_DOMAIN, shape ``(n,)``."""
         theta = np.atleast_2d(theta)
         ok = np.all(np.isfinite(theta), axis=1)
-        for j, name in enumerate(self.names):
-            low, high = forward.PARAMETER_DOMAIN[name]
-            above = theta[:, j] > low if name in _EXCLUSIVE_LOW else theta[:, j] >= low
-            ok &= above & (theta[:, j] <= high)
-        return ok
+        values = {name: theta[:, j] for j, name in enumerate(self.names)}
+        return ok & forward.in_domain(**values) if values else ok
 
     def parameters(self, theta: np.ndarray) -> dict[str, np.ndarray]:
         """All five melt_column inputs for each row of `theta`, each shape ``(n,)``."""
