@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
+import threading
 import warnings
 from pathlib import Path
 
@@ -54,9 +56,24 @@ def run(args: argparse.Namespace) -> int:
 
 def run_fit(study, args: argparse.Namespace, *, command: list[str]) -> int:
     """Shared by ``fit`` and ``demo``: fit, report to stdout, handle interruption."""
+    out = Path(args.out)
+    if threading.current_thread() is not threading.main_thread():
+        return _run_and_report(study, args, out, command)
+    # A job scheduler's SIGTERM is handled like Ctrl-C: the checkpoint stays resumable.
+    previous = signal.signal(signal.SIGTERM, _terminate)
+    try:
+        return _run_and_report(study, args, out, command)
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _terminate(signum, frame):
+    raise KeyboardInterrupt
+
+
+def _run_and_report(study, args, out: Path, command: list[str]) -> int:
     from .posterior import fit
 
-    out = Path(args.out)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", NotConvergedWarning)
         try:

@@ -426,7 +426,8 @@ def _create_file(path, shape, nblobs, meta) -> None:
 
 @contextlib.contextmanager
 def _deferred_interrupt():
-    """Hold back Ctrl-C (SIGINT) until the block is done, then raise KeyboardInterrupt.
+    """Hold back Ctrl-C (SIGINT) and SIGTERM until the block is done, then raise
+    KeyboardInterrupt.
 
     Rows, acceptance counts, generator state and ``iteration`` must change together, or
     a resumed chain would pair old positions with a newer generator state.
@@ -435,11 +436,13 @@ def _deferred_interrupt():
         yield
         return
     caught = []
-    previous = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+    held = (signal.SIGINT, signal.SIGTERM)
+    previous = {s: signal.signal(s, lambda signum, frame: caught.append(signum)) for s in held}
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, previous)
+        for s, handler in previous.items():
+            signal.signal(s, handler)
     if caught:
         raise KeyboardInterrupt
 

@@ -22,6 +22,7 @@ import pytest
 import demo_data
 from inversion import OUTPUT_FILES, SUMMARY_COLUMNS
 from inversion.cli import main
+from inversion.sampler import read_chain
 
 DEMO = demo_data.study_path().parent
 
@@ -204,6 +205,28 @@ def _wait_for(process, text: bytes, timeout: float) -> bytes:
         if ready:
             seen += os.read(fd, 65536)
     return seen
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="signals to a child process")
+def test_sigterm_keeps_a_resumable_checkpoint(tmp_path):
+    study = _small_study(tmp_path / "study", sampler=(
+        "walkers = 16\nseed = 9\nstart = \"map\"\ness_target = 5000\ncheck_interval = 50\n"))
+    out_dir = tmp_path / "run"
+    process = subprocess.Popen(
+        [sys.executable, "-m", "inversion.cli", "fit", str(study), "--out", str(out_dir)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=dict(os.environ, MPLBACKEND="Agg"))
+    try:
+        _wait_for(process, b"tau_max=", timeout=120)
+        process.send_signal(signal.SIGTERM)  # what a job scheduler sends at its time limit
+        _, err = process.communicate(timeout=60)
+    finally:
+        if process.poll() is None:
+            process.kill()
+    assert process.returncode == 130, err
+    assert b"continue it by running the same command with --resume" in err
+    stored, _ = read_chain(tmp_path / "run.partial" / "chain.h5")
+    assert stored.nsteps > 0 and stored.nsteps % 50 == 0  # whole chunks only
+    assert not out_dir.exists()
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to a child process")
