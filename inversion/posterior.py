@@ -16,13 +16,14 @@ from functools import cached_property
 from os import PathLike
 from pathlib import Path
 
+import emcee
 import numpy as np
 import pandas as pd
 
 from . import _start
 from ._errors import InputError
 from .model import DERIVED, UNITS, LogPosterior
-from .sampler import ChainResult, assess_chain, read_chain, run_chain
+from .sampler import ChainResult, read_chain, run_chain
 
 __all__ = ["SUMMARY_COLUMNS", "Posterior", "fit"]
 
@@ -289,8 +290,10 @@ class Posterior:
     def derived_summary(self) -> pd.DataFrame:
         """Like `summary` for the derived quantities of `DERIVED`."""
         kept = self._kept(self.derived_chain)
-        assessment = assess_chain(kept)
-        return _summary_table(DERIVED, kept, self.map, assessment["ess"], assessment["tau"])
+        # Same burn-in as the parameters; tau of each derived quantity on the kept chain.
+        tau = np.maximum(emcee.autocorr.integrated_time(kept, tol=0, quiet=True), 1.0)
+        ess = kept.shape[0] * kept.shape[1] / tau
+        return _summary_table(DERIVED, kept, self.map, ess, tau)
 
     @cached_property
     def diagnostics(self) -> dict:
