@@ -82,7 +82,7 @@ def fit(
     """
     settings = study.sampler
     seed = int(settings.seed if seed is None else seed)
-    out = None if out is None else Path(out)
+    out = None if out is None else Path(out).absolute()
     if resume and out is None:
         raise InputError("resume needs the result folder of the interrupted run", key="out")
     logpost = LogPosterior(study)
