@@ -41,7 +41,7 @@ def _tau_gap(param, potential_temperature, pressure, water, shift):
     return t_ad + depression - shift - param.solidus(pressure)
 
 
-def refine_onset(param, pressure, potential_temperature, water, shift, iterations=2):
+def refine_onset(param, pressure, potential_temperature, water, shift, iterations=1):
     """Newton steps on the adiabat-solidus gap from an interpolated onset guess.
 
     Only points with ``0 < pressure < MAX_PRESSURE`` move; steps are limited to

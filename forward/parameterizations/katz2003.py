@@ -135,10 +135,11 @@ class Katz2003(Parameterization):
         Returns ``(dT, d dT/dF, d dT/dP)`` in K, K and K/GPa.
         """
         c = self.constants
-        f, p, w = np.broadcast_arrays(*(np.asarray(v, float) for v in (fraction, pressure, water)))
-        if not np.any(w):  # dry source: skip the work (the common case in fits)
-            zero = np.zeros(w.shape)
+        if not np.any(water):  # dry source: skip the work (the common case in fits)
+            zero = np.zeros(np.broadcast_shapes(np.shape(fraction), np.shape(pressure),
+                                                np.shape(water)))
             return zero, zero, zero
+        f, p, w = np.broadcast_arrays(*(np.asarray(v, float) for v in (fraction, pressure, water)))
         p_safe = np.maximum(p, 1e-12)  # X_sat' is singular at P = 0
         bulk = w * 1e-4  # ppm -> wt%
         mixing = c.water_partition + f * (1.0 - c.water_partition)
