@@ -118,6 +118,7 @@ def _convergence_section(posterior) -> str:
     tau_max = max(diag["tau_steps"].values())
     ess_min = min(diag["ess"].values())
     rhat_max = max(diag["split_rhat_approximate"].values())
+    rhat_ref = max(diag["split_rhat_if_converged"].values())
     acc = diag["acceptance_fraction"]["mean"]
     state = ("The sampler **converged**: " if diag["converged"] else
              "The sampler **did NOT converge** before its step cap: ")
@@ -128,7 +129,8 @@ def _convergence_section(posterior) -> str:
         f"{diag['tau_multiple_reached']:.0f} autocorrelation times long, and the smallest "
         f"effective sample size is {ess_min:.0f} (stopping rule: {diag['stopping_rule']}). "
         f"Mean acceptance fraction {acc:.2f}; largest split R-hat across walkers "
-        f"{rhat_max:.3f} (approximate, since walkers are not independent chains)."
+        f"{rhat_max:.3f}, against about {rhat_ref:.3f} expected from a converged ensemble "
+        f"of this length (approximate, since walkers are not independent chains)."
     )
     if not diag["converged"]:
         text += (" Run longer (raise `max_steps` under `[sampler]`) before relying on "
