@@ -79,7 +79,9 @@ def diagnostics_dict(posterior) -> dict:
         "tau_steps": {n: _round(t) for n, t in zip(names, posterior.tau, strict=True)},
         "ess": {n: _round(e) for n, e in zip(names, posterior.ess, strict=True)},
         "split_rhat_approximate": {n: _round(r) for n, r in zip(names, rhat, strict=True)},
-        "split_rhat_if_converged": {n: _round(r) for n, r in zip(names, expected, strict=True)},
+        "split_rhat_if_converged": {
+            n: _round(r) for n, r in zip(names, expected, strict=True)
+        },
         "split_rhat_note": (
             "approximate: walkers of an ensemble sampler are not independent chains, and "
             "each is short, so even a converged ensemble gives about "
