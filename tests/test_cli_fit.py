@@ -208,7 +208,7 @@ def _wait_for(process, text: bytes, timeout: float) -> bytes:
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="signals to a child process")
-def test_sigterm_keeps_a_resumable_checkpoint(tmp_path):
+def test_sigterm_keeps_a_resumable_checkpoint(tmp_path, capsys):
     study = _small_study(tmp_path / "study", sampler=(
         "walkers = 16\nseed = 9\nstart = \"map\"\ness_target = 5000\ncheck_interval = 50\n"))
     out_dir = tmp_path / "run"
@@ -227,6 +227,10 @@ def test_sigterm_keeps_a_resumable_checkpoint(tmp_path):
     stored, _ = read_chain(tmp_path / "run.partial" / "chain.h5")
     assert stored.nsteps > 0 and stored.nsteps % 50 == 0  # whole chunks only
     assert not out_dir.exists()
+    # A new run on the same folder must not silently throw the checkpoint away.
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet")
+    assert code == 2 and "pass --resume to continue it or --force" in err
+    assert (tmp_path / "run.partial" / "chain.h5").exists()
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to a child process")
