@@ -193,6 +193,12 @@ def test_resume_without_checkpoint_is_refused(tmp_path, capsys):
     assert code == 2 and "no interrupted run" in err
 
 
+def _ctrl_c_enabled():
+    """In the child: a shell running the suite in the background ignores SIGINT, which
+    the child would inherit (and Python then installs no KeyboardInterrupt handler)."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def _wait_for(process, text: bytes, timeout: float) -> bytes:
     """Read the process's stderr until `text` appears (tqdm writes no newlines)."""
     seen = b""
@@ -241,7 +247,7 @@ def test_interrupted_fit_resumes_to_the_uninterrupted_result(tmp_path, capsys):
     env = dict(os.environ, MPLBACKEND="Agg")
     process = subprocess.Popen(
         [sys.executable, "-m", "inversion.cli", "fit", str(study), "--out", str(out_dir)],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, preexec_fn=_ctrl_c_enabled)
     try:
         # The postfix "tau_max=" appears after the first check, i.e. after the first
         # chunk of steps has been written to the checkpoint.
