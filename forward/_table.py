@@ -144,7 +144,9 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     paths[0] = np.where(below_onset, sub_sigma, paths[0])
     paths[1:] = np.where(below_onset[None], 0.0, paths[1:])
     shape = (theta_axis.size, shift_axis.size, water_axis.size)
-    state = np.moveaxis(paths, 0, -1).reshape(*shape, u_axis.size, 3).astype(np.float32)
+    # C order: lookups reshape it to (nodes, 3) without copying
+    state = np.ascontiguousarray(np.moveaxis(paths, 0, -1), dtype=np.float32).reshape(
+        *shape, u_axis.size, 3)
     return PathTable(theta_axis, shift_axis, water_axis, u_axis, state, onset.reshape(shape))
 
 
@@ -159,7 +161,7 @@ def _param_axes(param, water):
     return theta, shift
 
 
-_FORMAT = 1  # bump when the table layout or the integration changes
+_FORMAT = 2  # bump when the table layout or the integration changes
 
 
 def _cache_file(param, axes) -> Path | None:
@@ -175,7 +177,8 @@ def _load_or_build(param, theta, shift, water_axis, u_axis) -> PathTable:
     path = _cache_file(param, (theta, shift, water_axis, u_axis))
     if path is not None and path.exists():
         with np.load(path) as stored:
-            return PathTable(theta, shift, water_axis, u_axis, stored["state"], stored["onset"])
+            state = np.ascontiguousarray(stored["state"])
+            return PathTable(theta, shift, water_axis, u_axis, state, stored["onset"])
     table = _build(param, theta, shift, water_axis, u_axis)
     if path is not None:
         try:  # a cache is a convenience: a read-only home must not stop the model
