@@ -3,7 +3,13 @@
 Results are scientific estimates that depend on the chosen melting parameterization.
 """
 
-from ._validation import PARAMETER_DOMAIN, DomainError, in_domain
+from ._validation import (
+    EXCLUSIVE_LOWER_BOUND,
+    PARAMETER_DOMAIN,
+    PARAMETER_UNITS,
+    DomainError,
+    in_domain,
+)
 from .adiabat import MAX_PRESSURE, depth_per_pressure, solid_adiabat
 from .column import GEOMETRIES, MeltColumn, MeltingPath, melt_column
 from .parameterizations import (
@@ -19,10 +25,12 @@ from .parameterizations import (
 )
 
 __all__ = [
+    "EXCLUSIVE_LOWER_BOUND",
     "GEOMETRIES",
     "MAX_PRESSURE",
     "PARAMETERIZATIONS",
     "PARAMETER_DOMAIN",
+    "PARAMETER_UNITS",
     "DomainError",
     "Katz2003",
     "KatzConstants",

@@ -9,16 +9,17 @@ import sys
 
 import numpy as np
 
+from ._validation import PARAMETER_UNITS
 from .column import GEOMETRIES, melt_column
 from .parameterizations import PARAMETERIZATIONS
 
-# option name (= melt_column argument) -> (unit, default)
+# option name (= melt_column argument) -> default
 _NUMERIC = {
-    "potential_temperature": ("degC", "1350"),
-    "lithosphere_thickness": ("km", "0"),
-    "water": ("ppm", "0"),
-    "upwelling_ratio": ("", "1"),
-    "solidus_shift": ("degC", "0"),
+    "potential_temperature": "1350",
+    "lithosphere_thickness": "0",
+    "water": "0",
+    "upwelling_ratio": "1",
+    "solidus_shift": "0",
 }
 _OUTPUTS = [
     ("crustal_thickness", "km"),
@@ -37,9 +38,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "the given values. Numeric options take a value, a comma list (1300,1350) or an "
         "inclusive range start:stop:step (1300:1500:50)."
     )
-    for name, (unit, default) in _NUMERIC.items():
+    for name, default in _NUMERIC.items():
+        unit = PARAMETER_UNITS[name].replace("-", "dimensionless")
         parser.add_argument(f"--{name.replace('_', '-')}", default=default, metavar="VALUES",
-                            help=f"{name.replace('_', ' ')} ({unit or 'dimensionless'}; default {default})")
+                            help=f"{name.replace('_', ' ')} ({unit}; default {default})")
     parser.add_argument("--geometry", default="column", metavar="NAMES",
                         help=f"melting region: {', '.join(GEOMETRIES)} (comma list allowed)")
     parser.add_argument("--parameterization", default="katz2003", metavar="NAMES",
@@ -100,7 +102,7 @@ def tabulate(args) -> list[dict]:
 
 
 def _header(name: str) -> str:
-    unit = dict(_OUTPUTS).get(name) or _NUMERIC.get(name, ("",))[0]
+    unit = dict(_OUTPUTS).get(name) or PARAMETER_UNITS.get(name, "").strip("-")
     return f"{name}_{unit.lower().replace('degc', 'c')}" if unit else name
 
 

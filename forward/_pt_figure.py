@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .adiabat import depth_per_pressure
 from .column import melt_column
 from .parameterizations import get_parameterization
 from .plotting import add_depth_axis, draw_lid, draw_melting_path, draw_pt_diagram
@@ -39,11 +40,12 @@ def _draw_panel(ax, key, rows, crust_density, mantle_density):
     param_name, water, shift = key
     param = get_parameterization(param_name)
     chosen = _pick(rows)
-    deepest = max(r["onset_depth"] for r in chosen) * 1.15 / 30.89
+    km_per_gpa = float(depth_per_pressure(mantle_density))
+    deepest = max(r["onset_depth"] for r in chosen) * 1.15 / km_per_gpa
     max_p = float(np.clip(np.ceil(deepest), 2.0, 10.0))
     draw_pt_diagram(ax, param, water=water, solidus_shift=shift, max_pressure=max_p)
     for lid in sorted({r["lithosphere_thickness"] for r in chosen} - {0.0}):
-        draw_lid(ax, lid / (1e6 / (mantle_density * 9.81)), label=f"lid base {lid:g} km")
+        draw_lid(ax, lid / km_per_gpa, label=f"lid base {lid:g} km")
     by_tp: dict[float, list[dict]] = {}
     for row in chosen:
         by_tp.setdefault(row["potential_temperature"], []).append(row)

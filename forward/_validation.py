@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["PARAMETER_DOMAIN", "DomainError", "check_inputs", "in_domain"]
+__all__ = ["EXCLUSIVE_LOWER_BOUND", "PARAMETER_DOMAIN", "PARAMETER_UNITS", "DomainError",
+           "check_inputs", "in_domain"]
 
 #: Valid range (inclusive unless noted) of every numeric input of ``melt_column``.
 #: The tabulated fast path covers exactly this box; the upwelling ratio must be > 0.
@@ -18,11 +19,15 @@ PARAMETER_DOMAIN: dict[str, tuple[float, float]] = {
     "mantle_density": (2500.0, 4000.0),  # kg/m^3
 }
 
-_UNITS = {
+#: Inputs whose lower bound in ``PARAMETER_DOMAIN`` is exclusive.
+EXCLUSIVE_LOWER_BOUND = frozenset({"upwelling_ratio"})
+
+#: Unit of every numeric input ("-" = dimensionless).
+PARAMETER_UNITS: dict[str, str] = {
     "potential_temperature": "degC",
     "lithosphere_thickness": "km",
     "water": "ppm",
-    "upwelling_ratio": "",
+    "upwelling_ratio": "-",
     "solidus_shift": "degC",
     "crust_density": "kg/m^3",
     "mantle_density": "kg/m^3",
@@ -34,7 +39,7 @@ class DomainError(ValueError):
 
     def __init__(self, name: str, value: float, low: float, high: float):
         self.name, self.value, self.low, self.high = name, value, low, high
-        unit = _UNITS.get(name, "")
+        unit = PARAMETER_UNITS.get(name, "").strip("-")
         super().__init__(
             f"{name} = {value:g} {unit} is outside the model domain "
             f"[{low:g}, {high:g}] {unit}".replace("  ", " ")
@@ -44,7 +49,7 @@ class DomainError(ValueError):
 def _outside(name: str, values: np.ndarray) -> np.ndarray:
     low, high = PARAMETER_DOMAIN[name]
     bad = ~np.isfinite(values) | (values < low) | (values > high)
-    if name == "upwelling_ratio":
+    if name in EXCLUSIVE_LOWER_BOUND:
         bad |= values <= low
     return bad
 

@@ -193,8 +193,9 @@ def melt_column(
     if not param.supports_water and np.any(v["water"] > 0.0):
         raise ValueError(f"{param.title} is a dry parameterization: water must be 0 ppm")
     b = dict(zip(v, np.broadcast_arrays(*v.values()), strict=True))
-    water_values = np.unique(b["water"])
-    table = path_table(param, float(water_values[0]) if water_values.size <= 1 else None)
+    water = b["water"]
+    one_water = water.size == 0 or bool(np.all(water == water.flat[0]))
+    table = path_table(param, float(water.flat[0]) if one_water and water.size else None)
     km_per_gpa = depth_per_pressure(b["mantle_density"])
     theta = b["potential_temperature"] - b["solidus_shift"] + deep_depression(param, b["water"])
     query = _Query(param, table, theta, b["solidus_shift"], b["water"], geometry, km_per_gpa,
@@ -207,7 +208,7 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
     onset = refine_onset(query.param, onset, query.potential_temperature, query.water, query.shift)
     top = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
     sigma, int_f, int_pf = query.table.lookup(query.corners, top)
-    _, frac_top = column_temperature(query.param, sigma, top, query.water, query.shift)
+    frac_top = query.param.dry_melt_fraction(sigma, top).fraction
     melts = (onset > top) & (int_f > 0.0) & (frac_top > 0.0)
     int_f = np.where(melts, int_f, 0.0)
     frac_top = np.where(melts, frac_top, 0.0)

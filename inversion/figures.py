@@ -234,7 +234,7 @@ def _central(posterior, medians, name) -> float:
 
 
 def _curve_note(posterior, water, shift) -> str:
-    param = posterior.study.model.parameterization
+    param = forward.get_parameterization(posterior.study.model.parameterization).title
 
     def how(name):
         return "posterior median" if name in posterior.names else "fixed"

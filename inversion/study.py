@@ -48,17 +48,10 @@ PARAMETERS: tuple[str, ...] = (
     "solidus_shift",
 )
 #: Unit of each parameter ("-" = dimensionless).
-PARAMETER_UNITS: dict[str, str] = {
-    "potential_temperature": "degC",
-    "lithosphere_thickness": "km",
-    "water": "ppm",
-    "upwelling_ratio": "-",
-    "solidus_shift": "degC",
-}
+PARAMETER_UNITS: dict[str, str] = {name: forward.PARAMETER_UNITS[name] for name in PARAMETERS}
 #: Fixed value of a parameter the study file does not mention.
 DEFAULT_FIXED: dict[str, float] = {"water": 0.0, "upwelling_ratio": 1.0, "solidus_shift": 0.0}
 _REQUIRED = ("potential_temperature", "lithosphere_thickness")
-_EXCLUSIVE_LOW = frozenset({"upwelling_ratio"})  # forward: upwelling ratio must be > 0
 
 _TOP_KEYS = ("study", "model", "parameters", "observations", "sampler")
 _STUDY_KEYS = ("name", "description")
@@ -492,7 +485,7 @@ def _parse_parameters(table) -> tuple[dict[str, Prior], dict[str, float]]:
 
 def _prior_or_value(name: str, spec, where: str) -> Prior | float:
     return prior_from_spec(name, spec, where=where, domain=forward.PARAMETER_DOMAIN[name],
-                           exclusive_low=name in _EXCLUSIVE_LOW)
+                           exclusive_low=name in forward.EXCLUSIVE_LOWER_BOUND)
 
 
 def _override(name: str, spec) -> Prior | float:
