@@ -17,6 +17,7 @@ import hashlib
 import itertools
 import os
 import tempfile
+import zipfile
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
@@ -175,21 +176,38 @@ def _cache_file(param, axes) -> Path | None:
 
 def _load_or_build(param, theta, shift, water_axis, u_axis) -> PathTable:
     path = _cache_file(param, (theta, shift, water_axis, u_axis))
-    if path is not None and path.exists():
-        with np.load(path) as stored:
-            state = np.ascontiguousarray(stored["state"])
-            return PathTable(theta, shift, water_axis, u_axis, state, stored["onset"])
+    stored = _read_cache(path)
+    if stored is not None:
+        return PathTable(theta, shift, water_axis, u_axis, *stored)
     table = _build(param, theta, shift, water_axis, u_axis)
     if path is not None:
-        try:  # a cache is a convenience: a read-only home must not stop the model
-            path.parent.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(suffix=".npz", dir=path.parent)
-            with os.fdopen(fd, "wb") as handle:
-                np.savez(handle, state=table.state, onset=table.onset)
-            os.replace(tmp, path)
-        except OSError:
-            pass
+        _write_cache(path, table)
     return table
+
+
+def _read_cache(path):
+    """``(state, onset)`` from a cache file, or None if absent or unreadable."""
+    if path is None or not path.exists():
+        return None
+    try:
+        with np.load(path) as stored:
+            return np.ascontiguousarray(stored["state"]), stored["onset"]
+    except (OSError, ValueError, KeyError, zipfile.BadZipFile):
+        return None  # a damaged cache is rebuilt and overwritten
+
+
+def _write_cache(path, table) -> None:
+    """Atomic write; a cache is a convenience, so a read-only home must not stop the model."""
+    tmp = None
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(suffix=".npz", dir=path.parent)
+        with os.fdopen(fd, "wb") as handle:
+            np.savez(handle, state=table.state, onset=table.onset)
+        os.replace(tmp, path)
+    except OSError:
+        if tmp is not None and os.path.exists(tmp):
+            os.remove(tmp)
 
 
 @lru_cache(maxsize=8)
