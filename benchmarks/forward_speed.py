@@ -18,8 +18,8 @@ import time  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-from forward import melt_column  # noqa: E402
-from forward.reference import reference_column  # noqa: E402
+from lidmelt.forward import melt_column  # noqa: E402
+from lidmelt.forward.reference import reference_column  # noqa: E402
 
 
 def _samples(rng, n, wet):

@@ -27,8 +27,8 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 
 import numpy as np  # noqa: E402
 
-import demo_data  # noqa: E402
-import inversion  # noqa: E402
+from lidmelt import demo_data  # noqa: E402
+from lidmelt import inversion  # noqa: E402
 
 TARGET_ESS = 2000
 TARGET_SECONDS = 20.0

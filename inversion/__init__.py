@@ -12,9 +12,9 @@ Examples
 --------
 ::
 
-    import inversion
-    study = inversion.Study.from_file("demo_data/orvanta_rift/study.toml")
-    posterior = inversion.fit(study, seed=1)
+    import lidmelt
+    study = lidmelt.Study.from_file("demo_data/orvanta_rift/study.toml")
+    posterior = lidmelt.fit(study, seed=1)
     posterior.summary()            # DataFrame, one row per free parameter
     posterior.save("results")      # every output file, written atomically
 """

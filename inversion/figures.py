@@ -19,8 +19,8 @@ import corner
 import numpy as np
 from matplotlib.figure import Figure
 
-import forward
-from forward import plotting
+from .. import forward
+from ..forward import plotting
 
 
 __all__ = ["LABELS", "corner_figure", "fit_figure", "pt_figure", "save_figures"]

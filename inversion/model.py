@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import numpy as np
 
-import forward
+from .. import forward
 
 from .study import PARAMETER_UNITS, PARAMETERS
 

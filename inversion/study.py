@@ -24,7 +24,7 @@ from numbers import Real
 from os import PathLike
 from pathlib import Path
 
-import forward
+from .. import forward
 
 from ._errors import InputError, suggest
 from .observations import KINDS, ObservationSet
@@ -177,7 +177,7 @@ class Study:
 
     Examples
     --------
-    >>> import demo_data
+    >>> from lidmelt import demo_data
     >>> study = Study.from_file(demo_data.study_path())
     >>> study.free_parameters
     ('potential_temperature', 'lithosphere_thickness', 'solidus_shift')
@@ -336,7 +336,7 @@ class Study:
 
         Examples
         --------
-        >>> import demo_data
+        >>> from lidmelt import demo_data
         >>> study = Study.from_file(demo_data.study_path())
         >>> dry = study.with_overrides({"water": 0.0}, parameterization="mckenzie-bickle1988")
         >>> dry.model.parameterization, dry.fixed["water"]

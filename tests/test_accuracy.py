@@ -13,8 +13,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from forward import melt_column
-from forward.reference import reference_column
+from lidmelt.forward import melt_column
+from lidmelt.forward.reference import reference_column
 
 GRID = list(itertools.product((1250.0, 1450.0, 1650.0), (0.0, 100.0), (0.0, 500.0)))
 

@@ -6,9 +6,9 @@ import json
 
 import pytest
 
-from forward import melt_column
-from forward._cli_column import parse_values
-from inversion.cli import main
+from lidmelt.forward import melt_column
+from lidmelt.inversion.cli.column import parse_values
+from lidmelt.inversion.cli import main
 
 
 def test_crust_against_tp_for_a_30_km_lid(capsys):

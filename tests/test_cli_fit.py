@@ -19,10 +19,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import demo_data
-from inversion import OUTPUT_FILES, SUMMARY_COLUMNS
-from inversion.cli import main
-from inversion.sampler import read_chain
+from lidmelt import demo_data
+from lidmelt.inversion import OUTPUT_FILES, SUMMARY_COLUMNS
+from lidmelt.inversion.cli import main
+from lidmelt.inversion.sampler import read_chain
 
 DEMO = demo_data.study_path().parent
 
@@ -219,7 +219,7 @@ def test_sigterm_keeps_a_resumable_checkpoint(tmp_path, capsys):
         "walkers = 16\nseed = 9\nstart = \"map\"\ness_target = 5000\ncheck_interval = 50\n"))
     out_dir = tmp_path / "run"
     process = subprocess.Popen(
-        [sys.executable, "-m", "inversion.cli", "fit", str(study), "--out", str(out_dir)],
+        [sys.executable, "-m", "lidmelt.inversion.cli", "fit", str(study), "--out", str(out_dir)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=dict(os.environ, MPLBACKEND="Agg"))
     try:
         _wait_for(process, b"tau_max=", timeout=120)
@@ -246,7 +246,7 @@ def test_interrupted_fit_resumes_to_the_uninterrupted_result(tmp_path, capsys):
     out_dir = tmp_path / "run"
     env = dict(os.environ, MPLBACKEND="Agg")
     process = subprocess.Popen(
-        [sys.executable, "-m", "inversion.cli", "fit", str(study), "--out", str(out_dir)],
+        [sys.executable, "-m", "lidmelt.inversion.cli", "fit", str(study), "--out", str(out_dir)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, preexec_fn=_ctrl_c_enabled)
     try:
         # The postfix "tau_max=" appears after the first check, i.e. after the first

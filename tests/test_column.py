@@ -7,8 +7,8 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy.optimize import brentq
 
-import forward
-from forward import melt_column
+from lidmelt import forward
+from lidmelt.forward import melt_column
 
 OUTPUTS = ("melt_thickness", "crustal_thickness", "onset_depth", "onset_pressure", "top_depth",
            "top_pressure", "max_melt_fraction", "mean_melt_fraction", "mean_melting_pressure")
@@ -180,7 +180,7 @@ def test_other_bad_arguments():
 
 
 def test_table_cache_round_trip_and_damaged_file(tmp_path, monkeypatch):
-    from forward import _table
+    from lidmelt.forward import _table
 
     monkeypatch.setenv("LIDMELT_CACHE", str(tmp_path))
     _table.path_table.cache_clear()

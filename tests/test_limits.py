@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from forward import MeltFraction, Parameterization, ThermoConstants, melt_column
+from lidmelt.forward import MeltFraction, Parameterization, ThermoConstants, melt_column
 
 T0, SLOPE, WIDTH = 1000.0, 100.0, 500.0  # degC, degC/GPa, degC
 PRODUCTIVITY = SLOPE / WIDTH  # 0.2 per GPa

@@ -9,9 +9,9 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import integrate, stats
 
-import forward
-from inversion._errors import InputError
-from inversion.observations import (
+from lidmelt import forward
+from lidmelt.inversion._errors import InputError
+from lidmelt.inversion.observations import (
     KINDS,
     NO_MELT_OFFSET,
     CrustalThickness,

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-import forward
-from forward import Katz2003, KatzConstants, McKenzieBickle1988
+from lidmelt import forward
+from lidmelt.forward import Katz2003, KatzConstants, McKenzieBickle1988
 
 PARAMS = [Katz2003(), McKenzieBickle1988()]
 P_GRID = np.linspace(0.0, 8.0, 81)

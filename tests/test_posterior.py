@@ -9,11 +9,11 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-import demo_data
-import forward
-import inversion
-from inversion import figures
-from inversion.model import DERIVED, LogPosterior
+from lidmelt import demo_data
+from lidmelt import forward
+from lidmelt import inversion
+from lidmelt.inversion import figures
+from lidmelt.inversion.model import DERIVED, LogPosterior
 
 
 @pytest.fixture(scope="module")
@@ -140,7 +140,7 @@ def test_step_cap_flags_not_converged_everywhere(study, tmp_path):
 
 
 def test_report_states_numbers_with_units_and_caution(quick):
-    from inversion.report import render
+    from lidmelt.inversion.report import render
 
     text = render(quick)
     row = quick.summary().set_index("parameter").loc["potential_temperature"]

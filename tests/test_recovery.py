@@ -11,9 +11,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-import demo_data
-import inversion
-from inversion.observations.pressure import MeltingPressure
+from lidmelt import demo_data
+from lidmelt import inversion
+from lidmelt.inversion.observations.pressure import MeltingPressure
 
 # Five truths spread over the demo's prior (Tp degC, lid km, solidus shift degC).
 TRUTHS = [

@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from inversion import InputError, NotConvergedWarning
-from inversion._diagnostics import converged_rhat, split_rhat
-from inversion.sampler import assess_chain, read_chain, run_chain, write_chain
+from lidmelt.inversion import InputError, NotConvergedWarning
+from lidmelt.inversion._diagnostics import converged_rhat, split_rhat
+from lidmelt.inversion.sampler import assess_chain, read_chain, run_chain, write_chain
 
 
 class LinearGaussian:

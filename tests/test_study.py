@@ -8,11 +8,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-import forward
-from inversion._errors import InputError
-from inversion.observations import CrustalThickness, MeltingPressure
-from inversion.priors import Normal, TruncatedNormal, Uniform
-from inversion.study import DEFAULT_FIXED, PARAMETERS, ModelSettings, SamplerSettings, Study
+from lidmelt import forward
+from lidmelt.inversion._errors import InputError
+from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
+from lidmelt.inversion.priors import Normal, TruncatedNormal, Uniform
+from lidmelt.inversion.study import DEFAULT_FIXED, PARAMETERS, ModelSettings, SamplerSettings, Study
 
 DATA = Path(__file__).parent / "data"
 BASE = (DATA / "study.toml").read_text()

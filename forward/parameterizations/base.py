@@ -103,7 +103,7 @@ class Parameterization(abc.ABC):
 
         Examples
         --------
-        >>> from forward import get_parameterization
+        >>> from lidmelt.forward import get_parameterization
         >>> katz = get_parameterization("katz2003")
         >>> round(float(katz.melt_fraction(1300.0, 1.0).fraction), 4)
         0.1293

@@ -9,9 +9,9 @@ import sys
 
 import numpy as np
 
-from ._validation import PARAMETER_UNITS
-from .column import GEOMETRIES, melt_column
-from .parameterizations import PARAMETERIZATIONS
+from ...forward._validation import PARAMETER_UNITS
+from ...forward.column import GEOMETRIES, melt_column
+from ...forward.parameterizations import PARAMETERIZATIONS
 
 # option name (= melt_column argument) -> default
 _NUMERIC = {
@@ -125,7 +125,7 @@ def run(args) -> int:
     if args.plot:
         if not args.plot.lower().endswith(".png"):
             raise ValueError(f"--plot: {args.plot!r} must end in .png")
-        from ._pt_figure import write_column_figure
+        from ...forward._pt_figure import write_column_figure
 
         write_column_figure(args.plot, rows, crust_density=args.crust_density,
                             mantle_density=args.mantle_density)

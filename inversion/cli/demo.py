@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from ._cli_fit import _add_common, run_fit
+from .fit import _add_common, run_fit
 
 __all__ = ["DEFAULT_OUT", "add_arguments", "run"]
 
@@ -24,9 +24,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Fit the demo study; 0 on success."""
-    import demo_data
+    from ... import demo_data
 
-    from .study import Study
+    from ..study import Study
 
     path = demo_data.study_path()
     print(f"lidmelt demo: fitting {path}")

@@ -10,17 +10,15 @@ from __future__ import annotations
 import argparse
 import sys
 
-from forward import _cli_column
-
-from . import _cli_demo, _cli_fit
-from ._errors import InputError
+from .._errors import InputError
+from . import column, demo, fit
 
 # name -> (module, one-line help)
 _COMMANDS = {
-    "column": (_cli_column, "tabulate the melting column for given conditions"),
-    "fit": (_cli_fit, "fit a study file: posterior of potential temperature and lid "
+    "column": (column, "tabulate the melting column for given conditions"),
+    "fit": (fit, "fit a study file: posterior of potential temperature and lid "
             "thickness"),
-    "demo": (_cli_demo, "fit the bundled demo study end to end (under a minute)"),
+    "demo": (demo, "fit the bundled demo study end to end (under a minute)"),
 }
 
 
@@ -56,6 +54,3 @@ def main(argv: list[str] | None = None) -> int:
         print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)
         return 1
 
-
-if __name__ == "__main__":
-    sys.exit(main())

@@ -9,7 +9,7 @@ import threading
 import warnings
 from pathlib import Path
 
-from ._errors import NotConvergedWarning
+from .._errors import NotConvergedWarning
 
 __all__ = ["add_arguments", "print_result", "run", "run_fit"]
 
@@ -48,7 +48,7 @@ def _add_common(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Fit the study named on the command line; 0 on success."""
-    from .study import Study
+    from ..study import Study
 
     study = Study.from_file(args.study)
     return run_fit(study, args, command=getattr(args, "argv", ["lidmelt", "fit", args.study]))
@@ -72,7 +72,7 @@ def _terminate(signum, frame):
 
 
 def _run_and_report(study, args, out: Path, command: list[str]) -> int:
-    from .posterior import fit
+    from ..posterior import fit
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", NotConvergedWarning)
@@ -101,7 +101,7 @@ def _run_and_report(study, args, out: Path, command: list[str]) -> int:
 
 def print_result(posterior, out: Path) -> None:
     """Headline numbers and where the results are, on stdout."""
-    from .report import _NAMES, _interval_words
+    from ..report import _NAMES, _interval_words
 
     state = "converged" if posterior.converged else "NOT CONVERGED (see report.md)"
     print(f"{posterior.study.name}: {state}; {posterior.chain.shape[0]} steps x "
