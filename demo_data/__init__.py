@@ -21,7 +21,7 @@ DEMO_TRUTH = {
     "potential_temperature": 1400.0,
     "lithosphere_thickness": 46.0,
     "water": 150.0,
-    "solidus_shift": 0.0,
+    "solidus_offset": 0.0,
 }
 
 

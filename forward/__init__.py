@@ -11,7 +11,7 @@ from ._validation import (
     in_domain,
 )
 from .adiabat import MAX_PRESSURE, depth_per_pressure, solid_adiabat
-from .column import GEOMETRIES, MeltColumn, MeltingPath, melt_column
+from .column import MELTING_REGIONS, MeltColumn, MeltingPath, melt_column
 from .parameterizations import (
     PARAMETERIZATIONS,
     Katz2003,
@@ -26,7 +26,7 @@ from .parameterizations import (
 
 __all__ = [
     "EXCLUSIVE_LOWER_BOUND",
-    "GEOMETRIES",
+    "MELTING_REGIONS",
     "MAX_PRESSURE",
     "PARAMETERIZATIONS",
     "PARAMETER_DOMAIN",

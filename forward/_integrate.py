@@ -1,6 +1,6 @@
 """The isentropic melting path as an explicit ODE, and a vectorised integrator.
 
-State: ``sigma``, the dry-equivalent temperature less the solidus shift, so that
+State: ``sigma``, the dry-equivalent temperature less the solidus offset, so that
 ``F = F_dry(sigma, P)`` and ``T = sigma + shift - dT(F, P, water)``. With entropy
 conserved, ``(c_p/T) dT - a dP + dS dF = 0`` (Katz et al. 2003, eq. 22 in substance),
 ``a = (1-F) alpha_s/rho_s + F alpha_f/rho_f``; substituting ``dF = F_s dsigma + F_P dP``

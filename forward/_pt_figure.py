@@ -23,7 +23,7 @@ def _panels(rows):
     """Rows grouped by what changes the melting curves (one panel each)."""
     groups: dict[tuple, list[dict]] = {}
     for row in rows:
-        key = (row["parameterization"], row["water"], row["solidus_shift"])
+        key = (row["parameterization"], row["water"], row["solidus_offset"])
         groups.setdefault(key, []).append(row)
     return list(groups.items())[:_MAX_PANELS]
 
@@ -43,7 +43,7 @@ def _draw_panel(ax, key, rows, crust_density, mantle_density):
     km_per_gpa = float(depth_per_pressure(mantle_density))
     deepest = max(r["onset_depth"] for r in chosen) * 1.15 / km_per_gpa
     max_p = float(np.clip(np.ceil(deepest), 2.0, 10.0))
-    draw_pt_diagram(ax, param, water=water, solidus_shift=shift, max_pressure=max_p)
+    draw_pt_diagram(ax, param, water=water, solidus_offset=shift, max_pressure=max_p)
     for lid in sorted({r["lithosphere_thickness"] for r in chosen} - {0.0}):
         draw_lid(ax, lid / km_per_gpa, label=f"lid base {lid:g} km")
     by_tp: dict[float, list[dict]] = {}
@@ -54,13 +54,13 @@ def _draw_panel(ax, key, rows, crust_density, mantle_density):
                            for r in group)
         for i, row in enumerate(sorted(group, key=lambda r: r["lithosphere_thickness"])):
             col = melt_column(tp, row["lithosphere_thickness"], water=water,
-                              parameterization=param, geometry=row["geometry"],
-                              upwelling_ratio=row["upwelling_ratio"], solidus_shift=shift,
+                              parameterization=param, melting_region=row["melting_region"],
+                              active_upwelling=row["active_upwelling"], solidus_offset=shift,
                               crust_density=crust_density, mantle_density=mantle_density)
             draw_melting_path(ax, col, color=color, max_pressure=max_p,
                               label=f"Tp {tp:g} °C, crust {crusts}" if i == 0 else None)
     add_depth_axis(ax, mantle_density)
-    ax.set_title(f"{param.title}, {water:g} ppm H$_2$O, solidus shift {shift:+g} °C", fontsize=10)
+    ax.set_title(f"{param.title}, {water:g} ppm H$_2$O, solidus offset {shift:+g} °C", fontsize=10)
     ax.legend(fontsize=7, loc="lower left", framealpha=0.9)
 
 

@@ -1,6 +1,6 @@
 """Tabulated melting paths: the fast route behind ``melt_column``.
 
-A path depends on the potential temperature, the solidus shift and the water
+A path depends on the potential temperature, the solidus offset and the water
 content; the lid only truncates it. Paths are integrated once on a grid of
 ``theta = Tp - shift + dT0(water)`` (the potential temperature relative to the
 shifted wet solidus at depth, ``dT0`` the unsaturated water depression at F -> 0,
@@ -153,7 +153,7 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
 
 def _param_axes(param, water):
     tp_lo, tp_hi = PARAMETER_DOMAIN["potential_temperature"]
-    s_lo, s_hi = PARAMETER_DOMAIN["solidus_shift"]
+    s_lo, s_hi = PARAMETER_DOMAIN["solidus_offset"]
     depressions = deep_depression(param, np.asarray(water, float))
     lo, hi = tp_lo - s_hi + np.min(depressions), tp_hi - s_lo + np.max(depressions)
     lo, hi = np.floor(lo / _THETA_STEP) * _THETA_STEP, np.ceil(hi / _THETA_STEP) * _THETA_STEP

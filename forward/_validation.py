@@ -8,27 +8,27 @@ __all__ = ["EXCLUSIVE_LOWER_BOUND", "PARAMETER_DOMAIN", "PARAMETER_UNITS", "Doma
            "check_inputs", "in_domain"]
 
 #: Valid range (inclusive unless noted) of every numeric input of ``melt_column``.
-#: The tabulated fast path covers exactly this box; the upwelling ratio must be > 0.
+#: The tabulated fast path covers exactly this box; the active upwelling must be > 0.
 PARAMETER_DOMAIN: dict[str, tuple[float, float]] = {
     "potential_temperature": (1000.0, 1800.0),  # degC
     "lithosphere_thickness": (0.0, 400.0),  # km
     "water": (0.0, 1000.0),  # ppm H2O of the bulk source
-    "upwelling_ratio": (0.0, 20.0),  # dimensionless, lower bound exclusive
-    "solidus_shift": (-100.0, 100.0),  # degC
+    "active_upwelling": (0.0, 20.0),  # dimensionless, lower bound exclusive
+    "solidus_offset": (-100.0, 100.0),  # degC
     "crust_density": (2000.0, 3500.0),  # kg/m^3
     "mantle_density": (2500.0, 4000.0),  # kg/m^3
 }
 
 #: Inputs whose lower bound in ``PARAMETER_DOMAIN`` is exclusive.
-EXCLUSIVE_LOWER_BOUND = frozenset({"upwelling_ratio"})
+EXCLUSIVE_LOWER_BOUND = frozenset({"active_upwelling"})
 
 #: Unit of every numeric input ("-" = dimensionless).
 PARAMETER_UNITS: dict[str, str] = {
     "potential_temperature": "degC",
     "lithosphere_thickness": "km",
     "water": "ppm",
-    "upwelling_ratio": "-",
-    "solidus_shift": "degC",
+    "active_upwelling": "-",
+    "solidus_offset": "degC",
     "crust_density": "kg/m^3",
     "mantle_density": "kg/m^3",
 }

@@ -14,9 +14,9 @@ from ._table import deep_depression
 from .adiabat import MAX_PRESSURE, depth_per_pressure, refine_onset, solid_adiabat
 from .parameterizations import Parameterization, get_parameterization
 
-__all__ = ["GEOMETRIES", "MeltColumn", "MeltingPath", "melt_column"]
+__all__ = ["MELTING_REGIONS", "MeltColumn", "MeltingPath", "melt_column"]
 
-GEOMETRIES = ("column", "ridge")
+MELTING_REGIONS = ("column", "triangle")
 
 
 @dataclass(frozen=True)
@@ -44,7 +44,7 @@ class _Query:
     theta: np.ndarray
     shift: np.ndarray
     water: np.ndarray
-    geometry: str
+    melting_region: str
     km_per_gpa: np.ndarray
     potential_temperature: np.ndarray
     corners: tuple
@@ -56,7 +56,7 @@ class MeltColumn:
 
     Attributes
     ----------
-    melt_thickness : km, upwelling_ratio x the integral of F over depth.
+    melt_thickness : km, active_upwelling x the integral of F over depth.
     crustal_thickness : km, melt_thickness x mantle_density / crust_density.
     onset_depth, onset_pressure : km, GPa; where the solid adiabat meets the solidus
         (0 where it never does).
@@ -67,7 +67,7 @@ class MeltColumn:
     mean_melting_pressure : GPa, melt-production weighted (ridge: also weighted by
         the width of the melting region); equals top_pressure where no melt forms.
     produces_melt : bool, melt_thickness > 0.
-    potential_temperature, lithosphere_thickness, water, solidus_shift : the inputs,
+    potential_temperature, lithosphere_thickness, water, solidus_offset : the inputs,
         broadcast (degC, km, ppm, degC).
     solidus_margin : K (computed on first access); the largest excess of the solid
         adiabat over the wet, shifted solidus over 0-10 GPa: negative, a smooth distance
@@ -87,7 +87,7 @@ class MeltColumn:
     potential_temperature: np.ndarray
     lithosphere_thickness: np.ndarray
     water: np.ndarray
-    solidus_shift: np.ndarray
+    solidus_offset: np.ndarray
     _query: _Query = field(repr=False, compare=False)
 
     @cached_property
@@ -96,7 +96,7 @@ class MeltColumn:
         param = self._query.param
         adiabat = solid_adiabat(self.potential_temperature[..., None], pressures, param.thermo)
         wet = param.wet_solidus(pressures, self.water[..., None])
-        return np.max(adiabat - wet - self.solidus_shift[..., None], axis=-1)
+        return np.max(adiabat - wet - self.solidus_offset[..., None], axis=-1)
 
     def profile(self, pressure):
         """Temperature (degC) and melt fraction along the whole adiabat at ``pressure``.
@@ -125,7 +125,7 @@ class MeltColumn:
         frac = 0.5 * (frac_edges[..., 1:] + frac_edges[..., :-1])
         frac_edges[..., -1] = 0.0  # melt present at the onset counts as made there
         made = np.maximum(frac_edges[..., :-1] - frac_edges[..., 1:], 0.0)
-        if self._query.geometry == "ridge":
+        if self._query.melting_region == "triangle":
             made = made * (bottom - mids)
         total = made.sum(axis=-1, keepdims=True)
         weight = np.where(total > 0.0, made / np.where(total > 0.0, total, 1.0), 0.0)
@@ -139,9 +139,9 @@ def melt_column(
     *,
     water=0.0,
     parameterization=None,
-    geometry: str = "column",
-    upwelling_ratio=1.0,
-    solidus_shift=0.0,
+    melting_region: str = "column",
+    active_upwelling=1.0,
+    solidus_offset=0.0,
     crust_density=2900.0,
     mantle_density=3300.0,
 ) -> MeltColumn:
@@ -158,10 +158,10 @@ def melt_column(
     lithosphere_thickness : array_like, km, >= 0 (depth of the lid base).
     water : array_like, ppm H2O by weight of the bulk source (0-1000).
     parameterization : None (Katz 2003), a name, or a ``Parameterization``.
-    geometry : "column" (1-D upwelling column) or "ridge" (triangular melting
+    melting_region : "column" (1-D upwelling column) or "triangle" (triangular melting
         region beneath a spreading ridge; Plank & Langmuir 1992).
-    upwelling_ratio : array_like, > 0; 1 is passive upwelling, > 1 active.
-    solidus_shift : array_like, degC; moves solidus, lherzolite-out and liquidus together.
+    active_upwelling : array_like, > 0; 1 is passive upwelling, > 1 active.
+    solidus_offset : array_like, degC; moves solidus, lherzolite-out and liquidus together.
     crust_density, mantle_density : array_like, kg/m^3. The mantle density sets the
         depth scale (P = rho g z, 30.89 km/GPa at 3300) and the crust mass balance.
 
@@ -174,7 +174,7 @@ def melt_column(
     DomainError
         An input is outside ``PARAMETER_DOMAIN`` (the message names it).
     ValueError
-        Unknown geometry or parameterization, or water with a dry parameterization.
+        Unknown melting_region or parameterization, or water with a dry parameterization.
 
     Examples
     --------
@@ -183,11 +183,11 @@ def melt_column(
     (82.2, 8.85)
     """
     param = get_parameterization(parameterization)
-    if geometry not in GEOMETRIES:
-        raise ValueError(f"unknown geometry {geometry!r}; choose 'column' or 'ridge'")
+    if melting_region not in MELTING_REGIONS:
+        raise ValueError(f"unknown melting_region {melting_region!r}; choose 'column' or 'triangle'")
     v = check_inputs(
         potential_temperature=potential_temperature, lithosphere_thickness=lithosphere_thickness,
-        water=water, upwelling_ratio=upwelling_ratio, solidus_shift=solidus_shift,
+        water=water, active_upwelling=active_upwelling, solidus_offset=solidus_offset,
         crust_density=crust_density, mantle_density=mantle_density,
     )
     if not param.supports_water and np.any(v["water"] > 0.0):
@@ -197,9 +197,9 @@ def melt_column(
     one_water = water.size == 0 or bool(np.all(water == water.flat[0]))
     table = path_table(param, float(water.flat[0]) if one_water and water.size else None)
     km_per_gpa = depth_per_pressure(b["mantle_density"])
-    theta = b["potential_temperature"] - b["solidus_shift"] + deep_depression(param, b["water"])
-    query = _Query(param, table, theta, b["solidus_shift"], b["water"], geometry, km_per_gpa,
-                   b["potential_temperature"], table.corners(theta, b["solidus_shift"], b["water"]))
+    theta = b["potential_temperature"] - b["solidus_offset"] + deep_depression(param, b["water"])
+    query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region, km_per_gpa,
+                   b["potential_temperature"], table.corners(theta, b["solidus_offset"], b["water"]))
     return _column_outputs(query, b, km_per_gpa)
 
 
@@ -214,7 +214,7 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
     frac_top = np.where(melts, frac_top, 0.0)
     interval = np.where(melts, onset - top, 1.0)
     safe_f = np.where(melts, frac_top, 1.0)
-    if query.geometry == "ridge":
+    if query.melting_region == "triangle":
         mean_f = int_f / interval
         width_weighted = frac_top * (onset - top) - int_f
         moment = top * (onset - top) * frac_top + onset * int_f - 2.0 * np.where(melts, int_pf, 0.0)
@@ -225,7 +225,7 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
         mean_p = np.where(melts, top + int_f / safe_f, top)
     # interpolation across a path that barely melts can stray; the mean lies in the interval
     mean_p = np.clip(mean_p, top, np.maximum(onset, top))
-    melt = b["upwelling_ratio"] * int_f * km_per_gpa
+    melt = b["active_upwelling"] * int_f * km_per_gpa
     return MeltColumn(
         melt_thickness=melt,
         crustal_thickness=melt * b["mantle_density"] / b["crust_density"],
@@ -240,6 +240,6 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
         potential_temperature=b["potential_temperature"],
         lithosphere_thickness=b["lithosphere_thickness"],
         water=b["water"],
-        solidus_shift=b["solidus_shift"],
+        solidus_offset=b["solidus_offset"],
         _query=query,
     )

@@ -30,25 +30,25 @@ def _melt_fraction_grid(param, temps, pressures, water, shift):
     return frac
 
 
-def draw_pt_diagram(ax, parameterization=None, *, water=0.0, solidus_shift=0.0,
+def draw_pt_diagram(ax, parameterization=None, *, water=0.0, solidus_offset=0.0,
                     max_pressure=5.0, temperature_range=(1000.0, 1900.0),
                     contours=(0.1, 0.2, 0.3, 0.5)):
     """Melting curves and equilibrium melt-fraction contours on ``ax``.
 
     Temperatures in degC on x, pressure in GPa on y (downward). The curves are shifted
-    by ``solidus_shift``; with ``water`` > 0 the wet solidus (F -> 0) is added.
+    by ``solidus_offset``; with ``water`` > 0 the wet solidus (F -> 0) is added.
     """
     param = get_parameterization(parameterization)
     pressures = np.linspace(0.0, max_pressure, 241)
     temps = np.linspace(*temperature_range, 361)
-    frac = _melt_fraction_grid(param, temps, pressures, water, solidus_shift)
+    frac = _melt_fraction_grid(param, temps, pressures, water, solidus_offset)
     lines = ax.contour(temps, pressures, frac, levels=list(contours), colors="tab:olive",
                        linewidths=0.7, alpha=0.8)
     ax.clabel(lines, fmt=lambda f: f"F={f:g}", fontsize=7, inline_spacing=2)
     for name, temp in param.curves(pressures).items():
-        ax.plot(temp + solidus_shift, pressures, label=name, **_CURVE_STYLE.get(name, {}))
+        ax.plot(temp + solidus_offset, pressures, label=name, **_CURVE_STYLE.get(name, {}))
     if water > 0 and param.supports_water:
-        wet = param.wet_solidus(pressures, water) + solidus_shift
+        wet = param.wet_solidus(pressures, water) + solidus_offset
         ax.plot(wet, pressures, color="tab:blue", lw=1.4, label=f"solidus, {water:g} ppm H$_2$O")
     ax.set_xlim(*temperature_range)
     ax.set_ylim(max_pressure, 0.0)

@@ -59,7 +59,7 @@ def _start_temperature(param, tp, p0, water, shift):
     th = param.thermo
 
     def mismatch(t):
-        frac = float(param.melt_fraction(t, p0, water, solidus_shift=shift).fraction)
+        frac = float(param.melt_fraction(t, p0, water, solidus_offset=shift).fraction)
         return (t + KELVIN) - (t_ad + KELVIN) * np.exp(-th.entropy_of_fusion * frac / th.heat_capacity)
 
     return brentq(mismatch, float(param.wet_solidus(p0, water)) + shift - 1.0, t_ad, xtol=1e-12)
@@ -70,7 +70,7 @@ def _rhs(param, water, shift):
 
     def rhs(p, y):
         temp = y[0]
-        mf = param.melt_fraction(temp, max(p, 0.0), water, solidus_shift=shift)
+        mf = param.melt_fraction(temp, max(p, 0.0), water, solidus_offset=shift)
         f, f_t, f_p = float(mf.fraction), float(mf.d_temperature), float(mf.d_pressure)
         a = 1e9 * ((1 - f) * th.alpha_solid / th.density_solid + f * th.alpha_melt / th.density_melt)
         t_cp = (temp + KELVIN) / th.heat_capacity
@@ -81,13 +81,13 @@ def _rhs(param, water, shift):
 
 
 def reference_column(potential_temperature: float, lithosphere_thickness: float, *,
-                     water: float = 0.0, parameterization=None, geometry: str = "column",
-                     upwelling_ratio: float = 1.0, solidus_shift: float = 0.0,
+                     water: float = 0.0, parameterization=None, melting_region: str = "column",
+                     active_upwelling: float = 1.0, solidus_offset: float = 0.0,
                      mantle_density: float = 3300.0, rtol: float = 1e-9) -> ReferenceColumn:
     """Integrate one melting column adaptively (slow, tight tolerance)."""
     param = get_parameterization(parameterization)
     km = float(depth_per_pressure(mantle_density))
-    tp, s = float(potential_temperature), float(solidus_shift)
+    tp, s = float(potential_temperature), float(solidus_offset)
     p0, melts = _onset(param, tp, water, s)
     top = min(lithosphere_thickness / km, p0)
     if not melts or top >= p0:
@@ -97,20 +97,20 @@ def reference_column(potential_temperature: float, lithosphere_thickness: float,
                     rtol=rtol, atol=rtol, dense_output=True)
     if not sol.success:
         raise RuntimeError(f"reference integration failed: {sol.message}")
-    return _summarise(param, sol, p0, top, km, water, s, geometry, upwelling_ratio)
+    return _summarise(param, sol, p0, top, km, water, s, melting_region, active_upwelling)
 
 
-def _summarise(param, sol, p0, top, km, water, shift, geometry, chi):
+def _summarise(param, sol, p0, top, km, water, shift, melting_region, chi):
     """Column outputs by dense quadrature of the path (no integration by parts)."""
     int_f = float(sol.y[1, -1])
     pressures = np.linspace(p0, top, 401)
     temps = sol.sol(pressures)[0]
-    frac = np.array([float(param.melt_fraction(t, p, water, solidus_shift=shift).fraction)
+    frac = np.array([float(param.melt_fraction(t, p, water, solidus_offset=shift).fraction)
                      for t, p in zip(temps, pressures, strict=True)])
     # melt present at the start (onset at the model base) counts as made there
     made = np.diff(np.concatenate([[0.0], frac[1:]]))
     mids = 0.5 * (pressures[1:] + pressures[:-1])
-    if geometry == "ridge":
+    if melting_region == "triangle":
         made = made * (p0 - mids)
         mean_f = int_f / (p0 - top)
     else:

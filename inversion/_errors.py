@@ -123,7 +123,7 @@ def suggest(word: str, valid: Iterable[str]) -> str:
 
     Examples
     --------
-    >>> suggest("wter", ["water", "solidus_shift"])
+    >>> suggest("wter", ["water", "solidus_offset"])
     "; did you mean 'water'?"
     >>> suggest("melt", ["crustal_thickness", "melt_thickness"])
     "; did you mean 'melt_thickness'?"

@@ -109,7 +109,7 @@ def run_record(posterior) -> dict:
         "free_parameters": list(posterior.names),
         "fixed_parameters": {k: float(v) for k, v in study.fixed.items()},
         "parameterization": study.model.parameterization,
-        "geometry": study.model.geometry,
+        "melting_region": study.model.melting_region,
         **posterior.run_info,
         "python": sys.version.split()[0],
         "platform": platform.platform(),

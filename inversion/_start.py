@@ -2,7 +2,7 @@
 
 Optimisation works in standardised coordinates u = (theta - centre) / scale, so that
 Nelder-Mead's initial simplex has a sensible size for parameters as different as Tp
-(~1400 degC) and the solidus shift (~0 degC).
+(~1400 degC) and the solidus offset (~0 degC).
 """
 
 from __future__ import annotations

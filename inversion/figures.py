@@ -30,8 +30,8 @@ LABELS = {
     "potential_temperature": "Potential temperature $T_p$ (°C)",
     "lithosphere_thickness": "Lid thickness (km)",
     "water": "Source water (ppm H$_2$O)",
-    "upwelling_ratio": "Upwelling ratio (–)",
-    "solidus_shift": "Solidus shift (°C)",
+    "active_upwelling": "active upwelling (–)",
+    "solidus_offset": "Solidus offset (°C)",
     "onset_depth": "Onset depth of melting (km)",
     "crustal_thickness": "Igneous crust thickness (km)",
     "mean_melt_fraction": "Mean melt fraction (–)",
@@ -41,8 +41,8 @@ _SHORT = {
     "potential_temperature": "$T_p$ (°C)",
     "lithosphere_thickness": "Lid (km)",
     "water": "H$_2$O (ppm)",
-    "upwelling_ratio": "Upwelling ratio",
-    "solidus_shift": "Solidus shift (°C)",
+    "active_upwelling": "active upwelling",
+    "solidus_offset": "Solidus offset (°C)",
 }
 _DPI = 150
 _UNIT_TEXT = {"degC": "°C", "km": "km", "ppm": "ppm", "GPa": "GPa", "-": ""}
@@ -109,7 +109,7 @@ def _fit_panels(blocks, column):
         predicted = block.predict(column)
         names = list(block.ids)
         if block.kind == "crustal_thickness":
-            target = block.compare_to.replace("_", " ")
+            target = f"{block.thickness_of} thickness"
             label = "Igneous crust (km)" if target == "crustal thickness" else "Melt (km)"
             yield dict(names=names, obs=observed["value"], sigma=observed["sigma"],
                        pred=predicted["value"], ylabel=label,
@@ -173,13 +173,13 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
     path = column.path(num=num)
     medians = posterior.samples.median(numeric_only=True)
     water = _central(posterior, medians, "water")
-    shift = _central(posterior, medians, "solidus_shift")
+    shift = _central(posterior, medians, "solidus_offset")
     max_p = _max_pressure(column, study.observations)
     t_range = _temperature_range(path, study.observations)
     fig = Figure(figsize=(7.6, 6.4), layout="constrained")
     ax = fig.subplots()
     plotting.draw_pt_diagram(ax, study.model.parameterization, water=water,
-                             solidus_shift=shift, max_pressure=max_p,
+                             solidus_offset=shift, max_pressure=max_p,
                              temperature_range=t_range)
     _label_contours(ax)
     _draw_lid_band(ax, posterior, study.model.mantle_density)
@@ -239,8 +239,8 @@ def _curve_note(posterior, water, shift) -> str:
     def how(name):
         return "posterior median" if name in posterior.names else "fixed"
 
-    return (f"curves: {param}, water {water:.0f} ppm ({how('water')}), solidus shift "
-            f"{shift:+.1f} °C ({how('solidus_shift')})")
+    return (f"curves: {param}, water {water:.0f} ppm ({how('water')}), solidus offset "
+            f"{shift:+.1f} °C ({how('solidus_offset')})")
 
 
 def _draw_paths(ax, path, column) -> None:

@@ -129,10 +129,10 @@ class LogPosterior:
             values["potential_temperature"],
             values["lithosphere_thickness"],
             water=values["water"],
-            upwelling_ratio=values["upwelling_ratio"],
-            solidus_shift=values["solidus_shift"],
+            active_upwelling=values["active_upwelling"],
+            solidus_offset=values["solidus_offset"],
             parameterization=model.parameterization,
-            geometry=model.geometry,
+            melting_region=model.melting_region,
             crust_density=model.crust_density,
             mantle_density=model.mantle_density,
         )

@@ -13,7 +13,7 @@ __all__ = ["CAUTION", "render"]
 #: The caution paragraph every report ends with.
 CAUTION = (
     "These numbers are scientific estimates, not measurements. They depend on the chosen "
-    "melting parameterization, on the melting geometry, on the values held fixed, on the "
+    "melting parameterization, on the melting melting_region, on the values held fixed, on the "
     "priors and on how the observations are linked to the melting column (for instance "
     "where the basalts last equilibrated). Another parameterization or other assumptions "
     "can move them by more than the quoted intervals. They are no basis on their own for "
@@ -24,8 +24,8 @@ _NAMES = {
     "potential_temperature": "Mantle potential temperature",
     "lithosphere_thickness": "Lid (lithosphere) thickness",
     "water": "Source water content",
-    "upwelling_ratio": "Upwelling ratio",
-    "solidus_shift": "Solidus shift",
+    "active_upwelling": "active upwelling",
+    "solidus_offset": "Solidus offset",
     "onset_depth": "Depth where melting starts",
     "crustal_thickness": "Igneous crust thickness",
     "mean_melt_fraction": "Mean melt fraction of the pooled melt",
@@ -97,8 +97,8 @@ def _model_section(posterior) -> str:
     study = posterior.study
     model = study.model
     lines = ["## Model, priors and data\n",
-             f"- Melting parameterization: {model.parameterization}; geometry: "
-             f"{model.geometry}; "
+             f"- Melting parameterization: {model.parameterization}; melting_region: "
+             f"{model.melting_region}; "
              f"crust density {model.crust_density:g} kg/m³, mantle density "
              f"{model.mantle_density:g} kg/m³."]
     for name in posterior.names:

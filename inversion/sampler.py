@@ -96,7 +96,7 @@ def default_moves() -> list:
 
     Differential-evolution moves (ter Braak 2006; Nelson et al. 2014) propose along the
     difference of two other walkers and so follow the correlated, slightly curved
-    posteriors of Tp, lid and solidus shift. On the demo study they gave an integrated
+    posteriors of Tp, lid and solidus offset. On the demo study they gave an integrated
     autocorrelation time of about 9 steps against about 33 for the stretch move alone
     and 11-13 with a snooker share (measured with 32 and 48 walkers; see
     benchmarks/inversion_speed.py). The small stretch share lets the ensemble change its

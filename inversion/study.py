@@ -8,7 +8,7 @@ misspelt one. The objects only store what they were given; nothing is computed.
 
 Parameter names are the keyword names of ``forward.melt_column``, in the canonical order
 of `PARAMETERS`. Tp and lid thickness must be given; the others default to fixed values
-(`DEFAULT_FIXED`: water 0 ppm, upwelling ratio 1, solidus shift 0 degC).
+(`DEFAULT_FIXED`: water 0 ppm, active upwelling 1, solidus offset 0 degC).
 """
 
 from __future__ import annotations
@@ -44,13 +44,13 @@ PARAMETERS: tuple[str, ...] = (
     "potential_temperature",
     "lithosphere_thickness",
     "water",
-    "upwelling_ratio",
-    "solidus_shift",
+    "active_upwelling",
+    "solidus_offset",
 )
 #: Unit of each parameter ("-" = dimensionless).
 PARAMETER_UNITS: dict[str, str] = {name: forward.PARAMETER_UNITS[name] for name in PARAMETERS}
 #: Fixed value of a parameter the study file does not mention.
-DEFAULT_FIXED: dict[str, float] = {"water": 0.0, "upwelling_ratio": 1.0, "solidus_shift": 0.0}
+DEFAULT_FIXED: dict[str, float] = {"water": 0.0, "active_upwelling": 1.0, "solidus_offset": 0.0}
 _REQUIRED = ("potential_temperature", "lithosphere_thickness")
 
 _TOP_KEYS = ("study", "model", "parameters", "observations", "sampler")
@@ -67,8 +67,8 @@ class ModelSettings:
     parameterization : str
         Melting parameterization name: ``"katz2003"`` (hydrous, default) or
         ``"mckenzie-bickle1988"`` (dry).
-    geometry : str
-        ``"column"`` (1-D upwelling column, default) or ``"ridge"`` (triangular melting
+    melting_region : str
+        ``"column"`` (1-D upwelling column, default) or ``"triangle"`` (triangular melting
         region beneath a spreading ridge).
     crust_density, mantle_density : float
         kg/m^3 (defaults 2900 and 3300); used for the crust mass balance and the depth
@@ -76,14 +76,14 @@ class ModelSettings:
     """
 
     parameterization: str = "katz2003"
-    geometry: str = "column"
+    melting_region: str = "column"
     crust_density: float = 2900.0
     mantle_density: float = 3300.0
 
     def __post_init__(self) -> None:
         _check_choice(self.parameterization, tuple(forward.PARAMETERIZATIONS),
                       "model.parameterization", None)
-        _check_choice(self.geometry, tuple(forward.GEOMETRIES), "model.geometry", None)
+        _check_choice(self.melting_region, tuple(forward.MELTING_REGIONS), "model.melting_region", None)
         for name in ("crust_density", "mantle_density"):
             value = _number(getattr(self, name), f"model.{name}", None)
             _check_range(value, forward.PARAMETER_DOMAIN[name], f"model.{name}", None,
@@ -180,10 +180,10 @@ class Study:
     >>> from lidmelt import demo_data
     >>> study = Study.from_file(demo_data.study_path())
     >>> study.free_parameters
-    ('potential_temperature', 'lithosphere_thickness', 'solidus_shift')
+    ('potential_temperature', 'lithosphere_thickness', 'solidus_offset')
     >>> hotter = study.with_overrides({"potential_temperature": 1450.0})
     >>> hotter.free_parameters, hotter.fixed["potential_temperature"]
-    (('lithosphere_thickness', 'solidus_shift'), 1450.0)
+    (('lithosphere_thickness', 'solidus_offset'), 1450.0)
     """
 
     name: str
@@ -326,7 +326,7 @@ class Study:
             the study file (``{"value": ...}`` or ``{"prior": ..., ...}``). Unnamed
             parameters keep their setting.
         **model_settings
-            Fields of `ModelSettings` (parameterization, geometry, crust_density,
+            Fields of `ModelSettings` (parameterization, melting_region, crust_density,
             mantle_density).
 
         Returns
@@ -364,7 +364,7 @@ class Study:
     def describe(self) -> str:
         """Several lines in words: model, each parameter's prior or value, each data set."""
         lines = [f"Study '{self.name}': {self.model.parameterization} melting, "
-                 f"{self.model.geometry} geometry, crust {self.model.crust_density:g} and "
+                 f"{self.model.melting_region} melting_region, crust {self.model.crust_density:g} and "
                  f"mantle {self.model.mantle_density:g} kg/m^3."]
         for name in PARAMETERS:
             unit = "" if PARAMETER_UNITS[name] == "-" else PARAMETER_UNITS[name]

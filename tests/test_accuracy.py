@@ -54,13 +54,13 @@ def test_grid_across_water_table(references):
 
 @settings(max_examples=8, deadline=None, derandomize=True)
 @given(tp=st.floats(1250, 1650), lid=st.floats(0, 150), water=st.floats(0, 500),
-       shift=st.floats(-60, 60), geometry=st.sampled_from(["column", "ridge"]))
-def test_random_points_both_routes(tp, lid, water, shift, geometry):
-    ref = reference_column(tp, lid, water=water, solidus_shift=shift, geometry=geometry,
+       shift=st.floats(-60, 60), melting_region=st.sampled_from(["column", "triangle"]))
+def test_random_points_both_routes(tp, lid, water, shift, melting_region):
+    ref = reference_column(tp, lid, water=water, solidus_offset=shift, melting_region=melting_region,
                            rtol=1e-8)
-    exact = melt_column(tp, lid, water=water, solidus_shift=shift, geometry=geometry)
+    exact = melt_column(tp, lid, water=water, solidus_offset=shift, melting_region=melting_region)
     _check(_point(exact, 0), ref, "exact")
-    across = melt_column([tp, tp], lid, water=[water, 1.0], solidus_shift=shift, geometry=geometry)
+    across = melt_column([tp, tp], lid, water=[water, 1.0], solidus_offset=shift, melting_region=melting_region)
     _check(_point(across, 0), ref, "across water")
 
 

@@ -24,10 +24,10 @@ def test_crust_against_tp_for_a_30_km_lid(capsys):
 
 def test_all_combinations_and_json(capsys):
     assert main(["column", "--potential-temperature", "1350,1400", "--water", "0,100",
-                 "--geometry", "column,ridge", "--format", "json"]) == 0
+                 "--melting-region", "column,triangle", "--format", "json"]) == 0
     rows = json.loads(capsys.readouterr().out)
     assert len(rows) == 8
-    assert {r["geometry"] for r in rows} == {"column", "ridge"}
+    assert {r["melting_region"] for r in rows} == {"column", "triangle"}
 
 
 def test_aligned_table_has_units_in_headers(capsys):
@@ -50,7 +50,7 @@ def test_plot_writes_a_png(tmp_path, capsys):
     [(["--potential-temperature", "hot"], "--potential-temperature: cannot read 'hot'"),
      (["--water", "10:0:5"], "--water: cannot read '10:0:5'"),
      (["--potential-temperature", "2500"], "potential_temperature = 2500 degC is outside"),
-     (["--geometry", "plume"], "--geometry: unknown 'plume'"),
+     (["--melting-region", "plume"], "--melting-region: unknown 'plume'"),
      (["--parameterization", "katz"], "--parameterization: unknown 'katz'"),
      (["--plot", "figure.pdf"], "must end in .png")],
 )

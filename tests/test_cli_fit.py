@@ -70,7 +70,7 @@ def test_demo_end_to_end(tmp_path, capsys):
     summary = pd.read_csv(out_dir / "summary.csv")
     assert tuple(summary.columns) == SUMMARY_COLUMNS
     assert summary["parameter"].tolist() == ["potential_temperature", "lithosphere_thickness",
-                                             "solidus_shift"]
+                                             "solidus_offset"]
     assert summary["unit"].tolist() == ["degC", "km", "degC"]
     assert (summary["ess"] >= 2000).all()  # the default ESS target of the demo
     assert ((summary["q2.5"] < summary["q16"]) & (summary["q16"] < summary["median"])

@@ -52,7 +52,7 @@ def test_normal_oceanic_crust_needs_ordinary_mantle(name):
     # White, McKenzie & O'Nions (1992): normal oceanic crust 7.1 +/- 0.8 km, made by a
     # passive ridge with no lid from mantle of Tp roughly 1280-1360 degC (common practice).
     def crust(tp):
-        return float(melt_column(tp, 0.0, parameterization=name, geometry="ridge").crustal_thickness)
+        return float(melt_column(tp, 0.0, parameterization=name, melting_region="triangle").crustal_thickness)
 
     needed = [brentq(lambda tp, h=h: crust(tp) - h, 1150.0, 1500.0) for h in (6.3, 7.1, 7.9)]
     assert 1280.0 <= needed[1] <= 1360.0
@@ -69,9 +69,9 @@ def test_mckenzie_bickle_normal_mantle_melt():
 
 def test_plank_rule_of_thumb():
     # Plank et al. (1995): about 10 % mean melting of a 60 km column gives about 6 km of crust.
-    tp = brentq(lambda t: float(melt_column(t, 0.0, geometry="ridge").onset_depth) - 60.0,
+    tp = brentq(lambda t: float(melt_column(t, 0.0, melting_region="triangle").onset_depth) - 60.0,
                 1200.0, 1400.0)
-    res = melt_column(tp, 0.0, geometry="ridge")
+    res = melt_column(tp, 0.0, melting_region="triangle")
     assert float(res.mean_melt_fraction) == pytest.approx(0.10, abs=0.03)
     assert float(res.crustal_thickness) == pytest.approx(6.0, abs=1.5)
 
@@ -81,7 +81,7 @@ def test_present_day_mantle_melts_10_to_25_percent(name):
     # Common practice: present-day mantle melting reaches about 10-15 %, up to 20-25 %.
     res = melt_column(np.array([1300.0, 1350.0, 1400.0]), 0.0, parameterization=name)
     assert np.all((res.max_melt_fraction > 0.10) & (res.max_melt_fraction < 0.31))
-    ridge = melt_column(1330.0, 0.0, parameterization=name, geometry="ridge")
+    ridge = melt_column(1330.0, 0.0, parameterization=name, melting_region="triangle")
     assert 0.05 < float(ridge.mean_melt_fraction) < 0.25
 
 
@@ -112,7 +112,7 @@ def test_no_melt_is_finite_and_consistent():
 
 
 def test_hot_mantle_stays_finite_and_bounded():
-    res = melt_column(1800.0, 0.0, water=1000.0, solidus_shift=-100.0, upwelling_ratio=20.0)
+    res = melt_column(1800.0, 0.0, water=1000.0, solidus_offset=-100.0, active_upwelling=20.0)
     assert all(np.all(np.isfinite(getattr(res, name))) for name in OUTPUTS)
     assert 0.0 < float(res.max_melt_fraction) <= 1.0
     assert float(res.onset_pressure) == forward.MAX_PRESSURE  # melting from the model base
@@ -120,7 +120,7 @@ def test_hot_mantle_stays_finite_and_bounded():
 
 def test_broadcasting_and_scaling():
     res = melt_column(np.array([1300.0, 1400.0])[:, None], np.array([0.0, 20.0, 40.0]),
-                      upwelling_ratio=2.0, crust_density=2800.0)
+                      active_upwelling=2.0, crust_density=2800.0)
     assert res.melt_thickness.shape == (2, 3)
     single = melt_column(1400.0, 20.0)
     assert float(res.melt_thickness[1, 1]) == pytest.approx(2.0 * float(single.melt_thickness))
@@ -130,9 +130,9 @@ def test_broadcasting_and_scaling():
 
 
 def test_path_weights_reproduce_mean_pressure():
-    for geometry in ("column", "ridge"):
+    for melting_region in ("column", "triangle"):
         res = melt_column(np.array([1350.0, 1500.0]), np.array([10.0, 60.0]), water=100.0,
-                          geometry=geometry)
+                          melting_region=melting_region)
         path = res.path(400)
         assert_allclose(path.weight.sum(axis=-1), 1.0)
         weighted = np.sum(path.weight * path.pressure, axis=-1)
@@ -144,9 +144,9 @@ def test_path_weights_reproduce_mean_pressure():
 
 @settings(max_examples=60, deadline=None)
 @given(tp=st.floats(1000, 1800), lid=st.floats(0, 400), water=st.sampled_from([0.0, 80.0, 700.0]),
-       shift=st.floats(-100, 100), geometry=st.sampled_from(["column", "ridge"]))
-def test_outputs_always_finite_and_bounded(tp, lid, water, shift, geometry):
-    res = melt_column(tp, lid, water=water, solidus_shift=shift, geometry=geometry)
+       shift=st.floats(-100, 100), melting_region=st.sampled_from(["column", "triangle"]))
+def test_outputs_always_finite_and_bounded(tp, lid, water, shift, melting_region):
+    res = melt_column(tp, lid, water=water, solidus_offset=shift, melting_region=melting_region)
     values = {name: float(getattr(res, name)) for name in OUTPUTS}
     assert all(np.isfinite(v) for v in values.values())
     for name in ("max_melt_fraction", "mean_melt_fraction"):
@@ -162,8 +162,8 @@ def test_outputs_always_finite_and_bounded(tp, lid, water, shift, geometry):
     [(dict(potential_temperature=1900.0), r"potential_temperature = 1900 degC is outside"),
      (dict(lithosphere_thickness=-5.0), r"lithosphere_thickness = -5 km"),
      (dict(water=np.nan), r"water = nan ppm"),
-     (dict(upwelling_ratio=0.0), r"upwelling_ratio = 0 is outside"),
-     (dict(solidus_shift=250.0), r"solidus_shift = 250 degC")],
+     (dict(active_upwelling=0.0), r"active_upwelling = 0 is outside"),
+     (dict(solidus_offset=250.0), r"solidus_offset = 250 degC")],
 )
 def test_domain_errors_name_the_input(kwargs, match):
     args = dict(potential_temperature=1350.0, lithosphere_thickness=0.0) | kwargs
@@ -172,8 +172,8 @@ def test_domain_errors_name_the_input(kwargs, match):
 
 
 def test_other_bad_arguments():
-    with pytest.raises(ValueError, match="unknown geometry 'plume'"):
-        melt_column(1350.0, 0.0, geometry="plume")
+    with pytest.raises(ValueError, match="unknown melting_region 'plume'"):
+        melt_column(1350.0, 0.0, melting_region="plume")
     with pytest.raises(ValueError, match="dry parameterization: water must be 0"):
         melt_column(1350.0, 0.0, water=100.0, parameterization="mckenzie-bickle1988")
     assert not forward.in_domain(potential_temperature=[1350.0, 2000.0])[1]

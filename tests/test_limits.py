@@ -50,7 +50,7 @@ def test_constant_productivity_limits(toy, tp, lid_gpa):
     km = 1e6 / (3300.0 * 9.81)
     p0 = (tp - T0) / SLOPE
     column = melt_column(tp, lid_gpa * km, parameterization=toy)
-    ridge = melt_column(tp, lid_gpa * km, parameterization=toy, geometry="ridge")
+    ridge = melt_column(tp, lid_gpa * km, parameterization=toy, melting_region="triangle")
     f_top = PRODUCTIVITY * (p0 - lid_gpa)
     assert float(column.onset_pressure) == pytest.approx(p0, abs=1e-9)
     assert float(column.max_melt_fraction) == pytest.approx(f_top, rel=1e-6)

@@ -96,7 +96,7 @@ def test_crust_loglike_is_a_sum_of_gaussians_with_model_error():
     sd = np.hypot([0.8, 1.1], 0.5)  # quadrature sum
     expected = [stats.norm.logpdf([7.0, 8.2], loc=m, scale=sd).sum() for m in (6.5, 9.0)]
     assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
-    melt = CrustalThickness.from_frame(obs.data, model_error=0.5, compare_to="melt_thickness")
+    melt = CrustalThickness.from_frame(obs.data, model_error=0.5, thickness_of="melt")
     expected = [stats.norm.logpdf([7.0, 8.2], loc=m, scale=sd).sum() for m in (5.7, 7.9)]
     assert_allclose(melt.log_likelihood(column), expected, rtol=1e-12)
     assert obs.predict(column)["value"].shape == (2, 2)
@@ -183,25 +183,25 @@ def test_path_marginal_with_temperature_against_quadrature():
 # forward tabulates F, so its slope has small kinks; quad warns about roundoff there
 # although the integral agrees with the path marginal to ~1e-6.
 @pytest.mark.filterwarnings("ignore::scipy.integrate.IntegrationWarning")
-@pytest.mark.parametrize("geometry", ["column", "ridge"])
-def test_path_marginal_real_forward_against_slow_quadrature(geometry):
+@pytest.mark.parametrize("melting_region", ["column", "triangle"])
+def test_path_marginal_real_forward_against_slow_quadrature(melting_region):
     # Reference route: adaptive quadrature of the same marginal written without the path
     # or its weights. The equilibration-pressure density is -dF/dP (column) or
     # -dF/dP (P0 - P) (ridge; Plank & Langmuir 1992 triangle), with F(P) from
     # MeltColumn.profile. Integrating by parts avoids differentiating F:
     #   int g(P) (-dF/dP) dP = g(Pf) F(Pf) + int F(P) g'(P) dP      (F(P0) = 0)
     # with g = N(y; P, s) for the column and g = N(y; P, s) (P0 - P) for the ridge.
-    column = forward.melt_column(np.array([1420.0]), np.array([30.0]), geometry=geometry)
+    column = forward.melt_column(np.array([1420.0]), np.array([30.0]), melting_region=melting_region)
     top, onset = float(column.top_pressure[0]), float(column.onset_pressure[0])
 
     def melt_fraction(p):
         return float(column.profile(np.array([p]))[1][0, 0])
 
     def width(p):
-        return (onset - p) if geometry == "ridge" else 1.0
+        return (onset - p) if melting_region == "triangle" else 1.0
 
     def d_width(p):
-        return -1.0 if geometry == "ridge" else 0.0
+        return -1.0 if melting_region == "triangle" else 0.0
 
     def marginal(g, dg):
         body, _ = integrate.quad(lambda p: melt_fraction(p) * dg(p), top, onset,
@@ -243,7 +243,7 @@ def test_path_is_vectorised_over_columns():
 def _params(tp, lid):
     tp, lid = np.broadcast_arrays(np.asarray(tp, float), np.asarray(lid, float))
     return {"potential_temperature": tp, "lithosphere_thickness": lid,
-            "solidus_shift": np.zeros_like(tp)}
+            "solidus_offset": np.zeros_like(tp)}
 
 
 @pytest.mark.parametrize("equilibration", ["top", "pooled", "path"])
@@ -288,11 +288,11 @@ def test_loglike_finite_across_the_whole_domain():
     rng = np.random.default_rng(11)
     n = 300
     params = {name: rng.uniform(*forward.PARAMETER_DOMAIN[name], n) for name in
-              ("potential_temperature", "lithosphere_thickness", "solidus_shift")}
+              ("potential_temperature", "lithosphere_thickness", "solidus_offset")}
     params["water"] = rng.uniform(0.0, 1000.0, n)
     column = forward.melt_column(params["potential_temperature"],
                                  params["lithosphere_thickness"], water=params["water"],
-                                 solidus_shift=params["solidus_shift"])
+                                 solidus_offset=params["solidus_offset"])
     blocks = [CrustalThickness.from_spec({"file": "crust.csv"}, base_dir=DATA)] + [
         MeltingPressure.from_frame(PT, equilibration=e, path_points=16)
         for e in ("top", "pooled", "path")]

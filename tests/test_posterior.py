@@ -34,11 +34,11 @@ def test_log_posterior_is_prior_plus_likelihoods_from_forward_model(study):
     out = logpost(theta)
     assert out.shape == (3, 1 + len(DERIVED))
     column = forward.melt_column(theta[:, 0], theta[:, 1], water=150.0,
-                                 solidus_shift=theta[:, 2], upwelling_ratio=1.0,
+                                 solidus_offset=theta[:, 2], active_upwelling=1.0,
                                  parameterization="katz2003")
     values = {"potential_temperature": theta[:, 0], "lithosphere_thickness": theta[:, 1],
-              "water": np.full(3, 150.0), "upwelling_ratio": np.ones(3),
-              "solidus_shift": theta[:, 2]}
+              "water": np.full(3, 150.0), "active_upwelling": np.ones(3),
+              "solidus_offset": theta[:, 2]}
     expected = sum(study.priors[n].logpdf(theta[:, j]) for j, n in enumerate(logpost.names))
     expected = expected + sum(b.log_likelihood(column, parameters=values)
                               for b in study.observations)
@@ -52,7 +52,7 @@ def test_crust_only_log_posterior_against_scipy_stats(study):
     only = study.with_observations([crust])
     logpost = LogPosterior(only)
     theta = np.array([[1420.0, 40.0, 5.0]])
-    column = forward.melt_column(1420.0, 40.0, water=150.0, solidus_shift=5.0)
+    column = forward.melt_column(1420.0, 40.0, water=150.0, solidus_offset=5.0)
     data = crust.data
     sd = np.hypot(data["sigma_km"], crust.model_error)
     like = stats.norm.logpdf(data["thickness_km"], float(column.crustal_thickness), sd).sum()
@@ -76,8 +76,8 @@ def test_outside_prior_or_domain_is_minus_infinity_with_nan_blobs(study):
 
 def test_fixed_parameters_are_filled_in(study):
     values = LogPosterior(study).parameters(np.array([[1400.0, 46.0, 3.0]]))
-    assert values["water"][0] == 150.0 and values["upwelling_ratio"][0] == 1.0
-    assert values["solidus_shift"][0] == 3.0
+    assert values["water"][0] == 150.0 and values["active_upwelling"][0] == 1.0
+    assert values["solidus_offset"][0] == 3.0
 
 
 def test_summary_matches_numpy_quantiles_of_kept_chain(quick):

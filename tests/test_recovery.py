@@ -15,7 +15,7 @@ from lidmelt import demo_data
 from lidmelt import inversion
 from lidmelt.inversion.observations.pressure import MeltingPressure
 
-# Five truths spread over the demo's prior (Tp degC, lid km, solidus shift degC).
+# Five truths spread over the demo's prior (Tp degC, lid km, solidus offset degC).
 TRUTHS = [
     (1400.0, 46.0, 0.0),
     (1360.0, 35.0, -10.0),
@@ -23,7 +23,7 @@ TRUTHS = [
     (1420.0, 25.0, 5.0),
     (1380.0, 55.0, -20.0),
 ]
-NAMES = ("potential_temperature", "lithosphere_thickness", "solidus_shift")
+NAMES = ("potential_temperature", "lithosphere_thickness", "solidus_offset")
 
 
 def _simulated(study, truth, rng):
@@ -67,7 +67,7 @@ def _sbc_study(demo_study):
     study = study.with_overrides({
         "potential_temperature": {"prior": "uniform", "min": 1350.0, "max": 1480.0},
         "lithosphere_thickness": {"prior": "uniform", "min": 20.0, "max": 70.0},
-        "solidus_shift": {"prior": "normal", "mean": 0.0, "sd": 15.0, "min": -45.0,
+        "solidus_offset": {"prior": "normal", "mean": 0.0, "sd": 15.0, "min": -45.0,
                           "max": 45.0},
     })
     # About 200 effective draws per fit are plenty to rank among 9 thinned draws.

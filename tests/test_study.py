@@ -43,11 +43,11 @@ def test_reads_the_test_study():
     study = Study.from_file(DATA / "study.toml")
     assert study.name == "Vell Saddle (test)"
     assert study.free_parameters == ("potential_temperature", "lithosphere_thickness",
-                                     "solidus_shift")
-    assert study.fixed == {"water": 0.0, "upwelling_ratio": 1.0}
+                                     "solidus_offset")
+    assert study.fixed == {"water": 0.0, "active_upwelling": 1.0}
     assert study.priors["potential_temperature"] == Uniform(1200.0, 1700.0)
-    # The normal prior on the solidus shift is cut to forward.PARAMETER_DOMAIN (-100, 100).
-    assert study.priors["solidus_shift"] == TruncatedNormal(0.0, 20.0, -100.0, 100.0)
+    # The normal prior on the solidus offset is cut to forward.PARAMETER_DOMAIN (-100, 100).
+    assert study.priors["solidus_offset"] == TruncatedNormal(0.0, 20.0, -100.0, 100.0)
     assert study.model == ModelSettings("katz2003", "column", 2900.0, 3300.0)
     assert study.sampler == SamplerSettings(walkers=32, seed=1)
     crust, basalts = study.observations
@@ -79,14 +79,14 @@ file = "crust.csv"
     assert study.model == ModelSettings()
     assert study.sampler == SamplerSettings()
     assert study.sampler.ess_target == 2000 and study.sampler.tau_multiple == 50.0
-    assert study.observations[0].compare_to == "crustal_thickness"
+    assert study.observations[0].thickness_of == "crust"
 
 
 def test_free_parameters_follow_the_canonical_order(make_study):
     path = make_study(("water = { value = 0.0 }",
                        'water = { prior = "uniform", min = 0.0, max = 200.0 }'),
-                      ("upwelling_ratio = { value = 1.0 }",
-                       'upwelling_ratio = { prior = "log-uniform", min = 0.5, max = 4.0 }'))
+                      ("active_upwelling = { value = 1.0 }",
+                       'active_upwelling = { prior = "log-uniform", min = 0.5, max = 4.0 }'))
     assert Study.from_file(path).free_parameters == PARAMETERS
 
 
@@ -96,18 +96,18 @@ def test_with_overrides_makes_a_scenario():
         {"potential_temperature": 1450.0,
          "water": {"prior": "uniform", "min": 0.0, "max": 300.0},
          "lithosphere_thickness": Uniform(10.0, 60.0)},
-        geometry="ridge")
+        melting_region="triangle")
     assert hot.fixed["potential_temperature"] == 1450.0
     assert hot.priors["water"] == Uniform(0.0, 300.0)
     assert hot.priors["lithosphere_thickness"] == Uniform(10.0, 60.0)
-    assert hot.free_parameters == ("lithosphere_thickness", "water", "solidus_shift")
-    assert hot.model.geometry == "ridge" and hot.model.parameterization == "katz2003"
+    assert hot.free_parameters == ("lithosphere_thickness", "water", "solidus_offset")
+    assert hot.model.melting_region == "triangle" and hot.model.parameterization == "katz2003"
     # The original is untouched.
     assert study.free_parameters[0] == "potential_temperature"
-    assert study.model.geometry == "column"
+    assert study.model.melting_region == "column"
     # A normal prior given in code is cut to the physical range too.
-    cut = study.with_overrides({"solidus_shift": Normal(0.0, 80.0)})
-    assert cut.priors["solidus_shift"] == TruncatedNormal(0.0, 80.0, -100.0, 100.0)
+    cut = study.with_overrides({"solidus_offset": Normal(0.0, 80.0)})
+    assert cut.priors["solidus_offset"] == TruncatedNormal(0.0, 80.0, -100.0, 100.0)
 
 
 @pytest.mark.parametrize(
@@ -118,12 +118,12 @@ def test_with_overrides_makes_a_scenario():
         r" 'potential_temperature'"),
         ({"potential_temperature": 2500.0}, {},
             r"fixed value 2500 is outside the physical range \[1000, 1800\]"),
-        ({"upwelling_ratio": 0.0}, {}, r"outside the physical range \(0, 20\]"),
+        ({"active_upwelling": 0.0}, {}, r"outside the physical range \(0, 20\]"),
         ({"lithosphere_thickness": Uniform(-5.0, 50.0)}, {},
             r"reaches outside the physical range \[0, 400\]"),
-        ({}, {"geometri": "ridge"},
-            r"key 'model.geometri': unknown key.*did you mean 'geometry'"),
-        ({}, {"geometry": "sheet"}, r"key 'model.geometry': unknown value 'sheet'"),
+        ({}, {"melting_regio": "triangle"},
+            r"key 'model.melting_regio': unknown key.*did you mean 'melting_region'"),
+        ({}, {"melting_region": "sheet"}, r"key 'model.melting_region': unknown value 'sheet'"),
     ],
 )
 def test_with_overrides_validates(parameters, settings, match):
@@ -177,11 +177,11 @@ CASES = {
         r"line 28, key 'smapler': unknown section 'smapler'; did you mean 'sampler'"),
     "misspelt-study-key": (('name = "Vell', 'nme = "Vell'),
                            r"key 'study.nme': unknown key 'nme'; did you mean 'name'"),
-    "misspelt-model-key": (("geometry = ", "geometri = "),
-                           r"line 8, key 'model.geometri'.*did you mean 'geometry'"),
-    "misspelt-parameter": (("solidus_shift = {", "solidus_shfit = {"),
+    "misspelt-model-key": (("melting_region = ", "melting_regio = "),
+                           r"line 8, key 'model.melting_regio'.*did you mean 'melting_region'"),
+    "misspelt-parameter": (("solidus_offset = {", "solidus_shfit = {"),
         r"line 16, key 'parameters.solidus_shfit': unknown parameter.*did you"
-        r" mean 'solidus_shift'"),
+        r" mean 'solidus_offset'"),
     "misspelt-prior-key": (("min = 0.0, max = 150.0", "min = 0.0, mx = 150.0"),
         r"line 13, key 'parameters.lithosphere_thickness.mx'.*did you mean 'max'"),
     "misspelt-observation-key": (('equilibration = "top"', 'equilibraton = "top"'),
@@ -190,7 +190,7 @@ CASES = {
                              r"key 'sampler.walker'.*did you mean 'walkers'"),
     # priors
     "unknown-prior": (('prior = "normal"', 'prior = "gaussian"'),
-        r"key 'parameters.solidus_shift.prior': unknown prior 'gaussian'; valid"
+        r"key 'parameters.solidus_offset.prior': unknown prior 'gaussian'; valid"
         r" choices: 'uniform', 'normal'"),
     "misspelt-prior": (('prior = "normal"', 'prior = "normall"'),
                        r"unknown prior 'normall'; did you mean 'normal'"),
@@ -200,7 +200,7 @@ CASES = {
     "min-above-max": (("min = 1200.0, max = 1700.0", "min = 1700.0, max = 1200.0"),
                       r"min \(1700\) must be less than max \(1200\)"),
     "sd-zero": (("sd = 20.0", "sd = 0.0"),
-        r"key 'parameters.solidus_shift.sd': sd = 0 must be > 0"),
+        r"key 'parameters.solidus_offset.sd': sd = 0 must be > 0"),
     "sd-negative": (("sd = 20.0", "sd = -3.0"), r"sd = -3 must be > 0"),
     "prior-outside-domain": (("min = 1200.0, max = 1700.0", "min = 1200.0, max = 1900.0"),
         r"potential_temperature.max': prior max 1900 is outside the physical"
@@ -216,8 +216,8 @@ CASES = {
     "fixed-water-negative": (("water = { value = 0.0 }", "water = { value = -5.0 }"),
         r"line 14, key 'parameters.water.value': fixed value -5 is outside the"
         r" physical range \[0, 1000\]"),
-    "fixed-upwelling-zero": (("upwelling_ratio = { value = 1.0 }",
-                              "upwelling_ratio = { value = 0.0 }"),
+    "fixed-upwelling-zero": (("active_upwelling = { value = 1.0 }",
+                              "active_upwelling = { value = 0.0 }"),
                              r"fixed value 0 is outside the physical range \(0, 20\]"),
     "crust-density": (("crust_density = 2900.0", "crust_density = 29000.0"),
         r"key 'model.crust_density': 29000 kg/m\^3 is outside the physical range"),
@@ -225,8 +225,8 @@ CASES = {
     "unknown-parameterization": (('"katz2003"', '"katz2004"'),
         r"line 7, key 'model.parameterization': unknown value 'katz2004'; did you"
         r" mean 'katz2003'"),
-    "unknown-geometry": (('geometry = "column"', 'geometry = "plume"'),
-        r"key 'model.geometry': unknown value 'plume'; valid choices: 'column', 'ridge'"),
+    "unknown-melting_region": (('melting_region = "column"', 'melting_region = "plume"'),
+        r"key 'model.melting_region': unknown value 'plume'; valid choices: 'column', 'triangle'"),
     # observation blocks
     "unknown-kind": (('kind = "crustal_thickness"', 'kind = "crustal_thicknes"'),
         r"key 'observations\[1\].kind': unknown kind 'crustal_thicknes'; did you"
@@ -235,8 +235,8 @@ CASES = {
         r"observations\[1\].kind': missing 'kind'"),
     "unknown-equilibration": (('equilibration = "top"', 'equilibration = "pooledd"'),
         r"observations\[2\].equilibration': unknown value 'pooledd'; did you mean 'pooled'"),
-    "unknown-compare-to": (("model_error = 0.5", 'model_error = 0.5\ncompare_to = "melt"'),
-        r"observations\[1\].compare_to': unknown value 'melt'; did you mean 'melt_thickness'"),
+    "unknown-thickness-of": (("model_error = 0.5", 'model_error = 0.5\nthickness_of = "mlt"'),
+        r"observations\[1\].thickness_of': unknown value 'mlt'; did you mean 'melt'"),
     "negative-model-error": (("model_error = 0.5", "model_error = -0.5"),
                              r"observations\[1\].model_error': -0.5 must be >= 0"),
     "missing-observation-file": (('file = "crust.csv"', 'file = "crust_2019.csv"'),
@@ -320,6 +320,6 @@ def test_study_values_reach_the_forward_model():
     values.update({name: np.array([v]) for name, v in study.fixed.items()})
     column = forward.melt_column(
         values.pop("potential_temperature"), values.pop("lithosphere_thickness"), **values,
-        parameterization=study.model.parameterization, geometry=study.model.geometry,
+        parameterization=study.model.parameterization, melting_region=study.model.melting_region,
         crust_density=study.model.crust_density, mantle_density=study.model.mantle_density)
     assert column.melt_thickness.shape == (1,)

@@ -93,12 +93,12 @@ class Parameterization(abc.ABC):
         depression, _, _ = self.water_depression(0.0, pressure, water)
         return self.solidus(pressure) - depression
 
-    def melt_fraction(self, temperature, pressure, water=0.0, *, solidus_shift=0.0):
+    def melt_fraction(self, temperature, pressure, water=0.0, *, solidus_offset=0.0):
         """Equilibrium melt fraction ``F(T, P, water)`` and its partials in T and P.
 
         For a hydrous source F is implicit, ``F = F_dry(T + dT(F, P), P)`` (Katz et
         al. 2003); it is solved as a scalar root per point (slow, exact). The partials
-        follow from the implicit-function theorem. ``solidus_shift`` (degC) moves all
+        follow from the implicit-function theorem. ``solidus_offset`` (degC) moves all
         melting curves together.
 
         Examples
@@ -109,7 +109,7 @@ class Parameterization(abc.ABC):
         0.1293
         """
         t, p, w = np.broadcast_arrays(*map(np.asarray, (temperature, pressure, water)))
-        t = t.astype(float) - solidus_shift
+        t = t.astype(float) - solidus_offset
         tau = np.vectorize(self._solve_tau, otypes=[float])(t, p, w)
         dry = self.dry_melt_fraction(tau, p)
         _, dt_df, dt_dp = self.water_depression(dry.fraction, p, w)

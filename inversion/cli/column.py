@@ -10,7 +10,7 @@ import sys
 import numpy as np
 
 from ...forward._validation import PARAMETER_UNITS
-from ...forward.column import GEOMETRIES, melt_column
+from ...forward.column import MELTING_REGIONS, melt_column
 from ...forward.parameterizations import PARAMETERIZATIONS
 
 # option name (= melt_column argument) -> default
@@ -18,8 +18,8 @@ _NUMERIC = {
     "potential_temperature": "1350",
     "lithosphere_thickness": "0",
     "water": "0",
-    "upwelling_ratio": "1",
-    "solidus_shift": "0",
+    "active_upwelling": "1",
+    "solidus_offset": "0",
 }
 _OUTPUTS = [
     ("crustal_thickness", "km"),
@@ -42,8 +42,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         unit = PARAMETER_UNITS[name].replace("-", "dimensionless")
         parser.add_argument(f"--{name.replace('_', '-')}", default=default, metavar="VALUES",
                             help=f"{name.replace('_', ' ')} ({unit}; default {default})")
-    parser.add_argument("--geometry", default="column", metavar="NAMES",
-                        help=f"melting region: {', '.join(GEOMETRIES)} (comma list allowed)")
+    parser.add_argument("--melting-region", default="column", metavar="NAMES",
+                        help=f"melting region: {', '.join(MELTING_REGIONS)} (comma list allowed)")
     parser.add_argument("--parameterization", default="katz2003", metavar="NAMES",
                         help=f"melting parameterization: {', '.join(PARAMETERIZATIONS)}")
     parser.add_argument("--crust-density", type=float, default=2900.0, help="kg/m^3 (default 2900)")
@@ -85,17 +85,17 @@ def _names(text: str, allowed, option: str) -> list[str]:
 def tabulate(args) -> list[dict]:
     """One row per combination, in option order."""
     numeric = {k: parse_values(getattr(args, k), k.replace("_", "-")) for k in _NUMERIC}
-    geometries = _names(args.geometry, GEOMETRIES, "geometry")
+    regions = _names(args.melting_region, MELTING_REGIONS, "melting-region")
     params = _names(args.parameterization, list(PARAMETERIZATIONS), "parameterization")
     rows = []
-    for param, geometry in itertools.product(params, geometries):
+    for param, melting_region in itertools.product(params, regions):
         grid = np.array(list(itertools.product(*numeric.values())), float)
         inputs = dict(zip(_NUMERIC, grid.T, strict=True))
-        res = melt_column(**inputs, parameterization=param, geometry=geometry,
+        res = melt_column(**inputs, parameterization=param, melting_region=melting_region,
                           crust_density=args.crust_density, mantle_density=args.mantle_density)
         for i in range(grid.shape[0]):
             row = {k: float(v[i]) for k, v in inputs.items()}
-            row |= {"parameterization": param, "geometry": geometry}
+            row |= {"parameterization": param, "melting_region": melting_region}
             row |= {name: float(getattr(res, name)[i]) for name, _ in _OUTPUTS}
             rows.append(row)
     return rows

@@ -14,7 +14,7 @@ from .._errors import NotConvergedWarning
 __all__ = ["add_arguments", "print_result", "run", "run_fit"]
 
 _EPILOG = """\
-Units: potential temperature and solidus shift in degC, lid (lithosphere) thickness and
+Units: potential temperature and solidus offset in degC, lid (lithosphere) thickness and
 crust thickness in km, water in ppm H2O of the bulk source, pressure in GPa.
 
 The chain is checkpointed in DIR.partial/ while the sampler runs; after an interruption

@@ -5,7 +5,7 @@ Adding a kind: subclass `ObservationSet` in a new module, then register it here.
 """
 
 from .base import NO_MELT_SLOPE, ObservationSet, gaussian_logpdf, melting_distance
-from .crust import COMPARE_TO, CrustalThickness
+from .crust import THICKNESS_OF, CrustalThickness
 from .pressure import (
     EQUILIBRATION,
     NO_MELT_OFFSET,
@@ -16,7 +16,7 @@ from .pressure import (
 from .tables import ColumnRule, Table, read_table, validate_frame
 
 __all__ = [
-    "COMPARE_TO",
+    "THICKNESS_OF",
     "EQUILIBRATION",
     "KINDS",
     "NO_MELT_OFFSET",

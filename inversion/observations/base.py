@@ -19,7 +19,7 @@ where d (km, `melting_distance`) is how far the point is from making melt: the l
 thickness below the onset depth or, for mantle too cold to meet the solidus at all
 (onset depth 0), the lid thickness plus the height the onset would have to rise: the
 amount (K) by which the adiabat misses the solidus (``MeltColumn.solidus_margin``; for a
-column without it, 1100 degC - (Tp - solidus shift), 1100 degC being about the surface
+column without it, 1100 degC - (Tp - solidus offset), 1100 degC being about the surface
 solidus of dry peridotite) divided by 3.66 K/km, the difference between the solidus and
 adiabat slopes (about 113 K/GPa at 30.89 km/GPa; SCIENCE.md sections 1-3; the value only
 sets the penalty's direction and scale). The penalty is finite, never NaN, and grows
@@ -75,7 +75,7 @@ def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
         when present.
     parameters : mapping, optional
         The melt_column inputs per point (``lithosphere_thickness`` in km,
-        ``potential_temperature`` and ``solidus_shift`` in degC), each broadcastable to
+        ``potential_temperature`` and ``solidus_offset`` in degC), each broadcastable to
         the column shape; used for what the column does not carry. Without either
         source of the lid thickness the distance is 0.
 
@@ -109,7 +109,7 @@ def _cold_distance(column, parameters: Mapping, shape) -> np.ndarray | None:
     if "potential_temperature" not in parameters:
         return None
     theta = np.asarray(parameters["potential_temperature"], float) - np.asarray(
-        parameters.get("solidus_shift", 0.0), float)
+        parameters.get("solidus_offset", 0.0), float)
     return np.broadcast_to(np.maximum(_COLD_REFERENCE - theta, 0.0) / _COLD_GRADIENT, shape)
 
 

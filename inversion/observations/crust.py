@@ -3,7 +3,7 @@
 Table columns: ``site`` (name), ``thickness_km`` (>= 0) and ``sigma_km`` (> 0, 1 sigma).
 Each row is compared with the model's igneous crustal thickness (mass balance,
 h_c = h rho_mantle / rho_crust; SCIENCE.md section 5, common practice) or, with
-``compare_to = "melt_thickness"``, with the melt thickness h itself (as many papers do).
+``thickness_of = "melt"``, with the melt thickness h itself (as many papers do).
 
 log L = sum_rows log N(obs_i; model, sigma_i^2 + model_error^2)
 
@@ -29,10 +29,10 @@ from .base import (
 )
 from .tables import ColumnRule
 
-__all__ = ["COMPARE_TO", "CrustalThickness"]
+__all__ = ["THICKNESS_OF", "CrustalThickness"]
 
-#: Model quantities a crustal thickness can be compared with.
-COMPARE_TO = ("crustal_thickness", "melt_thickness")
+#: ``thickness_of`` choice -> the model quantity a crustal thickness is compared with.
+THICKNESS_OF = {"crust": "crustal_thickness", "melt": "melt_thickness"}
 
 
 class CrustalThickness(ObservationSet):
@@ -46,8 +46,8 @@ class CrustalThickness(ObservationSet):
     model_error : float
         km, added to sigma in quadrature.
     lines : sequence of int, optional
-    compare_to : {"crustal_thickness", "melt_thickness"}
-        Model quantity compared with the data.
+    thickness_of : {"crust", "melt"}
+        Compare the data with the igneous crust thickness (default) or the melt thickness.
     """
 
     kind = "crustal_thickness"
@@ -56,15 +56,15 @@ class CrustalThickness(ObservationSet):
     id_column = "site"
     value_column = "thickness_km"
     sigma_column = "sigma_km"
-    option_keys = ("compare_to",)
+    option_keys = ("thickness_of",)
 
     def __init__(self, data, *, file=None, model_error=0.0, lines=None,
-                 compare_to: str = "crustal_thickness") -> None:
+                 thickness_of: str = "crust") -> None:
         super().__init__(data, file=file, model_error=model_error, lines=lines)
-        if compare_to not in COMPARE_TO:
-            raise InputError(f"unknown compare_to {compare_to!r}"
-                             + suggest(str(compare_to), COMPARE_TO), key="compare_to")
-        self.compare_to = compare_to
+        if thickness_of not in THICKNESS_OF:
+            raise InputError(f"unknown thickness_of {thickness_of!r}"
+                             + suggest(str(thickness_of), THICKNESS_OF), key="thickness_of")
+        self.thickness_of = thickness_of
 
     @classmethod
     def column_rules(cls, **options):
@@ -78,14 +78,14 @@ class CrustalThickness(ObservationSet):
 
     @classmethod
     def _parse_options(cls, spec: Mapping, where: str) -> dict:
-        compare_to = spec.get("compare_to", "crustal_thickness")
-        if compare_to not in COMPARE_TO:
-            raise InputError(f"unknown value {compare_to!r}" + suggest(str(compare_to),
-                             COMPARE_TO), key=f"{where}.compare_to")
-        return {"compare_to": compare_to}
+        thickness_of = spec.get("thickness_of", "crust")
+        if thickness_of not in THICKNESS_OF:
+            raise InputError(f"unknown value {thickness_of!r}" + suggest(str(thickness_of),
+                             THICKNESS_OF), key=f"{where}.thickness_of")
+        return {"thickness_of": thickness_of}
 
     def _model(self, column) -> np.ndarray:
-        return np.asarray(getattr(column, self.compare_to), float)
+        return np.asarray(getattr(column, THICKNESS_OF[self.thickness_of]), float)
 
     def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
         model = self._model(column)[..., None]  # (n, 1) against rows (rows,)
@@ -103,9 +103,9 @@ class CrustalThickness(ObservationSet):
         require_single(column, "simulate")
         model = float(np.ravel(self._model(column))[0])
         draws = model + self.sigma * rng.standard_normal(len(self))
-        return self._replace_values({self.value_column: draws}, compare_to=self.compare_to)
+        return self._replace_values({self.value_column: draws}, thickness_of=self.thickness_of)
 
     def describe(self) -> str:
         return (f"{len(self)} crustal thickness value(s) from {self.name}, compared with the "
-                f"model {self.compare_to.replace('_', ' ')}"
+                f"model {self.thickness_of} thickness"
                 + (f" (model error {self.model_error:g} km)" if self.model_error else ""))
