@@ -9,34 +9,43 @@ so the onset moves smoothly along it), ``shift`` and water (uniform in
 uniform in ``sqrt(P)``. Queries interpolate multilinearly across paths and linearly in sqrt(P)
 along them. The melt fraction is never interpolated: it is recomputed exactly from
 the interpolated path state, so its kinks (onset, cpx exhaustion) stay sharp.
+
+Each parameterization has at most two tables: a dry one (water 0 only) and one across
+the whole water domain, 0-1000 ppm, which serves every call with any water, so no run
+needs a table of its own. Its water nodes are set by the cpx-exhaustion kink: where
+neighbouring paths pass it at different pressures, linear interpolation errs to first
+order in the node spacing. Both tables are kept on disk (see ``_cache``); a file is used
+only if it holds a whole table with this module's format, integration, axes and the
+parameterization's constants (its key), else it is rebuilt and replaced.
 """
 
 from __future__ import annotations
 
 import hashlib
 import itertools
-import os
-import tempfile
+import math
 import zipfile
 from dataclasses import dataclass
 from functools import lru_cache
-from pathlib import Path
 
 import numpy as np
 
+from . import _cache
 from ._integrate import integrate_paths
 from ._validation import PARAMETER_DOMAIN
 from .adiabat import MAX_PRESSURE, onset_state, solid_adiabat
 
-__all__ = ["PathTable", "path_table"]
+__all__ = ["PathTable", "path_table", "table_for"]
 
 _THETA_STEP = 5.0  # K
 _SHIFT_STEP = 100.0  # K; the shift acts only through T/c_p at fixed theta: near-linear
-_WATER_NODES = 25
+_WATER_NODES = 65  # across 0-1000 ppm: as accurate as exact-water tables (25 were not)
 _WATER_EXPONENT = 0.75  # Katz et al. (2003): dT = K X^0.75
-_PRESSURE_NODES = 1001  # exact-water tables
-_PRESSURE_NODES_ACROSS_WATER = 401  # keeps the 4-D table near 90 MB
+_PRESSURE_NODES = 1001  # dry tables
+_PRESSURE_NODES_ACROSS_WATER = 401  # keeps the table across water near 235 MB
 _RK_STEPS = 2000  # Runge-Kutta steps from the model base to the surface, whatever is stored
+_ONSET_GROUPS = 8  # paths integrated together, by onset depth, when building a table
+_LANES_PER_GROUP = 1000  # fewer paths than this per group: numpy's call overhead dominates
 
 
 def _pressure_axis(nodes):
@@ -135,8 +144,7 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     tp = theta + shift - deep_depression(param, water)
     onset, sigma0, melts = onset_state(param, tp, water, shift)
     u = u_axis.nodes
-    with np.errstate(all="ignore"):  # inactive (subsolidus) lanes are discarded
-        paths = integrate_paths(param, u, onset, sigma0, melts, water, shift,
+    paths = _integrate_by_onset(param, u, onset, sigma0, melts, water, shift,
                                 sub_steps=max(2, round(_RK_STEPS / (u_axis.size - 1))))
     p = u[None, :] ** 2
     depression = param.water_depression(0.0, p, water[:, None])[0]
@@ -151,6 +159,25 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     return PathTable(theta_axis, shift_axis, water_axis, u_axis, state, onset.reshape(shape))
 
 
+def _integrate_by_onset(param, u, onset, sigma0, melts, water, shift, sub_steps):
+    """``integrate_paths`` for groups of paths with similar onsets, each group from its
+    deepest onset up: the same numbers for less work, since a path idles below its onset
+    and a path that never melts needs no integration at all."""
+    paths = np.zeros((3, onset.size, u.size))
+    lanes = np.flatnonzero(melts)
+    lanes = lanes[np.argsort(onset[lanes], kind="stable")]
+    groups = max(1, min(_ONSET_GROUPS, lanes.size // _LANES_PER_GROUP))
+    for group in np.array_split(lanes, groups):
+        if group.size == 0:
+            continue
+        deepest = int(min(np.searchsorted(u, np.sqrt(onset[group].max())), u.size - 1))
+        with np.errstate(all="ignore"):  # idle lanes are computed, then discarded
+            paths[:, group, : deepest + 1] = integrate_paths(
+                param, u[: deepest + 1], onset[group], sigma0[group], melts[group],
+                water[group], shift[group], sub_steps=sub_steps)
+    return paths  # below each onset the caller fills in the solid adiabat
+
+
 def _param_axes(param, water):
     tp_lo, tp_hi = PARAMETER_DOMAIN["potential_temperature"]
     s_lo, s_hi = PARAMETER_DOMAIN["solidus_offset"]
@@ -162,63 +189,97 @@ def _param_axes(param, water):
     return theta, shift
 
 
-_FORMAT = 2  # bump when the table layout or the integration changes
+_FORMAT = 3  # bump when the table layout, its file or the integration changes
+_HEADER_ROOM = 4096  # bytes of .npy header allowed beyond an array's data in a cache file
 
 
-def _cache_file(param, axes) -> Path | None:
-    """Where a table is kept between runs; LIDMELT_CACHE="" switches caching off."""
-    root = os.environ.get("LIDMELT_CACHE", str(Path.home() / ".cache" / "lidmelt"))
-    if not root:
-        return None
-    key = repr((_FORMAT, _RK_STEPS, param, axes)).encode()
-    return Path(root) / f"paths-{param.name}-{hashlib.sha256(key).hexdigest()[:16]}.npz"
+def _table_key(param, axes) -> str:
+    """Everything a table depends on: format, integration, the constants, the axes."""
+    return repr((_FORMAT, _RK_STEPS, param, axes))
 
 
-def _load_or_build(param, theta, shift, water_axis, u_axis) -> PathTable:
-    path = _cache_file(param, (theta, shift, water_axis, u_axis))
-    stored = _read_cache(path)
-    if stored is not None:
-        return PathTable(theta, shift, water_axis, u_axis, *stored)
-    table = _build(param, theta, shift, water_axis, u_axis)
-    if path is not None:
-        _write_cache(path, table)
+def _load_or_build(param, label, theta, shift, water_axis, u_axis) -> PathTable:
+    """The table from the disk cache if a valid copy is there, else built (and cached)."""
+    axes = (theta, shift, water_axis, u_axis)
+    key = _table_key(param, axes)
+    folder = _cache.cache_folder()
+    path = None
+    if folder is not None:
+        digest = hashlib.sha256(key.encode()).hexdigest()
+        path = folder / _cache.table_name(f"{param.name}-{label}", digest)
+        stored = _read_cache(path, key, axes)
+        if stored is not None:
+            _cache.mark_used(path)
+            return PathTable(*axes, *stored)
+    table = _build(param, *axes)
+    if path is not None and _write_cache(path, table, key):
+        _cache.prune(folder, keep=path)
     return table
 
 
-def _read_cache(path):
-    """``(state, onset)`` from a cache file, or None if absent or unreadable."""
-    if path is None or not path.exists():
+def _read_cache(path, key, axes):
+    """``(state, onset)`` from a cache file, or None unless it is a whole table for ``key``.
+
+    Anything else (absent, empty, truncated, another format, other constants or axes,
+    wrong shapes or dtypes, non-finite values) is rejected, to be rebuilt and replaced.
+    """
+    if not path.is_file():
         return None
+    shape = (*(axis.size for axis in axes), 3)
     try:
-        with np.load(path) as stored:
-            return np.ascontiguousarray(stored["state"]), stored["onset"]
-    except (OSError, ValueError, KeyError, zipfile.BadZipFile):
-        return None  # a damaged cache is rebuilt and overwritten
+        if not _sizes_match(path, shape):
+            return None
+        with np.load(path, allow_pickle=False) as stored:
+            stored_key, state, onset = stored["key"], stored["state"], stored["onset"]
+    except (OSError, EOFError, ValueError, KeyError, zipfile.BadZipFile):
+        return None
+    if stored_key.shape != () or stored_key.dtype.kind != "U" or str(stored_key) != key:
+        return None
+    if state.dtype != np.float32 or state.shape != shape:
+        return None
+    if onset.dtype != np.float64 or onset.shape != shape[:3]:
+        return None
+    if not (np.isfinite(state).all() and np.all((onset >= 0.0) & (onset <= MAX_PRESSURE))):
+        return None  # the comparisons are False for NaN, so NaN onsets fail too
+    return np.ascontiguousarray(state), onset
 
 
-def _write_cache(path, table) -> None:
-    """Atomic write; a cache is a convenience, so a read-only home must not stop the model."""
-    tmp = None
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(suffix=".npz", dir=path.parent)
-        with os.fdopen(fd, "wb") as handle:
-            np.savez(handle, state=table.state, onset=table.onset)
-        os.replace(tmp, path)
-    except OSError:
-        if tmp is not None and os.path.exists(tmp):
-            os.remove(tmp)
+def _sizes_match(path, shape) -> bool:
+    """The file is an archive of exactly our arrays, each about the size ``shape`` gives.
+
+    Checked before loading, so a damaged header cannot make numpy allocate a huge array.
+    """
+    with zipfile.ZipFile(path) as archive:
+        sizes = {info.filename: info.file_size for info in archive.infolist()}
+    data = {"state.npy": 4 * math.prod(shape), "onset.npy": 8 * math.prod(shape[:3])}
+    if set(sizes) != {"key.npy", *data} or sizes["key.npy"] > 64 * _HEADER_ROOM:
+        return False
+    return all(n <= sizes[name] <= n + _HEADER_ROOM for name, n in data.items())
 
 
-@lru_cache(maxsize=8)
-def path_table(param, water: float | None) -> PathTable:
-    """The table for ``param`` at one exact water content, or (None) across water."""
-    theta, shift = _param_axes(param, PARAMETER_DOMAIN["water"] if water is None else water)
-    if water is not None:
-        water_axis = _Axis(float(water) ** _WATER_EXPONENT, 1.0, 1)
-        u_axis = _pressure_axis(_PRESSURE_NODES)
-    else:
-        top = PARAMETER_DOMAIN["water"][1] ** _WATER_EXPONENT
-        water_axis = _Axis(0.0, top / (_WATER_NODES - 1), _WATER_NODES)
-        u_axis = _pressure_axis(_PRESSURE_NODES_ACROSS_WATER)
-    return _load_or_build(param, theta, shift, water_axis, u_axis)
+def _write_cache(path, table, key) -> bool:
+    """Write a table atomically; False if the folder cannot be written."""
+    def write(handle):
+        np.savez(handle, key=np.array(key), state=table.state, onset=table.onset)
+
+    return _cache.write_atomically(path, write)
+
+
+def table_for(param, water) -> PathTable:
+    """The table covering every value of ``water`` (ppm): the dry one where all are 0,
+    otherwise the one across water, so that no run needs a table of its own."""
+    return path_table(param, bool(np.any(water)))
+
+
+@lru_cache(maxsize=4)
+def path_table(param, across_water: bool) -> PathTable:
+    """The dry table of ``param`` or (``across_water``) the one for 0-1000 ppm."""
+    water_domain = PARAMETER_DOMAIN["water"] if across_water else (0.0,)
+    theta, shift = _param_axes(param, water_domain)
+    if not across_water:
+        return _load_or_build(param, "dry", theta, shift, _Axis(0.0, 1.0, 1),
+                              _pressure_axis(_PRESSURE_NODES))
+    top = PARAMETER_DOMAIN["water"][1] ** _WATER_EXPONENT
+    water_axis = _Axis(0.0, top / (_WATER_NODES - 1), _WATER_NODES)
+    return _load_or_build(param, "wet", theta, shift, water_axis,
+                          _pressure_axis(_PRESSURE_NODES_ACROSS_WATER))

@@ -8,7 +8,7 @@ from functools import cached_property
 import numpy as np
 
 from ._integrate import column_temperature
-from ._table import PathTable, path_table
+from ._table import PathTable, table_for
 from ._validation import check_inputs
 from ._table import deep_depression
 from .adiabat import MAX_PRESSURE, depth_per_pressure, refine_onset, solid_adiabat
@@ -193,9 +193,7 @@ def melt_column(
     if not param.supports_water and np.any(v["water"] > 0.0):
         raise ValueError(f"{param.title} is a dry parameterization: water must be 0 ppm")
     b = dict(zip(v, np.broadcast_arrays(*v.values()), strict=True))
-    water = b["water"]
-    one_water = water.size == 0 or bool(np.all(water == water.flat[0]))
-    table = path_table(param, float(water.flat[0]) if one_water and water.size else None)
+    table = table_for(param, b["water"])
     km_per_gpa = depth_per_pressure(b["mantle_density"])
     theta = b["potential_temperature"] - b["solidus_offset"] + deep_depression(param, b["water"])
     query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region, km_per_gpa,

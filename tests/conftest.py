@@ -1,5 +1,24 @@
-"""Shared test set-up: headless plotting."""
+"""Shared test set-up: headless plotting and a table cache of the test session's own."""
 
 import os
+from pathlib import Path
+
+import pytest
 
 os.environ.setdefault("MPLBACKEND", "Agg")
+
+
+@pytest.fixture(scope="session", autouse=True)
+def table_cache(tmp_path_factory):
+    """The folder of tabulated melting paths for the whole session (``LIDMELT_CACHE``).
+
+    A test run never writes to the user's cache: the tables are built once per session in
+    a temporary folder, which subprocesses inherit through the environment. Set
+    ``LIDMELT_TEST_CACHE`` to a folder to keep them between sessions instead.
+    """
+    kept = os.environ.get("LIDMELT_TEST_CACHE")
+    folder = Path(kept) if kept else tmp_path_factory.mktemp("lidmelt-cache")
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setenv("LIDMELT_CACHE", str(folder))
+        patch.delenv("LIDMELT_CACHE_MAX_MB", raising=False)
+        yield folder

@@ -177,21 +177,3 @@ def test_other_bad_arguments():
     with pytest.raises(ValueError, match="dry parameterization: water must be 0"):
         melt_column(1350.0, 0.0, water=100.0, parameterization="mckenzie-bickle1988")
     assert not forward.in_domain(potential_temperature=[1350.0, 2000.0])[1]
-
-
-def test_table_cache_round_trip_and_damaged_file(tmp_path, monkeypatch):
-    from lidmelt.forward import _table
-
-    monkeypatch.setenv("LIDMELT_CACHE", str(tmp_path))
-    _table.path_table.cache_clear()
-    built = melt_column(1400.0, 20.0, water=37.0)
-    files = list(tmp_path.glob("paths-katz2003-*.npz"))
-    assert len(files) == 1 and not list(tmp_path.glob("*.tmp*"))
-    _table.path_table.cache_clear()
-    loaded = melt_column(1400.0, 20.0, water=37.0)
-    assert float(loaded.melt_thickness) == float(built.melt_thickness)
-    files[0].write_bytes(b"not a table")  # a damaged cache is rebuilt, not fatal
-    _table.path_table.cache_clear()
-    rebuilt = melt_column(1400.0, 20.0, water=37.0)
-    assert float(rebuilt.melt_thickness) == float(built.melt_thickness)
-    _table.path_table.cache_clear()

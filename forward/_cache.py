@@ -1,0 +1,204 @@
+"""The folder where tabulated melting paths are kept between runs, and its upkeep.
+
+The folder is the platform's user cache folder for lidmelt (``platformdirs``), or the
+value of ``LIDMELT_CACHE`` if that is set; an empty value switches the disk cache off.
+Its size is capped at ``LIDMELT_CACHE_MAX_MB`` megabytes (default 500): after a new table
+is written, the least recently used tables are deleted until the rest fit (the new one is
+always kept). Loading a table marks it used by touching its modification time, which is
+portable where access times are not.
+
+Only files lidmelt writes are ever deleted: regular files named like its tables
+(``paths-<label>-<16 hex digits>.npz``) and the temporary files of an interrupted write
+(``.paths-...npz.<random>.part``, once they are an hour old). Anything else in the folder
+is left alone. This module uses the standard library only, so ``lidmelt cache`` is quick.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+__all__ = [
+    "CACHE_ENV",
+    "DEFAULT_LIMIT_MB",
+    "LIMIT_ENV",
+    "CacheEntry",
+    "CacheListing",
+    "cache_folder",
+    "cache_limit",
+    "clear",
+    "list_folder",
+    "mark_used",
+    "prune",
+    "table_name",
+    "write_atomically",
+]
+
+CACHE_ENV = "LIDMELT_CACHE"
+LIMIT_ENV = "LIDMELT_CACHE_MAX_MB"
+DEFAULT_LIMIT_MB = 500.0
+_BYTES_PER_MB = 1_000_000
+
+_LABEL_CHARS = re.compile(r"[^A-Za-z0-9_.-]")
+_TABLE_NAME = re.compile(r"paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz")
+_PART_NAME = re.compile(r"\.paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz\.[A-Za-z0-9_]+\.part")
+_STALE_PART_SECONDS = 3600.0  # a write in progress never takes this long
+
+
+def cache_folder() -> Path | None:
+    """The table cache folder, or None when ``LIDMELT_CACHE`` is set to ``""``."""
+    root = os.environ.get(CACHE_ENV)
+    if root is None:
+        import platformdirs  # only needed where no folder is given
+
+        return Path(platformdirs.user_cache_dir("lidmelt"))
+    return Path(root).expanduser() if root else None
+
+
+def cache_limit() -> int:
+    """The cap on the folder's tables in bytes, from ``LIDMELT_CACHE_MAX_MB`` (MB = 10^6 B).
+
+    Raises
+    ------
+    ValueError
+        The variable is set but is not a number of megabytes >= 0.
+    """
+    text = os.environ.get(LIMIT_ENV, "").strip()
+    if not text:
+        return int(DEFAULT_LIMIT_MB * _BYTES_PER_MB)
+    try:
+        megabytes = float(text)
+    except ValueError:
+        megabytes = math.nan
+    if not (math.isfinite(megabytes) and megabytes >= 0.0):
+        raise ValueError(f"{LIMIT_ENV} = {text!r}: must be a size in megabytes >= 0 "
+                         f"(unset means {DEFAULT_LIMIT_MB:g})")
+    return int(megabytes * _BYTES_PER_MB)
+
+
+def table_name(label: str, digest: str) -> str:
+    """File name of a table: ``paths-<label>-<first 16 hex digits of digest>.npz``."""
+    return f"paths-{_LABEL_CHARS.sub('_', label)}-{digest[:16]}.npz"
+
+
+@dataclass(frozen=True)
+class CacheEntry:
+    """One of lidmelt's files in the cache folder."""
+
+    path: Path
+    size: int  # bytes
+    last_used: float  # seconds since the epoch (modification time)
+
+
+@dataclass(frozen=True)
+class CacheListing:
+    """What a cache folder holds: lidmelt's tables (least recently used first), the
+    temporary files of interrupted writes, and the names of everything else."""
+
+    tables: tuple[CacheEntry, ...]
+    partial: tuple[CacheEntry, ...]
+    others: tuple[str, ...]
+
+    @property
+    def size(self) -> int:
+        """Bytes taken by lidmelt's files (tables and partial writes)."""
+        return sum(entry.size for entry in self.tables + self.partial)
+
+
+def list_folder(folder: Path) -> CacheListing:
+    """Sort the entries of ``folder`` into lidmelt's own files and the rest."""
+    tables, partial, others = [], [], []
+    try:
+        entries = list(os.scandir(folder))
+    except FileNotFoundError:
+        entries = []
+    for entry in entries:
+        own = entry.is_file(follow_symlinks=False)
+        if own and _TABLE_NAME.fullmatch(entry.name):
+            tables.append(_entry(entry))
+        elif own and _PART_NAME.fullmatch(entry.name):
+            partial.append(_entry(entry))
+        else:
+            others.append(entry.name)
+    tables.sort(key=lambda e: (e.last_used, e.path.name))
+    return CacheListing(tuple(tables), tuple(partial), tuple(sorted(others)))
+
+
+def _entry(entry: os.DirEntry) -> CacheEntry:
+    info = entry.stat(follow_symlinks=False)
+    return CacheEntry(Path(entry.path), info.st_size, info.st_mtime)
+
+
+def mark_used(path: Path) -> None:
+    """Record that a table was just used (its modification time); a read-only cache is fine."""
+    try:
+        os.utime(path)
+    except OSError:
+        pass
+
+
+def prune(folder: Path, keep: Path, limit: int | None = None) -> list[Path]:
+    """Delete least recently used tables until the folder's tables fit in ``limit`` bytes.
+
+    ``keep`` (the table just written) is never deleted, nor is any file that is not
+    lidmelt's; temporary files of writes interrupted over an hour ago go too.
+    Returns the deleted paths.
+    """
+    limit = cache_limit() if limit is None else limit
+    listing = list_folder(folder)
+    stale_before = time.time() - _STALE_PART_SECONDS
+    doomed = [e for e in listing.partial if e.last_used < stale_before]
+    total = sum(e.size for e in listing.tables)
+    for entry in listing.tables:  # least recently used first
+        if total <= limit:
+            break
+        if entry.path.name != keep.name:
+            doomed.append(entry)
+            total -= entry.size
+    return [entry.path for entry in doomed if _remove(entry.path)]
+
+
+def clear(folder: Path) -> list[CacheEntry]:
+    """Delete every lidmelt table and partial write in ``folder``; returns what went."""
+    listing = list_folder(folder)
+    return [entry for entry in listing.tables + listing.partial if _remove(entry.path)]
+
+
+def _remove(path: Path) -> bool:
+    try:
+        path.unlink()
+    except FileNotFoundError:  # another process pruned it first
+        return False
+    except OSError:  # e.g. open elsewhere on Windows, or a read-only folder
+        return False
+    return True
+
+
+def write_atomically(path: Path, write: Callable) -> bool:
+    """Write ``path`` via ``write(binary_handle)`` into a temporary file beside it, then
+    rename it into place, so readers see the old file or the whole new one.
+
+    Returns False (and leaves no temporary file) if the folder cannot be written: a cache
+    is a convenience, so a full disk or a read-only home must not stop the model.
+    Any other error is raised after the temporary file is removed.
+    """
+    tmp = None
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+        with os.fdopen(fd, "wb") as handle:
+            write(handle)
+        os.replace(tmp, path)
+        tmp = None
+        return True
+    except OSError:
+        return False
+    finally:
+        if tmp is not None:
+            _remove(Path(tmp))
