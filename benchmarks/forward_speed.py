@@ -3,7 +3,7 @@
 Run: ``python benchmarks/forward_speed.py [--samples 100000] [--reference 20]``.
 Both routes are timed in the same run on one core and reported as a ratio (machines
 are noisy; compare ratios, not seconds). Table building is a one-off per
-parameterization and water setting (cached on disk) and is reported separately.
+parameterization, dry and across water (cached on disk), and is reported separately.
 """
 
 from __future__ import annotations
