@@ -13,7 +13,7 @@ it is safe to call from scripts and tests (Agg backend).
 
 from __future__ import annotations
 
-from pathlib import Path
+import io
 
 import corner
 import numpy as np
@@ -22,8 +22,7 @@ from matplotlib.figure import Figure
 from .. import forward
 from ..forward import plotting
 
-
-__all__ = ["LABELS", "corner_figure", "fit_figure", "pt_figure", "save_figures"]
+__all__ = ["LABELS", "corner_figure", "figure_files", "fit_figure", "pt_figure"]
 
 #: Axis label of every parameter and derived quantity, with units.
 LABELS = {
@@ -48,13 +47,15 @@ _DPI = 150
 _UNIT_TEXT = {"degC": "°C", "km": "km", "ppm": "ppm", "GPa": "GPa", "-": ""}
 
 
-def save_figures(posterior, folder: str | Path) -> None:
-    """Render corner.png, fit.png and pt.png of `posterior` into `folder`."""
-    folder = Path(folder)
+def figure_files(posterior) -> dict[str, bytes]:
+    """The PNG bytes of corner.png, fit.png and pt.png of `posterior`, in that order."""
+    files = {}
     for name, make in (("corner.png", corner_figure), ("fit.png", fit_figure),
                        ("pt.png", pt_figure)):
-        fig = make(posterior)
-        fig.savefig(folder / name, dpi=_DPI, metadata={"Software": None})
+        buffer = io.BytesIO()
+        make(posterior).savefig(buffer, format="png", dpi=_DPI, metadata={"Software": None})
+        files[name] = buffer.getvalue()
+    return files
 
 
 def corner_figure(posterior) -> Figure:

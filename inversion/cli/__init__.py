@@ -1,8 +1,10 @@
 """Command-line entry point ``lidmelt``: a thin layer over the public API.
 
 Each subcommand lives in its own module exposing ``add_arguments(parser)`` and
-``run(args) -> int``; this module only dispatches and turns user mistakes into
-exit code 2 with a one-line message on stderr (no traceback, no result folder).
+``run(args) -> int``; this module only dispatches and turns user mistakes (the input
+error types: `InputError`, `UsageError`, forward's `DomainError`) into exit code 2 with a
+one-line message on stderr (no traceback, no result folder). Any other exception is a
+bug and shows as one, with its traceback.
 """
 
 from __future__ import annotations
@@ -10,6 +12,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+from ...forward._validation import DomainError
 from .._errors import InputError
 from . import column, demo, fit
 
@@ -47,7 +50,7 @@ def main(argv: list[str] | None = None) -> int:
     module, _ = _COMMANDS[args.command]
     try:
         return module.run(args)
-    except (InputError, UsageError, ValueError) as err:
+    except (InputError, UsageError, DomainError) as err:  # not ValueError: a bug shows
         print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)
         return 2
     except OSError as err:  # e.g. a result folder that cannot be written

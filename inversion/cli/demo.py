@@ -25,10 +25,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Fit the demo study; 0 on success."""
     from ... import demo_data
-
     from ..study import Study
 
     path = demo_data.study_path()
     print(f"lidmelt demo: fitting {path}")
     study = Study.from_file(path)
-    return run_fit(study, args, command=getattr(args, "argv", ["lidmelt", "demo"]))
+    return run_fit(study, args)
