@@ -11,11 +11,13 @@ import signal
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import emcee
 import numpy as np
 import pandas as pd
 import pytest
+from helpers import assert_same_outputs
 from helpers import small_study as _small_study
 from lidmelt import demo_data
 from lidmelt.inversion import OUTPUT_FILES, SUMMARY_COLUMNS
@@ -227,13 +229,6 @@ def _wait_for_record(folder: Path, process, timeout: float) -> None:
         if time.monotonic() > deadline or process.poll() is not None:
             raise AssertionError(f"no checkpoint record in {folder}")
         time.sleep(0.05)
-
-
-def assert_same_outputs(folder: Path, reference: Path) -> None:
-    """Every output file byte for byte, except run.json (times, command, resume step)."""
-    for name in OUTPUT_FILES:
-        if name != "run.json":
-            assert (folder / name).read_bytes() == (reference / name).read_bytes(), name
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to a child process")

@@ -9,7 +9,7 @@ import sys
 from pathlib import Path
 
 import pytest
-
+from helpers import small_study
 from lidmelt.inversion import InputError
 from lidmelt.inversion._safety import (
     MANIFEST,
@@ -19,8 +19,6 @@ from lidmelt.inversion._safety import (
     write_manifest,
 )
 from lidmelt.inversion.cli import main
-
-from helpers import small_study
 
 
 def _snapshot(folder: Path) -> dict:
@@ -100,10 +98,10 @@ def test_rule_lists_own_files_and_temporaries_and_refuses_the_rest(tmp_path):
     folder = tmp_path / "out"
     folder.mkdir()
     write_manifest(folder, ["summary.csv"], kind="checkpoint", patterns=["step-*.npz"])
-    for name in ("summary.csv", "step-000000050.npz", ".step-000000100.npz.ab12cd34.tmp.npz"):
+    own = ["summary.csv", "step-000000050.npz", ".step-000000100.npz.ab12cd34.tmp.npz"]
+    for name in own:
         (folder / name).write_text("x")
-    assert sorted(p.name for p in check_replaceable(folder)) == sorted(
-        [MANIFEST, "summary.csv", "step-000000050.npz", ".step-000000100.npz.ab12cd34.tmp.npz"])
+    assert sorted(p.name for p in check_replaceable(folder)) == sorted([MANIFEST, *own])
     (folder / "sub").mkdir()
     with pytest.raises(InputError, match="holds 'sub'"):
         check_replaceable(folder)
