@@ -19,7 +19,13 @@ Examples
     posterior.save("results")      # every output file, written atomically
 """
 
-from ._errors import InputError, NotConvergedWarning
+from ._errors import (
+    InputError,
+    NotConvergedWarning,
+    OutputConflict,
+    PosteriorWarning,
+    WriteError,
+)
 from ._outputs import OUTPUT_FILES
 from .model import DERIVED, PARAMETERS, UNITS, LogPosterior
 from .observations import KINDS, ObservationSet
@@ -43,12 +49,15 @@ __all__ = [
     "Normal",
     "NotConvergedWarning",
     "ObservationSet",
+    "OutputConflict",
     "Posterior",
+    "PosteriorWarning",
     "Prior",
     "SamplerSettings",
     "Study",
     "TruncatedNormal",
     "Uniform",
+    "WriteError",
     "assess_chain",
     "fit",
     "prior_from_spec",
