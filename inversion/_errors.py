@@ -189,7 +189,7 @@ class PosteriorWarning(UserWarning):
     """
 
 
-def suggest(word: str, valid: Iterable[str]) -> str:
+def suggest(word: str, valid: Iterable[str], *, list_choices: bool = True) -> str:
     """Return a ``"; did you mean 'x'?"`` hint for a misspelt `word`, or a list of choices.
 
     Parameters
@@ -198,6 +198,9 @@ def suggest(word: str, valid: Iterable[str]) -> str:
         The unrecognised word.
     valid : iterable of str
         The accepted words.
+    list_choices : bool
+        Without a close match, list `valid` as the choices (False: return ``""``, for
+        words that are not choices, such as the columns a table happens to have).
 
     Returns
     -------
@@ -212,6 +215,8 @@ def suggest(word: str, valid: Iterable[str]) -> str:
     "; did you mean 'melt_thickness'?"
     >>> suggest("zzz", ["top", "pooled"])
     "; valid choices: 'top', 'pooled'"
+    >>> suggest("zzz", ["site", "notes"], list_choices=False)
+    ''
     """
     valid = [str(v) for v in valid]
     word = str(word)
@@ -220,4 +225,6 @@ def suggest(word: str, valid: Iterable[str]) -> str:
         close = [v for v in valid if v.lower().startswith(word.lower())][:1]
     if close:
         return f"; did you mean '{close[0]}'?"
+    if not list_choices:
+        return ""
     return "; valid choices: " + ", ".join(f"'{v}'" for v in valid)

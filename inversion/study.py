@@ -241,10 +241,14 @@ class Study:
             of the schema (the message names the key and the line where it is).
         """
         path = Path(path)
-        if not path.is_file():
-            why = "is a folder, not a study file" if path.is_dir() else "not found"
-            raise InputError(f"study file {why}; check the path", file=path)
-        raw = path.read_bytes()
+        try:
+            if not path.is_file():
+                why = "is a folder, not a study file" if path.is_dir() else "not found"
+                raise InputError(f"study file {why}; check the path", file=path)
+            raw = path.read_bytes()
+        except OSError as err:  # e.g. no read permission on the file or its folder
+            raise InputError(f"the study file cannot be read ({err.strerror}); check its "
+                             "permissions", file=path) from None
         try:
             text = raw.decode("utf-8")
         except UnicodeDecodeError as err:
@@ -478,7 +482,7 @@ def _parse_parameters(table) -> tuple[dict[str, Prior], dict[str, float]]:
         else:
             raise InputError(
                 f"'{name}' must be given, e.g. {name} = {{ prior = \"uniform\", min = ..., "
-                "max = ... }} or { value = ... }", key=f"parameters.{name}")
+                "max = ... } or { value = ... }", key=f"parameters.{name}")
         (priors if isinstance(value, Prior) else fixed)[name] = value
     return priors, fixed
 
