@@ -177,8 +177,10 @@ class CheckpointBackend(emcee.backends.Backend):
 
     def remove(self) -> None:
         """Delete the checkpoint folder: the files lidmelt wrote there, nothing else."""
-        if self.folder is not None and self.folder.is_dir():
-            remove_listed(self.folder, check_replaceable(self.folder, what="checkpoint"))
+        if not any(self.folder.iterdir()):  # its manifest could not even be written
+            self.folder.rmdir()
+            return
+        remove_listed(self.folder, check_replaceable(self.folder, what="checkpoint"))
 
 
 def _extend(array: np.ndarray, extra: int) -> np.ndarray:

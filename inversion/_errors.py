@@ -119,13 +119,6 @@ class OutputConflict(InputError):
         self.reason = reason
         super().__init__(f"{self.problem}; {self.REMEDIES[reason]}", file=file)
 
-    def __reduce__(self):
-        return (_rebuild_conflict, (self.problem, self.reason, self.file))
-
-
-def _rebuild_conflict(problem, reason, file) -> OutputConflict:
-    return OutputConflict(problem, reason=reason, file=file)
-
 
 class WriteError(OSError):
     """Writing a checkpoint or the results failed (a full disk, a lost mount).
@@ -183,9 +176,10 @@ class NotConvergedWarning(UserWarning):
 class PosteriorWarning(UserWarning):
     """The fit finished but its posterior needs care (one line: what and why).
 
-    Raised for each entry of ``Posterior.warnings`` other than non-convergence: low
-    acceptance, a split R-hat well above its converged value, a posterior piled against
-    a prior bound or at the model's base, no melt anywhere in the prior.
+    Issued by `fit` for each entry of ``Posterior.posterior_warnings``: a posterior piled
+    against a prior bound or the edge of the model's range, samples whose melting starts
+    at the model's base, no melt anywhere in the prior. (Low acceptance and a high split
+    R-hat are part of the stopping rule: `NotConvergedWarning`.)
     """
 
 

@@ -13,11 +13,11 @@ import json
 from pathlib import Path
 
 from .._atomic import staged_folder, write_bytes
-from ._errors import InputError, OutputConflict, WriteError
+from ._errors import WriteError
 from ._provenance import run_record, study_inputs
 from ._safety import (
     MANIFEST,
-    check_replaceable,
+    check_output_folder,
     output_lock,
     publish_folder,
     remove_stale_temporaries,
@@ -39,15 +39,8 @@ def save_posterior(posterior, directory: Path, *, force: bool = False) -> Path:
     """Write all of `OUTPUT_FILES` for `posterior` to `directory` (see Posterior.save)."""
     directory = Path(directory).absolute()
     inputs = study_inputs(posterior.study)
-    if not directory.parent.is_dir():
-        raise InputError("the folder to hold the result folder does not exist; create it "
-                         "first", file=directory.parent)
     with output_lock(directory):
-        if directory.exists() or directory.is_symlink():
-            if not force:
-                raise OutputConflict("the result folder already exists", reason="exists",
-                                     file=directory)
-            check_replaceable(directory, inputs=inputs, what="result folder")
+        check_output_folder(directory, force=force, inputs=inputs)
         remove_stale_temporaries(directory)
         files = _files(posterior)  # built before the staging folder exists
         with staged_folder(directory) as staged:

@@ -5,7 +5,8 @@ result folder, a checkpoint) carries a manifest, `MANIFEST`, naming the files it
 there (and, for a checkpoint, the name patterns of its records). Replacing such a folder
 removes those files only.
 
-`check_replaceable` is the rule. It refuses, whatever ``force`` says:
+`check_output_folder` is what a command checks before any work; `check_replaceable` is
+the rule for replacing (``force``). It refuses, whatever ``force`` says:
 
 - a path that is a file or a symbolic link, not a folder;
 - the current folder or any folder that contains it;
@@ -34,10 +35,11 @@ from os import PathLike
 from pathlib import Path
 
 from .._atomic import temporary_target, write_text
-from ._errors import InputError
+from ._errors import InputError, OutputConflict
 
 __all__ = [
     "MANIFEST",
+    "check_output_folder",
     "check_replaceable",
     "output_lock",
     "publish_folder",
@@ -154,6 +156,39 @@ def check_replaceable(path: str | PathLike[str], *, inputs: Iterable[str | PathL
     return entries
 
 
+def check_output_folder(target: str | PathLike[str], *, force: bool,
+                        inputs: Iterable[str | PathLike[str]] = (),
+                        what: str = "result folder") -> None:
+    """The checks every command makes on its output folder before any work.
+
+    Parameters
+    ----------
+    target : str or path-like
+        The folder the command will write.
+    force : bool
+        Whether an existing `target` may be replaced (then `check_replaceable` decides).
+    inputs : iterable of path-like
+        The run's input files.
+    what : str
+        How messages name `target`.
+
+    Raises
+    ------
+    InputError
+        The folder to hold `target` does not exist, or `target` may not be replaced.
+    OutputConflict
+        `target` exists and `force` is false.
+    """
+    target = Path(target).absolute()
+    if not target.parent.is_dir():
+        raise InputError(f"the folder to hold the {what} does not exist; create it first",
+                         file=target.parent)
+    if target.exists() or target.is_symlink():
+        if not force:
+            raise OutputConflict(f"the {what} already exists", reason="exists", file=target)
+        check_replaceable(target, inputs=inputs, what=what)
+
+
 def _refusal(path: Path, what: str):
     def refuse(message: str) -> InputError:
         return InputError(f"the {what} {message}", file=path)
@@ -207,8 +242,6 @@ def remove_stale_temporaries(target: Path) -> None:
     leftover is removed only if it holds nothing but lidmelt's own files (or nothing).
     """
     parent = target.parent
-    if not parent.is_dir():
-        return
     for prefix in (f".{target.name}.writing-", f".{target.name}.old-"):
         for leftover in parent.glob(f"{_glob_escape(prefix)}*"):
             if leftover.is_symlink() or not leftover.is_dir():

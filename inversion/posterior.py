@@ -25,7 +25,13 @@ from . import _start
 from ._checkpoint import CheckpointBackend, stored_steps
 from ._errors import InputError, OutputConflict, PosteriorWarning, WriteError
 from ._provenance import run_fingerprint, study_inputs
-from ._safety import check_replaceable, output_lock, remove_listed, remove_stale_temporaries
+from ._safety import (
+    check_output_folder,
+    check_replaceable,
+    output_lock,
+    remove_listed,
+    remove_stale_temporaries,
+)
 from .model import DERIVED, UNITS, LogPosterior
 from .sampler import ChainResult, autocorrelation_time, run_chain
 
@@ -166,14 +172,7 @@ def _prepare_folders(out: Path, study, *, resume: bool, force: bool) -> Path:
     """Apply the output-folder rules before any work; return the checkpoint folder."""
     partial = out.with_name(out.name + ".partial")
     inputs = study_inputs(study)
-    if not out.parent.is_dir():
-        raise InputError("the folder to hold the result folder does not exist; create it "
-                         "first", file=out.parent)
-    if out.exists() or out.is_symlink():
-        if not force:
-            raise OutputConflict("the result folder already exists", reason="exists",
-                                 file=out)
-        check_replaceable(out, inputs=inputs, what="result folder")
+    check_output_folder(out, force=force, inputs=inputs)
     if resume and not partial.is_dir():
         raise OutputConflict("there is no interrupted run to resume for this folder",
                              reason="no-checkpoint", file=partial)

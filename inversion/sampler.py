@@ -472,10 +472,8 @@ def _to_attr(value):
 
 
 def _from_attr(value):
-    if isinstance(value, np.ndarray) and value.dtype.kind in "OSU":
-        return tuple(v.decode() if isinstance(v, bytes) else str(v) for v in value)
-    if isinstance(value, bytes):
-        return value.decode()
+    if isinstance(value, np.ndarray):  # h5py gives text arrays back as str objects
+        return tuple(str(v) for v in value)
     if isinstance(value, np.generic):
         return value.item()
     return value

@@ -108,7 +108,7 @@ def _fit(study, args, out: Path):
     from ..posterior import fit
 
     return fit(study, seed=args.seed, out=out, resume=args.resume, quiet=args.quiet,
-               force=args.force, provenance={"command_line": list(getattr(args, "argv", []))})
+               force=args.force, provenance={"command_line": list(args.argv)})
 
 
 def _print_warnings(caught, posterior=None) -> None:
