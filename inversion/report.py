@@ -160,8 +160,8 @@ def _files_section() -> str:
         "## Files\n\n"
         "summary.csv and derived.csv (these tables), samples.csv (posterior draws after "
         "burn-in, thinned), chain.h5 (every step, emcee HDF5 layout), diagnostics.json, "
-        "run.json (versions, seed, study-file hash, command line), corner.png, fit.png, "
-        "pt.png.\n"
+        "run.json (versions, seed, study-file hash, command line, times), corner.png, "
+        "fit.png, pt.png, lidmelt-files.json (the files lidmelt wrote here).\n"
     )
 
 
