@@ -1,4 +1,4 @@
-"""Bundled demo study: an invented rift segment ("Orvanta Rift, Kessel segment").
+"""Bundled demo study: an invented rift segment ("Orvanta Rift, Vantrebel segment").
 
 The place names, sites, samples and numbers are invented for demonstration; they were
 simulated from lidmelt's forward model (Katz 2003 hydrous melting, 1-D column) at a
