@@ -81,9 +81,9 @@ def corner_figure(posterior) -> Figure:
 
 
 def _title(row) -> str:
-    from .report import _decimals
+    from .report import decimals
 
-    d = _decimals(row["sd"])
+    d = decimals(row["sd"])
     med = row["median"]
     return (f"{med:.{d}f}$^{{+{row['q84'] - med:.{d}f}}}_{{-{med - row['q16']:.{d}f}}}$ "
             f"{_UNIT_TEXT.get(row['unit'], '')}")

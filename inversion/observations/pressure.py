@@ -280,7 +280,8 @@ class MeltingPressure(ObservationSet):
     def describe(self) -> str:
         where = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
                  "path": "anywhere along the melting path, weighted by melt production"}
-        what = "pressure-temperature point(s)" if self.has_temperature else "pressure(s)"
+        what = "pressure-temperature point" if self.has_temperature else "pressure"
+        what += "" if len(self) == 1 else "s"
         errors = []
         if self.model_error:
             errors.append(f"{self.model_error:g} GPa")
