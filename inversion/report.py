@@ -12,7 +12,7 @@ from ..forward.quantities import quantity, unit_text
 from .checks import FLAG_LIMIT, posterior_checks
 from .model import UNITS
 
-__all__ = ["CAUTION", "decimals", "interval_words", "render"]
+__all__ = ["CAUTION", "decimals", "estimate", "interval_words", "render"]
 
 #: The caution paragraph every report ends with.
 CAUTION = (
@@ -72,12 +72,23 @@ def interval_words(row) -> str:
     unit = unit_text(row["unit"])
     unit = f" {unit}" if unit else ""
     d = decimals(row["sd"])
+    return (f"**{estimate(row)}** "
+            f"(68 %: {_range(row['q16'], row['q84'], d)}{unit}; "
+            f"95 %: {_range(row['q2.5'], row['q97.5'], d)}{unit})")
+
+
+def estimate(row) -> str:
+    """Median and 68 % spread with the unit: ``1392 ± 11 °C`` or ``1392 +12/−10 °C``.
+
+    "±" where the interval is symmetric at the shown precision (about a tenth of the
+    posterior sd).
+    """
+    unit = unit_text(row["unit"])
+    d = decimals(row["sd"])
     med = row["median"]
     plus, minus = _f(row["q84"] - med, d), _f(med - row["q16"], d)
     spread = f" ± {plus}" if plus == minus else f" +{plus}/{_MINUS}{minus}"
-    return (f"**{_f(med, d)}{spread}{unit}** "
-            f"(68 %: {_range(row['q16'], row['q84'], d)}{unit}; "
-            f"95 %: {_range(row['q2.5'], row['q97.5'], d)}{unit})")
+    return f"{_f(med, d)}{spread}" + (f" {unit}" if unit else "")
 
 
 def _range(low: float, high: float, d: int) -> str:
