@@ -20,6 +20,7 @@ from .plotting import (
     label_contours,
     visible_legend_entries,
 )
+from .quantities import quantity
 
 __all__ = ["save_figure_atomically", "write_column_figure"]
 
@@ -82,7 +83,8 @@ def _draw_panel(ax, key, rows, colors, frame):
                           crust_density=frame["crust_density"],
                           mantle_density=frame["mantle_density"])
         draw_melting_path(ax, col, color=colors[tp], max_pressure=frame["max_pressure"],
-                          label=f"Tp {tp:g} °C: crust {crusts}")
+                          label=f"Tp {quantity('potential_temperature').with_value(tp)}: "
+                          f"crust {crusts}")
     depth = add_depth_axis(ax, frame["mantle_density"])
     if not frame.get("last_in_row", True):
         depth.set_ylabel("")

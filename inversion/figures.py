@@ -29,7 +29,7 @@ from matplotlib.patches import Patch
 from .. import forward
 from ..forward import figure_style as style
 from ..forward import plotting
-from ..forward.quantities import quantity
+from ..forward.quantities import quantity, unit_text
 from .report import decimals, estimate
 
 __all__ = ["corner_figure", "fit_figure", "pt_figure", "save_figures"]
@@ -144,9 +144,10 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     return fig
 
 
-def _bar_label(block, unit: str) -> str:
+def _bar_label(block) -> str:
     if block.model_error > 0:
-        return (f"observed ± 1σ, incl. model error {block.model_error:g} {unit}")
+        return (f"observed ± 1σ, incl. model error {block.model_error:g} "
+                f"{unit_text(block.unit)}")
     return "observed ± 1σ (measurement only; no model error)"
 
 
@@ -159,7 +160,7 @@ def _fit_panel(block, column) -> dict:
         values = np.asarray(block.predict(column)["value"], float)
         return common | dict(
             points=values[..., None], weights=np.ones(values.shape + (1,)),
-            ylabel=quantity(key).axis_label(), bar_label=_bar_label(block, "km"),
+            ylabel=quantity(key).axis_label(), bar_label=_bar_label(block),
             model_label=f"model {quantity(key).name}",
             title=f"{block.name}: thickness against the model {quantity(key).name}")
     pressure, _, weight = block.equilibration_points(column)
@@ -170,7 +171,7 @@ def _fit_panel(block, column) -> dict:
     return common | dict(
         points=np.repeat(pressure[:, None, :], len(block), axis=1),
         weights=np.repeat(weight[:, None, :], len(block), axis=1),
-        ylabel=quantity("pressure").axis_label(), bar_label=_bar_label(block, "GPa"),
+        ylabel=quantity("pressure").axis_label(), bar_label=_bar_label(block),
         model_label=model, invert=True,
         title=f"{block.name}: melting pressure, equilibrated {how[block.equilibration]}")
 
@@ -257,8 +258,9 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
     map_column = posterior.logpost.column(np.array([[posterior.map[n]
                                                      for n in posterior.names]]))
     plotting.draw_melting_path(ax, map_column, 0, color=style.MAP, max_pressure=max_p,
-                               label=f"melting path at the MAP, Tp "
-                               f"{at_map['potential_temperature']:.0f} °C")
+                               label="melting path at the MAP, Tp " + quantity(
+                                   "potential_temperature").with_value(
+                                   at_map["potential_temperature"]))
     _draw_observed_pt(ax, study.observations)
     plotting.add_depth_axis(ax, study.model.mantle_density)
     ax.set_ylim(max_p, 0.0)

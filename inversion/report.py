@@ -114,9 +114,10 @@ def _model_section(posterior) -> str:
     study = posterior.study
     model = study.model
     region = _REGION_WORDS.get(model.melting_region, model.melting_region)
+    title = get_parameterization(model.parameterization).title
     lines = ["## Model, priors and data\n",
-             f"- Melting parameterization: {get_parameterization(model.parameterization).title}"
-             f" (`{model.parameterization}`); melting region: {region}; crust density "
+             f"- Melting parameterization: {title} (`{model.parameterization}`); melting "
+             f"region: {region}; crust density "
              f"{model.crust_density:g} kg/m³, mantle density {model.mantle_density:g} kg/m³."]
     for name in posterior.names:
         prior = study.priors[name]

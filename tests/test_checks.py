@@ -3,11 +3,10 @@
 import numpy as np
 import pandas as pd
 import pytest
-from scipy import stats
-
 from lidmelt.forward import melt_column
 from lidmelt.inversion.checks import check_blocks
 from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
+from scipy import stats
 
 
 def _crust_block(values, sigma):

@@ -5,10 +5,9 @@ import io
 import json
 
 import pytest
-
 from lidmelt.forward import melt_column
-from lidmelt.inversion.cli.column import parse_values
 from lidmelt.inversion.cli import main
+from lidmelt.inversion.cli.column import parse_values
 
 
 def test_crust_against_tp_for_a_30_km_lid(capsys):

@@ -5,7 +5,6 @@ import sys
 from importlib import metadata
 
 import pytest
-
 from lidmelt.inversion.cli import main
 
 # Loaded only by the command that needs them (sampler, HDF5, tables, plotting).

@@ -7,16 +7,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
-from matplotlib.text import Text
-from scipy import stats
-
 from lidmelt import demo_data, inversion
 from lidmelt.forward import figure_style as style
 from lidmelt.forward import melt_column
 from lidmelt.forward._pt_figure import write_column_figure
 from lidmelt.inversion import figures
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from matplotlib.text import Text
+from scipy import stats
 
 DATA = Path(__file__).parent / "data"
 _UNITS = ("°C", "km", "GPa", "ppm")

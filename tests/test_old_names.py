@@ -10,13 +10,12 @@ import tomllib
 from pathlib import Path
 
 import pytest
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.text import Text
-
 from lidmelt import demo_data, inversion
 from lidmelt.inversion import figures
 from lidmelt.inversion.cli import build_parser, main
 from lidmelt.inversion.study import _MODEL_KEYS, _SAMPLER_KEYS, _STUDY_KEYS, _TOP_KEYS
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.text import Text
 
 ROOT = Path(__file__).resolve().parents[1]
 

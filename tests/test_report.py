@@ -3,7 +3,6 @@
 import re
 
 import pytest
-
 from lidmelt import demo_data, inversion
 from lidmelt.inversion.report import interval_words, render
 

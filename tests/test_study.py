@@ -179,8 +179,8 @@ CASES = {
                            r"key 'study.nme': unknown key 'nme'; did you mean 'name'"),
     "misspelt-model-key": (("melting_region = ", "melting_regio = "),
                            r"line 8, key 'model.melting_regio'.*did you mean 'melting_region'"),
-    "misspelt-parameter": (("solidus_offset = {", "solidus_shfit = {"),
-        r"line 16, key 'parameters.solidus_shfit': unknown parameter.*did you"
+    "misspelt-parameter": (("solidus_offset = {", "solidus_ofset = {"),
+        r"line 16, key 'parameters.solidus_ofset': unknown parameter.*did you"
         r" mean 'solidus_offset'"),
     "misspelt-prior-key": (("min = 0.0, max = 150.0", "min = 0.0, mx = 150.0"),
         r"line 13, key 'parameters.lithosphere_thickness.mx'.*did you mean 'max'"),

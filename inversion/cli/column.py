@@ -44,14 +44,19 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         parser.add_argument(f"--{name.replace('_', '-')}", default=default, metavar="VALUES",
                             help=f"{quantity(name).name} ({unit}; default {default})")
     parser.add_argument("--melting-region", default="column", metavar="NAMES",
-                        help=f"melting region: {', '.join(MELTING_REGIONS)} (comma list allowed)")
+                        help=f"melting region: {', '.join(MELTING_REGIONS)} (comma list "
+                        "allowed)")
     parser.add_argument("--parameterization", default="katz2003", metavar="NAMES",
                         help=f"melting parameterization: {', '.join(PARAMETERIZATIONS)}")
-    parser.add_argument("--crust-density", type=float, default=2900.0, help="kg/m^3 (default 2900)")
-    parser.add_argument("--mantle-density", type=float, default=3300.0, help="kg/m^3 (default 3300)")
+    for name, default in (("crust_density", 2900.0), ("mantle_density", 3300.0)):
+        parser.add_argument(f"--{name.replace('_', '-')}", type=float, default=default,
+                            metavar="RHO", help=f"{quantity(name).name} "
+                            f"({quantity(name).unit_text}; default {default:g})")
     parser.add_argument("--format", choices=("table", "csv", "json"), default="table",
-                        help="output format (default: aligned table)")
-    parser.add_argument("--plot", metavar="FILE.png", help="also draw a P-T diagram to this PNG")
+                        help="output format: aligned table for people (default), or CSV / "
+                        "JSON at full precision with the same keys")
+    parser.add_argument("--plot", metavar="FILE.png",
+                        help="also draw P-T diagrams (one panel per lid) to this PNG")
 
 
 def parse_values(text: str, option: str) -> list[float]:
