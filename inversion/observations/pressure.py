@@ -244,12 +244,12 @@ class MeltingPressure(ObservationSet):
                                                 self.temperature_sigma)
         return per_row
 
-    def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
-        total = self._per_row(column).sum(axis=-1)
+    def pointwise_log_likelihood(self, column, *,
+                                 parameters: Mapping | None = None) -> np.ndarray:
         dry = ~np.asarray(column.produces_melt, bool)
         distance = melting_distance(column, parameters)
-        penalty = len(self) * (NO_MELT_OFFSET + NO_MELT_SLOPE * distance)
-        return total - np.where(dry, penalty, 0.0)
+        penalty = np.where(dry, NO_MELT_OFFSET + NO_MELT_SLOPE * distance, 0.0)
+        return self._per_row(column) - penalty[..., None]
 
     def predict(self, column) -> dict[str, np.ndarray]:
         """Model prediction per row, arrays of shape (n, rows).
