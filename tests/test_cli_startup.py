@@ -40,6 +40,15 @@ def test_lazy_names_still_resolve():
         lidmelt.nonsense  # noqa: B018
 
 
+def test_every_public_name_of_the_lazy_packages_resolves():
+    import lidmelt
+    from lidmelt import forward, inversion
+
+    for package in (lidmelt, inversion, forward):
+        for name in package.__all__:
+            assert getattr(package, name) is not None, (package.__name__, name)
+
+
 def test_version_matches_the_installed_metadata(capsys):
     with pytest.raises(SystemExit) as stop:
         main(["--version"])
