@@ -16,7 +16,7 @@ Examples
 >>> q.unit, q.unit_text, q.format(1351.27)
 ('degC', '°C', '1351')
 >>> q.axis_label()
-'Potential temperature (°C)'
+'Mantle potential temperature (°C)'
 >>> quantity("crust.model_error", unit="km").name
 'model error of crust'
 """
