@@ -7,7 +7,8 @@ import math
 import numpy as np
 
 from .. import forward
-from .model import DERIVED, UNITS
+from ..forward.quantities import quantity
+from .model import DERIVED
 
 __all__ = ["MIN_ACCEPTANCE", "converged_rhat", "diagnostics_dict", "posterior_warnings",
            "rhat_too_high", "split_rhat"]
@@ -170,7 +171,7 @@ def _bound_warnings(name: str, x: np.ndarray, prior) -> list[str]:
                     f"the {side} bound of its prior")
             lines.append(
                 f"the posterior of {name} piles against {what}, {bound:g} "
-                f"{_unit(name)} ({100 * share:.0f} % of the samples lie within "
+                f"{quantity(name).unit_text} ({100 * share:.0f} % of the samples lie within "
                 f"{_EDGE_ZONE:g} posterior sd of it): the bound, not the data, sets the "
                 "estimate there; widen the prior or check the data")
     return lines
@@ -202,7 +203,3 @@ def _melt_warning(posterior, derived: np.ndarray) -> list[str]:
     return [f"no melt anywhere in the prior: none of {_PRIOR_DRAWS} prior draws nor any "
             "posterior sample makes melt, so the data cannot be fitted; allow a hotter "
             "mantle or a thinner lid"]
-
-
-def _unit(name: str) -> str:
-    return {"degC": "°C", "-": ""}.get(UNITS[name], UNITS[name])

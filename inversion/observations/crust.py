@@ -92,13 +92,13 @@ class CrustalThickness(ObservationSet):
     def _model(self, column) -> np.ndarray:
         return np.asarray(getattr(column, THICKNESS_OF[self.thickness_of]), float)
 
-    def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
+    def pointwise_log_likelihood(self, column, *,
+                                 parameters: Mapping | None = None) -> np.ndarray:
         model = self._model(column)[..., None]  # (n, 1) against rows (rows,)
         per_row = gaussian_logpdf(self.values, model, self.sigma)
-        total = per_row.sum(axis=-1)
-        melt_rows = np.count_nonzero(self.values > 0.0)
-        distance = melting_distance(column, parameters)
-        return total - melt_rows * NO_MELT_SLOPE * distance
+        records_melt = self.values > 0.0  # only these rows are penalised for no melt
+        distance = melting_distance(column, parameters)[..., None]
+        return per_row - np.where(records_melt, NO_MELT_SLOPE * distance, 0.0)
 
     def predict(self, column) -> dict[str, np.ndarray]:
         model = self._model(column)[..., None]
@@ -111,6 +111,7 @@ class CrustalThickness(ObservationSet):
         return self._replace_values({self.value_column: draws}, thickness_of=self.thickness_of)
 
     def describe(self) -> str:
-        return (f"{len(self)} crustal thickness value(s) from {self.name}, compared with the "
+        rows = "1 crustal thickness" if len(self) == 1 else f"{len(self)} crustal thicknesses"
+        return (f"{rows} from {self.name}, compared with the "
                 f"model {self.thickness_of} thickness"
                 + (f" (model error {self.model_error:g} km)" if self.model_error else ""))
