@@ -62,9 +62,13 @@ def _seed(text: str) -> int:
 
 def run(args: argparse.Namespace) -> int:
     """Fit the study named on the command line; 0 on success."""
-    from ..study import Study
+    return run_fit(lambda: _study(args.study), args)
 
-    return run_fit(Study.from_file(args.study), args)
+
+def _study(path):
+    from ..study import Study  # imported here: its libraries take a while to load
+
+    return Study.from_file(path)
 
 
 #: How the command line resolves each kind of OutputConflict.
@@ -76,15 +80,16 @@ _REMEDIES = {
 }
 
 
-def run_fit(study, args: argparse.Namespace) -> int:
-    """Shared by ``fit`` and ``demo``: fit, report to stdout, handle interruption."""
+def run_fit(load_study, args: argparse.Namespace) -> int:
+    """Shared by ``fit`` and ``demo``: read the study (``load_study()``), fit, report to
+    stdout, handle interruption from the first moment on."""
     from .._errors import InputError, OutputConflict, WriteError
 
     out = Path(args.out)
     with _QuietInterrupts() as interrupts, warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            posterior = _fit(study, args, out)
+            posterior = _fit(load_study(), args, out)
         except KeyboardInterrupt:
             interrupts.silence()
             _print_warnings(caught)
