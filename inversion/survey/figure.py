@@ -57,6 +57,18 @@ def _area_band(ax, area: pd.DataFrame | None) -> None:
     ax.axhline(row["median"], color=_RED, lw=1.4, label=label)
 
 
+def _alone(ax, x, records) -> None:
+    """Each site's Tp on its own data (joint mode): median and 95 % interval."""
+    rows = [r.get("tp_alone") for r in records]
+    if not any(rows):
+        return
+    get = lambda key: np.array([np.nan if r is None else r[key] for r in rows])  # noqa: E731
+    median = get("median")
+    ax.errorbar(x, median, yerr=[median - get("q2.5"), get("q97.5") - median], fmt="o",
+                ms=3, color=_GREY, lw=0.8, capsize=2,
+                label="site on its own data: median, 95 %")
+
+
 def _mark_failed(axes, x, failed: np.ndarray) -> None:
     for k, ax in enumerate(axes):
         for j, xv in enumerate(x[failed]):
@@ -85,9 +97,12 @@ def profile_figure(result, plan):
     n = len(table)
     x, xlabel = _positions(result, table)
     failed = np.array([r["status"] != "ok" for r in result.records])
-    fig, axes = plt.subplots(3, 1, figsize=(9, 9.5), sharex=True, layout="constrained")
+    fig, axes = plt.subplots(3, 1, figsize=(11.5, 9.5), sharex=True, layout="constrained")
     _area_band(axes[0], result.area)
-    _bands(axes[0], x, _column(result.summary, TP, n), _BLUE, "site")
+    _alone(axes[0], x, result.records)
+    if plan.mode == "independent" or plan.settings.hierarchical:
+        # shared mode: every site's Tp is the area-wide one, drawn once as the red band
+        _bands(axes[0], x, _column(result.summary, TP, n), _BLUE, "site")
     axes[0].set_ylabel("potential temperature (°C)")
     _bands(axes[1], x, _column(result.summary, _LID, n), _BLUE, "site")
     axes[1].set_ylabel("lid thickness (km)")
@@ -104,7 +119,8 @@ def profile_figure(result, plan):
     _mark_failed(axes, x, failed)
     for ax in axes:
         ax.grid(alpha=0.3)
-        ax.legend(fontsize=7.5, loc="best", framealpha=0.85)
+        ax.legend(fontsize=7.5, loc="upper left", bbox_to_anchor=(1.01, 1.0),
+                  frameon=False)
     mode = {"independent": "each site on its own",
             "joint": "hierarchical: site Tp around an area mean"
             if plan.settings.hierarchical else "joint: one Tp shared by every site"}

@@ -31,7 +31,8 @@ from scipy.interpolate import CubicSpline
 from ..grid import MASS_CUT, GridPosterior, grid_posterior
 from .job import TP
 
-__all__ = ["AreaPosterior", "combine_hierarchical", "combine_shared", "tp_axis"]
+__all__ = ["AreaPosterior", "alone_quantiles", "combine_hierarchical", "combine_shared",
+           "tp_axis"]
 
 _TAIL = 1e-7  # prior mass left out beyond each end of the Tp axis
 _AREA_POINTS = {1: 4_000, 2: 6_400}  # grid size of the area posterior by dimension
@@ -71,6 +72,15 @@ class AreaPosterior:
     def sites(self) -> int:
         """Number of sites combined."""
         return len(self.factors)
+
+
+def alone_quantiles(axis: np.ndarray, profile, prior, q) -> np.ndarray:
+    """Quantiles (degC) of one site's Tp posterior on its own, pi(t) L_i(t), from its
+    tabulated log-likelihood (trapezoid rule for the CDF on the equally spaced axis)."""
+    log_p = _clean([profile])[0] + np.asarray(prior.logpdf(axis), float)
+    density = np.exp(log_p - np.max(log_p))
+    cdf = np.concatenate([[0.0], np.cumsum(0.5 * (density[1:] + density[:-1]))])
+    return np.interp(np.asarray(q, float) * cdf[-1], cdf, axis)
 
 
 def _clean(profiles) -> np.ndarray:

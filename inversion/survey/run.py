@@ -258,13 +258,16 @@ def _run_joint(plan: _Plan, folder: SurveyFolder, executor, *, quiet: bool):
         area = joint.combine_shared(axis, profiles, prior)
     extra = {k: {"tp_factor": area.factors[j], "tp_box": area.boxes[j]}
              for j, k in enumerate(used)}
+    alone = {k: dict(zip(QUANTILES, map(float, joint.alone_quantiles(
+        axis, first[k]["tp_log_likelihood"], prior, list(QUANTILES.values()))), strict=True))
+        for k in used}
     second = dict(zip(used, _run_phase(plan, folder, executor, "conditional", "final",
                                        quiet=quiet, indices=used, extra=extra),
                       strict=True))
     records = []
     for k, record in enumerate(first):
         if k in second:
-            records.append(second[k])
+            records.append({**second[k], "tp_alone": alone[k]})
             continue
         final = {**record, "phase": "final"}
         final.pop("tp_log_likelihood", None)
