@@ -5,7 +5,7 @@ The everyday API is re-exported here; the two layers sit beneath it:
 - `lidmelt.forward`: adiabatic decompression melting of peridotite beneath a lid
   (`melt_column`);
 - `lidmelt.inversion`: study files, priors, likelihoods and the emcee inversion (`Study`,
-  `fit`).
+  `fit`), and surveys of many sites (`survey`, imported on first use).
 
 Results are scientific estimates that depend on the chosen melting parameterization and the
 other modelling assumptions (see ``docs/model.md``); they are no basis on their own for
@@ -30,4 +30,13 @@ except _metadata.PackageNotFoundError:  # running from a source tree that is not
     __version__ = "0+unknown"
 
 __all__ = ["InputError", "MeltColumn", "Posterior", "Study", "__version__", "fit",
-           "melt_column"]
+           "melt_column", "survey"]
+
+
+def __getattr__(name: str):
+    # `survey` pulls in the executors and job machinery: load it only when asked for
+    if name == "survey":
+        from .inversion.survey import survey
+
+        return survey
+    raise AttributeError(f"module 'lidmelt' has no attribute {name!r}")

@@ -25,11 +25,12 @@ from .._errors import InputError
 
 __all__ = ["DaskExecutor", "LocalExecutor", "make_executor"]
 
+_PRELOAD = ("lidmelt.inversion.survey.job",)  # what every worker needs, imported once
 _THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 class LocalExecutor:
-    """Tasks on `workers` local processes.
+    """Tasks on `workers` local processes (one worker: in this process).
 
     Parameters
     ----------
@@ -45,6 +46,10 @@ class LocalExecutor:
         self._executor = None
 
     def run(self, fn: Callable, tasks: Sequence) -> Iterator[tuple[int, object]]:
+        if self.workers == 1:  # one worker: this process, no pool to start
+            for k, task in enumerate(tasks):
+                yield k, _call(fn, task)
+            return
         pool = self._pool()
         with _single_threaded():  # processes start on demand, while submitting
             futures = {pool.submit(fn, task): k for k, task in enumerate(tasks)}
@@ -61,6 +66,8 @@ class LocalExecutor:
             methods = multiprocessing.get_all_start_methods()
             context = multiprocessing.get_context(
                 "forkserver" if "forkserver" in methods else "spawn")
+            if context.get_start_method() == "forkserver":  # import once, fork workers
+                context.set_forkserver_preload(list(_PRELOAD))
             self._executor = ProcessPoolExecutor(self.workers, mp_context=context)
         return self._executor
 
@@ -99,13 +106,22 @@ class DaskExecutor:
 
         futures = {self.client.submit(fn, task, pure=False): k for k, task in enumerate(tasks)}
         try:
-            for future in dask_completed(list(futures)):
+            with self.client.as_current():  # as_completed looks for the current client
+                completed = dask_completed(list(futures))
+            for future in completed:
                 yield futures[future], _result(future)
         finally:
             self.client.cancel(list(futures))
 
     def close(self) -> None:
         self.client.close()
+
+
+def _call(fn: Callable, task):
+    try:
+        return fn(task)
+    except Exception as err:  # as a worker process would report it
+        return err
 
 
 def _result(future):
