@@ -76,7 +76,8 @@ def main() -> None:
         os.environ.pop("OMP_NUM_THREADS", None)
     texts = {text for _, text, _ in runs.values()}
     print(f"{args.sites} sites, {args.mode} mode; identical numbers on every executor: "
-          f"{len(texts) == 1}")
+          f"{len(texts) == 1}; load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} "
+          "cores (other work on the machine lowers the 2-worker ratio)")
     rates = {}
     for label, (seconds, _, _) in runs.items():
         rates[label] = 60.0 * args.sites / seconds

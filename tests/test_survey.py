@@ -222,3 +222,12 @@ def test_sites_table_reads_optional_columns(tmp_path):
     table = read_sites(path)
     assert not table.has_positions and not table.has_pressures
     assert table.sites[0].line == 3 and table.sites[0].thickness_km == 6.0
+
+
+def test_import_lidmelt_stays_light():
+    code = ("import sys, lidmelt; light = not any(m in sys.modules for m in "
+            "('lidmelt.inversion.survey', 'distributed', 'dask')); "
+            "f = lidmelt.survey; print(light, f.__name__, 'distributed' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.split()
+    assert out == ["True", "survey", "False"]
