@@ -37,7 +37,7 @@ from pathlib import Path
 from .._errors import InputError, suggest
 from ..observations import EQUILIBRATION, THICKNESS_OF
 from ..priors import Prior, prior_from_spec
-from ..study import Study, _key_line, _parse_toml
+from ..study import Study, _key_line, _read_study_file
 
 __all__ = ["SPREAD", "SurveySettings", "load_survey_study"]
 
@@ -84,16 +84,7 @@ def load_survey_study(path: str | PathLike[str]) -> tuple[Study, SurveySettings]
         As `Study.from_file` does (file, key, line), and for a bad ``[survey]`` key.
     """
     path = Path(path)
-    if not path.is_file():
-        why = "is a folder, not a study file" if path.is_dir() else "not found"
-        raise InputError(f"study file {why}; check the path", file=path)
-    raw = path.read_bytes()
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise InputError(f"not UTF-8 text (byte {err.start}); save the study file as UTF-8",
-                         file=path) from None
-    config = _parse_toml(text, path)
+    raw, text, config = _read_study_file(path)
     table = config.pop("survey", {})
     config["observations"] = []  # every site brings its own data
     try:
