@@ -10,6 +10,7 @@ import sys
 import time
 from pathlib import Path
 
+import emcee
 import numpy as np
 import pandas as pd
 import pytest
@@ -74,10 +75,14 @@ def test_mcmc_sites_match_between_local_and_dask(tmp_path, dask_cluster):
     truth = truth_table(1400.0, [25.0, 40.0]).assign(solidus_offset=0.0,
                                                      active_upwelling=1.0)
     sites = write_sites(tmp_path, study, truth, 2)
-    local = survey(study, sites, out=tmp_path / "local", workers=2, quiet=True)
+    local = survey(study, sites, out=tmp_path / "local", workers=2, quiet=True,
+                   keep_chains=True)
     remote = survey(study, sites, out=tmp_path / "remote",
                     scheduler=dask_cluster.scheduler_address, quiet=True)
     assert local.summary["method"].eq("mcmc").all()
+    chain = emcee.backends.HDFBackend(next((tmp_path / "local" / "sites").glob(
+        "0001-*/chain.h5")), read_only=True)  # --keep-chains: emcee reads it
+    assert chain.get_chain().shape[1:] == (16, 4)
     assert _summary_text(tmp_path / "local") == _summary_text(tmp_path / "remote")
 
 
@@ -112,11 +117,15 @@ def test_a_site_that_cannot_melt_fails_with_the_reason(tmp_path):
     sites = tmp_path / "sites.csv"
     sites.write_text("site,thickness_km,sigma_km\ncold,6,0.5\nnone,0,0.5\n",
                      encoding="utf-8")
-    result = survey(cold, sites, out=tmp_path / "cold", workers=1, quiet=True)
+    result = survey(cold, sites, out=tmp_path / "cold", workers=1, quiet=True,
+                    keep_chains=True)
     assert result.records[0]["status"].startswith("failed: no melt possible")
     assert "6 km of crust" in result.records[0]["status"]
     assert result.records[1]["status"] == "ok"  # no crust observed: no melt is the answer
     assert result.records[1]["melt_share"] == 0.0
+    grid = np.load(next((tmp_path / "cold" / "sites").glob("0002-*/grid.npz")))
+    assert grid["log_likelihood"].shape == (grid["axis_potential_temperature"].size,
+                                            grid["axis_lithosphere_thickness"].size)
 
 
 @pytest.mark.parametrize("content, needle", [

@@ -16,7 +16,8 @@ _BLUE, _RED, _GREY = "#2b6cb0", "#c0392b", "#7f7f7f"
 def _positions(result, table) -> tuple[np.ndarray, str]:
     positions = np.array([np.nan if s.position_km is None else s.position_km
                           for s in table.sites], float)
-    if table.has_positions and np.isfinite(positions).all():
+    usable = np.array([s.error is None for s in table.sites])
+    if table.has_positions and np.isfinite(positions[usable]).all():
         return positions, "position along the study area (km)"
     return np.arange(1, len(table) + 1, dtype=float), "site (order in the sites table)"
 
@@ -69,9 +70,16 @@ def _alone(ax, x, records) -> None:
                 label="site on its own data: median, 95 %")
 
 
+def _mark_pressure(ax, x, frame: pd.DataFrame, has_pressure: np.ndarray) -> None:
+    if has_pressure.any():
+        ax.plot(x[has_pressure], frame["median"].to_numpy()[has_pressure], "D", ms=5,
+                mfc="white", mec=_BLUE, mew=1.3, ls="none",
+                label="site with a melting pressure")
+
+
 def _mark_failed(axes, x, failed: np.ndarray) -> None:
     for k, ax in enumerate(axes):
-        for j, xv in enumerate(x[failed]):
+        for j, xv in enumerate(x[failed & np.isfinite(x)]):
             ax.axvline(xv, color=_GREY, ls=":", lw=1,
                        label="failed site (see report.md)" if k == 0 and j == 0 else None)
 
@@ -98,13 +106,16 @@ def profile_figure(result, plan):
     x, xlabel = _positions(result, table)
     failed = np.array([r["status"] != "ok" for r in result.records])
     fig, axes = plt.subplots(3, 1, figsize=(11.5, 9.5), sharex=True, layout="constrained")
+    has_pressure = np.array([s.has_pressure for s in table.sites])
     _area_band(axes[0], result.area)
     _alone(axes[0], x, result.records)
     if plan.mode == "independent" or plan.settings.hierarchical:
         # shared mode: every site's Tp is the area-wide one, drawn once as the red band
         _bands(axes[0], x, _column(result.summary, TP, n), _BLUE, "site")
+        _mark_pressure(axes[0], x, _column(result.summary, TP, n), has_pressure)
     axes[0].set_ylabel("potential temperature (°C)")
     _bands(axes[1], x, _column(result.summary, _LID, n), _BLUE, "site")
+    _mark_pressure(axes[1], x, _column(result.summary, _LID, n), has_pressure)
     axes[1].set_ylabel("lid thickness (km)")
     axes[1].invert_yaxis()  # thicker lid plotted deeper
     _bands(axes[2], x, _column(result.summary, plan.predicted, n), _BLUE, "model")

@@ -15,6 +15,7 @@ leave both cells empty (that site has no such measurement), not one of them.
 from __future__ import annotations
 
 import hashlib
+import math
 from dataclasses import dataclass
 from os import PathLike
 from pathlib import Path
@@ -143,9 +144,18 @@ def _site(index: int, row: dict, line: int, groups, path: Path) -> Site:
     name = row["site"].strip()
     try:
         values = _row_values(row, line, groups, path)
-    except InputError as err:
-        return Site(index, name, line, error=str(err))
+    except InputError as err:  # keep the position, if it is readable, for the figure
+        return Site(index, name, line, position_km=_number_or_none(row.get("position_km")),
+                    error=str(err))
     return Site(index, name, line, **values)
+
+
+def _number_or_none(text) -> float | None:
+    try:
+        value = float(str(text).strip())
+    except ValueError:
+        return None
+    return value if math.isfinite(value) else None
 
 
 def _row_values(row: dict, line: int, groups, path: Path) -> dict:
