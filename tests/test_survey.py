@@ -77,8 +77,8 @@ def test_mcmc_sites_match_between_local_and_dask(tmp_path, dask_cluster):
     sites = write_sites(tmp_path, study, truth, 2)
     local = survey(study, sites, out=tmp_path / "local", workers=2, quiet=True,
                    keep_chains=True)
-    remote = survey(study, sites, out=tmp_path / "remote",
-                    scheduler=dask_cluster.scheduler_address, quiet=True)
+    survey(study, sites, out=tmp_path / "remote",
+           scheduler=dask_cluster.scheduler_address, quiet=True)
     assert local.summary["method"].eq("mcmc").all()
     chain = emcee.backends.HDFBackend(next((tmp_path / "local" / "sites").glob(
         "0001-*/chain.h5")), read_only=True)  # --keep-chains: emcee reads it
@@ -190,7 +190,7 @@ def test_resume_after_a_survey_killed_halfway(inputs, tmp_path):
     assert 3 <= done < 8, "the survey was not killed halfway"
     assert not (out / "sites_summary.csv").exists()
     resumed = survey(study, many, out=out, workers=1, resume=True, quiet=True)
-    fresh = survey(study, many, out=tmp_path / "fresh", workers=2, quiet=True)
+    survey(study, many, out=tmp_path / "fresh", workers=2, quiet=True)
     assert _summary_text(out) == _summary_text(tmp_path / "fresh")
     assert len(resumed.records) == 8 and not resumed.failed
 

@@ -147,9 +147,9 @@ class SurveyFolder:
         folder = self.site_dir(record["index"], record["site"])
         folder.mkdir(exist_ok=True)
         if phase == "likelihood" and "tp_axis" in record:
+            values = record.get("tp_log_likelihood") or [np.nan] * len(record["tp_axis"])
             table = pd.DataFrame({"potential_temperature": record["tp_axis"],
-                                  "log_likelihood": record.get("tp_log_likelihood",
-                                                               [np.nan] * len(record["tp_axis"]))})
+                                  "log_likelihood": values})
             write_atomic(folder / "tp_likelihood.csv", table.to_csv(index=False))
         if phase == "final":
             write_atomic(folder / "summary.csv", csv_text(summary_rows([record])))

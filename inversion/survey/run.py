@@ -112,7 +112,7 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
 
     summary = summary_rows(records)
     folder.write_table("sites_summary.csv", summary)
-    area_table = None if area is None else area_frame(area, records)
+    area_table = None if area is None else area_frame(area)
     if area_table is not None:
         folder.write_table("area.csv", area_table)
     result = SurveyResult(folder.path, summary, area_table, records)
@@ -209,15 +209,11 @@ def _run_phase(plan: _Plan, folder: SurveyFolder, executor, kind: str, phase: st
             k = todo[number]
             outcome = _as_outcome(outcome, plan, k, kind)
             if phase == "likelihood":
-                outcome.record["tp_axis"] = [float(v) for v in extra_axis(extra, k)]
+                outcome.record["tp_axis"] = [float(v) for v in extra[k]["tp_axis"]]
             _fill_failed(outcome.record, plan.row_names)
             records[k] = folder.write_record(outcome.record, phase, outcome.arrays)
             bar.update(1)
     return [records[k] for k in indices]
-
-
-def extra_axis(extra, k) -> np.ndarray:
-    return np.asarray(extra[k]["tp_axis"], float)
 
 
 def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
@@ -277,7 +273,7 @@ def _run_joint(plan: _Plan, folder: SurveyFolder, executor, *, quiet: bool):
     return records, area
 
 
-def area_frame(area, records) -> pd.DataFrame:
+def area_frame(area) -> pd.DataFrame:
     """area.csv: one row per area-wide parameter."""
     post = area.posterior
     meaning = {TP: ("mean of the site potential temperatures" if area.hierarchical else

@@ -107,7 +107,8 @@ def parse_survey_table(table) -> SurveySettings:
             raise InputError(f"unknown key '{key}'" + suggest(str(key), _KEYS),
                              key=f"survey.{key}")
     values = {}
-    for key, valid in (("equilibration", EQUILIBRATION), ("thickness_of", tuple(THICKNESS_OF))):
+    choices = (("equilibration", EQUILIBRATION), ("thickness_of", tuple(THICKNESS_OF)))
+    for key, valid in choices:
         if key in table:
             if table[key] not in valid:
                 raise InputError(f"unknown value {table[key]!r}" + suggest(str(table[key]),

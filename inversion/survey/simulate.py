@@ -38,7 +38,8 @@ def simulate_sites(study, settings, truth: pd.DataFrame,
         template = Site(k, str(spec["site"]), k + 2, thickness_km=1.0,
                         sigma_km=float(spec["sigma_km"]),
                         pressure_gpa=1.0 if has_p else None,
-                        pressure_sigma_gpa=float(spec["pressure_sigma_gpa"]) if has_p else None)
+                        pressure_sigma_gpa=(float(spec["pressure_sigma_gpa"]) if has_p
+                                            else None))
         blocks = site_observations(template, settings)
         logpost = LogPosterior(study.with_observations(blocks))
         column = logpost.column(np.array([[spec[n] for n in logpost.names]], float))
