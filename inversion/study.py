@@ -354,9 +354,10 @@ class Study:
 
     def describe(self) -> str:
         """Several lines in words: model, each parameter's prior or value, each data set."""
-        lines = [f"Study '{self.name}': {self.model.parameterization} melting, "
-                 f"{self.model.melting_region} melting_region, crust {self.model.crust_density:g} and "
-                 f"mantle {self.model.mantle_density:g} kg/m^3."]
+        model = self.model
+        lines = [f"Study '{self.name}': {model.parameterization} melting, melting region "
+                 f"{model.melting_region}, crust {model.crust_density:g} and mantle "
+                 f"{model.mantle_density:g} kg/m^3."]
         for name in PARAMETERS:
             unit = "" if PARAMETER_UNITS[name] == "-" else PARAMETER_UNITS[name]
             if name in self.priors:
