@@ -39,6 +39,7 @@ from ._errors import InputError, OutputConflict
 
 __all__ = [
     "MANIFEST",
+    "check_not_protected",
     "check_output_folder",
     "check_replaceable",
     "output_lock",
@@ -133,6 +134,35 @@ def check_replaceable(path: str | PathLike[str], *, inputs: Iterable[str | PathL
     path = Path(path).absolute()
     if not path.exists() and not path.is_symlink():
         return []
+    check_not_protected(path, inputs=inputs, what=what)
+    refuse = _refusal(path, what)
+    record = _read_manifest(path)
+    if record is None:
+        raise refuse(f"was not written by lidmelt (it has no {MANIFEST}); lidmelt replaces "
+                     "only folders it wrote itself")
+    entries = sorted(path.iterdir())
+    foreign = [p.name for p in entries if p.is_dir() or not _own(p.name, record)]
+    if foreign:
+        raise refuse(f"holds '{foreign[0]}', which lidmelt did not write there; move it "
+                     "away or choose another folder")
+    return entries
+
+
+def check_not_protected(path: str | PathLike[str], *,
+                        inputs: Iterable[str | PathLike[str]] = (),
+                        what: str = "output folder") -> None:
+    """The part of the rule that no manifest can lift, for an existing `path`.
+
+    A folder kind with its own record of what it wrote (a survey's) calls this and then
+    checks its own files; everything else uses `check_replaceable`.
+
+    Raises
+    ------
+    InputError
+        `path` is a file or a link, the current folder or a parent of it, or a folder
+        holding one of `inputs`.
+    """
+    path = Path(path).absolute()
     refuse = _refusal(path, what)
     if path.is_symlink() or not path.is_dir():
         raise refuse("is a file, not a folder lidmelt wrote; lidmelt replaces only "
@@ -144,16 +174,6 @@ def check_replaceable(path: str | PathLike[str], *, inputs: Iterable[str | PathL
         if _contains(real, Path(name).resolve()):
             raise refuse(f"holds the input file {Path(name).name}; lidmelt never replaces "
                          "a folder with the run's inputs in it")
-    record = _read_manifest(path)
-    if record is None:
-        raise refuse(f"was not written by lidmelt (it has no {MANIFEST}); lidmelt replaces "
-                     "only folders it wrote itself")
-    entries = sorted(path.iterdir())
-    foreign = [p.name for p in entries if p.is_dir() or not _own(p.name, record)]
-    if foreign:
-        raise refuse(f"holds '{foreign[0]}', which lidmelt did not write there; move it "
-                     "away or choose another folder")
-    return entries
 
 
 def check_output_folder(target: str | PathLike[str], *, force: bool,

@@ -13,8 +13,8 @@ import argparse
 import sys
 
 from ...forward._validation import DomainError
-from .._errors import InputError
-from . import column, demo, fit
+from .._errors import InputError, OutputConflict
+from . import column, demo, fit, survey
 
 # name -> (module, one-line help)
 _COMMANDS = {
@@ -22,6 +22,8 @@ _COMMANDS = {
     "fit": (fit, "fit a study file: posterior of potential temperature and lid "
             "thickness"),
     "demo": (demo, "fit the bundled demo study end to end (under a minute)"),
+    "survey": (survey, "many sites of a study area: each site's posterior and an "
+               "area-wide potential temperature, on local cores or a Dask cluster"),
 }
 
 
@@ -57,6 +59,22 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: How the command line resolves each kind of `OutputConflict` (its `reason`).
+_REMEDIES = {
+    "exists": "pass --force to replace it or choose another --out",
+    "checkpoint": "pass --resume to continue it or --force to start over",
+    "no-checkpoint": "run again without --resume",
+    "changed": "restore what changed, or pass --force to start over",
+}
+
+
+def _worded(err) -> str:
+    """The one-line message, with an output conflict's remedy in terms of flags."""
+    if isinstance(err, OutputConflict):
+        return str(InputError(f"{err.problem}; {_REMEDIES[err.reason]}", file=err.file))
+    return str(err)
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
@@ -66,7 +84,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return module.run(args)
     except (InputError, UsageError, DomainError) as err:  # not ValueError: a bug shows
-        print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)
+        print(f"lidmelt {args.command}: error: {_worded(err)}", file=sys.stderr)
         return 2
     except OSError as err:  # e.g. a result folder that cannot be written
         print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)

@@ -71,19 +71,10 @@ def _study(path):
     return Study.from_file(path)
 
 
-#: How the command line resolves each kind of OutputConflict.
-_REMEDIES = {
-    "exists": "pass --force to replace it or choose another --out",
-    "checkpoint": "pass --resume to continue it or --force to start over",
-    "no-checkpoint": "run again without --resume",
-    "changed": "restore what changed, or pass --force to start over",
-}
-
-
 def run_fit(load_study, args: argparse.Namespace) -> int:
     """Shared by ``fit`` and ``demo``: read the study (``load_study()``), fit, report to
     stdout, handle interruption from the first moment on."""
-    from .._errors import InputError, OutputConflict, WriteError
+    from .._errors import WriteError
 
     out = Path(args.out)
     with _QuietInterrupts() as interrupts, warnings.catch_warnings(record=True) as caught:
@@ -95,9 +86,6 @@ def run_fit(load_study, args: argparse.Namespace) -> int:
             _print_warnings(caught)
             _say_interrupted(out)
             return 130
-        except OutputConflict as err:
-            raise InputError(f"{err.problem}; {_REMEDIES[err.reason]}",
-                             file=err.file) from None
         except WriteError as err:
             _print_warnings(caught)
             hint = "; free some space, then run the same command with --resume"

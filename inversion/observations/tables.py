@@ -123,17 +123,25 @@ def read_table(
             why = "is a folder, not a table" if path.is_dir() else "not found"
             raise InputError(f"observation file {why}; paths are relative to the study "
                              "file", file=path, key=key)
-        raw = path.read_bytes()
-    except OSError as err:  # e.g. no read permission on the file or its folder
-        raise InputError(f"the observation file cannot be read ({err.strerror}); check its "
-                         "permissions", file=path, key=key) from None
-    header, header_line, rows, lines = _read_rows(raw, path)
+    except OSError as err:  # e.g. no permission to look into its folder
+        raise _unreadable(path, err, key) from None
+    header, header_line, rows, lines = _read_rows(path, key=key)
     rules = _rules_for(header, header_line, required, optional, path)
     return validate_frame(pd.DataFrame(rows, columns=header, dtype=object), rules,
                           file=path, lines=lines)
 
 
-def _read_rows(data: bytes, path: Path) -> tuple[list[str], int, list[list[str]], list[int]]:
+def _unreadable(path: Path, err: OSError, key: str | None) -> InputError:
+    return InputError(f"the file cannot be read ({err.strerror}); check its permissions",
+                      file=path, key=key)
+
+
+def _read_rows(path: Path, *, key: str | None = None,
+               ) -> tuple[list[str], int, list[list[str]], list[int]]:
+    try:
+        data = path.read_bytes()
+    except OSError as err:  # e.g. no read permission
+        raise _unreadable(path, err, key) from None
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as err:
