@@ -8,9 +8,10 @@ always kept). Loading a table marks it used by touching its modification time, w
 portable where access times are not.
 
 Only files lidmelt writes are ever deleted: regular files named like its tables
-(``paths-<label>-<16 hex digits>.npz``) and the temporary files of an interrupted write
-(``.paths-...npz.<random>.part``, once they are an hour old). Anything else in the folder
-is left alone. This module uses the standard library only, so ``lidmelt cache`` is quick.
+(``paths-<label>-<16 hex digits>.npz``) and the temporary files of an interrupted write of
+one (``.paths-...npz.<random>.tmp.npz``, see ``lidmelt._atomic``, once an hour old).
+Anything else in the folder is left alone. This module uses the standard library only, so
+``lidmelt cache`` is quick.
 """
 
 from __future__ import annotations
@@ -18,11 +19,12 @@ from __future__ import annotations
 import math
 import os
 import re
-import tempfile
 import time
-from collections.abc import Callable
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
+
+from .._atomic import temporary_target
 
 __all__ = [
     "CACHE_ENV",
@@ -37,7 +39,6 @@ __all__ = [
     "mark_used",
     "prune",
     "table_name",
-    "write_atomically",
 ]
 
 CACHE_ENV = "LIDMELT_CACHE"
@@ -47,7 +48,6 @@ _BYTES_PER_MB = 1_000_000
 
 _LABEL_CHARS = re.compile(r"[^A-Za-z0-9_.-]")
 _TABLE_NAME = re.compile(r"paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz")
-_PART_NAME = re.compile(r"\.paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz\.[A-Za-z0-9_]+\.part")
 _STALE_PART_SECONDS = 3600.0  # a write in progress never takes this long
 
 
@@ -64,10 +64,8 @@ def cache_folder() -> Path | None:
 def cache_limit() -> int:
     """The cap on the folder's tables in bytes, from ``LIDMELT_CACHE_MAX_MB`` (MB = 10^6 B).
 
-    Raises
-    ------
-    ValueError
-        The variable is set but is not a number of megabytes >= 0.
+    A value that is not a number of megabytes >= 0 gives a warning naming it, and the
+    default applies: a cache setting must never stop a model run.
     """
     text = os.environ.get(LIMIT_ENV, "").strip()
     if not text:
@@ -77,8 +75,9 @@ def cache_limit() -> int:
     except ValueError:
         megabytes = math.nan
     if not (math.isfinite(megabytes) and megabytes >= 0.0):
-        raise ValueError(f"{LIMIT_ENV} = {text!r}: must be a size in megabytes >= 0 "
-                         f"(unset means {DEFAULT_LIMIT_MB:g})")
+        warnings.warn(f"{LIMIT_ENV} = {text!r} is not a size in megabytes >= 0; using the "
+                      f"default, {DEFAULT_LIMIT_MB:g}", UserWarning, stacklevel=2)
+        megabytes = DEFAULT_LIMIT_MB
     return int(megabytes * _BYTES_PER_MB)
 
 
@@ -122,7 +121,7 @@ def list_folder(folder: Path) -> CacheListing:
         own = entry.is_file(follow_symlinks=False)
         if own and _TABLE_NAME.fullmatch(entry.name):
             tables.append(_entry(entry))
-        elif own and _PART_NAME.fullmatch(entry.name):
+        elif own and _TABLE_NAME.fullmatch(temporary_target(entry.name) or ""):
             partial.append(_entry(entry))
         else:
             others.append(entry.name)
@@ -178,27 +177,3 @@ def _remove(path: Path) -> bool:
     except OSError:  # e.g. open elsewhere on Windows, or a read-only folder
         return False
     return True
-
-
-def write_atomically(path: Path, write: Callable) -> bool:
-    """Write ``path`` via ``write(binary_handle)`` into a temporary file beside it, then
-    rename it into place, so readers see the old file or the whole new one.
-
-    Returns False (and leaves no temporary file) if the folder cannot be written: a cache
-    is a convenience, so a full disk or a read-only home must not stop the model.
-    Any other error is raised after the temporary file is removed.
-    """
-    tmp = None
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-        with os.fdopen(fd, "wb") as handle:
-            write(handle)
-        os.replace(tmp, path)
-        tmp = None
-        return True
-    except OSError:
-        return False
-    finally:
-        if tmp is not None:
-            _remove(Path(tmp))

@@ -30,6 +30,7 @@ from functools import lru_cache
 
 import numpy as np
 
+from .._atomic import replacing
 from . import _cache
 from ._integrate import integrate_paths
 from ._validation import PARAMETER_DOMAIN
@@ -258,11 +259,17 @@ def _sizes_match(path, shape) -> bool:
 
 
 def _write_cache(path, table, key) -> bool:
-    """Write a table atomically; False if the folder cannot be written."""
-    def write(handle):
-        np.savez(handle, key=np.array(key), state=table.state, onset=table.onset)
+    """Write a table atomically; False if the folder cannot be written.
 
-    return _cache.write_atomically(path, write)
+    A cache is a convenience: a full disk or a read-only home must not stop the model.
+    """
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        with replacing(path) as tmp:
+            np.savez(tmp, key=np.array(key), state=table.state, onset=table.onset)
+    except OSError:
+        return False  # `replacing` has removed its temporary file
+    return True
 
 
 def table_for(param, water) -> PathTable:

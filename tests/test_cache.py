@@ -114,11 +114,12 @@ def test_limit_default_and_setting(monkeypatch):
     assert _cache.cache_limit() == 500_000
 
 
-@pytest.mark.parametrize("text", ["lots", "-1", "nan", "inf", "1e400"])
-def test_bad_limit_is_named(monkeypatch, text):
+@pytest.mark.parametrize("text", ["lots", "-1", "nan", "inf", "1e400", "2GB"])
+def test_bad_limit_is_named_and_the_default_applies(monkeypatch, text):
     monkeypatch.setenv("LIDMELT_CACHE_MAX_MB", text)
-    with pytest.raises(ValueError, match=r"LIDMELT_CACHE_MAX_MB = .*megabytes >= 0"):
-        _cache.cache_limit()
+    with pytest.warns(UserWarning, match=r"LIDMELT_CACHE_MAX_MB = .* is not a size in "
+                      r"megabytes >= 0; using the default, 500"):
+        assert _cache.cache_limit() == 500_000_000
 
 
 def test_prune_deletes_least_recently_used_own_files_only(tmp_path):
@@ -156,13 +157,15 @@ def test_prune_deletes_least_recently_used_own_files_only(tmp_path):
 def test_prune_within_the_limit_deletes_nothing_but_stale_partial_writes(tmp_path):
     now = time.time()
     table = _own_file(tmp_path, "dry", "a", 100, now - 5000)
-    stale = tmp_path / ".paths-katz2003-dry-aaaaaaaaaaaaaaaa.npz.k2j_9x.part"
-    fresh = tmp_path / ".paths-katz2003-wet-bbbbbbbbbbbbbbbb.npz.q8r4zz.part"
-    for path, age in ((stale, 7200), (fresh, 60)):
+    stale = tmp_path / ".paths-katz2003-dry-aaaaaaaaaaaaaaaa.npz.k2j_9x8a.tmp.npz"
+    fresh = tmp_path / ".paths-katz2003-wet-bbbbbbbbbbbbbbbb.npz.q8r4zz1b.tmp.npz"
+    foreign = tmp_path / ".results.csv.k2j_9x8a.tmp.csv"  # another writer's, not a table's
+    for path, age in ((stale, 7200), (fresh, 60), (foreign, 7200)):
         path.write_bytes(b"half a table")
         os.utime(path, (now - age, now - age))
     assert _cache.prune(tmp_path, keep=table, limit=10**6) == [stale]
     assert table.exists() and fresh.exists()  # a write in progress is left to finish
+    assert foreign.exists()
 
 
 def test_writing_a_table_prunes_to_the_limit(folder, monkeypatch):
@@ -304,8 +307,8 @@ def test_full_table_round_trip_and_damage(folder, monkeypatch):
 
 
 def test_failed_write_leaves_no_temporary_file(folder, monkeypatch, tiny_truth):
-    def half_then_full_disk(handle, **arrays):
-        handle.write(b"PK\x03\x04 half a table")
+    def half_then_full_disk(path, **arrays):
+        Path(path).write_bytes(b"PK\x03\x04 half a table")
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(_table.np, "savez", half_then_full_disk)
@@ -315,8 +318,8 @@ def test_failed_write_leaves_no_temporary_file(folder, monkeypatch, tiny_truth):
 
 
 def test_interrupted_write_leaves_no_temporary_file(folder, monkeypatch):
-    def interrupted(handle, **arrays):
-        handle.write(b"PK\x03\x04 half a table")
+    def interrupted(path, **arrays):
+        Path(path).write_bytes(b"PK\x03\x04 half a table")
         raise KeyboardInterrupt
 
     monkeypatch.setattr(_table.np, "savez", interrupted)
