@@ -55,15 +55,15 @@ def test_grid_many_points_per_call(references):
 
 
 @settings(max_examples=8, deadline=None, derandomize=True)
-@given(tp=st.floats(1250, 1650), lid=st.floats(0, 150), water=st.floats(0, 500),
+@given(tp=st.floats(1250, 1650), lid=st.floats(0, 150), water=st.floats(0, 1000),
        shift=st.floats(-60, 60), melting_region=st.sampled_from(["column", "triangle"]))
 def test_random_points_both_routes(tp, lid, water, shift, melting_region):
     ref = reference_column(tp, lid, water=water, solidus_offset=shift, melting_region=melting_region,
                            rtol=1e-8)
     exact = melt_column(tp, lid, water=water, solidus_offset=shift, melting_region=melting_region)
-    _check(_point(exact, 0), ref, "exact")
+    _check(_point(exact, 0), ref, "one point per call")
     across = melt_column([tp, tp], lid, water=[water, 1.0], solidus_offset=shift, melting_region=melting_region)
-    _check(_point(across, 0), ref, "across water")
+    _check(_point(across, 0), ref, "beside a wet point: the table across water")
 
 
 def test_mckenzie_bickle_against_reference():
@@ -77,7 +77,7 @@ def test_mckenzie_bickle_against_reference():
 # (the cpx-exhaustion kink, lids of 0 and 100 km, hot and cold, both melting regions)
 WATER_CASES = [(1300.0, 0.0, -40.0, "column"), (1450.0, 40.0, 0.0, "triangle"),
                (1600.0, 100.0, 40.0, "column"), (1500.0, 100.0, -20.0, "triangle")]
-WATERS = (1.0, 40.0, 200.0, 450.0, 750.0, 1000.0)
+WATERS = (1.0, 90.0, 350.0, 700.0, 1000.0)
 
 
 @pytest.fixture(scope="module")
