@@ -102,7 +102,8 @@ def test_table_across_water_against_reference(water_references, case):
 def test_between_water_nodes_near_cpx_exhaustion():
     # Found by a 480-point random comparison: with 25 water nodes the mean pressure here
     # missed its target threefold, where the paths of neighbouring nodes leave cpx at
-    # different pressures; the table across water must match an exact-water table here.
+    # different pressures. The table across water must meet the targets, as exact-water
+    # tables did.
     tp, lid, water, shift = 1637.0, 139.0, 650.0, -8.0
     ref = reference_column(tp, lid, water=water, solidus_offset=shift,
                            melting_region="triangle", rtol=1e-8)
