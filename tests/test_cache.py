@@ -380,6 +380,11 @@ def test_cache_command_when_off_or_empty(monkeypatch, tmp_path, capsys):
     assert main(["cache"]) == 0
     assert "size: 0.0 MB in 0 tables" in capsys.readouterr().out
     assert not (tmp_path / "not yet").exists()  # listing creates nothing
+    monkeypatch.setenv("LIDMELT_CACHE_MAX_MB", "lots")
+    assert main(["cache"]) == 0
+    err = capsys.readouterr().err
+    assert err == ("lidmelt cache: warning: LIDMELT_CACHE_MAX_MB = 'lots' is not a size in "
+                   "megabytes >= 0; using the default, 500\n")
 
 
 def test_cli_subprocess_sees_the_session_cache(table_cache):

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import argparse
 import os
+import sys
 import time
+import warnings
 
 __all__ = ["add_arguments", "run"]
 
@@ -46,9 +48,10 @@ def _show(folder, cache) -> None:
               else f"platform default; set {cache.CACHE_ENV} to move it")
     print(f"table cache: {folder} ({source})")
     print(f"size: {_megabytes(listing.size)} in {_count(len(listing.tables), 'table')}; "
-          f"limit {_megabytes(cache.cache_limit())} ({cache.LIMIT_ENV})")
+          f"limit {_megabytes(_limit(cache))} ({cache.LIMIT_ENV})")
     rows = [(entry, "") for entry in listing.tables]
-    rows += [(entry, "  (unfinished write)") for entry in listing.partial]
+    rows += [(entry, "  (unfinished write; removed once an hour old)")
+             for entry in listing.partial]
     if rows:
         print(f"\n{'size':>10}  {'last used':16}  file (least recently used first)")
     for entry, note in rows:
@@ -57,9 +60,19 @@ def _show(folder, cache) -> None:
     _report_others(listing)
 
 
+def _limit(cache) -> int:
+    """The size cap; a bad setting is said in one line on stderr (the default applies)."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        limit = cache.cache_limit()
+    for warning in caught:
+        print(f"lidmelt cache: warning: {warning.message}", file=sys.stderr)
+    return limit
+
+
 def _report_others(listing) -> None:
     if listing.others:
-        print(f"{_count(len(listing.others), 'other entry')} here "
+        print(f"\n{_count(len(listing.others), 'other entry')} here "
               f"{'is' if len(listing.others) == 1 else 'are'} not lidmelt's: left alone")
 
 
