@@ -8,19 +8,22 @@ always kept). Loading a table marks it used by touching its modification time, w
 portable where access times are not.
 
 Only files lidmelt writes are ever deleted: regular files named like its tables
-(``paths-<label>-<16 hex digits>.npz``) and the temporary files of an interrupted write of
-one (``.paths-...npz.<random>.tmp.npz``, see ``lidmelt._atomic``, once an hour old).
-Anything else in the folder is left alone. This module uses the standard library only, so
+(``paths-<label>-<16 hex digits>.npz``), and, once an hour old, the temporary file of an
+interrupted write of one (``.paths-...npz.<random>.tmp.npz``, see ``lidmelt._atomic``) or
+the lock file of a killed build (``.paths-...npz.lock``). Anything else in the folder is
+left alone. This module uses the standard library only, so
 ``lidmelt cache`` is quick.
 """
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import re
 import time
 import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -32,6 +35,7 @@ __all__ = [
     "LIMIT_ENV",
     "CacheEntry",
     "CacheListing",
+    "building",
     "cache_folder",
     "cache_limit",
     "clear",
@@ -48,6 +52,7 @@ _BYTES_PER_MB = 1_000_000
 
 _LABEL_CHARS = re.compile(r"[^A-Za-z0-9_.-]")
 _TABLE_NAME = re.compile(r"paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz")
+_LOCK_NAME = re.compile(r"\.(paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz)\.lock")
 _STALE_PART_SECONDS = 3600.0  # a write in progress never takes this long
 
 
@@ -98,7 +103,7 @@ class CacheEntry:
 @dataclass(frozen=True)
 class CacheListing:
     """What a cache folder holds: lidmelt's tables (least recently used first), the
-    temporary files of interrupted writes, and the names of everything else."""
+    leftovers of interrupted writes and builds, and the names of everything else."""
 
     tables: tuple[CacheEntry, ...]
     partial: tuple[CacheEntry, ...]
@@ -106,7 +111,7 @@ class CacheListing:
 
     @property
     def size(self) -> int:
-        """Bytes taken by lidmelt's files (tables and partial writes)."""
+        """Bytes taken by lidmelt's files (tables and leftovers)."""
         return sum(entry.size for entry in self.tables + self.partial)
 
 
@@ -123,6 +128,8 @@ def list_folder(folder: Path) -> CacheListing:
             tables.append(_entry(entry))
         elif own and _TABLE_NAME.fullmatch(temporary_target(entry.name) or ""):
             partial.append(_entry(entry))
+        elif own and _LOCK_NAME.fullmatch(entry.name):
+            partial.append(_entry(entry))  # left by a build that was killed
         else:
             others.append(entry.name)
     tables.sort(key=lambda e: (e.last_used, e.path.name))
@@ -132,6 +139,34 @@ def list_folder(folder: Path) -> CacheListing:
 def _entry(entry: os.DirEntry) -> CacheEntry:
     info = entry.stat(follow_symlinks=False)
     return CacheEntry(Path(entry.path), info.st_size, info.st_mtime)
+
+
+@contextlib.contextmanager
+def building(path: Path) -> Iterator[None]:
+    """Hold an exclusive lock for building the table at ``path`` (one builder at a time).
+
+    The lock is an advisory ``flock`` on ``.<name>.lock`` beside the table, released by
+    the system if the process dies. The lock file is removed by its holder when done;
+    where locking is unavailable (no ``fcntl``, a folder that cannot be written) the
+    block simply runs, and at worst two processes build the same table.
+    """
+    lock = path.with_name(f".{path.name}.lock")
+    try:
+        import fcntl
+
+        path.parent.mkdir(parents=True, exist_ok=True)
+        handle = open(lock, "a+b")
+    except (ImportError, OSError):
+        yield
+        return
+    try:
+        with contextlib.suppress(OSError):
+            fcntl.flock(handle, fcntl.LOCK_EX)
+        yield
+    finally:
+        with contextlib.suppress(OSError):
+            lock.unlink()  # while held: a waiter then finds the finished table
+        handle.close()
 
 
 def mark_used(path: Path) -> None:
@@ -164,7 +199,7 @@ def prune(folder: Path, keep: Path, limit: int | None = None) -> list[Path]:
 
 
 def clear(folder: Path) -> list[CacheEntry]:
-    """Delete every lidmelt table and partial write in ``folder``; returns what went."""
+    """Delete every lidmelt table and leftover in ``folder``; returns what went."""
     listing = list_folder(folder)
     return [entry for entry in listing.tables + listing.partial if _remove(entry.path)]
 

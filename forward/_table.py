@@ -200,22 +200,29 @@ def _table_key(param, axes) -> str:
 
 
 def _load_or_build(param, label, theta, shift, water_axis, u_axis) -> PathTable:
-    """The table from the disk cache if a valid copy is there, else built (and cached)."""
+    """The table from the disk cache if a valid copy is there, else built (and cached).
+
+    Processes that need the same missing table (a survey's workers) build it once: the
+    others wait for the builder and then load its file.
+    """
     axes = (theta, shift, water_axis, u_axis)
     key = _table_key(param, axes)
     folder = _cache.cache_folder()
-    path = None
-    if folder is not None:
-        digest = hashlib.sha256(key.encode()).hexdigest()
-        path = folder / _cache.table_name(f"{param.name}-{label}", digest)
-        stored = _read_cache(path, key, axes)
-        if stored is not None:
-            _cache.mark_used(path)
-            return PathTable(*axes, *stored)
-    table = _build(param, *axes)
-    if path is not None and _write_cache(path, table, key):
-        _cache.prune(folder, keep=path)
-    return table
+    if folder is None:
+        return _build(param, *axes)
+    digest = hashlib.sha256(key.encode()).hexdigest()
+    path = folder / _cache.table_name(f"{param.name}-{label}", digest)
+    stored = _read_cache(path, key, axes)
+    if stored is None:
+        with _cache.building(path):
+            stored = _read_cache(path, key, axes)  # another process may have built it
+            if stored is None:
+                table = _build(param, *axes)
+                if _write_cache(path, table, key):
+                    _cache.prune(folder, keep=path)
+                return table
+    _cache.mark_used(path)
+    return PathTable(*axes, *stored)
 
 
 def _read_cache(path, key, axes):

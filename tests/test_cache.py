@@ -159,13 +159,17 @@ def test_prune_within_the_limit_deletes_nothing_but_stale_partial_writes(tmp_pat
     table = _own_file(tmp_path, "dry", "a", 100, now - 5000)
     stale = tmp_path / ".paths-katz2003-dry-aaaaaaaaaaaaaaaa.npz.k2j_9x8a.tmp.npz"
     fresh = tmp_path / ".paths-katz2003-wet-bbbbbbbbbbbbbbbb.npz.q8r4zz1b.tmp.npz"
+    stale_lock = tmp_path / ".paths-katz2003-wet-cccccccccccccccc.npz.lock"  # killed build
     foreign = tmp_path / ".results.csv.k2j_9x8a.tmp.csv"  # another writer's, not a table's
-    for path, age in ((stale, 7200), (fresh, 60), (foreign, 7200)):
+    foreign_lock = tmp_path / ".results.csv.lock"
+    for path, age in ((stale, 7200), (fresh, 60), (stale_lock, 7200), (foreign, 7200),
+                      (foreign_lock, 7200)):
         path.write_bytes(b"half a table")
         os.utime(path, (now - age, now - age))
-    assert _cache.prune(tmp_path, keep=table, limit=10**6) == [stale]
+    removed = _cache.prune(tmp_path, keep=table, limit=10**6)
+    assert sorted(removed) == sorted([stale, stale_lock])
     assert table.exists() and fresh.exists()  # a write in progress is left to finish
-    assert foreign.exists()
+    assert foreign.exists() and foreign_lock.exists()
 
 
 def test_writing_a_table_prunes_to_the_limit(folder, monkeypatch):
@@ -391,3 +395,31 @@ def test_cli_subprocess_sees_the_session_cache(table_cache):
     run = subprocess.run([sys.executable, "-m", "lidmelt.inversion.cli", "cache"],
                          capture_output=True, text=True, env=dict(os.environ), check=True)
     assert f"table cache: {table_cache} (from LIDMELT_CACHE)" in run.stdout
+
+
+_BUILD_ONCE = """
+import sys, time
+from lidmelt.forward import _table
+sys.path.insert(0, {tests!r})
+import test_cache
+
+slow_build = _table._build
+def build(*args):
+    print("built", flush=True)
+    time.sleep(3.0)  # long enough for the other process to arrive meanwhile
+    return slow_build(*args)
+
+_table._build = build
+test_cache._tiny()
+"""
+
+
+def test_processes_needing_the_same_table_build_it_once(folder, tiny_truth):
+    script = _BUILD_ONCE.format(tests=str(Path(__file__).parent))
+    runs = [subprocess.Popen([sys.executable, "-c", script], stdout=subprocess.PIPE,
+                             text=True, env=dict(os.environ)) for _ in range(2)]
+    outputs = [run.communicate(timeout=300)[0] for run in runs]
+    assert [run.returncode for run in runs] == [0, 0]
+    assert sum(out.count("built") for out in outputs) == 1
+    assert sorted(p.name for p in folder.iterdir()) == [_tiny_file(folder).name]  # no lock
+    np.testing.assert_array_equal(_tiny().state, tiny_truth.state)

@@ -50,7 +50,7 @@ def _show(folder, cache) -> None:
     print(f"size: {_megabytes(listing.size)} in {_count(len(listing.tables), 'table')}; "
           f"limit {_megabytes(_limit(cache))} ({cache.LIMIT_ENV})")
     rows = [(entry, "") for entry in listing.tables]
-    rows += [(entry, "  (unfinished write; removed once an hour old)")
+    rows += [(entry, "  (left by an unfinished write or build; removed once an hour old)")
              for entry in listing.partial]
     if rows:
         print(f"\n{'size':>10}  {'last used':16}  file (least recently used first)")
