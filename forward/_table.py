@@ -162,7 +162,7 @@ def _param_axes(param, water):
     return theta, shift
 
 
-_FORMAT = 2  # bump when the table layout or the integration changes
+_FORMAT = 3  # bump when the table layout or the integration changes
 
 
 def _cache_file(param, axes) -> Path | None:

@@ -11,6 +11,7 @@ __all__ = [
     "KELVIN",
     "MAX_PRESSURE",
     "depth_per_pressure",
+    "gap_trust",
     "onset_state",
     "refine_onset",
     "solid_adiabat",
@@ -35,27 +36,52 @@ def solid_adiabat(potential_temperature, pressure, thermo):
 
 
 def _tau_gap(param, potential_temperature, pressure, water, shift):
-    """Dry-equivalent adiabat temperature minus the dry solidus (K); > 0 means melting."""
-    depression = param.water_depression(0.0, pressure, water)[0]
+    """Solid adiabat minus the wet, shifted solidus (K); > 0 means melting."""
     t_ad = solid_adiabat(potential_temperature, pressure, param.thermo)
-    return t_ad + depression - shift - param.solidus(pressure)
+    return t_ad - param.wet_solidus(pressure, water) - shift
 
 
-def refine_onset(param, pressure, potential_temperature, water, shift, iterations=1):
-    """Newton steps on the adiabat-solidus gap from an interpolated onset guess.
+#: K. Where the gap at the onset guess is below -_GAP_TRUST[0] the guess is doubted; below
+#: -(sum of both) it is taken as a point that does not melt (see ``gap_trust``).
+_GAP_TRUST = (1.0, 5.0)
+_MIN_GAP_SLOPE = 5.0  # K/GPa; below this |d gap/dP| Newton steps are shortened, not lengthened
+_MAX_STEP = 0.2  # GPa per Newton step, so the iteration stays on the root it started near
 
-    Only points with ``0 < pressure < MAX_PRESSURE`` move; steps are limited to
-    0.2 GPa so the iteration stays on the root it started near.
+
+def gap_trust(gap):
+    """Continuous 0..1 weight: 1 where the gap is >= -1 K, 0 below -6 K.
+
+    The tabulated onset guess of a point that melts has a gap within about 1 K of 0;
+    one that does not melt sits at the closest approach of adiabat and solidus, where the
+    gap is the (negative) solidus margin. Interpolated table paths can melt a little
+    where the exact point does not; scaling by this weight makes those outputs vanish
+    continuously as the margin falls below a table cell's worth (5 K of theta).
+    """
+    low, width = _GAP_TRUST
+    return np.clip(1.0 + (np.asarray(gap, float) + low) / width, 0.0, 1.0)
+
+
+def refine_onset(param, pressure, potential_temperature, water, shift, iterations=2):
+    """Safeguarded Newton steps toward the deepest adiabat-solidus crossing.
+
+    Starts from an interpolated onset guess and returns ``(pressure, gap)``, the gap (K)
+    evaluated before the last step. A step is taken only where the gap falls with depth
+    (the deep side of a crossing): the Newton step ``-gap / slope``, shortened where the
+    slope is gentler than 5 K/GPa, and, where the gap is negative (too deep a guess, or
+    a point that does not melt), scaled by ``gap_trust``, so that points that do not melt
+    keep the tabulated closest-approach pressure. Every factor is continuous in the gap
+    and its (finite-difference) slope, so the onset is continuous in the inputs.
     """
     p = np.asarray(pressure, float)
-    movable = (p > 0.0) & (p < MAX_PRESSURE)
     delta = 1e-4
     for _ in range(iterations):
         gap = _tau_gap(param, potential_temperature, p, water, shift)
         slope = (_tau_gap(param, potential_temperature, p + delta, water, shift) - gap) / delta
-        step = np.clip(-gap / np.where(slope < 0.0, slope, -1.0), -0.2, 0.2)
-        p = np.where(movable, np.clip(p + step, 1e-9, MAX_PRESSURE), p)
-    return p
+        falling = np.maximum(-slope, 0.0)
+        newton = gap * falling / np.maximum(slope * slope, _MIN_GAP_SLOPE ** 2)
+        step = np.where(gap >= 0.0, newton, newton * gap_trust(gap))
+        p = np.clip(p + np.clip(step, -_MAX_STEP, _MAX_STEP), 0.0, MAX_PRESSURE)
+    return p, gap
 
 
 def _bisect(func, low, high, iterations=60):
@@ -76,9 +102,11 @@ def onset_state(param: Parameterization, potential_temperature, water, shift, *,
     The onset is the deepest pressure where the solid adiabat meets the wet, shifted
     solidus. ``sigma`` is the dry-equivalent temperature minus the shift, so the melt
     fraction is ``F_dry(sigma, P)``. Where the adiabat never reaches the solidus the
-    onset is 0 GPa with no melt. Where it is still above the solidus at
-    ``MAX_PRESSURE``, melting starts there, the mantle brought isentropically to
-    equilibrium: ``T = T_ad exp(-dS F / c_p)`` at that pressure.
+    "onset" is the pressure of closest approach (largest adiabat-solidus gap, 0 GPa
+    for a dry source), with no melt: it is where melting would begin in a slightly
+    hotter mantle, so the onset varies continuously across the edge of melting. Where
+    the adiabat is still above the solidus at ``MAX_PRESSURE``, melting starts there,
+    the mantle brought isentropically to equilibrium: ``T = T_ad exp(-dS F / c_p)``.
 
     Returns ``(pressure, sigma, melts)``; inputs are 1-D arrays of equal length.
     """
@@ -92,11 +120,27 @@ def onset_state(param: Parameterization, potential_temperature, water, shift, *,
     deep = grid_p[np.maximum(first - 1, 0)]
     shallow = grid_p[first]
     onset = _bisect(lambda p: _tau_gap(param, tp, p, w, s), shallow, deep)
-    onset = np.where(capped, MAX_PRESSURE, np.where(melts, onset, 0.0))
+    closest = _closest_approach(lambda p: _tau_gap(param, tp, p, w, s), grid_p, gaps)
+    onset = np.where(capped, MAX_PRESSURE, np.where(melts, onset, closest))
     sigma = param.solidus(onset)
     if np.any(capped):
         sigma = np.where(capped, _equilibrated_sigma(param, tp, w, s), sigma)
     return onset, sigma, melts
+
+
+def _closest_approach(gap, grid_p, gaps, iterations=60):
+    """Pressure of the largest gap: grid maximum, then a golden-section search."""
+    best = np.argmax(gaps, axis=1)
+    low = grid_p[np.minimum(best + 1, grid_p.size - 1)]  # grid_p descends
+    high = grid_p[np.maximum(best - 1, 0)]
+    ratio = 0.5 * (np.sqrt(5.0) - 1.0)
+    for _ in range(iterations):
+        a, b = high - ratio * (high - low), low + ratio * (high - low)
+        left_better = gap(a) >= gap(b)
+        high = np.where(left_better, b, high)
+        low = np.where(left_better, low, a)
+    found = 0.5 * (low + high)
+    return np.where(gap(np.zeros_like(found)) >= gap(found), 0.0, found)  # at the surface
 
 
 def _equilibrated_sigma(param, tp, water, shift):

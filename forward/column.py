@@ -8,10 +8,10 @@ from functools import cached_property
 import numpy as np
 
 from ._integrate import column_temperature
-from ._table import PathTable, path_table
+from ._table import PathTable, deep_depression, path_table
+from ._aligned import aligned_state, path_facts
 from ._validation import check_inputs
-from ._table import deep_depression
-from .adiabat import MAX_PRESSURE, depth_per_pressure, refine_onset, solid_adiabat
+from .adiabat import MAX_PRESSURE, depth_per_pressure, gap_trust, refine_onset, solid_adiabat
 from .parameterizations import Parameterization, get_parameterization
 
 __all__ = ["MELTING_REGIONS", "MeltColumn", "MeltingPath", "melt_column"]
@@ -23,9 +23,11 @@ MELTING_REGIONS = ("column", "triangle")
 class MeltingPath:
     """Pressure-temperature-melt fraction path; every array has shape ``(..., num)``.
 
-    ``weight`` is the share of the pooled melt made in each interval (column: the
-    melt fraction increment; ridge: times the width of the triangular melting
-    region); it sums to 1 along the last axis, and is 0 everywhere where no melt forms.
+    ``weight`` is the share of the pooled melt made in each interval: the increase of
+    the melt fraction across it (decreases, where melt refreezes, count as none), for
+    the triangle times the width of the melting region there, which grows from the
+    apex at the top of melting, ``P - P_top`` (docs/model.md, "Melting regions"). It
+    sums to 1 along the last axis, and is 0 everywhere where no melt forms.
     """
 
     pressure: np.ndarray  # GPa
@@ -58,14 +60,18 @@ class MeltColumn:
     ----------
     melt_thickness : km, active_upwelling x the integral of F over depth.
     crustal_thickness : km, melt_thickness x mantle_density / crust_density.
-    onset_depth, onset_pressure : km, GPa; where the solid adiabat meets the solidus
-        (0 where it never does).
+    onset_depth, onset_pressure : km, GPa; the deepest crossing of the solid adiabat
+        and the solidus. Where the adiabat never meets the solidus: where it comes
+        closest (0 for a dry source), so the onset is continuous across the edge.
     top_depth, top_pressure : km, GPa; top of melting, min(lid base, onset).
-    max_melt_fraction : melt fraction at the top of melting.
-    mean_melt_fraction : of the pooled melt; column: F at the top; ridge: the
-        Plank & Langmuir (1992) triangle mean, integral of F dz / (z0 - zf).
-    mean_melting_pressure : GPa, melt-production weighted (ridge: also weighted by
-        the width of the melting region); equals top_pressure where no melt forms.
+    max_melt_fraction : the largest melt fraction in the melting interval.
+    top_melt_fraction : the melt fraction at the top of melting (below the largest
+        where water-saturated melt refreezes near the surface).
+    mean_melt_fraction : of the pooled melt; column: F at the top; triangle: the
+        Plank & Langmuir (1992) mean, integral of F dz / (z0 - zf).
+    mean_melting_pressure : GPa, the mean pressure at which the melt was made,
+        weighted by melt production (triangle: also by the width of the melting region,
+        P - P_top); where no melt forms, the onset pressure (see docs/model.md).
     produces_melt : bool, melt_thickness > 0.
     potential_temperature, lithosphere_thickness, water, solidus_offset : the inputs,
         broadcast (degC, km, ppm, degC).
@@ -81,6 +87,7 @@ class MeltColumn:
     top_depth: np.ndarray
     top_pressure: np.ndarray
     max_melt_fraction: np.ndarray
+    top_melt_fraction: np.ndarray
     mean_melt_fraction: np.ndarray
     mean_melting_pressure: np.ndarray
     produces_melt: np.ndarray
@@ -107,8 +114,16 @@ class MeltColumn:
         """
         q = self._query
         flats, weights = q.corners
-        sigma, _, _ = q.table.lookup((flats[..., None], weights[..., None]), pressure)
-        return column_temperature(q.param, sigma, pressure, q.water[..., None], q.shift[..., None])
+        onset = self.onset_pressure[..., None]
+        pressure = np.asarray(pressure, float)
+        above = np.minimum(pressure, onset)
+        sigma, _, _ = aligned_state(q.param, q.table, (flats[..., None], weights[..., None]),
+                                    onset, above)
+        temp, frac = column_temperature(q.param, sigma, above, q.water[..., None],
+                                        q.shift[..., None])
+        solid = solid_adiabat(q.potential_temperature[..., None], pressure, q.param.thermo)
+        deeper = pressure > onset
+        return np.where(deeper, solid, temp), np.where(deeper, 0.0, frac)
 
     def path(self, num: int = 64) -> MeltingPath:
         """The melting path between top and onset, in ``num`` intervals of equal pressure.
@@ -126,7 +141,7 @@ class MeltColumn:
         frac_edges[..., -1] = 0.0  # melt present at the onset counts as made there
         made = np.maximum(frac_edges[..., :-1] - frac_edges[..., 1:], 0.0)
         if self._query.melting_region == "triangle":
-            made = made * (bottom - mids)
+            made = made * (mids - top)  # width of the triangle: 0 at its apex, the top
         total = made.sum(axis=-1, keepdims=True)
         weight = np.where(total > 0.0, made / np.where(total > 0.0, total, 1.0), 0.0)
         depth = mids * self._query.km_per_gpa[..., None]
@@ -198,33 +213,24 @@ def melt_column(
     table = path_table(param, float(water.flat[0]) if one_water and water.size else None)
     km_per_gpa = depth_per_pressure(b["mantle_density"])
     theta = b["potential_temperature"] - b["solidus_offset"] + deep_depression(param, b["water"])
+    corners = _live(table.corners(theta, b["solidus_offset"], b["water"]))
     query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region, km_per_gpa,
-                   b["potential_temperature"], table.corners(theta, b["solidus_offset"], b["water"]))
+                   b["potential_temperature"], corners)
     return _column_outputs(query, b, km_per_gpa)
 
 
 def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
-    onset = query.table.onset_pressure(query.corners)
-    onset = refine_onset(query.param, onset, query.potential_temperature, query.water, query.shift)
+    guess = query.table.onset_pressure(query.corners)
+    onset, gap = refine_onset(query.param, guess, query.potential_temperature, query.water,
+                              query.shift)
     top = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
-    sigma, int_f, int_pf = query.table.lookup(query.corners, top)
-    frac_top = query.param.dry_melt_fraction(sigma, top).fraction
-    melts = (onset > top) & (int_f > 0.0) & (frac_top > 0.0)
-    int_f = np.where(melts, int_f, 0.0)
-    frac_top = np.where(melts, frac_top, 0.0)
-    interval = np.where(melts, onset - top, 1.0)
-    safe_f = np.where(melts, frac_top, 1.0)
-    if query.melting_region == "triangle":
-        mean_f = int_f / interval
-        width_weighted = frac_top * (onset - top) - int_f
-        moment = top * (onset - top) * frac_top + onset * int_f - 2.0 * np.where(melts, int_pf, 0.0)
-        ok = melts & (width_weighted > 0.0)
-        mean_p = np.where(ok, moment / np.where(ok, width_weighted, 1.0), top)
-    else:
-        mean_f = frac_top
-        mean_p = np.where(melts, top + int_f / safe_f, top)
-    # interpolation across a path that barely melts can stray; the mean lies in the interval
-    mean_p = np.clip(mean_p, top, np.maximum(onset, top))
+    sig_top, i1_top, i2_top = _path_state(query, query.corners, onset, top)
+    f_top = query.param.dry_melt_fraction(sig_top, top).fraction
+    turn, f_turn, i1_turn, i2_turn = _turning_state(query, onset, top, (f_top, i1_top, i2_top))
+    trust = gap_trust(gap)  # 0 where even the table's neighbours are too cold to melt
+    int_f = trust * i1_top
+    mean_f, mean_p = _means(query.melting_region, onset, top, trust, f_top, int_f,
+                            (turn, f_turn, i1_turn, i2_turn))
     melt = b["active_upwelling"] * int_f * km_per_gpa
     return MeltColumn(
         melt_thickness=melt,
@@ -233,13 +239,80 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
         onset_pressure=onset,
         top_depth=top * km_per_gpa,
         top_pressure=top,
-        max_melt_fraction=frac_top,
+        max_melt_fraction=trust * np.maximum(f_turn, f_top),
+        top_melt_fraction=trust * f_top,
         mean_melt_fraction=mean_f,
         mean_melting_pressure=mean_p,
-        produces_melt=melts,
+        produces_melt=melt > 0.0,
         potential_temperature=b["potential_temperature"],
         lithosphere_thickness=b["lithosphere_thickness"],
         water=b["water"],
         solidus_offset=b["solidus_offset"],
         _query=query,
     )
+
+
+def _live(corners):
+    """Drop interpolation corners that carry no weight anywhere (e.g. a shift on a node)."""
+    flats, weights = corners
+    keep = np.any(weights != 0.0, axis=tuple(range(1, weights.ndim)))
+    return (flats[keep], weights[keep]) if 0 < keep.sum() < keep.size else corners
+
+
+def _subset(corners, mask):
+    flats, weights = corners
+    return flats[:, mask], weights[:, mask]
+
+
+def _path_state(query: _Query, corners, onset, pressure):
+    """Interpolated ``(sigma, I1, I2)`` at ``pressure`` on the path that starts at ``onset``."""
+    return aligned_state(query.param, query.table, corners, onset, pressure)
+
+
+def _turning_state(query: _Query, onset, top, at_top):
+    """``(P_m, F, I1, I2)`` at the pressure of the largest F in the melting interval.
+
+    That is the top unless the path turns (water-saturated melt refreezing) below it.
+    Each neighbouring path's turning pressure is mapped to the point's pressures the way
+    ``aligned_state`` reads it (``P = P_k P0 / P0_k``) before averaging.
+    """
+    flats, weights = query.corners
+    own = query.table.onset.reshape(-1)[flats]
+    turns = path_facts(query.param, query.table).turn[flats]
+    mapped = np.where(own > 0.0, turns * onset / np.where(own > 0.0, own, 1.0), onset)
+    turn = np.clip(np.sum(weights * mapped, axis=0), top, onset)
+    f_turn, i1_turn, i2_turn = (np.array(v, float, copy=True) for v in at_top)
+    below = turn > top
+    if np.any(below):
+        at = turn[below]
+        sigma, i1, i2 = _path_state(query, _subset(query.corners, below), onset[below], at)
+        f_turn[below] = query.param.dry_melt_fraction(sigma, at).fraction
+        i1_turn[below], i2_turn[below] = i1, i2
+    return turn, f_turn, i1_turn, i2_turn
+
+
+def _means(melting_region, onset, top, trust, f_top, int_f, turning):
+    """Mean melt fraction and melt-production weighted mean pressure (docs/model.md).
+
+    With F rising from the onset to its largest value F_m at P_m (then refreezing, if
+    P_m is below the top) and I1, I2 the integrals of F and P F from P_m to the onset,
+    integration by parts of the production dF gives, with P_f the top,
+    column:   mean P = (P_m F_m + I1) / F_m,
+    triangle: mean P = [P_m (P_m - P_f) F_m + 2 I2 - P_f I1] / [(P_m - P_f) F_m + I1].
+    """
+    p_m, f_m, i1, i2 = turning
+    interval = onset - top
+    if melting_region == "triangle":
+        mean_f = np.where(interval > 1e-9, int_f / np.where(interval > 1e-9, interval, 1.0),
+                          trust * f_top)  # as the interval closes: F there
+        width = p_m - top
+        den = width * f_m + i1
+        num = p_m * width * f_m + 2.0 * i2 - top * i1
+    else:
+        mean_f = trust * f_top
+        den = f_m
+        num = p_m * f_m + i1
+    ratio = np.clip(num / np.where(den > 0.0, den, 1.0), top, onset)
+    ratio = np.where(den > 0.0, ratio, onset)
+    # where no melt forms, the pressure at which it would begin: the onset
+    return mean_f, onset + trust * (ratio - onset)

@@ -127,6 +127,21 @@ class Katz2003(Parameterization):
         d_p = np.where(molten | below, 0.0, d_p)
         return MeltFraction(frac, d_t, d_p)
 
+    def wet_solidus(self, pressure, water=0.0):
+        """Solidus (degC) at vanishing melt fraction: T_sol - K min(X_bulk / D, X_sat)^gamma.
+
+        Katz et al. (2003) eqs. 16-19 at F = 0; the same as the interface's default, with
+        none of the derivative work of ``water_depression``.
+        """
+        c = self.constants
+        p = np.asarray(pressure, float)
+        if not np.any(water):
+            return self.solidus(p) + 0.0 * np.asarray(water, float)
+        in_melt = np.asarray(water, float) * 1e-4 / c.water_partition
+        p_safe = np.maximum(p, 1e-12)  # as in water_depression
+        saturation = c.sat_chi1 * p_safe**c.sat_lambda + c.sat_chi2 * p_safe
+        return self.solidus(p) - c.water_k * np.minimum(in_melt, saturation) ** c.water_gamma
+
     def water_depression(self, fraction, pressure, water):
         """Solidus depression by water, Katz et al. (2003) eqs. 16-19.
 
