@@ -11,70 +11,15 @@ P0 / P0_k for int F dP and (P0 / P0_k)^2 for int P F dP). Within the pressure ce
 holds a path's onset the path is interpolated toward its exact state at the onset
 (on the solidus, no melt), so at P = P0 the point has F = 0 and no melt: every output
 then goes to zero continuously as the lid base reaches the onset.
-
-Per-path facts (turning pressures, which paths melt) are derived from a table's stored
-states once per table; neither the table nor its cache file changes.
 """
 
 from __future__ import annotations
 
-import weakref
-from dataclasses import dataclass
-
 import numpy as np
 
-from .adiabat import MAX_PRESSURE
+from ._path_facts import path_facts
 
-__all__ = ["PathFacts", "aligned_state", "path_facts"]
-
-_CHUNK = 2048  # paths per block: bounds the temporary arrays of the melt fraction
-_MEMO: dict[int, tuple[weakref.ref, PathFacts]] = {}
-
-
-@dataclass(frozen=True)
-class PathFacts:
-    """Per-path facts of a table, flat arrays over its paths.
-
-    ``turn``: pressure (GPa) of the path's largest melt fraction, the shallowest node
-    holding it (0 where F rises all the way to the surface; water-saturated melt
-    refreezing near the surface puts it deeper), the onset (closest approach) for a path
-    that never melts. ``onset_cell``: index of the pressure cell holding the onset of a
-    path that melts and starts above the model base, else -1.
-    """
-
-    turn: np.ndarray
-    onset_cell: np.ndarray
-    inverse_onset: np.ndarray  # 1/GPa, 0 where the onset is at the surface
-
-
-def path_facts(param, table) -> PathFacts:
-    """The ``PathFacts`` of ``table`` (computed on first use, then remembered)."""
-    hit = _MEMO.get(id(table))
-    if hit is not None and hit[0]() is table:
-        return hit[1]
-    facts = _compute(param, table)
-    _MEMO[id(table)] = (weakref.ref(table, lambda _, key=id(table): _MEMO.pop(key, None)),
-                        facts)
-    return facts
-
-
-def _compute(param, table) -> PathFacts:
-    axis = table.sqrt_pressure
-    pressure = axis.nodes ** 2
-    state = table.state.reshape(-1, axis.size, 3)
-    onset = table.onset.reshape(-1)
-    melts = state[:, 0, 1] > 0.0  # some melt by the surface
-    turn = np.empty(onset.size)
-    for start in range(0, onset.size, _CHUNK):
-        block = slice(start, start + _CHUNK)
-        frac = param.dry_melt_fraction(state[block, :, 0].astype(float), pressure).fraction
-        frac = np.where(pressure[None, :] <= onset[block, None], frac, -1.0)
-        best = np.argmax(frac, axis=1)  # first = shallowest of equal maxima
-        turn[block] = np.where(melts[block], pressure[best], onset[block])
-    cell = axis.locate(np.sqrt(onset))[0]
-    inside = melts & (onset < MAX_PRESSURE)
-    inverse = np.where(onset > 0.0, 1.0 / np.where(onset > 0.0, onset, 1.0), 0.0)
-    return PathFacts(turn, np.where(inside, cell, -1), inverse)
+__all__ = ["aligned_state"]
 
 
 def aligned_state(param, table, corners, onset, pressure):

@@ -15,6 +15,7 @@ __all__ = [
     "onset_state",
     "refine_onset",
     "solid_adiabat",
+    "solidus_margin",
 ]
 
 KELVIN = 273.15
@@ -120,7 +121,7 @@ def onset_state(param: Parameterization, potential_temperature, water, shift, *,
     deep = grid_p[np.maximum(first - 1, 0)]
     shallow = grid_p[first]
     onset = _bisect(lambda p: _tau_gap(param, tp, p, w, s), shallow, deep)
-    closest = _closest_approach(lambda p: _tau_gap(param, tp, p, w, s), grid_p, gaps)
+    closest = _closest_approach(lambda p: _tau_gap(param, tp, p, w, s), grid_p, gaps)[0]
     onset = np.where(capped, MAX_PRESSURE, np.where(melts, onset, closest))
     sigma = param.solidus(onset)
     if np.any(capped):
@@ -128,8 +129,21 @@ def onset_state(param: Parameterization, potential_temperature, water, shift, *,
     return onset, sigma, melts
 
 
+def solidus_margin(param: Parameterization, potential_temperature, water, shift, *, grid=201):
+    """Largest excess (K) of the solid adiabat over the wet, shifted solidus, 0-10 GPa.
+
+    Negative where the mantle is too cold to melt at any depth. Returns ``(margin,
+    pressure)``, the pressure (GPa) where it is reached; inputs are 1-D arrays.
+    """
+    tp, w, s = (np.asarray(v, float) for v in (potential_temperature, water, shift))
+    grid_p = np.linspace(MAX_PRESSURE, 0.0, grid)
+    gaps = _tau_gap(param, tp[:, None], grid_p[None, :], w[:, None], s[:, None])
+    pressure, margin = _closest_approach(lambda p: _tau_gap(param, tp, p, w, s), grid_p, gaps)
+    return margin, pressure
+
+
 def _closest_approach(gap, grid_p, gaps, iterations=60):
-    """Pressure of the largest gap: grid maximum, then a golden-section search."""
+    """Pressure and value of the largest gap: grid maximum, then a golden-section search."""
     best = np.argmax(gaps, axis=1)
     low = grid_p[np.minimum(best + 1, grid_p.size - 1)]  # grid_p descends
     high = grid_p[np.maximum(best - 1, 0)]
@@ -140,7 +154,9 @@ def _closest_approach(gap, grid_p, gaps, iterations=60):
         high = np.where(left_better, b, high)
         low = np.where(left_better, low, a)
     found = 0.5 * (low + high)
-    return np.where(gap(np.zeros_like(found)) >= gap(found), 0.0, found)  # at the surface
+    at_surface, inside = gap(np.zeros_like(found)), gap(found)
+    surface = at_surface >= inside
+    return np.where(surface, 0.0, found), np.where(surface, at_surface, inside)
 
 
 def _equilibrated_sigma(param, tp, water, shift):

@@ -9,7 +9,9 @@ import numpy as np
 
 from ._integrate import column_temperature
 from ._table import PathTable, deep_depression, path_table
-from ._aligned import aligned_state, path_facts
+from ._aligned import aligned_state
+from ._path_facts import path_facts
+from ._pooling import extreme_points, path_point, pooled_means
 from ._validation import check_inputs
 from .adiabat import MAX_PRESSURE, depth_per_pressure, gap_trust, refine_onset, solid_adiabat
 from .parameterizations import Parameterization, get_parameterization
@@ -221,26 +223,23 @@ def melt_column(
 
 def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
     guess = query.table.onset_pressure(query.corners)
-    onset, gap = refine_onset(query.param, guess, query.potential_temperature, query.water,
-                              query.shift)
-    top = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
-    sig_top, i1_top, i2_top = _path_state(query, query.corners, onset, top)
-    f_top = query.param.dry_melt_fraction(sig_top, top).fraction
-    turn, f_turn, i1_turn, i2_turn = _turning_state(query, onset, top, (f_top, i1_top, i2_top))
-    trust = gap_trust(gap)  # 0 where even the table's neighbours are too cold to melt
-    int_f = trust * i1_top
-    mean_f, mean_p = _means(query.melting_region, onset, top, trust, f_top, int_f,
-                            (turn, f_turn, i1_turn, i2_turn))
-    melt = b["active_upwelling"] * int_f * km_per_gpa
+    onset, _ = refine_onset(query.param, guess, query.potential_temperature, query.water,
+                            query.shift)
+    top_p = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
+    top = path_point(query.param, query.table, query.corners, onset, top_p)
+    largest, low, start = extreme_points(query.param, query.table, query.corners, onset, top)
+    trust = gap_trust(_margin(query))  # 0 where even the neighbouring paths barely melt
+    mean_f, mean_p = pooled_means(query.melting_region, onset, top, trust, largest, low, start)
+    melt = b["active_upwelling"] * trust * top.int_f * km_per_gpa
     return MeltColumn(
         melt_thickness=melt,
         crustal_thickness=melt * b["mantle_density"] / b["crust_density"],
         onset_depth=onset * km_per_gpa,
         onset_pressure=onset,
-        top_depth=top * km_per_gpa,
-        top_pressure=top,
-        max_melt_fraction=trust * np.maximum(f_turn, f_top),
-        top_melt_fraction=trust * f_top,
+        top_depth=top_p * km_per_gpa,
+        top_pressure=top_p,
+        max_melt_fraction=trust * np.maximum(largest.fraction, top.fraction),
+        top_melt_fraction=trust * top.fraction,
         mean_melt_fraction=mean_f,
         mean_melting_pressure=mean_p,
         produces_melt=melt > 0.0,
@@ -252,67 +251,14 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
     )
 
 
+def _margin(query: _Query):
+    """Solidus margin (K) interpolated from the neighbouring paths' margins."""
+    flats, weights = query.corners
+    return np.sum(weights * path_facts(query.param, query.table).margin[flats], axis=0)
+
+
 def _live(corners):
     """Drop interpolation corners that carry no weight anywhere (e.g. a shift on a node)."""
     flats, weights = corners
     keep = np.any(weights != 0.0, axis=tuple(range(1, weights.ndim)))
     return (flats[keep], weights[keep]) if 0 < keep.sum() < keep.size else corners
-
-
-def _subset(corners, mask):
-    flats, weights = corners
-    return flats[:, mask], weights[:, mask]
-
-
-def _path_state(query: _Query, corners, onset, pressure):
-    """Interpolated ``(sigma, I1, I2)`` at ``pressure`` on the path that starts at ``onset``."""
-    return aligned_state(query.param, query.table, corners, onset, pressure)
-
-
-def _turning_state(query: _Query, onset, top, at_top):
-    """``(P_m, F, I1, I2)`` at the pressure of the largest F in the melting interval.
-
-    That is the top unless the path turns (water-saturated melt refreezing) below it.
-    Each neighbouring path's turning pressure is mapped to the point's pressures the way
-    ``aligned_state`` reads it (``P = P_k P0 / P0_k``) before averaging.
-    """
-    flats, weights = query.corners
-    own = query.table.onset.reshape(-1)[flats]
-    turns = path_facts(query.param, query.table).turn[flats]
-    mapped = np.where(own > 0.0, turns * onset / np.where(own > 0.0, own, 1.0), onset)
-    turn = np.clip(np.sum(weights * mapped, axis=0), top, onset)
-    f_turn, i1_turn, i2_turn = (np.array(v, float, copy=True) for v in at_top)
-    below = turn > top
-    if np.any(below):
-        at = turn[below]
-        sigma, i1, i2 = _path_state(query, _subset(query.corners, below), onset[below], at)
-        f_turn[below] = query.param.dry_melt_fraction(sigma, at).fraction
-        i1_turn[below], i2_turn[below] = i1, i2
-    return turn, f_turn, i1_turn, i2_turn
-
-
-def _means(melting_region, onset, top, trust, f_top, int_f, turning):
-    """Mean melt fraction and melt-production weighted mean pressure (docs/model.md).
-
-    With F rising from the onset to its largest value F_m at P_m (then refreezing, if
-    P_m is below the top) and I1, I2 the integrals of F and P F from P_m to the onset,
-    integration by parts of the production dF gives, with P_f the top,
-    column:   mean P = (P_m F_m + I1) / F_m,
-    triangle: mean P = [P_m (P_m - P_f) F_m + 2 I2 - P_f I1] / [(P_m - P_f) F_m + I1].
-    """
-    p_m, f_m, i1, i2 = turning
-    interval = onset - top
-    if melting_region == "triangle":
-        mean_f = np.where(interval > 1e-9, int_f / np.where(interval > 1e-9, interval, 1.0),
-                          trust * f_top)  # as the interval closes: F there
-        width = p_m - top
-        den = width * f_m + i1
-        num = p_m * width * f_m + 2.0 * i2 - top * i1
-    else:
-        mean_f = trust * f_top
-        den = f_m
-        num = p_m * f_m + i1
-    ratio = np.clip(num / np.where(den > 0.0, den, 1.0), top, onset)
-    ratio = np.where(den > 0.0, ratio, onset)
-    # where no melt forms, the pressure at which it would begin: the onset
-    return mean_f, onset + trust * (ratio - onset)
