@@ -11,7 +11,7 @@ __all__ = [
     "KELVIN",
     "MAX_PRESSURE",
     "depth_per_pressure",
-    "gap_trust",
+    "margin_trust",
     "onset_state",
     "refine_onset",
     "solid_adiabat",
@@ -42,47 +42,50 @@ def _tau_gap(param, potential_temperature, pressure, water, shift):
     return t_ad - param.wet_solidus(pressure, water) - shift
 
 
-#: K. Where the gap at the onset guess is below -_GAP_TRUST[0] the guess is doubted; below
-#: -(sum of both) it is taken as a point that does not melt (see ``gap_trust``).
-_GAP_TRUST = (1.0, 5.0)
+#: K: where the solidus margin interpolated from the table is below -_MARGIN_RAMP[0] the
+#: outputs are scaled down, reaching 0 at -(sum of both) (see ``margin_trust``).
+_MARGIN_RAMP = (1.0, 5.0)
+_NEWTON_RAMP = 2.0  # K: Newton steps toward shallower pressure fade out over this margin
 _MIN_GAP_SLOPE = 5.0  # K/GPa; below this |d gap/dP| Newton steps are shortened, not lengthened
 _MAX_STEP = 0.2  # GPa per Newton step, so the iteration stays on the root it started near
 
 
-def gap_trust(gap):
-    """Continuous 0..1 weight: 1 where the gap is >= -1 K, 0 below -6 K.
+def margin_trust(margin):
+    """Continuous 0..1 weight of a point's melt: 1 for a margin >= -1 K, 0 below -6 K.
 
-    The tabulated onset guess of a point that melts has a gap within about 1 K of 0;
-    one that does not melt sits at the closest approach of adiabat and solidus, where the
-    gap is the (negative) solidus margin. Interpolated table paths can melt a little
-    where the exact point does not; scaling by this weight makes those outputs vanish
-    continuously as the margin falls below a table cell's worth (5 K of theta).
+    ``margin`` (K) is the solidus margin interpolated from the neighbouring table paths.
+    Those paths can melt a little where the point itself does not (margin < 0, the
+    adiabat never reaches the solidus); scaling by this weight makes that melt vanish
+    continuously within a table cell's worth (5 K of theta) of the edge of melting.
     """
-    low, width = _GAP_TRUST
-    return np.clip(1.0 + (np.asarray(gap, float) + low) / width, 0.0, 1.0)
+    low, width = _MARGIN_RAMP
+    return np.clip(1.0 + (np.asarray(margin, float) + low) / width, 0.0, 1.0)
 
 
-def refine_onset(param, pressure, potential_temperature, water, shift, iterations=2):
-    """Safeguarded Newton steps toward the deepest adiabat-solidus crossing.
+def refine_onset(param, pressure, potential_temperature, water, shift, margin,
+                 iterations=2):
+    """Safeguarded Newton steps toward the deepest adiabat-solidus crossing (GPa).
 
-    Starts from an interpolated onset guess and returns ``(pressure, gap)``, the gap (K)
-    evaluated before the last step. A step is taken only where the gap falls with depth
-    (the deep side of a crossing): the Newton step ``-gap / slope``, shortened where the
-    slope is gentler than 5 K/GPa, and, where the gap is negative (too deep a guess, or
-    a point that does not melt), scaled by ``gap_trust``, so that points that do not melt
-    keep the tabulated closest-approach pressure. Every factor is continuous in the gap
-    and its (finite-difference) slope, so the onset is continuous in the inputs.
+    Starts from an interpolated onset guess. A step is taken only where the gap
+    (adiabat minus wet, shifted solidus, K) falls with depth (the deep side of a
+    crossing): the Newton step ``-gap / slope``, shortened where the slope is gentler
+    than 5 K/GPa. Where the gap is negative (the guess lies too deep) the step toward
+    lower pressure fades out as the solidus ``margin`` (K, interpolated) falls from 0 to
+    -2 K: a point that does not melt keeps its tabulated closest-approach pressure
+    instead of stepping past it. Every factor is continuous in the gap, its
+    (finite-difference) slope and the margin, so the onset is continuous in the inputs.
     """
     p = np.asarray(pressure, float)
     delta = 1e-4
+    fade = np.clip(1.0 + np.asarray(margin, float) / _NEWTON_RAMP, 0.0, 1.0)
     for _ in range(iterations):
         gap = _tau_gap(param, potential_temperature, p, water, shift)
         slope = (_tau_gap(param, potential_temperature, p + delta, water, shift) - gap) / delta
         falling = np.maximum(-slope, 0.0)
         newton = gap * falling / np.maximum(slope * slope, _MIN_GAP_SLOPE ** 2)
-        step = np.where(gap >= 0.0, newton, newton * gap_trust(gap))
+        step = np.where(gap >= 0.0, newton, newton * fade)
         p = np.clip(p + np.clip(step, -_MAX_STEP, _MAX_STEP), 0.0, MAX_PRESSURE)
-    return p, gap
+    return p
 
 
 def _bisect(func, low, high, iterations=60):

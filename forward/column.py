@@ -9,11 +9,11 @@ import numpy as np
 
 from ._integrate import column_temperature
 from ._table import PathTable, deep_depression, path_table
-from ._aligned import aligned_state
+from ._aligned import blended_sigma, corner_states
 from ._path_facts import path_facts
-from ._pooling import extreme_points, path_point, pooled_means
+from ._pooling import pool
 from ._validation import check_inputs
-from .adiabat import MAX_PRESSURE, depth_per_pressure, gap_trust, refine_onset, solid_adiabat
+from .adiabat import MAX_PRESSURE, depth_per_pressure, margin_trust, refine_onset, solid_adiabat
 from .parameterizations import Parameterization, get_parameterization
 
 __all__ = ["MELTING_REGIONS", "MeltColumn", "MeltingPath", "melt_column"]
@@ -69,7 +69,8 @@ class MeltColumn:
     max_melt_fraction : the largest melt fraction in the melting interval.
     top_melt_fraction : the melt fraction at the top of melting (below the largest
         where water-saturated melt refreezes near the surface).
-    mean_melt_fraction : of the pooled melt; column: F at the top; triangle: the
+    mean_melt_fraction : of the pooled melt; column: the largest F (every parcel has
+        been melted that far when it leaves the melting interval); triangle: the
         Plank & Langmuir (1992) mean, integral of F dz / (z0 - zf).
     mean_melting_pressure : GPa, the mean pressure at which the melt was made,
         weighted by melt production (triangle: also by the width of the melting region,
@@ -119,10 +120,12 @@ class MeltColumn:
         onset = self.onset_pressure[..., None]
         pressure = np.asarray(pressure, float)
         above = np.minimum(pressure, onset)
-        sigma, _, _ = aligned_state(q.param, q.table, (flats[..., None], weights[..., None]),
-                                    onset, above)
-        temp, frac = column_temperature(q.param, sigma, above, q.water[..., None],
-                                        q.shift[..., None])
+        c = corner_states(q.param, q.table, (flats[..., None], weights[..., None]), onset, above)
+        temp, _ = column_temperature(q.param, blended_sigma(q.param, c, above), above,
+                                     q.water[..., None], q.shift[..., None])
+        trust = margin_trust(_margin(q))[..., None]
+        frac = trust * np.einsum("k...,k...->...", c.weights,
+                                 q.param.dry_fraction(c.sigma, c.pressure))
         solid = solid_adiabat(q.potential_temperature[..., None], pressure, q.param.thermo)
         deeper = pressure > onset
         return np.where(deeper, solid, temp), np.where(deeper, 0.0, frac)
@@ -223,25 +226,25 @@ def melt_column(
 
 def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
     guess = query.table.onset_pressure(query.corners)
-    onset, _ = refine_onset(query.param, guess, query.potential_temperature, query.water,
-                            query.shift)
-    top_p = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
-    top = path_point(query.param, query.table, query.corners, onset, top_p)
-    largest, low, start = extreme_points(query.param, query.table, query.corners, onset, top)
-    trust = gap_trust(_margin(query))  # 0 where even the neighbouring paths barely melt
-    mean_f, mean_p = pooled_means(query.melting_region, onset, top, trust, largest, low, start)
-    melt = b["active_upwelling"] * trust * top.int_f * km_per_gpa
+    margin = _margin(query)
+    onset = refine_onset(query.param, guess, query.potential_temperature, query.water,
+                         query.shift, margin)
+    top = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
+    trust = margin_trust(margin)  # 0 where even the neighbouring paths barely melt
+    pooled = pool(query.param, query.table, query.corners, onset, top, query.melting_region,
+                  trust)
+    melt = b["active_upwelling"] * pooled.int_f * km_per_gpa
     return MeltColumn(
         melt_thickness=melt,
         crustal_thickness=melt * b["mantle_density"] / b["crust_density"],
         onset_depth=onset * km_per_gpa,
         onset_pressure=onset,
-        top_depth=top_p * km_per_gpa,
-        top_pressure=top_p,
-        max_melt_fraction=trust * np.maximum(largest.fraction, top.fraction),
-        top_melt_fraction=trust * top.fraction,
-        mean_melt_fraction=mean_f,
-        mean_melting_pressure=mean_p,
+        top_depth=top * km_per_gpa,
+        top_pressure=top,
+        max_melt_fraction=pooled.max_fraction,
+        top_melt_fraction=pooled.top_fraction,
+        mean_melt_fraction=pooled.mean_fraction,
+        mean_melting_pressure=pooled.mean_pressure,
         produces_melt=melt > 0.0,
         potential_temperature=b["potential_temperature"],
         lithosphere_thickness=b["lithosphere_thickness"],

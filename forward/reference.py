@@ -168,7 +168,7 @@ def _summarise(path, km, melting_region, chi, nodes):
         made = made * (mids - top)
         mean_f = path.int_f / (p0 - top)
     else:
-        mean_f = frac[-1]
+        mean_f = frac.max()  # every parcel has been melted that far
     mean_p = float(np.sum(mids * made) / np.sum(made)) if np.sum(made) > 0 else p0
     return ReferenceColumn(chi * path.int_f * km, p0 * km, p0, top, float(frac.max()),
                            float(frac[-1]), float(mean_f), mean_p)

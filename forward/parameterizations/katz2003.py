@@ -41,6 +41,15 @@ class KatzConstants:
     water_partition: float = 0.01  # bulk D_H2O
 
 
+def _power(x, exponent):
+    """x ** exponent, by square or cube roots for the published exponents (3/2, 2/3)."""
+    if exponent == 1.5:
+        return x * np.sqrt(x)
+    if exponent == 2.0 / 3.0:
+        return np.cbrt(x * x)
+    return x ** exponent
+
+
 def _quadratic(c0, c1, c2, p):
     return c0 + c1 * p + c2 * p * p, c1 + 2.0 * c2 * p
 
@@ -141,6 +150,20 @@ class Katz2003(Parameterization):
         p_safe = np.maximum(p, 1e-12)  # as in water_depression
         saturation = c.sat_chi1 * p_safe**c.sat_lambda + c.sat_chi2 * p_safe
         return self.solidus(p) - c.water_k * np.minimum(in_melt, saturation) ** c.water_gamma
+
+    def dry_fraction(self, tau, pressure):
+        """Dry melt fraction alone (Katz et al. 2003, eqs. 3 and 9), without partials."""
+        c = self.constants
+        tau, p = np.broadcast_arrays(np.asarray(tau, float), np.asarray(pressure, float))
+        t_sol = c.a1 + (c.a2 + c.a3 * p) * p
+        t_lz = c.b1 + (c.b2 + c.b3 * p) * p
+        t_liq = c.c1 + (c.c2 + c.c3 * p) * p
+        f_cpx = c.cpx_mode / (c.r1 + c.r2 * p)
+        t_cpx = _power(f_cpx, 1.0 / c.beta1) * (t_lz - t_sol) + t_sol
+        lherz = _power(np.clip((tau - t_sol) / (t_lz - t_sol), 0.0, 1.0), c.beta1)
+        harz = f_cpx + (1.0 - f_cpx) * _power(np.clip((tau - t_cpx) / (t_liq - t_cpx), 0.0, 1.0),
+                                              c.beta2)
+        return np.where(tau < t_cpx, lherz, harz)
 
     def water_depression(self, fraction, pressure, water):
         """Solidus depression by water, Katz et al. (2003) eqs. 16-19.
