@@ -27,6 +27,7 @@ _OUTPUTS = [
     ("onset_depth", "km"),
     ("top_depth", "km"),
     ("max_melt_fraction", ""),
+    ("top_melt_fraction", ""),
     ("mean_melt_fraction", ""),
     ("mean_melting_pressure", "GPa"),
 ]
