@@ -170,7 +170,9 @@ def melt_column(
     The solid adiabat (T = Tp exp(alpha P / rho c_p)) meets the solidus at the onset;
     above it the mantle follows the isentropic melting path of Katz et al. (2003,
     eq. 22 in substance) up to the lid base, where melting stops. Array arguments
-    broadcast by numpy rules; the work is vectorised over all points.
+    broadcast by numpy rules; the work is vectorised over all points. Every output is
+    continuous in every input. Equations, constants and the pooling of the melt in the
+    two melting regions: docs/model.md.
 
     Parameters
     ----------
@@ -198,6 +200,9 @@ def melt_column(
 
     Examples
     --------
+    Onset depth (km) and melt thickness (km) of dry mantle at Tp 1350 degC with no lid;
+    values computed from the published equations (docs/model.md, "Worked values"):
+
     >>> res = melt_column(1350.0, 0.0, parameterization="katz2003")
     >>> round(float(res.onset_depth), 1), round(float(res.melt_thickness), 2)
     (82.2, 8.85)

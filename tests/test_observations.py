@@ -132,7 +132,7 @@ def test_top_pressure_and_temperature_against_scipy():
 def test_pooled_uses_mean_pressure_and_path_mean_temperature():
     column = ConstantProductivityColumn([1.0], [3.0], t_top=1330.0, t_slope=50.0)
     obs = MeltingPressure.from_frame(PT, equilibration="pooled")
-    # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (SCIENCE.md section 5), and
+    # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (docs/model.md, "Melting regions"), and
     # the melt-weighted mean of a linear T(P) is T at that pressure, 1330 + 50 * 1.0.
     expected = (stats.norm.logpdf(PT.pressure_gpa, 2.0, PT.sigma_gpa).sum()
                 + stats.norm.logpdf(PT.temperature_c, 1380.0, PT.sigma_c).sum())
@@ -325,7 +325,7 @@ def test_simulate_is_seeded_and_centred_on_the_model():
                        np.random.default_rng(1))
 
 
-# ---- reading tables: every rule (issue 3, item 6)
+# ---- reading tables: every rule
 
 CRUST = {"kind": "crustal_thickness", "file": "t.csv"}
 BASALT = {"kind": "melting_pressure", "file": "t.csv"}
