@@ -57,8 +57,8 @@ def path_facts(param, table) -> PathFacts:
     if hit is not None and hit[0]() is table:
         return hit[1]
     facts = _compute(param, table)
-    _MEMO[id(table)] = (weakref.ref(table, lambda _, key=id(table): _MEMO.pop(key, None)),
-                        facts)
+    key = id(table)
+    _MEMO[key] = (weakref.ref(table, lambda _: _MEMO.pop(key, None)), facts)
     return facts
 
 

@@ -7,13 +7,14 @@ from functools import cached_property
 
 import numpy as np
 
-from ._integrate import column_temperature
-from ._table import PathTable, deep_depression, path_table
 from ._aligned import blended_sigma, corner_states
+from ._integrate import column_temperature
 from ._path_facts import path_facts
 from ._pooling import pool
+from ._table import PathTable, deep_depression, path_table
 from ._validation import check_inputs
-from .adiabat import MAX_PRESSURE, depth_per_pressure, margin_trust, refine_onset, solid_adiabat
+from .adiabat import depth_per_pressure, margin_trust, refine_onset, solid_adiabat
+from .adiabat import solidus_margin as adiabat_margin
 from .parameterizations import Parameterization, get_parameterization
 
 __all__ = ["MELTING_REGIONS", "MeltColumn", "MeltingPath", "melt_column"]
@@ -102,11 +103,10 @@ class MeltColumn:
 
     @cached_property
     def solidus_margin(self):
-        pressures = np.linspace(0.0, MAX_PRESSURE, 201)
-        param = self._query.param
-        adiabat = solid_adiabat(self.potential_temperature[..., None], pressures, param.thermo)
-        wet = param.wet_solidus(pressures, self.water[..., None])
-        return np.max(adiabat - wet - self.solidus_offset[..., None], axis=-1)
+        shape = np.shape(self.potential_temperature)
+        margin, _ = adiabat_margin(self._query.param, np.ravel(self.potential_temperature),
+                                   np.ravel(self.water), np.ravel(self.solidus_offset))
+        return margin.reshape(shape)
 
     def profile(self, pressure):
         """Temperature (degC) and melt fraction along the whole adiabat at ``pressure``.
@@ -120,7 +120,8 @@ class MeltColumn:
         onset = self.onset_pressure[..., None]
         pressure = np.asarray(pressure, float)
         above = np.minimum(pressure, onset)
-        c = corner_states(q.param, q.table, (flats[..., None], weights[..., None]), onset, above)
+        c = corner_states(q.param, q.table, (flats[..., None], weights[..., None]), onset,
+                          above)
         temp, _ = column_temperature(q.param, blended_sigma(q.param, c, above), above,
                                      q.water[..., None], q.shift[..., None])
         trust = margin_trust(_margin(q))[..., None]
@@ -224,8 +225,8 @@ def melt_column(
     km_per_gpa = depth_per_pressure(b["mantle_density"])
     theta = b["potential_temperature"] - b["solidus_offset"] + deep_depression(param, b["water"])
     corners = _live(table.corners(theta, b["solidus_offset"], b["water"]))
-    query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region, km_per_gpa,
-                   b["potential_temperature"], corners)
+    query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region,
+                   km_per_gpa, b["potential_temperature"], corners)
     return _column_outputs(query, b, km_per_gpa)
 
 

@@ -4,13 +4,12 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from numpy.testing import assert_allclose
-from scipy.integrate import solve_ivp
-from scipy.optimize import brentq
-
 from lidmelt import forward
 from lidmelt.forward import melt_column
 from lidmelt.forward.reference import reference_column
+from numpy.testing import assert_allclose
+from scipy.integrate import solve_ivp
+from scipy.optimize import brentq
 
 OUTPUTS = ("melt_thickness", "crustal_thickness", "onset_depth", "onset_pressure", "top_depth",
            "top_pressure", "max_melt_fraction", "mean_melt_fraction", "mean_melting_pressure")

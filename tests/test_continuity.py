@@ -1,4 +1,6 @@
-"""Every output moves continuously with every input (docs/model.md, "How the fast route works").
+"""Every output moves continuously with every input.
+
+See docs/model.md, "How the fast route works".
 
 A small step in the inputs may move melt thickness, onset, mean melt fraction and mean
 melting pressure by at most a bounded slope times the step. A jump, such as a column
@@ -34,7 +36,6 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
 from lidmelt.forward import PARAMETER_DOMAIN, melt_column
 
 WATER_Q_K = 43.0 * (1e-4 / 0.01) ** 0.75  # K per unit of water^0.75 (Katz et al. 2003)

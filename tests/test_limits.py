@@ -13,9 +13,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose
-
 from lidmelt.forward import MeltFraction, Parameterization, ThermoConstants, melt_column
+from numpy.testing import assert_allclose
 
 T0, SLOPE, WIDTH = 1000.0, 100.0, 500.0  # degC, degC/GPa, degC
 PRODUCTIVITY = SLOPE / WIDTH  # 0.2 per GPa

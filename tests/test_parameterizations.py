@@ -4,11 +4,10 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose
-from scipy.optimize import brentq
-
 from lidmelt import forward
 from lidmelt.forward import Katz2003, KatzConstants, McKenzieBickle1988
+from numpy.testing import assert_allclose
+from scipy.optimize import brentq
 
 PARAMS = [Katz2003(), McKenzieBickle1988()]
 P_GRID = np.linspace(0.0, 8.0, 81)

@@ -15,7 +15,6 @@ Katz et al. 2003 equations), not from the tables of the fast route.
 
 import numpy as np
 import pytest
-
 from lidmelt.forward import melt_column
 from lidmelt.forward.reference import reference_column, reference_path
 
@@ -38,7 +37,8 @@ def explicit_triangle(path, nodes=3001):
     return mean_f, mean_p
 
 
-@pytest.fixture(scope="module", params=CASES, ids=lambda c: f"Tp{c[0]:g}-lid{c[1]:g}-w{c[2]:g}")
+@pytest.fixture(scope="module", params=CASES,
+                ids=lambda c: f"Tp{c[0]:g}-lid{c[1]:g}-w{c[2]:g}")
 def case(request):
     tp, lid, water = request.param
     return request.param, explicit_triangle(reference_path(tp, lid, water=water, rtol=1e-9))
