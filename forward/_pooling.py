@@ -88,35 +88,39 @@ def _extremes(param, table, c, f_top):
     """``(P, F, I1, I2)`` of each corner path at P_m, at P_low and at its onset.
 
     Only corners whose P_m lies below their top, or whose P_low above their onset,
-    need another look-up in the table.
+    need another look-up in the table; ``low`` and ``start`` are None where no corner
+    path refreezes from a partly molten start.
     """
     facts = path_facts(param, table)
     turn = np.clip(facts.turn[c.flats], c.pressure, c.own)
-    largest = _at(param, table, c, turn, turn > c.pressure,
-                  (f_top, c.int_f, c.int_pf))
+    largest = _at(param, table, c, turn, turn > c.pressure, (f_top, c.int_f, c.int_pf))
     low = np.clip(facts.low[c.flats], turn, c.own)
     refreezes = low < c.own - 1e-9
+    if not np.any(refreezes):
+        return largest, None, None
     zero = np.zeros(c.own.shape)
-    low_state = _at(param, table, c, low, refreezes, (zero, zero, zero))
-    start = _at(param, table, c, c.own, refreezes, (zero, zero, zero))
-    return largest, low_state, start
+    return (largest, _at(param, table, c, low, refreezes, (zero, zero, zero)),
+            _at(param, table, c, c.own, refreezes, (zero, zero, zero)))
 
 
 def _at(param, table, c, pressure, mask, default):
     """Corner states ``(P, F, I1, I2)`` at ``pressure`` where ``mask``, else ``default``."""
-    frac, int_f, int_pf = (np.array(v, float, copy=True) for v in default)
     where = np.nonzero(mask)
-    if where[0].size:
-        values = corner_values(param, table, c.flats[where], c.own[where], pressure[where])
-        frac[where] = param.dry_fraction(values[:, 0], pressure[where])
-        int_f[where], int_pf[where] = values[:, 1], values[:, 2]
+    if not where[0].size:
+        return (pressure, *default)
+    frac, int_f, int_pf = (np.array(v, float, copy=True) for v in default)
+    values = corner_values(param, table, c.flats[where], c.own[where], pressure[where])
+    frac[where] = param.dry_fraction(values[:, 0], pressure[where])
+    int_f[where], int_pf[where] = values[:, 1], values[:, 2]
     return pressure, frac, int_f, int_pf
 
 
 def _production(melting_region, c, largest, low, start):
     """Melt made and its pressure moment per corner, in the point's pressures."""
-    (p_m, f_m, i1_m, i2_m), (p_l, f_l, i1_l, i2_l) = largest, low
-    p_0, f_0 = start[0], start[1]
+    p_m, f_m, i1_m, i2_m = largest
+    if low is None:  # no refreezing from a partly molten start: P_low = P0, F_low = F0
+        low = start = (c.own, 0.0, 0.0, 0.0)
+    (p_l, f_l, i1_l, i2_l), (p_0, f_0) = low, start[:2]
     d_i1 = i1_m - i1_l
     if melting_region == "triangle":
         pf = c.pressure  # the top, in the corner path's pressures
