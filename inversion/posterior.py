@@ -161,6 +161,9 @@ def _prepare_checkpoint(out: Path, *, resume: bool, force: bool) -> Path:
 
 
 def _check_walkers(logpost, settings) -> None:
+    if logpost.ndim == 0:
+        raise InputError("every parameter is fixed, so there is nothing to sample; give "
+                         "at least one a prior", key="parameters")
     nwalkers = int(settings.walkers)
     if nwalkers < 2 * logpost.ndim:
         raise InputError(
