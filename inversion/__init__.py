@@ -17,6 +17,10 @@ Examples
     posterior = lidmelt.fit(study, seed=1)
     posterior.summary()            # DataFrame, one row per free parameter
     posterior.save("results")      # every output file, written atomically
+
+    comparison = lidmelt.compare("scenarios.toml", seed=1)   # [[scenarios]] of a study
+    comparison.table()             # evidence, probability and LOO of each scenario
+    comparison.save("comparison")
 """
 
 from ._errors import InputError, NotConvergedWarning
@@ -26,7 +30,20 @@ from .observations import KINDS, ObservationSet
 from .posterior import SUMMARY_COLUMNS, Posterior, fit
 from .priors import LogUniform, Normal, Prior, TruncatedNormal, Uniform, prior_from_spec
 from .sampler import ChainResult, assess_chain, read_chain, run_chain
+from .scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
 from .study import ModelSettings, SamplerSettings, Study
+
+# The comparison imports nothing heavy at import time either, but it is loaded on first
+# use so that `import lidmelt` does not pay for what most sessions never call.
+_LAZY = {"compare": "compare", "Comparison": "Comparison"}
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        from . import comparison
+
+        return getattr(comparison, _LAZY[name])
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 __all__ = [
     "DERIVED",
@@ -36,6 +53,8 @@ __all__ = [
     "SUMMARY_COLUMNS",
     "UNITS",
     "ChainResult",
+    "Comparison",
+    "ComparisonSettings",
     "InputError",
     "LogPosterior",
     "LogUniform",
@@ -46,12 +65,16 @@ __all__ = [
     "Posterior",
     "Prior",
     "SamplerSettings",
+    "Scenario",
+    "ScenarioSet",
     "Study",
     "TruncatedNormal",
     "Uniform",
     "assess_chain",
+    "compare",
     "fit",
     "prior_from_spec",
     "read_chain",
+    "read_scenarios",
     "run_chain",
 ]

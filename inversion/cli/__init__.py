@@ -11,7 +11,7 @@ import argparse
 import sys
 
 from .._errors import InputError
-from . import column, demo, fit
+from . import column, compare, demo, fit
 
 # name -> (module, one-line help)
 _COMMANDS = {
@@ -19,6 +19,8 @@ _COMMANDS = {
     "fit": (fit, "fit a study file: posterior of potential temperature and lid "
             "thickness"),
     "demo": (demo, "fit the bundled demo study end to end (under a minute)"),
+    "compare": (compare, "rank competing scenarios of a study by Bayesian evidence and "
+                "leave-one-out prediction"),
 }
 
 

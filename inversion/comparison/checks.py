@@ -1,0 +1,114 @@
+"""Checks of each scenario's posterior that the comparison report warns about.
+
+* `fit_check`: does the scenario fit the data at all? A posterior predictive check with
+  the log-likelihood as discrepancy (Gelman, Meng & Stern 1996, Statistica Sinica 6,
+  733): for posterior draws theta_s, data y_rep are simulated from the likelihood at
+  theta_s and p = P(log L(y_rep | theta) <= log L(y | theta)). A small p means the
+  observed data are far less likely than data the scenario itself would produce.
+* `truncated_bounds`: is a posterior cut off by a prior bound? Then the bound, not the
+  data, decides the estimate (and the evidence rewards or punishes the bound).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["NO_FIT_P", "FitCheck", "fit_check", "truncated_bounds"]
+
+#: A scenario with a predictive p-value below this is reported as not fitting the data.
+NO_FIT_P = 0.01
+#: Posterior density within one bin of a bound above this share of its peak: truncated.
+_EDGE_SHARE = 0.1
+_REPLICATES = 200
+
+
+@dataclass(frozen=True)
+class FitCheck:
+    """Result of the posterior predictive check.
+
+    Attributes
+    ----------
+    p_value : float
+        Share of draws whose simulated data are at most as likely as the observed data.
+    replicates : int
+        Draws used.
+    """
+
+    p_value: float
+    replicates: int
+
+    @property
+    def fits(self) -> bool:
+        return bool(self.p_value >= NO_FIT_P)
+
+
+def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
+              replicates: int = _REPLICATES) -> FitCheck:
+    """Posterior predictive p-value of the log-likelihood (see the module docstring).
+
+    Parameters
+    ----------
+    logpost : inversion.LogPosterior
+        The scenario (its study's observation sets simulate the replicated data).
+    draws : numpy.ndarray
+        Posterior draws, shape ``(n, ndim)`` (``ndim`` may be 0).
+    rng : numpy.random.Generator
+    replicates : int
+        How many draws to use (chosen at random when there are more).
+    """
+    from ..model import LogPosterior
+
+    draws = np.asarray(draws, float).reshape(-1, len(logpost.names))
+    if draws.shape[0] == 0:
+        draws = np.zeros((1, 0))
+    pick = rng.choice(draws.shape[0], size=replicates, replace=draws.shape[0] < replicates)
+    study = logpost.study
+    count = 0
+    for theta in draws[pick]:
+        point = theta[None, :]
+        column = logpost.column(point)
+        if not bool(np.all(column.produces_melt)):
+            continue  # no melt: the observed melt products cannot be replicated at all
+        replicated = [block.simulate(column, rng) for block in study.observations]
+        observed = float(logpost.log_likelihood(point)[0])
+        again = float(LogPosterior(study.with_observations(replicated)).log_likelihood(
+            point)[0])
+        count += again <= observed
+    return FitCheck(count / replicates, replicates)
+
+
+def truncated_bounds(samples: np.ndarray, prior) -> list[tuple[str, float]]:
+    """The finite prior bounds a posterior sample presses against.
+
+    The sample is binned with bins of width min(prior range / 50, sd / 2); a bound is
+    reported when the bin next to it holds at least a tenth of the fullest bin (a
+    posterior that fades out before the bound leaves that bin almost empty).
+
+    Parameters
+    ----------
+    samples : numpy.ndarray
+        Posterior draws of one parameter, shape ``(n,)``.
+    prior : inversion.Prior
+
+    Returns
+    -------
+    list of (str, float)
+        ``("lower" | "upper", bound)`` for every bound reached.
+    """
+    samples = np.asarray(samples, float)
+    low, high = prior.bounds
+    spread = float(np.std(samples))
+    width = spread / 2 if spread > 0 else 1e-9
+    if math.isfinite(low) and math.isfinite(high):
+        width = min(width, (high - low) / 50)
+    counts, _ = np.histogram(samples, bins=max(1, math.ceil(np.ptp(samples) / width)))
+    peak = counts.max()
+    out = []
+    for side, bound in (("lower", low), ("upper", high)):
+        if math.isfinite(bound) and np.sum(np.abs(samples - bound) <= width) >= \
+                _EDGE_SHARE * peak:
+            out.append((side, float(bound)))
+    return out
