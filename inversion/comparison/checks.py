@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["NO_FIT_P", "FitCheck", "fit_check", "truncated_bounds"]
+__all__ = ["NO_FIT_P", "FitCheck", "fit_check", "replicate_data", "truncated_bounds"]
 
 #: A scenario with a predictive p-value below this is reported as not fitting the data.
 NO_FIT_P = 0.01
@@ -58,26 +58,39 @@ def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
     rng : numpy.random.Generator
     replicates : int
         How many draws to use (chosen at random when there are more).
+
+    A draw that makes no melt counts as not reproducing the data (the observed melt
+    products cannot be simulated there).
     """
     from ..model import LogPosterior
 
+    count = 0
+    for theta, replicated in replicate_data(logpost, draws, rng, replicates):
+        if replicated is None:
+            continue
+        point = theta[None, :]
+        observed = float(logpost.log_likelihood(point)[0])
+        again = LogPosterior(logpost.study.with_observations(replicated))
+        count += float(again.log_likelihood(point)[0]) <= observed
+    return FitCheck(count / replicates, replicates)
+
+
+def replicate_data(logpost, draws: np.ndarray, rng: np.random.Generator, replicates: int):
+    """Yield ``(theta, observation sets simulated at theta)`` for random posterior draws.
+
+    The simulated sets are None where theta makes no melt. Draws are picked with
+    replacement only when there are fewer than `replicates`.
+    """
     draws = np.asarray(draws, float).reshape(-1, len(logpost.names))
     if draws.shape[0] == 0:
         draws = np.zeros((1, 0))
     pick = rng.choice(draws.shape[0], size=replicates, replace=draws.shape[0] < replicates)
-    study = logpost.study
-    count = 0
     for theta in draws[pick]:
-        point = theta[None, :]
-        column = logpost.column(point)
+        column = logpost.column(theta[None, :])
         if not bool(np.all(column.produces_melt)):
-            continue  # no melt: the observed melt products cannot be replicated at all
-        replicated = [block.simulate(column, rng) for block in study.observations]
-        observed = float(logpost.log_likelihood(point)[0])
-        again = float(LogPosterior(study.with_observations(replicated)).log_likelihood(
-            point)[0])
-        count += again <= observed
-    return FitCheck(count / replicates, replicates)
+            yield theta, None
+            continue
+        yield theta, [block.simulate(column, rng) for block in logpost.study.observations]
 
 
 def truncated_bounds(samples: np.ndarray, prior) -> list[tuple[str, float]]:

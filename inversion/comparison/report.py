@@ -50,6 +50,8 @@ def _by_name(comparison) -> dict:
 def _probability_words(comparison, name: str) -> str:
     p, lo, hi = comparison.probabilities
     k = [r.name for r in comparison.results].index(name)
+    if _pct(lo[k]) == _pct(hi[k]):
+        return _pct(p[k])
     return f"{_pct(p[k])} (68 % range {_pct(lo[k])} to {_pct(hi[k])})"
 
 
@@ -71,7 +73,7 @@ def _bayes_words(comparison, first: str, second: str) -> str:
     a, b = by[first].evidence, by[second].evidence
     log_b = a.log_evidence - b.log_evidence
     error = math.hypot(a.sd, b.sd)
-    return (f"ln B = {log_b:.2f} ± {error:.2f} (2 ln B = {2 * log_b:.1f}: "
+    return (f"ln B = {_num(log_b, 2)} ± {error:.2f} (2 ln B = {_num(2 * log_b, 1)}: "
             f"{evidence_words(log_b)} evidence for {first} on the Kass & Raftery 1995 "
             "scale)")
 
@@ -108,8 +110,8 @@ def _evidence_section(comparison) -> str:
         "of their Z. ln Z is estimated by nested sampling (nautilus, "
         f"{settings.live_points} live points, {NETWORKS} network per bound, stopped at "
         f"{settings.effective_samples} effective samples) with its standard error, and "
-        "checked by grid quadrature in prior probability space where a scenario has at "
-        "most 3 free parameters. With no free parameter Z is the likelihood itself.\n",
+        "checked by grid quadrature (midpoint rule in parameter units) where a scenario has "
+        "at most 3 free parameters. With no free parameter Z is the likelihood itself.\n",
         "| scenario | ln Z (nested) | ln Z (quadrature) | ln B vs best | reading "
         "(Kass & Raftery 1995) | probability (68 % range) |",
         "|---|---|---|---|---|---|"]
@@ -117,13 +119,12 @@ def _evidence_section(comparison) -> str:
     best = comparison.ranking()[0]
     for r in comparison.results:
         ev = r.evidence
-        quad = "–" if ev.quadrature is None else f"{ev.quadrature:.3f} ± " \
+        quad = "–" if ev.quadrature is None else f"{_num(ev.quadrature, 3)} ± " \
             f"{ev.quadrature_error:.3f}"
         log_b = float(table.loc[r.name, "log_bayes_factor"])
-        reading = "best" if r.name == best else \
-            f"{evidence_words(log_b)} against ({_bayes_words(comparison, best, r.name)})"
-        rows.append(f"| {r.name} | {ev.log_evidence:.3f} ± {ev.sd:.3f} | {quad} | "
-                    f"{log_b:.2f} | {reading.split(' (')[0]} | "
+        reading = "best" if r.name == best else f"{evidence_words(log_b)} for {best}"
+        rows.append(f"| {r.name} | {_num(ev.log_evidence, 3)} ± {ev.sd:.3f} | {quad} | "
+                    f"{_num(log_b, 2)} | {reading} | "
                     f"{_probability_words(comparison, r.name)} |")
     rows.append("\nln B is natural-log; Kass & Raftery (1995) read 2 ln B as 0–2 not worth "
                 "more than a bare mention, 2–6 positive, 6–10 strong, above 10 very strong.")
@@ -146,37 +147,61 @@ def _loo_section(comparison) -> str:
         diff = loo.loc[r.name]
         diff_text = "best" if diff["elpd_diff"] == 0 else \
             f"−{diff['elpd_diff']:.1f} ± {diff['dse']:.1f}"
-        rows.append(f"| {r.name} | {r.loo.elpd_loo:.1f} ± {r.loo.se:.1f} | "
+        rows.append(f"| {r.name} | {_num(r.loo.elpd_loo, 1)} ± {r.loo.se:.1f} | "
                     f"{r.loo.p_loo:.1f} | {k} | {diff_text} |")
     return "\n".join(rows) + "\n"
 
 
-def _agreement_words(comparison) -> str:
+def _agreement(comparison) -> tuple[str, str, str]:
+    """(case, best by evidence, best by LOO); case is "agree", "unresolved" (LOO cannot
+    separate the two) or "disagree"."""
     best_z = comparison.ranking()[0]
     loo = comparison.loo_table()
     best_loo = loo.index[0]
     if best_z == best_loo:
-        return "the evidence and LOO agree"
+        return "agree", best_z, best_loo
     diff = loo.loc[best_z]
     if diff["elpd_diff"] <= LOO_SIGMAS * diff["dse"]:
-        return (f"LOO does not separate it from {best_z} (difference "
-                f"{diff['elpd_diff']:.1f} ± {diff['dse']:.1f}), so the evidence's preference "
-                "comes from the priors")
-    return f"**the evidence and LOO disagree** (see below)"
+        return "unresolved", best_z, best_loo
+    return "disagree", best_z, best_loo
+
+
+def _agreement_words(comparison) -> str:
+    case, best_z, best_loo = _agreement(comparison)
+    if case == "agree":
+        return "the evidence and LOO agree"
+    if case == "unresolved":
+        diff = comparison.loo_table().loc[best_z]
+        return (f"LOO cannot tell it from {best_z} (difference {diff['elpd_diff']:.1f} ± "
+                f"{diff['dse']:.1f}), so the evidence's preference comes from the priors")
+    return "**the evidence and LOO disagree** (see below)"
+
+
+_PRIOR_WIDTH = (
+    "The evidence averages the likelihood over the whole prior, so a scenario with a wide "
+    "prior pays for the parameter values the data rule out (the Occam factor) and a "
+    "narrow prior around the best fit is rewarded; leave-one-out scores only how well the "
+    "fitted posterior predicts each left-out observation, and hardly depends on the prior "
+    "width once the data dominate. A scenario that narrows a prior to the right region "
+    "therefore gains evidence without predicting better.")
 
 
 def _agreement_section(comparison) -> str:
-    best_z, best_loo = comparison.ranking()[0], comparison.loo_table().index[0]
-    text = ("The evidence and the leave-one-out comparison favour the same scenario."
-            if best_z == best_loo else
-            f"The evidence favours **{best_z}**, leave-one-out prediction **{best_loo}**. "
-            "This can happen without any error: the evidence averages the likelihood over "
-            "the whole prior, so a scenario with a wide prior pays for the parameter values "
-            "the data rule out (the Occam factor), and a narrow prior that holds the best "
-            "fit is rewarded. Leave-one-out scores only how well the fitted posterior "
-            "predicts each observation, and hardly depends on the prior width. A scenario "
-            "that narrows the prior to the right region therefore gains evidence without "
-            "predicting better; one whose prior excludes the best fit loses both.")
+    case, best_z, best_loo = _agreement(comparison)
+    if case == "agree":
+        text = "The evidence and the leave-one-out comparison favour the same scenario."
+    elif case == "unresolved":
+        diff = comparison.loo_table().loc[best_z]
+        text = (f"The evidence favours **{best_z}**; leave-one-out ranks **{best_loo}** "
+                f"first, but by {diff['elpd_diff']:.1f} ± {diff['dse']:.1f}, within "
+                f"{LOO_SIGMAS:g} standard errors: both predict the data about equally well, "
+                f"and the evidence prefers {best_z} for its prior. {_PRIOR_WIDTH}")
+    else:
+        text = (f"**They disagree**: the evidence favours **{best_z}**, leave-one-out "
+                f"prediction **{best_loo}**. This can happen without any error. "
+                f"{_PRIOR_WIDTH} A prior that is wide where the data are weak can thus "
+                "cost a scenario evidence while it predicts best; check how the priors of "
+                "the two scenarios differ before choosing.")
     return "## Do the two readings agree?\n\n" + text + "\n"
 
 
@@ -226,3 +251,8 @@ def _pct(p: float) -> str:
     if p < 0.001:
         return "< 0.1 %"
     return f"{100 * p:.1f} %"
+
+
+def _num(value: float, decimals: int) -> str:
+    """A number with a true minus sign."""
+    return f"{value:.{decimals}f}".replace("-", "−")
