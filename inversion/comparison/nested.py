@@ -90,11 +90,16 @@ def nested_evidence(logpost, *, live_points: int = 500, effective_samples: int =
     if not priors:
         raise ValueError("nested sampling needs at least one free parameter")
     axes = [_SamplingAxis(p) for p in priors]
+    # nautilus needs at least 2 dimensions: a single parameter gets a second, flat one
+    # (uniform on [0, 1], ignored by the likelihood), which leaves Z unchanged.
+    n_dim = max(2, len(axes))
 
     def transform(u):
-        return np.column_stack([axis.to_parameter(u[:, j]) for j, axis in enumerate(axes)])
+        return np.column_stack([axis.to_parameter(u[:, j]) for j, axis in enumerate(axes)]
+                               + [u[:, len(axes):]])
 
     def log_like(theta):
+        theta = theta[:, :len(axes)]
         out = np.empty(theta.shape[0])
         for start in range(0, theta.shape[0], _BATCH):
             out[start:start + _BATCH] = logpost.log_likelihood(theta[start:start + _BATCH])
@@ -105,11 +110,12 @@ def nested_evidence(logpost, *, live_points: int = 500, effective_samples: int =
     started = time.perf_counter()
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", module="sklearn")  # network training chatter
-        sampler = Sampler(transform, log_like, n_dim=len(priors), n_live=live_points,
+        sampler = Sampler(transform, log_like, n_dim=n_dim, n_live=live_points,
                           n_networks=NETWORKS, vectorized=True, pass_dict=False, seed=seed)
         sampler.run(n_eff=effective_samples, discard_exploration=True, verbose=False)
     points, log_w, _ = sampler.posterior()
-    return NestedResult(float(sampler.log_z), _log_evidence_sd(sampler), np.asarray(points),
+    points = np.asarray(points)[:, :len(axes)]
+    return NestedResult(float(sampler.log_z), _log_evidence_sd(sampler), points,
                         np.asarray(log_w), int(sampler.n_like), float(sampler.n_eff),
                         time.perf_counter() - started)
 
