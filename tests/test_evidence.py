@@ -24,24 +24,10 @@ from lidmelt.inversion.comparison import (
 from lidmelt.inversion.grid import grid_posterior
 from lidmelt.inversion.priors import LogUniform, Normal, TruncatedNormal, Uniform
 
+from toys import GaussianToy
+
 DATA = Path(__file__).parent / "data"
 SMALL = {"live_points": 200, "effective_samples": 1000, "grid_points": 20_000}
-
-
-class GaussianToy:
-    """y_i ~ N(mu, s^2) with a prior on mu, behind the LogPosterior interface."""
-
-    def __init__(self, y, s, prior) -> None:
-        self.y, self.s = np.asarray(y, float), float(s)
-        self.names, self.priors = ("mu",), [prior]
-        self.rows = [("toy", str(i)) for i in range(self.y.size)]
-
-    def pointwise_log_likelihood(self, theta):
-        z = (self.y[None, :] - np.atleast_2d(theta)[:, :1]) / self.s
-        return -0.5 * z**2 - math.log(self.s) - 0.5 * math.log(2 * math.pi)
-
-    def log_likelihood(self, theta):
-        return self.pointwise_log_likelihood(theta).sum(axis=1)
 
 
 Y = np.array([0.8, 1.4, 0.3, 1.1, 0.9, 1.6])
