@@ -66,13 +66,17 @@ def corner_figure(posterior) -> Figure:
     corner.corner(
         kept, fig=fig, labels=[_SHORT[n] for n in posterior.names],
         quantiles=[0.16, 0.5, 0.84], show_titles=False, label_kwargs={"fontsize": 11},
-        truths=[posterior.map[n] for n in posterior.names], truth_color="tab:red",
+        # corner 2.3 fails to draw truths on a single panel; the MAP line is added below
+        truths=[posterior.map[n] for n in posterior.names] if ndim > 1 else None,
+        truth_color="tab:red",
         levels=(0.393, 0.865), plot_datapoints=False, fill_contours=True, color="#1f4e79",
         smooth=1.0, bins=30, max_n_ticks=4,
     )
     diagonal = np.array(fig.axes).reshape(ndim, ndim).diagonal()
     for ax, (_, row) in zip(diagonal, posterior.summary().iterrows(), strict=True):
         ax.set_title(_title(row), fontsize=9.5)
+    if ndim == 1:
+        diagonal[0].axvline(posterior.map[posterior.names[0]], color="tab:red")
     fig.suptitle(f"{posterior.study.name}: posterior of the free parameters\n"
                  "contours enclose 39 % and 86 % (1σ and 2σ in 2-D); red: MAP;\n"
                  "dashed: 16, 50 and 84 % quantiles", fontsize=9, y=0.995)

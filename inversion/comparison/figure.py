@@ -63,8 +63,11 @@ def _draw_marginals(ax, results, name: str) -> None:
         samples = r.posterior.samples[name].to_numpy()
         ax.hist(samples, bins=np.linspace(low, high, 90), density=True, histtype="step",
                 color=colour, lw=1.6, label=f"{r.name}: posterior")
-    ax.plot([], [], color="0.4", lw=1.0, ls="--",
-            label="prior (all scenarios)" if shared else "prior (scenario's colour)")
+    free = sum(p is not None for p in priors)
+    words = ("prior" if free == 1 else "prior (scenario's colour)" if not shared
+             else "prior (all scenarios)" if free == len(results)
+             else "prior (where it is free)")
+    ax.plot([], [], color="0.4", lw=1.0, ls="--", label=words)
     ax.set_xlim(low, high)
     ax.set_xlabel(LABELS[name])
     ax.set_ylabel("probability density")
