@@ -62,7 +62,7 @@ class ComparisonSettings:
         Default 3000; the evidence error falls roughly as its inverse square root.
     grid_points : int
         Size of the quadrature grid of the cross-check (scenarios with at most 3 free
-        parameters). Default 125000 (50 nodes per axis in 3-D).
+        parameters). Default 125000 (50 nodes per axis in 3-D; at most 200 per axis).
     """
 
     live_points: int = 500

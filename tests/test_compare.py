@@ -7,11 +7,10 @@ import shutil
 import warnings
 from pathlib import Path
 
+import lidmelt
 import numpy as np
 import pandas as pd
 import pytest
-
-import lidmelt
 from lidmelt.inversion import OUTPUT_FILES, read_scenarios
 from lidmelt.inversion.cli import main
 from lidmelt.inversion.comparison import EVIDENCE_COLUMNS, ComparisonWarning
@@ -106,7 +105,7 @@ def test_save_writes_every_file(simulated, tmp_path):
     assert not list(tmp_path.glob(".*"))  # no temporary folder left
 
 
-# ---- the command ------------------------------------------------------------------------------
+# ---- the command ---------------------------------------------------------------------------
 
 
 @pytest.fixture

@@ -12,8 +12,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import integrate, stats
-
 from lidmelt import forward
 from lidmelt.inversion import LogPosterior, read_scenarios
 from lidmelt.inversion.comparison import (
@@ -23,7 +21,7 @@ from lidmelt.inversion.comparison import (
 )
 from lidmelt.inversion.grid import grid_posterior
 from lidmelt.inversion.priors import LogUniform, Normal, TruncatedNormal, Uniform
-
+from scipy import integrate, stats
 from toys import GaussianToy
 
 DATA = Path(__file__).parent / "data"
@@ -82,7 +80,7 @@ def test_every_prior_family_integrates_to_one(prior):
         assert nested.log_evidence == pytest.approx(0.0, abs=1e-9)
 
 
-# ---- a melting study with two free parameters ------------------------------------------------
+# ---- a melting study with two free parameters ---------------------------------------------
 
 
 @pytest.fixture(scope="module")

@@ -7,14 +7,12 @@ from types import SimpleNamespace
 
 import numpy as np
 import pytest
-from scipy import stats
-
 from lidmelt import Study, demo_data
 from lidmelt.inversion import LogPosterior
 from lidmelt.inversion.comparison import elpd_differences, loo_fixed, loo_from_draws
 from lidmelt.inversion.comparison.loo import _arviz, posterior_draws
 from lidmelt.inversion.priors import Normal
-
+from scipy import stats
 from toys import GaussianToy
 
 Y = np.array([0.8, 1.4, 0.3, 1.1, 0.9, 1.6, -0.2])

@@ -7,7 +7,6 @@ import shutil
 from pathlib import Path
 
 import pytest
-
 from lidmelt import demo_data
 from lidmelt.inversion import ComparisonSettings, InputError, Study, read_scenarios
 from lidmelt.inversion.cli import main

@@ -112,13 +112,19 @@ def _run(found, args, out: Path) -> int:
     return 0
 
 
+def _pct(p: float) -> str:
+    from ..comparison.report import _pct as words
+
+    return words(p).replace(" %", "%")
+
+
 def _print_result(result, out: Path) -> None:
     table = result.table().set_index("scenario")
     print(f"{result.scenarios.base.name}: {len(result.results)} scenario(s) compared")
     print(f"  {'scenario':<16} {'probability':>12} {'ln Z':>17} {'elpd_loo':>15}")
     for name in table.index:
         row = table.loc[name]
-        print(f"  {name:<16} {100 * row['probability']:>11.1f}% "
+        print(f"  {name:<16} {_pct(row['probability']):>12} "
               f"{row['log_evidence']:>9.2f} ± {row['log_evidence_sd']:<5.2f} "
               f"{row['elpd_loo']:>7.1f} ± {row['elpd_loo_se']:<5.1f}")
     where = out.resolve()

@@ -86,7 +86,8 @@ def _axis_range(results, name: str) -> tuple[float, float]:
         if name in study.fixed:
             edges += [study.fixed[name]] * 2
         else:
-            edges += [float(study.priors[name].ppf(0.001)), float(study.priors[name].ppf(0.999))]
+            prior = study.priors[name]
+            edges += [float(prior.ppf(0.001)), float(prior.ppf(0.999))]
             low, high = study.priors[name].bounds
             edges += [b for b in (low, high) if np.isfinite(b)]
     low, high = min(edges), max(edges)

@@ -1,18 +1,19 @@
 """Evidence by nested sampling: nautilus (Lange 2023), vectorised, seeded, quiet.
 
-nautilus is importance nested sampling: the unit cube of prior probability (u = each
-prior's CDF) is covered by nested shells, bound by neural-network-trained regions of
-rising likelihood; points are drawn uniformly within each shell and
+nautilus is importance nested sampling: the unit cube is covered by nested shells, bound
+by neural-network-trained regions of rising likelihood; points are drawn uniformly within
+each shell and
 
     Z = sum over shells s of V_s * mean(L over the points of shell s),
 
-where V_s is the shell's prior volume (Lange 2023, MNRAS 525, 3181). With the points of
-the exploration phase discarded the estimate is unbiased (nautilus documentation of
-``Sampler.run``): the shells only set its variance. The error bar combines, shell by shell, the variance of the
-importance-sampling mean and the Monte Carlo error of the shell volume (both estimated
-from the sampler's own counts, see `_log_evidence_sd`). nautilus is MIT-licensed and
-calls the likelihood with whole batches of points, which the vectorised forward model
-needs (see README, "Comparing scenarios").
+where V_s is the shell's volume (Lange 2023, MNRAS 525, 3181). With the points of the
+exploration phase discarded the estimate is unbiased (nautilus documentation of
+``Sampler.run``): the shells only set its variance. The error bar combines, shell by
+shell, the variance of the importance-sampling mean and the Monte Carlo error of the
+shell volume (both from the sampler's own counts, see `_log_evidence_sd`). How each prior
+is laid over the cube is set by `_SamplingAxis`. nautilus is MIT-licensed and calls the
+likelihood with whole batches of points, which the vectorised forward model needs (see
+README, "Comparing scenarios").
 """
 
 from __future__ import annotations

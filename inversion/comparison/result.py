@@ -165,7 +165,7 @@ class Comparison:
         by_name = {r.name: r for r in self.results}
         order = self.ranking()
         out = []
-        for first, second in zip(order, order[1:]):
+        for first, second in zip(order, order[1:], strict=False):
             a, b = by_name[first].evidence, by_name[second].evidence
             log_b = a.log_evidence - b.log_evidence
             error = math.hypot(a.sd, b.sd)
