@@ -23,27 +23,25 @@ Examples
     comparison.save("comparison")
 """
 
-from ._errors import InputError, NotConvergedWarning
-from ._outputs import OUTPUT_FILES
-from .model import DERIVED, PARAMETERS, UNITS, LogPosterior
-from .observations import KINDS, ObservationSet
-from .posterior import SUMMARY_COLUMNS, Posterior, fit
-from .priors import LogUniform, Normal, Prior, TruncatedNormal, Uniform, prior_from_spec
-from .sampler import ChainResult, assess_chain, read_chain, run_chain
-from .scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
-from .study import ModelSettings, SamplerSettings, Study
+from .._lazy import lazy_exports
 
-# The comparison imports nothing heavy at import time either, but it is loaded on first
-# use so that `import lidmelt` does not pay for what most sessions never call.
-_LAZY = {"compare": "compare", "Comparison": "Comparison"}
-
-
-def __getattr__(name):
-    if name in _LAZY:
-        from . import comparison
-
-        return getattr(comparison, _LAZY[name])
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+# Imported on first use: the sampler (emcee, h5py) and pandas load only when needed.
+_WHERE = {
+    "InputError": "._errors", "NotConvergedWarning": "._errors",
+    "OUTPUT_FILES": "._outputs",
+    "DERIVED": ".model", "PARAMETERS": ".model", "UNITS": ".model", "LogPosterior": ".model",
+    "KINDS": ".observations", "ObservationSet": ".observations",
+    "SUMMARY_COLUMNS": ".posterior", "Posterior": ".posterior", "fit": ".posterior",
+    "LogUniform": ".priors", "Normal": ".priors", "Prior": ".priors",
+    "TruncatedNormal": ".priors", "Uniform": ".priors", "prior_from_spec": ".priors",
+    "ChainResult": ".sampler", "assess_chain": ".sampler", "read_chain": ".sampler",
+    "run_chain": ".sampler",
+    "ModelSettings": ".study", "SamplerSettings": ".study", "Study": ".study",
+    "ComparisonSettings": ".scenarios", "Scenario": ".scenarios",
+    "ScenarioSet": ".scenarios", "read_scenarios": ".scenarios",
+    "Comparison": ".comparison", "compare": ".comparison",
+}
+__getattr__, __dir__ = lazy_exports(__name__, globals(), _WHERE)
 
 __all__ = [
     "DERIVED",

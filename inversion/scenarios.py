@@ -31,7 +31,7 @@ from os import PathLike
 from pathlib import Path
 
 from ._errors import InputError
-from .study import Study, _check_keys, _key_line, _parse_toml
+from .study import Study, _check_keys, _key_line, _read_study_file
 
 __all__ = [
     "BASE_NAME",
@@ -179,12 +179,10 @@ def read_scenarios(path: str | PathLike[str], base: Study | None = None) -> Scen
     """
     path = Path(path)
     base = Study.from_file(path) if base is None else base
-    raw = path.read_bytes()
+    raw, text, config = _read_study_file(path)
     if hashlib.sha256(raw).hexdigest() != base.file_hash:
         raise InputError("the study file changed after its study was read; read it again",
                          file=path)
-    text = raw.decode("utf-8")
-    config = _parse_toml(text, path)
     try:
         return scenarios_from_mapping(config, base)
     except InputError as err:

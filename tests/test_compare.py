@@ -155,7 +155,7 @@ def test_interrupted_comparison_resumes_and_refuses_changed_inputs(study_copy, c
     with pytest.raises(KeyboardInterrupt):
         lidmelt.compare(study_copy, out=other, progress=_StopAt("unthinned"))
     with open(study_copy.parent / "crust.csv", "a") as table:
-        table.write("VS-05,7.2,0.9,south line\n")
+        table.write("MS-05,7.2,0.9,south line\n")
     assert main(["compare", str(study_copy), "--out", str(other), "--resume"]) == 2
     err = capsys.readouterr().err
     assert "crust.csv changed since the interrupted comparison" in err

@@ -11,7 +11,7 @@ import argparse
 import sys
 
 from .._errors import InputError
-from . import column, compare, demo, fit
+from . import column, compare, demo, fit, survey
 
 # name -> (module, one-line help)
 _COMMANDS = {
@@ -21,7 +21,23 @@ _COMMANDS = {
     "demo": (demo, "fit the bundled demo study end to end (under a minute)"),
     "compare": (compare, "rank competing scenarios of a study by Bayesian evidence and "
                 "leave-one-out prediction"),
+    "survey": (survey, "many sites of a study area: each site's posterior and an "
+               "area-wide potential temperature, on local cores or a Dask cluster"),
 }
+
+
+class _VersionAction(argparse.Action):
+    """``--version``: look the installed version up only when asked (it costs ~30 ms)."""
+
+    def __init__(self, option_strings, dest, **kwargs):
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS,
+                         help="show the installed version of lidmelt and exit")
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        from ... import __version__
+
+        sys.stdout.write(f"lidmelt {__version__}\n")
+        parser.exit()
 
 
 class UsageError(Exception):
@@ -35,6 +51,7 @@ def build_parser() -> argparse.ArgumentParser:
         "observations. Results are scientific estimates that depend on the chosen "
         "melting parameterization.",
     )
+    parser.add_argument("--version", action=_VersionAction)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     for name, (module, help_text) in _COMMANDS.items():
         module.add_arguments(sub.add_parser(name, help=help_text, description=help_text))

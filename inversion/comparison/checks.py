@@ -1,10 +1,11 @@
 """Checks of each scenario's posterior that the comparison report warns about.
 
-* `fit_check`: does the scenario fit the data at all? A posterior predictive check with
-  the log-likelihood as discrepancy (Gelman, Meng & Stern 1996, Statistica Sinica 6,
-  733): for posterior draws theta_s, data y_rep are simulated from the likelihood at
-  theta_s and p = P(log L(y_rep | theta) <= log L(y | theta)). A small p means the
-  observed data are far less likely than data the scenario itself would produce.
+* `fit_check`: does the scenario fit the data at all? The posterior predictive check of
+  `inversion.checks` (discrepancy -2 log L of each observation block; Gelman, Meng &
+  Stern 1996, Statistica Sinica 6, 733), over draws of the scenario's posterior; the
+  scenario is reported as not fitting when a block's p-value is below `NO_FIT_P`. A
+  small p means the observed data are far less likely than data the scenario itself
+  would produce.
 * `truncated_bounds`: is a posterior cut off by a prior bound? Then the bound, not the
   data, decides the estimate (and the evidence rewards or punishes the bound).
 """
@@ -32,13 +33,16 @@ class FitCheck:
     Attributes
     ----------
     p_value : float
-        Share of draws whose simulated data are at most as likely as the observed data.
+        The smallest p-value over the observation blocks.
     replicates : int
         Draws used.
+    worst_block : str
+        The block with that p-value ("" when no draw makes melt).
     """
 
     p_value: float
     replicates: int
+    worst_block: str = ""
 
     @property
     def fits(self) -> bool:
@@ -47,7 +51,7 @@ class FitCheck:
 
 def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
               replicates: int = _REPLICATES) -> FitCheck:
-    """Posterior predictive p-value of the log-likelihood (see the module docstring).
+    """Posterior predictive p-value of each block's -2 log L (`inversion.checks`).
 
     Parameters
     ----------
@@ -60,33 +64,35 @@ def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
         How many draws to use (chosen at random when there are more).
 
     A draw that makes no melt counts as not reproducing the data (the observed melt
-    products cannot be simulated there).
+    products cannot be simulated there): each block's p-value is scaled by the share of
+    draws that melt.
     """
-    from ..model import LogPosterior
+    from ..checks import check_blocks
 
-    count = 0
-    for theta, replicated in replicate_data(logpost, draws, rng, replicates):
-        if replicated is None:
-            continue
-        point = theta[None, :]
-        observed = float(logpost.log_likelihood(point)[0])
-        again = LogPosterior(logpost.study.with_observations(replicated))
-        count += float(again.log_likelihood(point)[0]) <= observed
-    return FitCheck(count / replicates, replicates)
+    columns = [column for _, column in _columns(logpost, draws, rng, replicates)]
+    melting = [c for c in columns if bool(np.all(c.produces_melt))]
+    if not melting:
+        return FitCheck(0.0, replicates)
+    blocks = check_blocks(logpost.study.observations, melting, rng)
+    worst = min(blocks, key=lambda b: b.p_value)
+    return FitCheck(worst.p_value * len(melting) / len(columns), replicates, worst.name)
 
 
-def replicate_data(logpost, draws: np.ndarray, rng: np.random.Generator, replicates: int):
-    """Yield ``(theta, observation sets simulated at theta)`` for random posterior draws.
-
-    The simulated sets are None where theta makes no melt. Draws are picked with
-    replacement only when there are fewer than `replicates`.
-    """
+def _columns(logpost, draws: np.ndarray, rng: np.random.Generator, replicates: int):
+    """Yield ``(theta, melting column at theta)`` for random posterior draws (with
+    replacement only when there are fewer than `replicates`)."""
     draws = np.asarray(draws, float).reshape(-1, len(logpost.names))
     if draws.shape[0] == 0:
         draws = np.zeros((1, 0))
     pick = rng.choice(draws.shape[0], size=replicates, replace=draws.shape[0] < replicates)
     for theta in draws[pick]:
-        column = logpost.column(theta[None, :])
+        yield theta, logpost.column(theta[None, :])
+
+
+def replicate_data(logpost, draws: np.ndarray, rng: np.random.Generator, replicates: int):
+    """Yield ``(theta, observation sets simulated at theta)`` for random posterior draws;
+    the sets are None where theta makes no melt."""
+    for theta, column in _columns(logpost, draws, rng, replicates):
         if not bool(np.all(column.produces_melt)):
             yield theta, None
             continue

@@ -13,13 +13,16 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
-from ..figures import LABELS
+from ...forward import figure_style as style
+from ...forward.quantities import quantity
 from .checks import replicate_data
 
 __all__ = ["comparison_figure"]
 
-_COLOURS = ("tab:blue", "tab:orange", "tab:green", "tab:red", "tab:purple", "tab:brown",
-            "tab:pink", "tab:olive", "tab:cyan", "tab:gray")
+#: One colour per scenario: the posterior's steel blue first, then hues that stay clear of
+#: the ochre of priors and the near-black of observations (docs/figures.md).
+_COLOURS = (style.POSTERIOR, "#d0622f", "#7b4fa0", "#2a9d8f", "#b8322a", "#6b8e23",
+            "#e377c2", "#8c6d31", "#17becf", "#7f7f7f")
 _SHOWN = ("potential_temperature", "lithosphere_thickness")
 _DRAWS = 200
 
@@ -58,7 +61,8 @@ def _draw_marginals(ax, results, name: str) -> None:
             ax.axvline(study.fixed[name], color=colour, lw=2.0, ls=":",
                        label=f"{r.name}: fixed at {study.fixed[name]:g}")
             continue
-        ax.plot(x, np.exp(study.priors[name].logpdf(x)), color="0.4" if shared else colour,
+        ax.plot(x, np.exp(study.priors[name].logpdf(x)),
+                color=style.PRIOR if shared else colour,
                 lw=1.0, ls="--", alpha=0.9)
         samples = r.posterior.samples[name].to_numpy()
         ax.hist(samples, bins=np.linspace(low, high, 90), density=True, histtype="step",
@@ -67,12 +71,11 @@ def _draw_marginals(ax, results, name: str) -> None:
     words = ("prior" if free == 1 else "prior (scenario's colour)" if not shared
              else "prior (all scenarios)" if free == len(results)
              else "prior (where it is free)")
-    ax.plot([], [], color="0.4", lw=1.0, ls="--", label=words)
+    ax.plot([], [], color=style.PRIOR if shared else "0.4", lw=1.0, ls="--", label=words)
     ax.set_xlim(low, high)
-    ax.set_xlabel(LABELS[name])
+    ax.set_xlabel(quantity(name).axis_label())
     ax.set_ylabel("probability density")
-    ax.set_title(LABELS[name].split(" (")[0] + ": posterior and prior", fontsize=9.5,
-                 loc="left")
+    ax.set_title(f"{quantity(name).title}: posterior and prior", fontsize=9.5, loc="left")
     ax.legend(fontsize=7, loc="upper right", frameon=True, framealpha=0.85,
               edgecolor="none")
 
@@ -190,9 +193,8 @@ def _draw_predictive(ax, results, panels, *, legend: bool) -> None:
         ax.vlines(xs, q[0], q[4], color=colour, lw=1.0, alpha=0.8)
         ax.vlines(xs, q[1], q[3], color=colour, lw=4.5, alpha=0.85, label=r.name)
         ax.plot(xs, q[2], "_", color="black", ms=7, mew=1.3)
-    ax.errorbar(x - len(results) / 2 * width, first["obs"], yerr=first["sigma"], fmt="o",
-                color="black", mfc="white",
-                ms=5.5, capsize=3, label="observed ± 1σ", zorder=4)
+    ax.errorbar(x - len(results) / 2 * width, first["obs"], yerr=first["sigma"],
+                label="observed ± 1σ", zorder=4, **style.OBSERVED)
     ax.set_xticks(x, first["names"], rotation=25, ha="right", fontsize=8)
     ax.set_xlim(-0.6, len(x) - 0.4)
     ax.set_ylabel(first["ylabel"])

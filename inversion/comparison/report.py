@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import math
 
-from ..report import _NAMES, _UNIT_TEXT, CAUTION, _interval_words
-from ..study import PARAMETER_UNITS
+from ...forward.quantities import quantity
+from ..report import CAUTION, interval_words
 from .evidence import DISAGREEMENT_SIGMAS
 from .loo import PARETO_K_WARN
 from .nested import NETWORKS
@@ -92,11 +92,11 @@ def _scenario_section(comparison) -> str:
 def _override_words(scenario) -> str:
     study, words = scenario.study, []
     for name in scenario.overrides.get("parameters", {}):
-        unit = _UNIT_TEXT[PARAMETER_UNITS[name]]
+        q = quantity(name)
         if name in study.fixed:
-            words.append(f"{name} fixed at {study.fixed[name]:g} {unit}".rstrip())
+            words.append(f"{q.name} fixed at {q.with_value(study.fixed[name])}")
         else:
-            words.append(f"{name}: {study.priors[name].describe(unit=unit)}")
+            words.append(f"{q.name}: {study.priors[name].describe(unit=q.unit_text)}")
     words += [f"{k} = {v}" for k, v in scenario.overrides.get("model", {}).items()]
     return "; ".join(words) or "nothing (the base study)"
 
@@ -224,14 +224,12 @@ def _estimates_section(comparison) -> str:
         summary = None if r.posterior is None else r.posterior.summary().set_index(
             "parameter")
         for name in ("potential_temperature", "lithosphere_thickness"):
+            q = quantity(name)
             if name in r.scenario.study.fixed:
-                unit = _UNIT_TEXT[PARAMETER_UNITS[name]]
-                lines.append(f"- {_NAMES[name]}: fixed at {r.scenario.study.fixed[name]:g} "
-                             f"{unit}")
+                lines.append(f"- {q.title}: fixed at "
+                             f"{q.with_value(r.scenario.study.fixed[name])}")
             else:
-                row = summary.loc[name].copy()
-                row["parameter"] = name
-                lines.append(f"- {_NAMES[name]}: {_interval_words(row)}")
+                lines.append(f"- {q.title}: {interval_words(summary.loc[name])}")
         lines.append("")
     return "\n".join(lines)
 

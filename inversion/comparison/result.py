@@ -69,7 +69,8 @@ class ScenarioResult:
                 "prior_odds": self.scenario.prior_odds, "n_free": self.scenario.n_free,
                 "evidence": self.evidence.to_dict(), "loo": self.loo.to_dict(),
                 "fit_check": {"p_value": self.fit.p_value,
-                              "replicates": self.fit.replicates},
+                              "replicates": self.fit.replicates,
+                              "worst_block": self.fit.worst_block},
                 "truncated": {k: [list(v) for v in sides]
                               for k, sides in self.truncated.items()},
                 "converged": self.converged, "seconds": self.seconds}
@@ -80,7 +81,8 @@ class ScenarioResult:
         check = data["fit_check"]
         return cls(scenario, EvidenceEstimate(**data["evidence"]),
                    LooEstimate.from_dict(data["loo"]),
-                   FitCheck(float(check["p_value"]), int(check["replicates"])), posterior,
+                   FitCheck(float(check["p_value"]), int(check["replicates"]),
+                            str(check.get("worst_block", ""))), posterior,
                    {k: [(str(s), float(b)) for s, b in v]
                     for k, v in data["truncated"].items()}, dict(data["seconds"]))
 
@@ -225,10 +227,11 @@ def _scenario_warnings(r: ScenarioResult) -> list[str]:
             out.append(f"'{r.name}': the posterior of {name} presses against the {side} "
                        f"prior bound {bound:g}: the bound, not the data, limits it.")
     if not r.fit.fits:
+        where = f"{r.fit.worst_block}: " if r.fit.worst_block else "no posterior draw melts; "
         out.append(
-            f"'{r.name}' does not fit the data: data simulated from its posterior are "
-            f"more likely than the observations in {100 * (1 - r.fit.p_value):.1f} % of "
-            f"{r.fit.replicates} draws (predictive p = {r.fit.p_value:.3f}).")
+            f"'{r.name}' does not fit the data ({where}posterior predictive p = "
+            f"{r.fit.p_value:.3f} over {r.fit.replicates} draws: data simulated from its "
+            "posterior are almost always closer to the model than the observations).")
     if not r.converged:
         out.append(f"'{r.name}': the posterior sampler did NOT converge (see its "
                    "report.md); its LOO and plots may be unreliable.")
