@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ...forward.quantities import quantity
 from .checks import FitCheck
 from .evidence import DISAGREEMENT_SIGMAS, EvidenceEstimate
 from .loo import PARETO_K_WARN, LooEstimate, elpd_differences
@@ -223,9 +224,11 @@ def _scenario_warnings(r: ScenarioResult) -> list[str]:
             f"({', '.join(rows)}; Pareto k up to {r.loo.pareto_k_max:.2f} > "
             f"{PARETO_K_WARN:g}): these rows pull the posterior strongly.")
     for name, sides in r.truncated.items():
+        q = quantity(name)
         for side, bound in sides:
-            out.append(f"'{r.name}': the posterior of {name} presses against the {side} "
-                       f"prior bound {bound:g}: the bound, not the data, limits it.")
+            out.append(f"'{r.name}': the posterior of the {q.name} presses against the "
+                       f"{side} prior bound {q.with_value(bound)}: the bound, not the data, "
+                       "limits it.")
     if not r.fit.fits:
         where = f"{r.fit.worst_block}: " if r.fit.worst_block else "no posterior draw melts; "
         out.append(
