@@ -81,9 +81,8 @@ def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
 def _columns(logpost, draws: np.ndarray, rng: np.random.Generator, replicates: int):
     """Yield ``(theta, melting column at theta)`` for random posterior draws (with
     replacement only when there are fewer than `replicates`)."""
-    draws = np.asarray(draws, float).reshape(-1, len(logpost.names))
-    if draws.shape[0] == 0:
-        draws = np.zeros((1, 0))
+    ndim = len(logpost.names)
+    draws = np.zeros((1, 0)) if ndim == 0 else np.asarray(draws, float).reshape(-1, ndim)
     pick = rng.choice(draws.shape[0], size=replicates, replace=draws.shape[0] < replicates)
     for theta in draws[pick]:
         yield theta, logpost.column(theta[None, :])

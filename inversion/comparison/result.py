@@ -217,8 +217,10 @@ def _scenario_warnings(r: ScenarioResult) -> list[str]:
             "grid_points under [comparison] before trusting this evidence.")
     bad = r.loo.unreliable_rows
     if bad.size:
-        rows = [r.posterior.logpost.rows[i][1] if r.posterior is not None else str(i)
-                for i in bad]
+        from ..model import LogPosterior
+
+        labels = LogPosterior(r.scenario.study).rows
+        rows = [f"{labels[i][0]} {labels[i][1]}" for i in bad]
         out.append(
             f"'{r.name}': PSIS-LOO is unreliable for {bad.size} observation row(s) "
             f"({', '.join(rows)}; Pareto k up to {r.loo.pareto_k_max:.2f} > "
@@ -233,8 +235,8 @@ def _scenario_warnings(r: ScenarioResult) -> list[str]:
         where = f"{r.fit.worst_block}: " if r.fit.worst_block else "no posterior draw melts; "
         out.append(
             f"'{r.name}' does not fit the data ({where}posterior predictive p = "
-            f"{r.fit.p_value:.3f} over {r.fit.replicates} draws: data simulated from its "
-            "posterior are almost always closer to the model than the observations).")
+            f"{r.fit.p_value:.3f} over {r.fit.replicates} draws: data simulated from the "
+            "scenario are almost always closer to the model than the observations).")
     if not r.converged:
         out.append(f"'{r.name}': the posterior sampler did NOT converge (see its "
                    "report.md); its LOO and plots may be unreliable.")
