@@ -26,6 +26,8 @@ interruption, --resume continues with the unfinished ones (refused if the study 
 its tables changed). Units: potential temperature in degC, lid thickness in km; ln Z,
 ln B and elpd_loo in natural-log units. Results are scientific estimates that depend on
 the chosen parameterization and priors.
+
+Needs the optional packages nautilus-sampler and arviz: pip install 'lidmelt[compare]'.
 """
 
 
