@@ -28,6 +28,7 @@ from .._lazy import lazy_exports
 # Imported on first use: the sampler (emcee, h5py) and pandas load only when needed.
 _WHERE = {
     "InputError": "._errors", "NotConvergedWarning": "._errors",
+    "OutputConflict": "._errors", "PosteriorWarning": "._errors", "WriteError": "._errors",
     "OUTPUT_FILES": "._outputs",
     "DERIVED": ".model", "PARAMETERS": ".model", "UNITS": ".model", "LogPosterior": ".model",
     "KINDS": ".observations", "ObservationSet": ".observations",
@@ -60,7 +61,9 @@ __all__ = [
     "Normal",
     "NotConvergedWarning",
     "ObservationSet",
+    "OutputConflict",
     "Posterior",
+    "PosteriorWarning",
     "Prior",
     "SamplerSettings",
     "Scenario",
@@ -68,6 +71,7 @@ __all__ = [
     "Study",
     "TruncatedNormal",
     "Uniform",
+    "WriteError",
     "assess_chain",
     "compare",
     "fit",

@@ -90,6 +90,7 @@ def test_save_writes_every_file(simulated, tmp_path):
     out = result.save(tmp_path / "comparison")
     assert sorted(p.name for p in out.iterdir()) == sorted(
         [*COMPARISON_FILES, "thinned", "unthinned"])
+    assert "lidmelt-files.json" in COMPARISON_FILES  # the folder is marked as lidmelt's
     for name in ("thinned", "unthinned"):
         assert sorted(p.name for p in (out / name).iterdir()) == sorted(
             [*OUTPUT_FILES, SCENARIO_FILE])
@@ -147,7 +148,7 @@ def test_interrupted_comparison_resumes_and_refuses_changed_inputs(study_copy, c
     assert (out / "thinned" / SCENARIO_FILE).read_text() == before
     assert not partial.exists() and (out / "unthinned" / "chain.h5").is_file()
     manifest = json.loads((out / "comparison.json").read_text())
-    assert manifest["ranking"][0] == "thinned" and manifest["created_by"] == "lidmelt compare"
+    assert manifest["ranking"][0] == "thinned" and manifest["written_by"] == "lidmelt compare"
     # the finished folder is not replaced without --force
     assert main(["compare", str(study_copy), "--out", str(out), "--quiet"]) == 2
     assert "already exists" in capsys.readouterr().err
@@ -161,19 +162,32 @@ def test_interrupted_comparison_resumes_and_refuses_changed_inputs(study_copy, c
     assert len(err.strip().splitlines()) == 1
 
 
-def test_force_replaces_only_what_lidmelt_compare_wrote(study_copy, capsys, monkeypatch):
+def test_force_replaces_only_what_lidmelt_compare_wrote(simulated, study_copy, capsys,
+                                                       monkeypatch):
     foreign = study_copy.parent / "mine"
     foreign.mkdir()
     (foreign / "notes.txt").write_text("keep me")
     code = main(["compare", str(study_copy), "--out", str(foreign), "--force", "--quiet"])
     assert code == 2
-    assert "lidmelt compare did not write it" in capsys.readouterr().err
+    assert "was not written by lidmelt compare" in capsys.readouterr().err
     assert (foreign / "notes.txt").read_text() == "keep me"
+    # a comparison folder lidmelt wrote is replaced, and nothing is left beside it
+    result, _ = simulated
+    done = result.save(study_copy.parent / "done")
+    (done / "thinned" / "summary.csv").write_text("stale")
+    result.save(done, force=True)
+    assert (done / "thinned" / "summary.csv").read_text().startswith("parameter,")
+    assert not list(study_copy.parent.glob(".done*"))
+    # ... but not once a user's file is inside it
+    (done / "thinned" / "notes.txt").write_text("mine")
+    assert main(["compare", str(study_copy), "--out", str(done), "--force", "--quiet"]) == 2
+    assert "holds 'notes.txt'" in capsys.readouterr().err
+    assert (done / "thinned" / "notes.txt").is_file() and (done / "evidence.csv").is_file()
     # never the working folder or the study's own folder, even with a manifest there
-    (study_copy.parent / "comparison.json").write_text('{"created_by": "lidmelt compare"}')
+    shutil.copy(done / "lidmelt-files.json", study_copy.parent / "lidmelt-files.json")
     monkeypatch.chdir(study_copy.parent)
     assert main(["compare", str(study_copy), "--out", ".", "--force", "--quiet"]) == 2
-    assert "will not replace" in capsys.readouterr().err
+    assert "the current folder" in capsys.readouterr().err
     assert (study_copy.parent / "crust.csv").is_file()
 
 

@@ -118,7 +118,8 @@ def test_a_scenario_without_free_parameters_end_to_end(base, tmp_path):
     assert math.isnan(row["log_evidence_quadrature"]) and math.isnan(row["pareto_k_max"])
     assert row["elpd_loo"] == pytest.approx(expected)  # nothing to leave out of a fit
     out = result.save(tmp_path / "cmp")
-    assert [p.name for p in (out / "fixed").iterdir()] == ["scenario.json"]
+    assert sorted(p.name for p in (out / "fixed").iterdir()) == ["lidmelt-files.json",
+                                                                 "scenario.json"]
     csv = pd.read_csv(out / "evidence.csv", keep_default_na=False)
     assert csv.loc[0, "log_evidence_quadrature"] == "" and csv.loc[0, "pareto_k_max"] == ""
     assert "fixed at 1380 °C" in (out / "report.md").read_text()

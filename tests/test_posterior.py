@@ -112,7 +112,7 @@ def test_failed_save_leaves_nothing_behind(quick, tmp_path, monkeypatch):
     def broken(*args, **kwargs):
         raise RuntimeError("disk full while drawing")
 
-    monkeypatch.setattr(figures, "save_figures", broken)
+    monkeypatch.setattr(figures, "figure_files", broken)
     with pytest.raises(RuntimeError, match="disk full"):
         quick.save(tmp_path / "result")
     assert list(tmp_path.iterdir()) == []
@@ -121,8 +121,12 @@ def test_failed_save_leaves_nothing_behind(quick, tmp_path, monkeypatch):
 def test_save_refuses_existing_folder_unless_forced(quick, tmp_path):
     target = tmp_path / "result"
     target.mkdir()
-    with pytest.raises(inversion.InputError, match="already exists; pass --force"):
+    with pytest.raises(inversion.InputError, match="already exists; choose another folder"):
         quick.save(target)
+    with pytest.raises(inversion.InputError, match="not written by lidmelt"):
+        quick.save(target, force=True)  # an empty folder of the user's is not ours either
+    target.rmdir()
+    quick.save(target)
     quick.save(target, force=True)
     assert pd.read_csv(target / "summary.csv").shape[0] == len(quick.names)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["result"]

@@ -4,9 +4,7 @@ from __future__ import annotations
 
 import argparse
 import importlib.util
-import signal
 import sys
-import threading
 import warnings
 from pathlib import Path
 
@@ -41,32 +39,51 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--out", metavar="DIR", required=True,
                         help="result folder to create (refused if it exists, see --force)")
     _add_common(parser)
-    for action in parser._actions:  # same options as fit, worded for a comparison
+    for action in parser._actions:  # the options of fit, worded for a comparison
         if action.dest == "resume":
-            action.help = "skip the scenarios an interrupted run finished in DIR.partial/"
-        elif action.dest == "force":
-            action.help = ("replace a comparison folder or checkpoint that lidmelt compare "
-                           "wrote")
+            action.help = ("skip the scenarios an interrupted run finished in DIR.partial/ "
+                           "(refused if the study, a table, the seed or the settings "
+                           "changed)")
 
 
 def run(args: argparse.Namespace) -> int:
     """Compare the scenarios of the study named on the command line; 0 on success."""
+    from .._errors import WriteError
+    from .fit import _QuietInterrupts
+
+    out = Path(args.out)
+    with _QuietInterrupts() as interrupts, warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            result = _compare(args, out)
+        except KeyboardInterrupt:
+            interrupts.silence()
+            _say_interrupted(out)
+            return 130
+        except WriteError as err:
+            print(f"lidmelt compare: error: {err}; the finished scenarios are kept - free "
+                  "some space, then run the same command with --resume", file=sys.stderr)
+            return 1
+    _print_warnings(caught)
+    _print_result(result, out)
+    return 0
+
+
+def _compare(args, out: Path):
+    from ..comparison import compare
     from ..scenarios import read_scenarios
 
     found = read_scenarios(args.study)  # bad input stops here, before any folder exists
     _require_optional_packages()
-    out = Path(args.out)
-    if threading.current_thread() is not threading.main_thread():
-        return _run(found, args, out)
-    previous = signal.signal(signal.SIGTERM, _terminate)  # a scheduler's stop = Ctrl-C
-    try:
-        return _run(found, args, out)
-    finally:
-        signal.signal(signal.SIGTERM, previous)
+    total, names = len(found.scenarios), list(found.names)
 
+    def progress(message: str) -> None:
+        if not args.quiet:
+            index = names.index(message.split(":")[0]) + 1
+            print(f"[{index}/{total}] {message}", file=sys.stderr, flush=True)
 
-def _terminate(signum, frame):
-    raise KeyboardInterrupt
+    return compare(found, seed=args.seed, out=out, resume=args.resume, force=args.force,
+                   quiet=args.quiet, progress=progress)
 
 
 def _require_optional_packages() -> None:
@@ -79,39 +96,26 @@ def _require_optional_packages() -> None:
                          "pip install 'lidmelt[compare]'")
 
 
-def _run(found, args, out: Path) -> int:
-    from ..comparison import ComparisonWarning, compare
+def _say_interrupted(out: Path) -> None:
+    partial = out.absolute().with_name(out.name + ".partial")
+    if partial.is_dir():
+        print(f"lidmelt compare: interrupted; the finished scenarios are kept in {partial}/ "
+              "- continue with the same command and --resume", file=sys.stderr)
+    else:
+        print("lidmelt compare: interrupted; nothing was kept", file=sys.stderr)
 
-    total = len(found.scenarios)
-    names = list(found.names)
 
-    def progress(message: str) -> None:
-        if not args.quiet:
-            index = names.index(message.split(":")[0]) + 1
-            print(f"[{index}/{total}] {message}", file=sys.stderr, flush=True)
+def _print_warnings(caught) -> None:
+    """The comparison's caveats one line each (the samplers' own are among them)."""
+    from .._errors import NotConvergedWarning, PosteriorWarning
+    from ..comparison import ComparisonWarning
 
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", ComparisonWarning)
-        try:
-            result = compare(found, seed=args.seed, out=out, resume=args.resume,
-                             force=args.force, quiet=args.quiet, progress=progress)
-        except KeyboardInterrupt:
-            partial = out.absolute().with_name(out.name + ".partial")
-            if partial.exists():
-                kept = (f"the finished scenarios are kept in {partial}/; continue with the "
-                        "same command and --resume")
-            else:
-                kept = "nothing was kept"
-            print(f"lidmelt compare: interrupted; {kept}", file=sys.stderr)
-            return 130
     for warning in caught:
         if issubclass(warning.category, ComparisonWarning):
             print(f"lidmelt: warning: {warning.message}", file=sys.stderr)
-        else:
+        elif not issubclass(warning.category, (NotConvergedWarning, PosteriorWarning)):
             warnings.showwarning(warning.message, warning.category, warning.filename,
                                  warning.lineno)
-    _print_result(result, out)
-    return 0
 
 
 def _pct(p: float) -> str:

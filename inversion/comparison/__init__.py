@@ -11,7 +11,7 @@ The nested sampler (nautilus) and ArviZ are imported only when a comparison runs
 ``import lidmelt`` stays light.
 """
 
-from .checks import FitCheck, fit_check, truncated_bounds
+from .checks import FitCheck, fit_check
 from .evidence import DISAGREEMENT_SIGMAS, EvidenceEstimate, scenario_evidence
 from .loo import PARETO_K_WARN, LooEstimate, elpd_differences, loo_fixed, loo_from_draws
 from .nested import NestedResult, nested_evidence
@@ -44,5 +44,4 @@ __all__ = [
     "quadrature_evidence",
     "scenario_evidence",
     "scenario_probabilities",
-    "truncated_bounds",
 ]

@@ -6,23 +6,18 @@
   scenario is reported as not fitting when a block's p-value is below `NO_FIT_P`. A
   small p means the observed data are far less likely than data the scenario itself
   would produce.
-* `truncated_bounds`: is a posterior cut off by a prior bound? Then the bound, not the
-  data, decides the estimate (and the evidence rewards or punishes the bound).
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["NO_FIT_P", "FitCheck", "fit_check", "replicate_data", "truncated_bounds"]
+__all__ = ["NO_FIT_P", "FitCheck", "fit_check", "replicate_data"]
 
 #: A scenario with a predictive p-value below this is reported as not fitting the data.
 NO_FIT_P = 0.01
-#: Posterior density within one bin of a bound above this share of its peak: truncated.
-_EDGE_SHARE = 0.1
 _REPLICATES = 200
 
 
@@ -96,37 +91,3 @@ def replicate_data(logpost, draws: np.ndarray, rng: np.random.Generator, replica
             yield theta, None
             continue
         yield theta, [block.simulate(column, rng) for block in logpost.study.observations]
-
-
-def truncated_bounds(samples: np.ndarray, prior) -> list[tuple[str, float]]:
-    """The finite prior bounds a posterior sample presses against.
-
-    The sample is binned with bins of width min(prior range / 50, sd / 2); a bound is
-    reported when the bin next to it holds at least a tenth of the fullest bin (a
-    posterior that fades out before the bound leaves that bin almost empty).
-
-    Parameters
-    ----------
-    samples : numpy.ndarray
-        Posterior draws of one parameter, shape ``(n,)``.
-    prior : inversion.Prior
-
-    Returns
-    -------
-    list of (str, float)
-        ``("lower" | "upper", bound)`` for every bound reached.
-    """
-    samples = np.asarray(samples, float)
-    low, high = prior.bounds
-    spread = float(np.std(samples))
-    width = spread / 2 if spread > 0 else 1e-9
-    if math.isfinite(low) and math.isfinite(high):
-        width = min(width, (high - low) / 50)
-    counts, _ = np.histogram(samples, bins=max(1, math.ceil(np.ptp(samples) / width)))
-    peak = counts.max()
-    out = []
-    for side, bound in (("lower", low), ("upper", high)):
-        if math.isfinite(bound) and np.sum(np.abs(samples - bound) <= width) >= \
-                _EDGE_SHARE * peak:
-            out.append((side, float(bound)))
-    return out

@@ -11,7 +11,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ...forward.quantities import quantity
 from .checks import FitCheck
 from .evidence import DISAGREEMENT_SIGMAS, EvidenceEstimate
 from .loo import PARETO_K_WARN, LooEstimate, elpd_differences
@@ -41,8 +40,9 @@ class ScenarioResult:
         Posterior predictive check (does the scenario fit the data at all?).
     posterior : inversion.Posterior or None
         The emcee posterior (None without free parameters).
-    truncated : dict
-        Parameter -> list of ``(side, bound)`` the posterior presses against.
+    posterior_warnings : tuple of str
+        `Posterior.warnings` of that posterior: not converged, piled against a prior
+        bound or the model's range, melting from the model's base, no melt.
     seconds : dict
         Wall time of each part: ``nested``, ``quadrature``, ``posterior``, ``loo``,
         ``checks``.
@@ -53,7 +53,7 @@ class ScenarioResult:
     loo: LooEstimate
     fit: FitCheck
     posterior: object | None = None
-    truncated: dict = field(default_factory=dict)
+    posterior_warnings: tuple = ()
     seconds: dict = field(default_factory=dict)
 
     @property
@@ -72,8 +72,7 @@ class ScenarioResult:
                 "fit_check": {"p_value": self.fit.p_value,
                               "replicates": self.fit.replicates,
                               "worst_block": self.fit.worst_block},
-                "truncated": {k: [list(v) for v in sides]
-                              for k, sides in self.truncated.items()},
+                "posterior_warnings": list(self.posterior_warnings),
                 "converged": self.converged, "seconds": self.seconds}
 
     @classmethod
@@ -84,8 +83,7 @@ class ScenarioResult:
                    LooEstimate.from_dict(data["loo"]),
                    FitCheck(float(check["p_value"]), int(check["replicates"]),
                             str(check.get("worst_block", ""))), posterior,
-                   {k: [(str(s), float(b)) for s, b in v]
-                    for k, v in data["truncated"].items()}, dict(data["seconds"]))
+                   tuple(data["posterior_warnings"]), dict(data["seconds"]))
 
 
 class Comparison:
@@ -225,19 +223,11 @@ def _scenario_warnings(r: ScenarioResult) -> list[str]:
             f"'{r.name}': PSIS-LOO is unreliable for {bad.size} observation row(s) "
             f"({', '.join(rows)}; Pareto k up to {r.loo.pareto_k_max:.2f} > "
             f"{PARETO_K_WARN:g}): these rows pull the posterior strongly.")
-    for name, sides in r.truncated.items():
-        q = quantity(name)
-        for side, bound in sides:
-            out.append(f"'{r.name}': the posterior of the {q.name} presses against the "
-                       f"{side} prior bound {q.with_value(bound)}: the bound, not the data, "
-                       "limits it.")
+    out.extend(f"'{r.name}': {line}." for line in r.posterior_warnings)
     if not r.fit.fits:
         where = f"{r.fit.worst_block}: " if r.fit.worst_block else "no posterior draw melts; "
         out.append(
             f"'{r.name}' does not fit the data ({where}posterior predictive p = "
             f"{r.fit.p_value:.3f} over {r.fit.replicates} draws: data simulated from the "
             "scenario are almost always closer to the model than the observations).")
-    if not r.converged:
-        out.append(f"'{r.name}': the posterior sampler did NOT converge (see its "
-                   "report.md); its LOO and plots may be unreliable.")
     return out

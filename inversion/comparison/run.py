@@ -10,11 +10,11 @@ from pathlib import Path
 
 import numpy as np
 
-from .._errors import NotConvergedWarning
+from .._errors import InputError, NotConvergedWarning, PosteriorWarning
 from ..model import LogPosterior
 from ..scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
 from ..study import Study
-from .checks import fit_check, truncated_bounds
+from .checks import fit_check
 from .evidence import scenario_evidence
 from .loo import loo_fixed, loo_from_draws, posterior_draws
 from .result import Comparison, ScenarioResult
@@ -58,7 +58,9 @@ def compare(
         Skip the scenarios finished by an interrupted run for `out` (refused when the
         study file or its tables changed since).
     force : bool
-        Replace a comparison folder (or checkpoint) lidmelt wrote before.
+        Replace a comparison folder (or checkpoint) lidmelt wrote before (the rule of
+        `inversion._safety`: never the working folder, a folder holding the inputs, or
+        anything lidmelt did not write).
     quiet : bool
         Hide the samplers' progress bars.
     progress : callable, optional
@@ -73,13 +75,29 @@ def compare(
     ComparisonWarning
         For every caveat in `Comparison.warnings`.
     """
-    from .outputs import Checkpoint
-
     found = _scenario_set(study, settings)
-    seed = int(found.base.sampler.seed if seed is None else seed)
-    checkpoint = None
-    if out is not None:
-        checkpoint = Checkpoint.open(Path(out), found, seed, resume=resume, force=force)
+    seed = _check_seed(found.base.sampler.seed if seed is None else seed)
+    if out is None:
+        if resume:
+            raise InputError("resuming needs the result folder of the interrupted run",
+                             key="out")
+        comparison = _run(found, seed, None, quiet=quiet, progress=progress)
+    else:
+        from .._safety import output_lock
+        from .outputs import Checkpoint
+
+        out = Path(out).absolute()
+        with output_lock(out):
+            checkpoint = Checkpoint.open(out, found, seed, resume=resume, force=force)
+            comparison = _run(found, seed, checkpoint, quiet=quiet, progress=progress)
+            checkpoint.finish(comparison, force=force)
+    for message in comparison.warnings():
+        warnings.warn(ComparisonWarning(message), stacklevel=2)
+    return comparison
+
+
+def _run(found, seed: int, checkpoint, *, quiet: bool, progress) -> Comparison:
+    """Every scenario in turn; a finished one is loaded from the checkpoint."""
     seeds = scenario_seeds(seed, len(found.scenarios))
     results = []
     for scenario, nested_seed in zip(found.scenarios, seeds, strict=True):
@@ -91,12 +109,13 @@ def compare(
             if checkpoint is not None:
                 checkpoint.store(done)
         results.append(done)
-    comparison = Comparison(found, results, seed=seed)
-    for message in comparison.warnings():
-        warnings.warn(ComparisonWarning(message), stacklevel=2)
-    if checkpoint is not None:
-        checkpoint.finish(comparison)
-    return comparison
+    return Comparison(found, results, seed=seed)
+
+
+def _check_seed(seed) -> int:
+    from ..posterior import _check_seed as check
+
+    return check(seed)
 
 
 def scenario_seeds(seed: int, count: int) -> list[int]:
@@ -133,20 +152,20 @@ def evaluate_scenario(scenario: Scenario, *, seed: int, nested_seed: int,
                                  effective_samples=settings.effective_samples,
                                  grid_points=settings.grid_points, seed=nested_seed)
     seconds = {"nested": evidence.seconds_nested, "quadrature": evidence.seconds_quadrature}
-    posterior, truncated = None, {}
+    posterior, caveats = None, ()
     started = time.perf_counter()
     if logpost.ndim:
         say(f"{scenario.name}: posterior (emcee)")
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", NotConvergedWarning)  # reported by the report
+        with warnings.catch_warnings():  # listed by the comparison (Posterior.warnings)
+            warnings.simplefilter("ignore", NotConvergedWarning)
+            warnings.simplefilter("ignore", PosteriorWarning)
             posterior = fit(scenario.study, seed=seed, quiet=quiet)
         seconds["posterior"] = time.perf_counter() - started
+        caveats = tuple(posterior.warnings)
         say(f"{scenario.name}: leave-one-out (PSIS-LOO)")
         draws = posterior_draws(posterior)
         loo = loo_from_draws(posterior.logpost, draws)
         flat = draws.reshape(-1, logpost.ndim)
-        truncated = {name: sides for j, name in enumerate(logpost.names)
-                     if (sides := truncated_bounds(flat[:, j], logpost.priors[j]))}
     else:
         seconds["posterior"] = 0.0
         loo, flat = loo_fixed(logpost), np.zeros((1, 0))
@@ -154,7 +173,7 @@ def evaluate_scenario(scenario: Scenario, *, seed: int, nested_seed: int,
     started = time.perf_counter()
     check = fit_check(logpost, flat, np.random.default_rng(np.random.SeedSequence(seed)))
     seconds["checks"] = time.perf_counter() - started
-    return ScenarioResult(scenario, evidence, loo, check, posterior, truncated,
+    return ScenarioResult(scenario, evidence, loo, check, posterior, caveats,
                           {k: round(float(v), 3) for k, v in seconds.items()})
 
 
