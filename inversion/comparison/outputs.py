@@ -35,7 +35,8 @@ from importlib import metadata
 from pathlib import Path
 
 from ..._atomic import staged_folder, temporary_target, write_bytes
-from .._errors import InputError, OutputConflict, WriteError
+from .._errors import InputError, OutputConflict
+from .._outputs import _written as _guarded  # OSError (a full disk) -> WriteError
 from .._provenance import study_inputs
 from .._safety import (
     MANIFEST,
@@ -283,14 +284,6 @@ def _manifest_files(folder: Path) -> set[str] | None:
 
 def _write_top_manifest(folder: Path) -> None:
     _guarded(folder, write_manifest, folder, COMPARISON_FILES, kind=_KIND)
-
-
-def _guarded(shown: Path, write, *args, **kwargs) -> None:
-    """Call `write`; an OSError (a full disk) becomes a WriteError naming `shown`."""
-    try:
-        write(*args, **kwargs)
-    except OSError as err:
-        raise WriteError(shown, err) from err
 
 
 # ---- provenance -------------------------------------------------------------------------
