@@ -17,16 +17,32 @@ Examples
     posterior = lidmelt.fit(study, seed=1)
     posterior.summary()            # DataFrame, one row per free parameter
     posterior.save("results")      # every output file, written atomically
+
+    comparison = lidmelt.compare("scenarios.toml", seed=1)   # [[scenarios]] of a study
+    comparison.table()             # evidence, probability and LOO of each scenario
+    comparison.save("comparison")
 """
 
-from ._errors import InputError, NotConvergedWarning
-from ._outputs import OUTPUT_FILES
-from .model import DERIVED, PARAMETERS, UNITS, LogPosterior
-from .observations import KINDS, ObservationSet
-from .posterior import SUMMARY_COLUMNS, Posterior, fit
-from .priors import LogUniform, Normal, Prior, TruncatedNormal, Uniform, prior_from_spec
-from .sampler import ChainResult, assess_chain, read_chain, run_chain
-from .study import ModelSettings, SamplerSettings, Study
+from .._lazy import lazy_exports
+
+# Imported on first use: the sampler (emcee, h5py) and pandas load only when needed.
+_WHERE = {
+    "InputError": "._errors", "NotConvergedWarning": "._errors",
+    "OutputConflict": "._errors", "PosteriorWarning": "._errors", "WriteError": "._errors",
+    "OUTPUT_FILES": "._outputs",
+    "DERIVED": ".model", "PARAMETERS": ".model", "UNITS": ".model", "LogPosterior": ".model",
+    "KINDS": ".observations", "ObservationSet": ".observations",
+    "SUMMARY_COLUMNS": ".posterior", "Posterior": ".posterior", "fit": ".posterior",
+    "LogUniform": ".priors", "Normal": ".priors", "Prior": ".priors",
+    "TruncatedNormal": ".priors", "Uniform": ".priors", "prior_from_spec": ".priors",
+    "ChainResult": ".sampler", "assess_chain": ".sampler", "read_chain": ".sampler",
+    "run_chain": ".sampler",
+    "ModelSettings": ".study", "SamplerSettings": ".study", "Study": ".study",
+    "ComparisonSettings": ".scenarios", "Scenario": ".scenarios",
+    "ScenarioSet": ".scenarios", "read_scenarios": ".scenarios",
+    "Comparison": ".comparison", "compare": ".comparison",
+}
+__getattr__, __dir__ = lazy_exports(__name__, globals(), _WHERE)
 
 __all__ = [
     "DERIVED",
@@ -36,6 +52,8 @@ __all__ = [
     "SUMMARY_COLUMNS",
     "UNITS",
     "ChainResult",
+    "Comparison",
+    "ComparisonSettings",
     "InputError",
     "LogPosterior",
     "LogUniform",
@@ -43,15 +61,22 @@ __all__ = [
     "Normal",
     "NotConvergedWarning",
     "ObservationSet",
+    "OutputConflict",
     "Posterior",
+    "PosteriorWarning",
     "Prior",
     "SamplerSettings",
+    "Scenario",
+    "ScenarioSet",
     "Study",
     "TruncatedNormal",
     "Uniform",
+    "WriteError",
     "assess_chain",
+    "compare",
     "fit",
     "prior_from_spec",
     "read_chain",
+    "read_scenarios",
     "run_chain",
 ]

@@ -26,13 +26,7 @@ __all__ = ["DERIVED", "PARAMETERS", "UNITS", "LogPosterior"]
 DERIVED = ("onset_depth", "crustal_thickness", "mean_melt_fraction", "mean_melting_pressure")
 
 #: Unit of every parameter and derived quantity ("-" = dimensionless).
-UNITS = {
-    **PARAMETER_UNITS,
-    "onset_depth": "km",
-    "crustal_thickness": "km",
-    "mean_melt_fraction": "-",
-    "mean_melting_pressure": "GPa",
-}
+UNITS = {**PARAMETER_UNITS, **{name: forward.QUANTITIES[name].unit for name in DERIVED}}
 
 class LogPosterior:
     """Vectorised log-posterior of a study for ``emcee.EnsembleSampler(vectorize=True)``.
@@ -101,6 +95,28 @@ class LogPosterior:
         if np.any(ok):
             values = self.parameters(theta[ok])
             out[ok] = self._log_likelihood(self._column(values), values)
+        return out
+
+    @property
+    def rows(self) -> list[tuple[str, str]]:
+        """``(block name, row id)`` of every observation row, in pointwise order."""
+        return [(block.name, row) for block in self.study.observations for row in block.ids]
+
+    def pointwise_log_likelihood(self, theta: np.ndarray) -> np.ndarray:
+        """Log-likelihood of every observation row, shape ``(n, len(rows))``.
+
+        Blocks in study order, rows in table order (see `rows`); each row of the result
+        sums to `log_likelihood`. Off-domain points get ``-inf`` in every row.
+        """
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        out = np.full((theta.shape[0], len(self.rows)), -np.inf)
+        ok = self.in_domain(theta)
+        if np.any(ok):
+            values = self.parameters(theta[ok])
+            column = self._column(values)
+            out[ok] = np.concatenate(
+                [block.pointwise_log_likelihood(column, parameters=values)
+                 for block in self.study.observations], axis=-1)
         return out
 
     def in_domain(self, theta: np.ndarray) -> np.ndarray:

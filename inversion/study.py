@@ -54,6 +54,8 @@ DEFAULT_FIXED: dict[str, float] = {"water": 0.0, "active_upwelling": 1.0, "solid
 _REQUIRED = ("potential_temperature", "lithosphere_thickness")
 
 _TOP_KEYS = ("study", "model", "parameters", "observations", "sampler")
+# Read by inversion.scenarios (`lidmelt compare`); a plain fit ignores them.
+_COMPARISON_KEYS = ("scenarios", "comparison")
 _STUDY_KEYS = ("name", "description")
 _START = ("prior", "map")
 
@@ -163,7 +165,8 @@ class Study:
         The study file it was read from (None when built in code).
     model : ModelSettings
     priors : dict of str to Prior
-        Free parameters and their priors.
+        Free parameters and their priors (a study file needs at least one; a scenario
+        built with `with_overrides` may fix every parameter).
     fixed : dict of str to float
         Fixed parameters and their values. `priors` and `fixed` together hold each name of
         `PARAMETERS` exactly once.
@@ -241,16 +244,7 @@ class Study:
             of the schema (the message names the key and the line where it is).
         """
         path = Path(path)
-        if not path.is_file():
-            why = "is a folder, not a study file" if path.is_dir() else "not found"
-            raise InputError(f"study file {why}; check the path", file=path)
-        raw = path.read_bytes()
-        try:
-            text = raw.decode("utf-8")
-        except UnicodeDecodeError as err:
-            raise InputError(f"not UTF-8 text (byte {err.start}); save the study file as "
-                             "UTF-8", file=path) from None
-        config = _parse_toml(text, path)
+        raw, text, config = _read_study_file(path)
         try:
             return cls.from_mapping(config, base_dir=path.parent, source=path,
                                     file_hash=hashlib.sha256(raw).hexdigest())
@@ -282,7 +276,7 @@ class Study:
         file_hash : str, optional
             Recorded in `Study.file_hash`.
         """
-        _check_keys(config, _TOP_KEYS, "", what="section")
+        _check_keys(config, _TOP_KEYS + _COMPARISON_KEYS, "", what="section")
         study_tbl = _table(config, "study")
         _check_keys(study_tbl, _STUDY_KEYS, "study")
         source = None if source is None else Path(source)
@@ -299,6 +293,9 @@ class Study:
         _check_keys(sampler_tbl, _SAMPLER_KEYS, "sampler")
         sampler = SamplerSettings(**sampler_tbl)
         priors, fixed = _parse_parameters(config.get("parameters"))
+        if not priors:  # a scenario may fix everything (inversion.scenarios), a study not
+            raise InputError("every parameter is fixed; give at least one a prior to infer "
+                             "it", key="parameters")
         observations = _parse_observations(config.get("observations"), Path(base_dir))
         return cls(name=name, source=source, model=model, priors=priors, fixed=fixed,
                    observations=observations, sampler=sampler, file_hash=file_hash,
@@ -363,9 +360,10 @@ class Study:
 
     def describe(self) -> str:
         """Several lines in words: model, each parameter's prior or value, each data set."""
-        lines = [f"Study '{self.name}': {self.model.parameterization} melting, "
-                 f"{self.model.melting_region} melting_region, crust {self.model.crust_density:g} and "
-                 f"mantle {self.model.mantle_density:g} kg/m^3."]
+        model = self.model
+        lines = [f"Study '{self.name}': {model.parameterization} melting, melting region "
+                 f"{model.melting_region}, crust {model.crust_density:g} and mantle "
+                 f"{model.mantle_density:g} kg/m^3."]
         for name in PARAMETERS:
             unit = "" if PARAMETER_UNITS[name] == "-" else PARAMETER_UNITS[name]
             if name in self.priors:
@@ -379,6 +377,24 @@ class Study:
 # ---- parsing helpers -------------------------------------------------------------------
 
 _TOML_POS = re.compile(r"\(at line (\d+), column (\d+)\)")
+
+
+def _read_study_file(path: Path) -> tuple[bytes, str, dict]:
+    """The bytes, text and parsed TOML of a study file (`InputError` if unreadable)."""
+    try:
+        if not path.is_file():
+            why = "is a folder, not a study file" if path.is_dir() else "not found"
+            raise InputError(f"study file {why}; check the path", file=path)
+        raw = path.read_bytes()
+    except OSError as err:  # e.g. no read permission on the file or its folder
+        raise InputError(f"the study file cannot be read ({err.strerror}); check its "
+                         "permissions", file=path) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise InputError(f"not UTF-8 text (byte {err.start}); save the study file as "
+                         "UTF-8", file=path) from None
+    return raw, text, _parse_toml(text, path)
 
 
 def _parse_toml(text: str, path: Path) -> dict:
@@ -413,9 +429,12 @@ def _key_line(text: str, dotted: str | None) -> int | None:
         head = _HEADER.match(line)
         if head:
             name = head.group(2)
+            first, _, rest = name.partition(".")
             if head.group(1):  # [[array]] block
                 counts[name] = counts.get(name, 0) + 1
                 name = f"{name}[{counts[name]}]"
+            elif rest and first in counts:  # [scenarios.parameters]: of the last block
+                name = f"{first}[{counts[first]}].{rest}"
             header = candidate = name
         else:
             assign = _ASSIGN.match(line)
@@ -478,7 +497,7 @@ def _parse_parameters(table) -> tuple[dict[str, Prior], dict[str, float]]:
         else:
             raise InputError(
                 f"'{name}' must be given, e.g. {name} = {{ prior = \"uniform\", min = ..., "
-                "max = ... }} or { value = ... }", key=f"parameters.{name}")
+                "max = ... } or { value = ... }", key=f"parameters.{name}")
         (priors if isinstance(value, Prior) else fixed)[name] = value
     return priors, fixed
 
@@ -522,9 +541,6 @@ def _check_parameter_sets(priors: dict, fixed: dict, file) -> None:
         if name not in priors and name not in fixed:
             raise InputError(f"'{name}' has neither a prior nor a fixed value",
                              file=file, key=f"parameters.{name}")
-    if not priors:
-        raise InputError("every parameter is fixed; give at least one a prior to infer it",
-                         file=file, key="parameters")
 
 
 def _parse_observations(blocks, base_dir: Path) -> tuple[ObservationSet, ...]:

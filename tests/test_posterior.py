@@ -112,7 +112,7 @@ def test_failed_save_leaves_nothing_behind(quick, tmp_path, monkeypatch):
     def broken(*args, **kwargs):
         raise RuntimeError("disk full while drawing")
 
-    monkeypatch.setattr(figures, "save_figures", broken)
+    monkeypatch.setattr(figures, "figure_files", broken)
     with pytest.raises(RuntimeError, match="disk full"):
         quick.save(tmp_path / "result")
     assert list(tmp_path.iterdir()) == []
@@ -121,8 +121,12 @@ def test_failed_save_leaves_nothing_behind(quick, tmp_path, monkeypatch):
 def test_save_refuses_existing_folder_unless_forced(quick, tmp_path):
     target = tmp_path / "result"
     target.mkdir()
-    with pytest.raises(inversion.InputError, match="already exists; pass --force"):
+    with pytest.raises(inversion.InputError, match="already exists; choose another folder"):
         quick.save(target)
+    with pytest.raises(inversion.InputError, match="not written by lidmelt"):
+        quick.save(target, force=True)  # an empty folder of the user's is not ours either
+    target.rmdir()
+    quick.save(target)
     quick.save(target, force=True)
     assert pd.read_csv(target / "summary.csv").shape[0] == len(quick.names)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["result"]
@@ -153,3 +157,15 @@ def test_report_states_numbers_with_units_and_caution(quick):
 def test_fit_refuses_too_few_walkers(study):
     with pytest.raises(inversion.InputError, match="walkers"):
         inversion.fit(study.with_sampler(walkers=4), quiet=True)
+
+
+def test_pointwise_log_likelihood_sums_to_the_total(study):
+    # the per-row terms (for leave-one-out comparison) must add up to what the sampler uses
+    logpost = LogPosterior(study)
+    theta = np.array([[1400.0, 46.0, 0.0], [1350.0, 30.0, 12.0], [1200.0, 120.0, -20.0]])
+    rows = logpost.pointwise_log_likelihood(theta)
+    assert rows.shape == (3, sum(len(b) for b in study.observations))
+    assert logpost.rows[0] == (study.observations[0].name, study.observations[0].ids[0])
+    np.testing.assert_allclose(rows.sum(axis=1), logpost.log_likelihood(theta), rtol=1e-12)
+    # the third point makes no melt: every row carries part of the no-melt penalty
+    assert not logpost.column(theta[2:]).produces_melt[0]

@@ -1,8 +1,10 @@
 """Command-line entry point ``lidmelt``: a thin layer over the public API.
 
 Each subcommand lives in its own module exposing ``add_arguments(parser)`` and
-``run(args) -> int``; this module only dispatches and turns user mistakes into
-exit code 2 with a one-line message on stderr (no traceback, no result folder).
+``run(args) -> int``; this module only dispatches and turns user mistakes (the input
+error types: `InputError`, `UsageError`, forward's `DomainError`) into exit code 2 with a
+one-line message on stderr (no traceback, no result folder). Any other exception is a
+bug and shows as one, with its traceback.
 """
 
 from __future__ import annotations
@@ -10,8 +12,9 @@ from __future__ import annotations
 import argparse
 import sys
 
-from .._errors import InputError
-from . import column, demo, fit
+from ...forward._validation import DomainError
+from .._errors import InputError, OutputConflict
+from . import column, compare, demo, fit, survey
 
 # name -> (module, one-line help)
 _COMMANDS = {
@@ -19,7 +22,25 @@ _COMMANDS = {
     "fit": (fit, "fit a study file: posterior of potential temperature and lid "
             "thickness"),
     "demo": (demo, "fit the bundled demo study end to end (under a minute)"),
+    "compare": (compare, "rank competing scenarios of a study by Bayesian evidence and "
+                "leave-one-out prediction"),
+    "survey": (survey, "many sites of a study area: each site's posterior and an "
+               "area-wide potential temperature, on local cores or a Dask cluster"),
 }
+
+
+class _VersionAction(argparse.Action):
+    """``--version``: look the installed version up only when asked (it costs ~30 ms)."""
+
+    def __init__(self, option_strings, dest, **kwargs):
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS,
+                         help="show the installed version of lidmelt and exit")
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        from ... import __version__
+
+        sys.stdout.write(f"lidmelt {__version__}\n")
+        parser.exit()
 
 
 class UsageError(Exception):
@@ -33,10 +54,27 @@ def build_parser() -> argparse.ArgumentParser:
         "observations. Results are scientific estimates that depend on the chosen "
         "melting parameterization.",
     )
+    parser.add_argument("--version", action=_VersionAction)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     for name, (module, help_text) in _COMMANDS.items():
         module.add_arguments(sub.add_parser(name, help=help_text, description=help_text))
     return parser
+
+
+#: How the command line resolves each kind of `OutputConflict` (its `reason`).
+_REMEDIES = {
+    "exists": "pass --force to replace it or choose another --out",
+    "checkpoint": "pass --resume to continue it or --force to start over",
+    "no-checkpoint": "run again without --resume",
+    "changed": "restore what changed, or pass --force to start over",
+}
+
+
+def _worded(err) -> str:
+    """The one-line message, with an output conflict's remedy in terms of flags."""
+    if isinstance(err, OutputConflict):
+        return str(InputError(f"{err.problem}; {_REMEDIES[err.reason]}", file=err.file))
+    return str(err)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -47,8 +85,8 @@ def main(argv: list[str] | None = None) -> int:
     module, _ = _COMMANDS[args.command]
     try:
         return module.run(args)
-    except (InputError, UsageError, ValueError) as err:
-        print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)
+    except (InputError, UsageError, DomainError) as err:  # not ValueError: a bug shows
+        print(f"lidmelt {args.command}: error: {_worded(err)}", file=sys.stderr)
         return 2
     except OSError as err:  # e.g. a result folder that cannot be written
         print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)

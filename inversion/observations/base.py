@@ -245,7 +245,6 @@ class ObservationSet(ABC):
 
     # ---- model comparison --------------------------------------------------------------
 
-    @abstractmethod
     def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
         """Log-likelihood summed over rows for each melting column.
 
@@ -260,7 +259,18 @@ class ObservationSet(ABC):
         Returns
         -------
         numpy.ndarray
-            Shape (n,); finite everywhere (never NaN).
+            Shape (n,); finite everywhere (never NaN). The sum over rows of
+            `pointwise_log_likelihood`.
+        """
+        return self.pointwise_log_likelihood(column, parameters=parameters).sum(axis=-1)
+
+    @abstractmethod
+    def pointwise_log_likelihood(self, column, *,
+                                 parameters: Mapping | None = None) -> np.ndarray:
+        """Log-likelihood of every row (no-melt penalty included), shape ``(n, rows)``.
+
+        Rows are independent given the parameters, so these are the terms a
+        leave-one-out comparison needs; they sum to `log_likelihood`.
         """
 
     @abstractmethod

@@ -29,7 +29,11 @@ from .base import (
 )
 from .tables import ColumnRule
 
-__all__ = ["THICKNESS_OF", "CrustalThickness"]
+__all__ = ["MAX_THICKNESS", "THICKNESS_OF", "CrustalThickness"]
+
+#: km; largest observed thickness a table may hold. Igneous crust reaches about 40 km
+#: beneath Iceland and the Ontong Java plateau (common practice, value from memory).
+MAX_THICKNESS = 60.0
 
 #: ``thickness_of`` choice -> the model quantity a crustal thickness is compared with.
 THICKNESS_OF = {"crust": "crustal_thickness", "melt": "melt_thickness"}
@@ -70,8 +74,9 @@ class CrustalThickness(ObservationSet):
     def column_rules(cls, **options):
         return [
             ColumnRule("site", numeric=False),
-            ColumnRule("thickness_km", low=0.0, unit="km",
-                       why="a thickness cannot be negative"),
+            ColumnRule("thickness_km", low=0.0, high=MAX_THICKNESS, unit="km",
+                       why="a thickness cannot be negative, and the thickest igneous "
+                       "crust, beneath Iceland and oceanic plateaus, is about 40 km"),
             ColumnRule("sigma_km", low=0.0, low_open=True, unit="km",
                        why="a 1-sigma uncertainty must be positive"),
         ], []
@@ -87,13 +92,13 @@ class CrustalThickness(ObservationSet):
     def _model(self, column) -> np.ndarray:
         return np.asarray(getattr(column, THICKNESS_OF[self.thickness_of]), float)
 
-    def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
+    def pointwise_log_likelihood(self, column, *,
+                                 parameters: Mapping | None = None) -> np.ndarray:
         model = self._model(column)[..., None]  # (n, 1) against rows (rows,)
         per_row = gaussian_logpdf(self.values, model, self.sigma)
-        total = per_row.sum(axis=-1)
-        melt_rows = np.count_nonzero(self.values > 0.0)
-        distance = melting_distance(column, parameters)
-        return total - melt_rows * NO_MELT_SLOPE * distance
+        records_melt = self.values > 0.0  # only these rows are penalised for no melt
+        distance = melting_distance(column, parameters)[..., None]
+        return per_row - np.where(records_melt, NO_MELT_SLOPE * distance, 0.0)
 
     def predict(self, column) -> dict[str, np.ndarray]:
         model = self._model(column)[..., None]
@@ -106,6 +111,7 @@ class CrustalThickness(ObservationSet):
         return self._replace_values({self.value_column: draws}, thickness_of=self.thickness_of)
 
     def describe(self) -> str:
-        return (f"{len(self)} crustal thickness value(s) from {self.name}, compared with the "
+        rows = "1 crustal thickness" if len(self) == 1 else f"{len(self)} crustal thicknesses"
+        return (f"{rows} from {self.name}, compared with the "
                 f"model {self.thickness_of} thickness"
                 + (f" (model error {self.model_error:g} km)" if self.model_error else ""))

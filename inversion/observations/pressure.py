@@ -206,6 +206,23 @@ class MeltingPressure(ObservationSet):
         path_p, path_t, weight = self._path(column)
         return pressure, (weight * path_t).sum(axis=-1)
 
+    def equilibration_points(self, column):
+        """Where the model says the melts equilibrate: the distribution the likelihood uses.
+
+        Returns
+        -------
+        pressure, temperature, weight : ndarray, shape (n, k)
+            Candidate points (GPa, degC; temperature None without observed temperatures)
+            and their probabilities, summing to 1 over the last axis: the melt-weighted
+            path nodes for ``"path"`` (k = `path_points`), the single point for
+            ``"top"`` and ``"pooled"`` (k = 1).
+        """
+        if self.equilibration == "path":
+            return self._path(column)
+        pressure, temperature = self._point(column)
+        temperature = None if temperature is None else temperature[..., None]
+        return pressure[..., None], temperature, np.ones(pressure.shape + (1,))
+
     def _per_row(self, column) -> np.ndarray:
         """Log-likelihood of every row, shape (n, rows)."""
         s_p = self.sigma
@@ -227,12 +244,12 @@ class MeltingPressure(ObservationSet):
                                                 self.temperature_sigma)
         return per_row
 
-    def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
-        total = self._per_row(column).sum(axis=-1)
+    def pointwise_log_likelihood(self, column, *,
+                                 parameters: Mapping | None = None) -> np.ndarray:
         dry = ~np.asarray(column.produces_melt, bool)
         distance = melting_distance(column, parameters)
-        penalty = len(self) * (NO_MELT_OFFSET + NO_MELT_SLOPE * distance)
-        return total - np.where(dry, penalty, 0.0)
+        penalty = np.where(dry, NO_MELT_OFFSET + NO_MELT_SLOPE * distance, 0.0)
+        return self._per_row(column) - penalty[..., None]
 
     def predict(self, column) -> dict[str, np.ndarray]:
         """Model prediction per row, arrays of shape (n, rows).
@@ -280,7 +297,8 @@ class MeltingPressure(ObservationSet):
     def describe(self) -> str:
         where = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
                  "path": "anywhere along the melting path, weighted by melt production"}
-        what = "pressure-temperature point(s)" if self.has_temperature else "pressure(s)"
+        what = "pressure-temperature point" if self.has_temperature else "pressure"
+        what += "" if len(self) == 1 else "s"
         errors = []
         if self.model_error:
             errors.append(f"{self.model_error:g} GPa")
