@@ -21,12 +21,16 @@ parameterization's constants (its key), else it is rebuilt and replaced.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
+import importlib
 import itertools
 import math
+import sys
 import zipfile
 from dataclasses import dataclass
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 
@@ -150,7 +154,7 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     p = u[None, :] ** 2
     depression = param.water_depression(0.0, p, water[:, None])[0]
     sub_sigma = solid_adiabat(tp[:, None], p, param.thermo) + depression - shift[:, None]
-    below_onset = ~melts[:, None] | (p >= onset[:, None])
+    below_onset = ~melts[:, None] | (p > onset[:, None] + 1e-9)  # a capped path starts on a node
     paths[0] = np.where(below_onset, sub_sigma, paths[0])
     paths[1:] = np.where(below_onset[None], 0.0, paths[1:])
     shape = (theta_axis.size, shift_axis.size, water_axis.size)
@@ -190,13 +194,28 @@ def _param_axes(param, water):
     return theta, shift
 
 
-_FORMAT = 3  # bump when the table layout, its file or the integration changes
+_FORMAT = 4  # bump when the table layout, its file or the integration changes
 _HEADER_ROOM = 4096  # bytes of .npy header allowed beyond an array's data in a cache file
+_FACT = "facts_"  # file members holding the path facts (see _path_facts)
+#: Modules whose code decides a table's numbers or its path facts: a lidmelt whose code
+#: differs there gets tables of its own, even if nobody bumped `_FORMAT`.
+_TABLE_CODE = ("._integrate", "._table", ".adiabat", "._path_facts", ".parameterizations.base")
+
+
+@lru_cache(maxsize=8)
+def _code_digest(param_module: str) -> str:
+    """Digest of the source of `_TABLE_CODE` and of the parameterization's module."""
+    digest = hashlib.sha256()
+    names = [importlib.import_module(m, __package__).__name__ for m in _TABLE_CODE]
+    for name in (*names, param_module):
+        source = getattr(sys.modules[name], "__file__", None)
+        digest.update(Path(source).read_bytes() if source else name.encode())
+    return digest.hexdigest()[:16]
 
 
 def _table_key(param, axes) -> str:
-    """Everything a table depends on: format, integration, the constants, the axes."""
-    return repr((_FORMAT, _RK_STEPS, param, axes))
+    """Everything a table depends on: format, integration, code, the constants, the axes."""
+    return repr((_FORMAT, _RK_STEPS, _code_digest(type(param).__module__), param, axes))
 
 
 def _load_or_build(param, label, theta, shift, water_axis, u_axis) -> PathTable:
@@ -205,6 +224,8 @@ def _load_or_build(param, label, theta, shift, water_axis, u_axis) -> PathTable:
     Processes that need the same missing table (a survey's workers) build it once: the
     others wait for the builder and then load its file.
     """
+    from ._path_facts import path_facts, remember  # it imports this module
+
     axes = (theta, shift, water_axis, u_axis)
     key = _table_key(param, axes)
     folder = _cache.cache_folder()
@@ -218,29 +239,35 @@ def _load_or_build(param, label, theta, shift, water_axis, u_axis) -> PathTable:
             stored = _read_cache(path, key, axes)  # another process may have built it
             if stored is None:
                 table = _build(param, *axes)
-                if _write_cache(path, table, key):
+                if _write_cache(path, table, key, path_facts(param, table)):
                     _cache.prune(folder, keep=path)
                 return table
     _cache.mark_used(path)
-    return PathTable(*axes, *stored)
+    state, onset, facts = stored
+    table = PathTable(*axes, state, onset)
+    remember(table, facts)
+    return table
 
 
 def _read_cache(path, key, axes):
-    """``(state, onset)`` from a cache file, or None unless it is a whole table for ``key``.
+    """``(state, onset, path facts)`` from a cache file, or None unless it is a whole,
+    valid table for ``key``.
 
-    Anything else (absent, empty, truncated, another format, other constants or axes,
-    wrong shapes or dtypes, non-finite values) is rejected, to be rebuilt and replaced.
+    Anything else (absent, empty, truncated, another format, other code, constants or
+    axes, wrong shapes or dtypes, non-finite values) is rejected, to be rebuilt.
     """
     if not path.is_file():
         return None
     shape = (*(axis.size for axis in axes), 3)
+    members = _members(shape)
     try:
-        if not _sizes_match(path, shape):
+        if not _sizes_match(path, members):
             return None
         with np.load(path, allow_pickle=False) as stored:
-            stored_key, state, onset = stored["key"], stored["state"], stored["onset"]
+            arrays = {name: stored[name] for name in ("key", *members)}
     except (OSError, EOFError, ValueError, KeyError, zipfile.BadZipFile):
         return None
+    stored_key, state, onset = arrays["key"], arrays["state"], arrays["onset"]
     if stored_key.shape != () or stored_key.dtype.kind != "U" or str(stored_key) != key:
         return None
     if state.dtype != np.float32 or state.shape != shape:
@@ -249,31 +276,57 @@ def _read_cache(path, key, axes):
         return None
     if not (np.isfinite(state).all() and np.all((onset >= 0.0) & (onset <= MAX_PRESSURE))):
         return None  # the comparisons are False for NaN, so NaN onsets fail too
-    return np.ascontiguousarray(state), onset
+    facts = _checked_facts(arrays, math.prod(shape[:3]))
+    return None if facts is None else (np.ascontiguousarray(state), onset, facts)
 
 
-def _sizes_match(path, shape) -> bool:
-    """The file is an archive of exactly our arrays, each about the size ``shape`` gives.
+def _members(shape) -> dict[str, int]:
+    """Cache-file array name -> bytes of its data (besides the key)."""
+    from ._path_facts import PathFacts
+
+    paths = math.prod(shape[:3])
+    members = {"state": 4 * math.prod(shape), "onset": 8 * paths}
+    members.update({_FACT + f.name: 8 * paths for f in dataclasses.fields(PathFacts)})
+    return members
+
+
+def _checked_facts(arrays, paths):
+    """The stored path facts, or None unless each is ``paths`` finite 8-byte numbers."""
+    from ._path_facts import PathFacts
+
+    facts = {}
+    for field in dataclasses.fields(PathFacts):
+        value = arrays[_FACT + field.name]
+        if (value.shape != (paths,) or value.dtype.kind not in "fi"
+                or value.dtype.itemsize != 8 or not np.isfinite(value).all()):
+            return None
+        facts[field.name] = value
+    return PathFacts(**facts)
+
+
+def _sizes_match(path, members) -> bool:
+    """The file is an archive of exactly our arrays, each about its expected size.
 
     Checked before loading, so a damaged header cannot make numpy allocate a huge array.
     """
     with zipfile.ZipFile(path) as archive:
         sizes = {info.filename: info.file_size for info in archive.infolist()}
-    data = {"state.npy": 4 * math.prod(shape), "onset.npy": 8 * math.prod(shape[:3])}
+    data = {f"{name}.npy": n for name, n in members.items()}
     if set(sizes) != {"key.npy", *data} or sizes["key.npy"] > 64 * _HEADER_ROOM:
         return False
     return all(n <= sizes[name] <= n + _HEADER_ROOM for name, n in data.items())
 
 
-def _write_cache(path, table, key) -> bool:
-    """Write a table atomically; False if the folder cannot be written.
+def _write_cache(path, table, key, facts) -> bool:
+    """Write a table and its path facts atomically; False if the folder cannot be written.
 
     A cache is a convenience: a full disk or a read-only home must not stop the model.
     """
+    arrays = {_FACT + f.name: getattr(facts, f.name) for f in dataclasses.fields(facts)}
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         with replacing(path) as tmp:
-            np.savez(tmp, key=np.array(key), state=table.state, onset=table.onset)
+            np.savez(tmp, key=np.array(key), state=table.state, onset=table.onset, **arrays)
     except OSError:
         return False  # `replacing` has removed its temporary file
     return True

@@ -17,6 +17,10 @@ Examples
     posterior = lidmelt.fit(study, seed=1)
     posterior.summary()            # DataFrame, one row per free parameter
     posterior.save("results")      # every output file, written atomically
+
+    comparison = lidmelt.compare("scenarios.toml", seed=1)   # [[scenarios]] of a study
+    comparison.table()             # evidence, probability and LOO of each scenario
+    comparison.save("comparison")
 """
 
 from .._lazy import lazy_exports
@@ -34,6 +38,9 @@ _WHERE = {
     "ChainResult": ".sampler", "assess_chain": ".sampler", "read_chain": ".sampler",
     "run_chain": ".sampler",
     "ModelSettings": ".study", "SamplerSettings": ".study", "Study": ".study",
+    "ComparisonSettings": ".scenarios", "Scenario": ".scenarios",
+    "ScenarioSet": ".scenarios", "read_scenarios": ".scenarios",
+    "Comparison": ".comparison", "compare": ".comparison",
 }
 __getattr__, __dir__ = lazy_exports(__name__, globals(), _WHERE)
 
@@ -45,6 +52,8 @@ __all__ = [
     "SUMMARY_COLUMNS",
     "UNITS",
     "ChainResult",
+    "Comparison",
+    "ComparisonSettings",
     "InputError",
     "LogPosterior",
     "LogUniform",
@@ -57,13 +66,17 @@ __all__ = [
     "PosteriorWarning",
     "Prior",
     "SamplerSettings",
+    "Scenario",
+    "ScenarioSet",
     "Study",
     "TruncatedNormal",
     "Uniform",
     "WriteError",
     "assess_chain",
+    "compare",
     "fit",
     "prior_from_spec",
     "read_chain",
+    "read_scenarios",
     "run_chain",
 ]

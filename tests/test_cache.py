@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 import platformdirs
 import pytest
-from lidmelt.forward import _cache, _table, get_parameterization, melt_column
+from lidmelt.forward import _cache, _path_facts, _table, get_parameterization, melt_column
 from lidmelt.inversion.cli import main
 
 KATZ = get_parameterization("katz2003")
@@ -41,8 +41,14 @@ def _tiny():
         return _table._load_or_build(KATZ, "tiny", *TINY_AXES)
 
 
-def _tiny_key(param=KATZ, axes=TINY_AXES, form=None):
-    return repr((_table._FORMAT if form is None else form, TINY_STEPS, param, axes))
+def _tiny_key(param=KATZ, axes=TINY_AXES, form=None, code=None):
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(_table, "_RK_STEPS", TINY_STEPS)
+        if form is not None:
+            patch.setattr(_table, "_FORMAT", form)
+        if code is not None:
+            patch.setattr(_table, "_code_digest", lambda module: code)
+        return _table._table_key(param, axes)
 
 
 def _tiny_file(folder) -> Path:
@@ -193,8 +199,9 @@ def test_loading_marks_a_table_used(folder):
 
 # --- faults in the cache are rebuilt ----------------------------------------------------
 
-def _valid_arrays(truth):
-    return {"key": np.array(_tiny_key()), "state": truth.state, "onset": truth.onset}
+def _stored(path):
+    with np.load(path) as stored:
+        return {name: stored[name] for name in stored.files}
 
 
 def _write_npz(path, **arrays):
@@ -203,7 +210,7 @@ def _write_npz(path, **arrays):
 
 
 def _damage(case, path, truth):
-    good = _valid_arrays(truth)
+    good = _stored(path)
     if case == "empty":
         path.write_bytes(b"")
     elif case == "npy under the name":
@@ -239,6 +246,14 @@ def _damage(case, path, truth):
         _write_npz(path, **(good | {"onset": truth.onset + 50.0}))
     elif case == "no key (older format)":
         _write_npz(path, state=truth.state, onset=truth.onset)
+    elif case == "no path facts":
+        _write_npz(path, key=good["key"], state=truth.state, onset=truth.onset)
+    elif case == "NaN in a path fact":
+        _write_npz(path, **(good | {"facts_turn": np.full_like(good["facts_turn"], np.nan)}))
+    elif case == "path fact of the wrong length":
+        _write_npz(path, **(good | {"facts_margin": good["facts_margin"][:-1]}))
+    elif case == "other code":
+        _write_npz(path, **(good | {"key": np.array(_tiny_key(code="0" * 16))}))
     elif case == "extra array":
         _write_npz(path, **good, spare=np.zeros(3))
     elif case == "other format":
@@ -254,7 +269,7 @@ def _damage(case, path, truth):
         _write_npz(path, **(good | {"key": np.array(good["key"].item().encode())}))
     elif case == "huge array header":
         with zipfile.ZipFile(path, "w") as archive:  # claims 10^12 floats it does not hold
-            for name in ("key", "onset"):
+            for name in (n for n in good if n != "state"):
                 with archive.open(f"{name}.npy", "w") as member:
                     np.save(member, good[name])
             header = b"\x93NUMPY\x01\x00v\x00{'descr': '<f4', 'fortran_order': False, "
@@ -267,7 +282,8 @@ def _damage(case, path, truth):
 
 FAULTS = ["empty", "npy under the name", "pickle", "text", "truncated", "flipped bytes",
           "wrong shape", "wrong dtype", "big-endian", "NaN in state", "NaN in onset",
-          "onset out of range", "no key (older format)", "extra array", "other format",
+          "onset out of range", "no key (older format)", "no path facts", "NaN in a path fact",
+          "path fact of the wrong length", "extra array", "other format", "other code",
           "other constants", "key of other axes", "key as bytes", "huge array header"]
 
 
@@ -291,7 +307,14 @@ def test_damaged_cache_file_is_rebuilt(folder, tiny_truth, case):
 def test_valid_cache_file_is_used_not_rebuilt(folder, monkeypatch, tiny_truth):
     _tiny()
     monkeypatch.setattr(_table, "_build", lambda *a: pytest.fail("rebuilt a valid table"))
-    np.testing.assert_array_equal(_tiny().state, tiny_truth.state)
+    monkeypatch.setattr(_path_facts, "_compute", lambda *a: pytest.fail("recomputed facts"))
+    table = _tiny()
+    np.testing.assert_array_equal(table.state, tiny_truth.state)
+    monkeypatch.undo()
+    fresh = _path_facts._compute(KATZ, tiny_truth)  # the stored facts are the computed ones
+    stored = _path_facts.path_facts(KATZ, table)
+    for field in dataclasses.fields(fresh):
+        np.testing.assert_array_equal(getattr(stored, field.name), getattr(fresh, field.name))
 
 
 def test_full_table_round_trip_and_damage(folder, monkeypatch):
@@ -344,7 +367,6 @@ def test_many_water_contents_build_no_new_tables(table_cache, monkeypatch):
         melt_column(1400.0, 20.0, water=water)
         melt_column([1300.0, 1500.0], 60.0, water=[water, 0.3 * water])
     assert {p.name: p.stat().st_size for p in table_cache.iterdir()} == before
-    assert len([name for name in before if "-wet-" in name]) == 1
 
 
 # --- lidmelt cache ------------------------------------------------------------------------

@@ -132,7 +132,7 @@ def test_top_pressure_and_temperature_against_scipy():
 def test_pooled_uses_mean_pressure_and_path_mean_temperature():
     column = ConstantProductivityColumn([1.0], [3.0], t_top=1330.0, t_slope=50.0)
     obs = MeltingPressure.from_frame(PT, equilibration="pooled")
-    # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (SCIENCE.md section 5), and
+    # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (docs/model.md, "Melting regions"), and
     # the melt-weighted mean of a linear T(P) is T at that pressure, 1330 + 50 * 1.0.
     expected = (stats.norm.logpdf(PT.pressure_gpa, 2.0, PT.sigma_gpa).sum()
                 + stats.norm.logpdf(PT.temperature_c, 1380.0, PT.sigma_c).sum())
@@ -187,10 +187,11 @@ def test_path_marginal_with_temperature_against_quadrature():
 def test_path_marginal_real_forward_against_slow_quadrature(melting_region):
     # Reference route: adaptive quadrature of the same marginal written without the path
     # or its weights. The equilibration-pressure density is -dF/dP (column) or
-    # -dF/dP (P0 - P) (ridge; Plank & Langmuir 1992 triangle), with F(P) from
-    # MeltColumn.profile. Integrating by parts avoids differentiating F:
+    # -dF/dP (P - Pf) (triangle, widening from its apex at the top of melting; Plank &
+    # Langmuir 1992), with F(P) from MeltColumn.profile (F rises monotonically here: a
+    # dry column). Integrating by parts avoids differentiating F:
     #   int g(P) (-dF/dP) dP = g(Pf) F(Pf) + int F(P) g'(P) dP      (F(P0) = 0)
-    # with g = N(y; P, s) for the column and g = N(y; P, s) (P0 - P) for the ridge.
+    # with g = N(y; P, s) for the column and g = N(y; P, s) (P - Pf) for the triangle.
     column = forward.melt_column(np.array([1420.0]), np.array([30.0]), melting_region=melting_region)
     top, onset = float(column.top_pressure[0]), float(column.onset_pressure[0])
 
@@ -198,10 +199,10 @@ def test_path_marginal_real_forward_against_slow_quadrature(melting_region):
         return float(column.profile(np.array([p]))[1][0, 0])
 
     def width(p):
-        return (onset - p) if melting_region == "triangle" else 1.0
+        return (p - top) if melting_region == "triangle" else 1.0
 
     def d_width(p):
-        return -1.0 if melting_region == "triangle" else 0.0
+        return 1.0 if melting_region == "triangle" else 0.0
 
     def marginal(g, dg):
         body, _ = integrate.quad(lambda p: melt_fraction(p) * dg(p), top, onset,
@@ -324,7 +325,7 @@ def test_simulate_is_seeded_and_centred_on_the_model():
                        np.random.default_rng(1))
 
 
-# ---- reading tables: every rule (issue 3, item 6)
+# ---- reading tables: every rule
 
 CRUST = {"kind": "crustal_thickness", "file": "t.csv"}
 BASALT = {"kind": "melting_pressure", "file": "t.csv"}

@@ -166,7 +166,7 @@ def test_describe_lists_every_parameter():
     assert "uniform on [0, 150] km" in text and "fixed at 0 ppm" in text
 
 
-# ---- every bad-input rule (issue 3, item 6) -------------------------------------------------
+# ---- every bad-input rule ---------------------------------------------------------------
 
 CASES = {
     # malformed TOML: file and line

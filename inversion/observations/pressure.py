@@ -5,7 +5,7 @@ optionally ``temperature_c`` (800-2000 degC, a sanity range) with ``sigma_c`` (>
 two temperature columns come together, and then every row needs both.
 
 Where in the melting interval a primary melt last equilibrated is a modelling choice
-(SCIENCE.md section 5, common practice), set by ``equilibration``:
+(docs/model.md, "Likelihoods"; common practice), set by ``equilibration``:
 
 ``"top"``
     At the top of melting (the lid base, or the onset when the lid is deeper):
@@ -52,7 +52,7 @@ __all__ = ["EQUILIBRATION", "NO_MELT_OFFSET", "PRESSURE_RANGE", "TEMPERATURE_RAN
 EQUILIBRATION = ("top", "pooled", "path")
 #: Nats subtracted per row where the model makes no melt (an observed melt exists).
 NO_MELT_OFFSET = 50.0
-#: Accepted range of observed pressures, GPa (issue 3: 0-10 GPa).
+#: Accepted range of observed pressures, GPa (the forward model spans 0-10 GPa).
 PRESSURE_RANGE = (0.0, 10.0)
 #: Accepted range of observed temperatures, degC (a sanity check on units, not physics).
 TEMPERATURE_RANGE = (800.0, 2000.0)
