@@ -13,7 +13,7 @@ from lidmelt import forward
 from lidmelt.inversion._errors import InputError
 from lidmelt.inversion.observations import (
     KINDS,
-    NO_MELT_OFFSET,
+    NO_MELT_SLOPE,
     CrustalThickness,
     MeltingPressure,
     melting_distance,
@@ -256,7 +256,10 @@ def test_no_melt_penalty_is_finite_and_slopes_toward_melting(equilibration):
     assert np.all(np.isfinite(ll))
     assert column.produces_melt[0] and not column.produces_melt[1:].any()
     assert np.all(np.diff(ll[1:]) < 0)  # thicker lid, further from melting: lower
-    assert ll[0] - ll[1] > len(obs) * NO_MELT_OFFSET * 0.5  # a steep step at the boundary
+    # Beyond the boundary the Gaussian stays at top = onset: only the slope changes ll.
+    distance = lids[1:] - column.onset_depth[1:]
+    assert_allclose(np.diff(ll[1:]), -len(obs) * NO_MELT_SLOPE * np.diff(distance),
+                    rtol=1e-9)
     # Mantle too cold to meet the solidus at all (onset depth 0): still finite, and
     # lower the colder it is, so an optimiser is led toward hotter mantle.
     cold = np.array([1000.0, 1030.0, 1060.0])
@@ -264,6 +267,35 @@ def test_no_melt_penalty_is_finite_and_slopes_toward_melting(equilibration):
     assert np.all(column.onset_depth == 0.0)
     ll = obs.log_likelihood(column, parameters=_params(cold, 0.0))
     assert np.all(np.isfinite(ll)) and np.all(np.diff(ll) > 0)
+
+
+@pytest.mark.parametrize("equilibration", ["top", "pooled", "path"])
+def test_no_melt_penalty_joins_the_melting_likelihood_continuously(equilibration):
+    # Step across the melting boundary (lid base = onset depth) by +-h, once in the lid
+    # and once in Tp: the two log-likelihoods must differ by O(h), not by a constant.
+    obs = MeltingPressure.from_frame(PT, equilibration=equilibration, path_points=64)
+    onset = float(forward.melt_column(1350.0, 0.0).onset_depth)
+    steps = np.array([1.0, 0.3, 0.1])  # km
+
+    def jump(tp, lid):
+        column = forward.melt_column(tp, lid)
+        assert column.produces_melt[0::2].all() and not column.produces_melt[1::2].any()
+        ll = obs.log_likelihood(column, parameters=_params(tp, lid))
+        return np.abs(ll[0::2] - ll[1::2])
+
+    lids = np.ravel(np.column_stack([onset - steps, onset + steps]))
+    across_lid = jump(np.full(lids.size, 1350.0), lids)
+    # The same boundary crossed in Tp at a fixed lid: Tp where the onset is 0.3 km below
+    # or above the lid (the onset deepens by about 0.37 km per K near 1350 degC).
+    lid = np.full(6, onset)
+    tps = np.ravel(np.column_stack([1350.0 + steps / 0.37, 1350.0 - steps / 0.37]))
+    across_tp = jump(tps, lid)
+    # Outside, 3 rows x NO_MELT_SLOPE nat/km; inside, the Gaussians follow the top of
+    # melting (about 1 nat/km in all here): the gap grows like ~3 nat/km x 2h (measured
+    # 2.2-2.7), so 5 nat/km is a bound that a constant offset of even 1 nat breaks at h=0.1.
+    for gaps, width in ((across_lid, 2 * steps), (across_tp, 2 * steps)):
+        np.testing.assert_array_less(gaps, 5.0 * width)
+        assert gaps[-1] < gaps[0] / 3  # shrinks with the step
 
 
 def test_crust_no_melt_keeps_the_zero_thickness_gaussian_and_slopes():

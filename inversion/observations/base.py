@@ -13,7 +13,7 @@ or the mantle is too cold to meet the solidus), an observed melt product cannot 
 explained. Instead of ``-inf`` (which would leave a sampler or optimiser started there no
 direction to move) the log-likelihood of each row that records melt is lowered by
 
-    NO_MELT_OFFSET_kind + NO_MELT_SLOPE * d
+    NO_MELT_SLOPE * d
 
 where d (km, `melting_distance`) is how far the point is from making melt: the lid
 thickness below the onset depth or, for mantle too cold to meet the solidus at all
@@ -21,11 +21,13 @@ thickness below the onset depth or, for mantle too cold to meet the solidus at a
 amount (K) by which the adiabat misses the solidus (``MeltColumn.solidus_margin``; for a
 column without it, 1100 degC - (Tp - solidus offset), 1100 degC being about the surface
 solidus of dry peridotite) divided by 3.66 K/km, the difference between the solidus and
-adiabat slopes (about 113 K/GPa at 30.89 km/GPa; SCIENCE.md sections 1-3; the value only
-sets the penalty's direction and scale). The penalty is finite, never NaN, and grows
-steadily away from the melting boundary, so the search slopes back toward melting. The
-lid thickness comes from the column (``MeltColumn.lithosphere_thickness``) or from
-``parameters=`` of `log_likelihood`; without either, d is 0 and the penalty is constant.
+adiabat slopes (about 113 K/GPa at 30.89 km/GPa, docs/model.md; the value only sets the
+penalty's direction and scale). d is 0 on the melting boundary, and each kind evaluates
+its Gaussian at the degenerate melting column there (top = onset), so the likelihood is
+continuous across the boundary: finite, never NaN, and falling steadily away from it, so
+the search slopes back toward melting. The lid thickness comes from the column
+(``MeltColumn.lithosphere_thickness``) or from ``parameters=`` of `log_likelihood`;
+without either, d is 0 and there is no slope.
 """
 
 from __future__ import annotations
@@ -52,7 +54,7 @@ __all__ = [
 
 #: Nats per km of distance from melting, per row that records melt (see module docstring).
 NO_MELT_SLOPE = 1.0
-_COLD_REFERENCE = 1100.0  # degC, surface solidus of dry peridotite (SCIENCE.md 2-3)
+_COLD_REFERENCE = 1100.0  # degC, surface solidus of dry peridotite (docs/model.md)
 _COLD_GRADIENT = 3.66  # degC/km, solidus minus adiabat slope, 113 K/GPa / 30.89 km/GPa
 _COMMON_KEYS = ("kind", "file", "model_error")
 _LOG_SQRT_2PI = 0.5 * math.log(2.0 * math.pi)

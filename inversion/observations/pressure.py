@@ -5,7 +5,7 @@ optionally ``temperature_c`` (800-2000 degC, a sanity range) with ``sigma_c`` (>
 two temperature columns come together, and then every row needs both.
 
 Where in the melting interval a primary melt last equilibrated is a modelling choice
-(SCIENCE.md section 5, common practice), set by ``equilibration``:
+(docs/model.md, common practice), set by ``equilibration``:
 
 ``"top"``
     At the top of melting (the lid base, or the onset when the lid is deeper):
@@ -22,8 +22,11 @@ Where in the melting interval a primary melt last equilibrated is a modelling ch
 
 s_P^2 = sigma_gpa^2 + model_error^2 and s_T^2 = sigma_c^2 + temperature_model_error^2.
 Each row is an observed melt, so where the model makes no melt every row gets the
-no-melt penalty of `inversion.observations.base` with the constant offset
-`NO_MELT_OFFSET` (the likelihood is evaluated at the degenerate point top = onset).
+sloping no-melt penalty of `inversion.observations.base`. The likelihood is then
+evaluated at the degenerate point top = onset, which is also the limit of each
+equilibration model as the melting interval shrinks to nothing, so the log-likelihood
+joins the melting side continuously (no constant offset) and falls by `NO_MELT_SLOPE` nats
+per km per row away from it.
 """
 
 from __future__ import annotations
@@ -45,13 +48,10 @@ from .base import (
 )
 from .tables import ColumnRule
 
-__all__ = ["EQUILIBRATION", "NO_MELT_OFFSET", "PRESSURE_RANGE", "TEMPERATURE_RANGE",
-           "MeltingPressure"]
+__all__ = ["EQUILIBRATION", "PRESSURE_RANGE", "TEMPERATURE_RANGE", "MeltingPressure"]
 
 #: Where the observed melts are assumed to have equilibrated.
 EQUILIBRATION = ("top", "pooled", "path")
-#: Nats subtracted per row where the model makes no melt (an observed melt exists).
-NO_MELT_OFFSET = 50.0
 #: Accepted range of observed pressures, GPa (issue 3: 0-10 GPa).
 PRESSURE_RANGE = (0.0, 10.0)
 #: Accepted range of observed temperatures, degC (a sanity check on units, not physics).
@@ -229,9 +229,8 @@ class MeltingPressure(ObservationSet):
 
     def pointwise_log_likelihood(self, column, *,
                                  parameters: Mapping | None = None) -> np.ndarray:
-        dry = ~np.asarray(column.produces_melt, bool)
-        distance = melting_distance(column, parameters)
-        penalty = np.where(dry, NO_MELT_OFFSET + NO_MELT_SLOPE * distance, 0.0)
+        # The distance is 0 wherever melt forms, so the penalty needs no mask.
+        penalty = NO_MELT_SLOPE * melting_distance(column, parameters)
         return self._per_row(column) - penalty[..., None]
 
     def predict(self, column) -> dict[str, np.ndarray]:
