@@ -47,6 +47,7 @@ def render(posterior) -> str:
         "\nDerived quantities of the melting column:\n",
         _table(posterior.derived_summary()),
         _model_section(posterior),
+        _sampler_section(posterior),
         _convergence_section(posterior),
         "## Caution\n",
         CAUTION + "\n",
@@ -111,6 +112,21 @@ def _model_section(posterior) -> str:
     for block in study.observations:
         lines.append(f"- Data: {block.describe()}")
     return "\n".join(lines) + "\n"
+
+
+def _sampler_section(posterior) -> str:
+    """Every [sampler] value this run used, defaults marked, so a reader can repeat it."""
+    from dataclasses import fields
+
+    settings = posterior.study.sampler
+    used = {f.name: getattr(settings, f.name) for f in fields(settings)}
+    used["seed"] = posterior.seed  # --seed may override the study file
+    items = []
+    for f in fields(settings):
+        value = used[f.name]
+        text = f'"{value}"' if isinstance(value, str) else f"{value:g}"
+        items.append(f"`{f.name}` = {text}" + (" (default)" if value == f.default else ""))
+    return "## Sampler settings used\n\n" + "; ".join(items) + ".\n"
 
 
 def _convergence_section(posterior) -> str:

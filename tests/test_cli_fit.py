@@ -28,7 +28,8 @@ DEMO = demo_data.study_path().parent
 
 
 def _small_study(folder: Path, *, sampler: str = "", basalts: str | None = None,
-                 parameters: str | None = None, extra: str = "") -> Path:
+                 parameters: str | None = None, extra: str = "",
+                 replace: tuple[str, str] | None = None) -> Path:
     """A copy of the demo study with a cheaper sampler section (and optional edits)."""
     folder.mkdir(parents=True, exist_ok=True)
     shutil.copy(DEMO / "crust.csv", folder / "crust.csv")
@@ -37,6 +38,9 @@ def _small_study(folder: Path, *, sampler: str = "", basalts: str | None = None,
     else:
         (folder / "basalts.csv").write_text(basalts)
     text = (DEMO / "study.toml").read_text()
+    if replace is not None:
+        assert replace[0] in text, replace[0]  # guards the test itself
+        text = text.replace(*replace)
     head, _ = text.split("[sampler]")
     if parameters is not None:
         before, rest = head.split("[parameters]")
@@ -164,6 +168,9 @@ LID_40 = "\nlithosphere_thickness = { value = 40.0 }"
         ({"parameters": 'potential_temperature = { value = 1400.0 }\n'
                         'lithosphere_thickness = { value = -5.0 }'}, r"lithosphere_thickness"),
         ({"sampler": "walkers = 16\nseed = [1\n"}, r"malformed TOML"),
+        ({"replace": ('equilibration = "path"\n', "")},
+         r"study.toml, line \d+, key 'observations\[2\].equilibration': missing "
+         r"'equilibration'.*\"top\".*\"pooled\".*\"path\""),
     ],
 )
 def test_bad_input_exits_2_with_one_line_and_no_folder(tmp_path, capsys, edit, message):

@@ -118,12 +118,13 @@ def test_crust_against_the_real_forward_model():
 
 def test_top_pressure_and_temperature_against_scipy():
     column = ConstantProductivityColumn([1.1, 1.5], [3.2, 2.9], t_top=1340.0)
-    obs = MeltingPressure.from_frame(PT, model_error=0.1, temperature_model_error=15.0)
+    obs = MeltingPressure.from_frame(PT, equilibration="top", model_error=0.1,
+                                     temperature_model_error=15.0)
     sp, st = np.hypot(PT.sigma_gpa, 0.1), np.hypot(PT.sigma_c, 15.0)
     expected = [stats.norm.logpdf(PT.pressure_gpa, p, sp).sum()
                 + stats.norm.logpdf(PT.temperature_c, 1340.0, st).sum() for p in (1.1, 1.5)]
     assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
-    pressure_only = MeltingPressure.from_frame(PRESSURES)
+    pressure_only = MeltingPressure.from_frame(PRESSURES, equilibration="top")
     expected = [stats.norm.logpdf(PRESSURES.pressure_gpa, p, PRESSURES.sigma_gpa).sum()
                 for p in (1.1, 1.5)]
     assert_allclose(pressure_only.log_likelihood(column), expected, rtol=1e-12)
@@ -359,7 +360,7 @@ def test_simulate_is_seeded_and_centred_on_the_model():
 # ---- reading tables: every rule (issue 3, item 6)
 
 CRUST = {"kind": "crustal_thickness", "file": "t.csv"}
-BASALT = {"kind": "melting_pressure", "file": "t.csv"}
+BASALT = {"kind": "melting_pressure", "file": "t.csv", "equilibration": "top"}
 PT_HEADER = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\n"
 
 TABLE_CASES = {
@@ -447,7 +448,25 @@ def test_unknown_option_key_for_a_kind():
 ])
 def test_bad_pressure_options(options, match):
     with pytest.raises(InputError, match=match):
-        MeltingPressure.from_frame(PRESSURES, **options)
+        MeltingPressure.from_frame(PRESSURES, **{"equilibration": "top", **options})
+
+
+def test_equilibration_is_required_and_its_choices_are_explained(tmp_path):
+    # No silent default: each choice moves Tp and the lid, so the user must pick one.
+    (tmp_path / "t.csv").write_text("sample,pressure_gpa,sigma_gpa\nA,1.5,0.2\n")
+    spec = {key: value for key, value in BASALT.items() if key != "equilibration"}
+    with pytest.raises(InputError) as info:
+        MeltingPressure.from_spec(spec, base_dir=tmp_path, where="observations[2]")
+    message = str(info.value)
+    assert message.startswith("key 'observations[2].equilibration': missing 'equilibration'")
+    for choice in ('"top" (at the top of melting', '"pooled" (at the mean melting pressure',
+                   '"path" (anywhere along the melting path, weighted by melt production'):
+        assert choice in message
+    assert "\n" not in message
+    with pytest.raises(InputError, match=r"missing 'equilibration'"):
+        MeltingPressure.from_frame(PRESSURES)
+    with pytest.raises(InputError, match=r"unknown value 'bottom'; choose \"top\" \(at"):
+        MeltingPressure.from_frame(PRESSURES, equilibration="bottom")
 
 
 def test_observed_and_describe():

@@ -150,6 +150,19 @@ def test_report_states_numbers_with_units_and_caution(quick):
     assert "katz2003" in text
 
 
+def test_report_states_every_sampler_setting_used(quick):
+    from lidmelt.inversion.report import render
+
+    text = render(quick)
+    section = text.split("## Sampler settings used")[1].split("##")[0]
+    # quick: the demo study file (start "map", seed 1) with four settings replaced; the
+    # README's defaults are max_steps 20000 and seed 1.
+    for item in ("`walkers` = 16;", "`seed` = 1 (default);", "`ess_target` = 300;",
+                 "`tau_multiple` = 20;", "`max_steps` = 20000 (default);",
+                 "`check_interval` = 50;", '`start` = "map".'):
+        assert item in section, (item, section)
+
+
 def test_fit_refuses_too_few_walkers(study):
     with pytest.raises(inversion.InputError, match="walkers"):
         inversion.fit(study.with_sampler(walkers=4), quiet=True)

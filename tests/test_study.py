@@ -235,6 +235,10 @@ CASES = {
         r"observations\[1\].kind': missing 'kind'"),
     "unknown-equilibration": (('equilibration = "top"', 'equilibration = "pooledd"'),
         r"observations\[2\].equilibration': unknown value 'pooledd'; did you mean 'pooled'"),
+    "missing-equilibration": (('equilibration = "top"\n', ""),
+        r"line 23, key 'observations\[2\].equilibration': missing 'equilibration', where "
+        r"the basalts last equilibrated with the mantle: \"top\" \(at the top of melting.*"
+        r"\"pooled\" \(at the mean melting pressure.*\"path\" \(anywhere along"),
     "unknown-thickness-of": (("model_error = 0.5", 'model_error = 0.5\nthickness_of = "mlt"'),
         r"observations\[1\].thickness_of': unknown value 'mlt'; did you mean 'melt'"),
     "negative-model-error": (("model_error = 0.5", "model_error = -0.5"),

@@ -50,13 +50,18 @@ from .tables import ColumnRule
 
 __all__ = ["EQUILIBRATION", "PRESSURE_RANGE", "TEMPERATURE_RANGE", "MeltingPressure"]
 
-#: Where the observed melts are assumed to have equilibrated.
-EQUILIBRATION = ("top", "pooled", "path")
+#: Where the observed melts are assumed to have equilibrated, and what each choice means.
+EQUILIBRATION = {
+    "top": "at the top of melting (the lid base, or the onset when the lid is deeper)",
+    "pooled": "at the mean melting pressure and temperature of the pooled melt",
+    "path": "anywhere along the melting path, weighted by melt production",
+}
 #: Accepted range of observed pressures, GPa (issue 3: 0-10 GPa).
 PRESSURE_RANGE = (0.0, 10.0)
 #: Accepted range of observed temperatures, degC (a sanity check on units, not physics).
 TEMPERATURE_RANGE = (800.0, 2000.0)
 _PATH_POINTS = (8, 1024)
+_EQUILIBRATION_CHOICES = ", ".join(f'"{k}" ({v})' for k, v in EQUILIBRATION.items())
 
 
 class MeltingPressure(ObservationSet):
@@ -86,8 +91,8 @@ class MeltingPressure(ObservationSet):
     sigma_column = "sigma_gpa"
     option_keys = ("equilibration", "path_points", "temperature_model_error")
 
-    def __init__(self, data, *, file=None, model_error=0.0, lines=None,
-                 equilibration: str = "top", path_points: int = 64,
+    def __init__(self, data, *, equilibration: str, file=None, model_error=0.0,
+                 lines=None, path_points: int = 64,
                  temperature_model_error: float = 0.0) -> None:
         super().__init__(data, file=file, model_error=model_error, lines=lines)
         options = self._parse_options({"equilibration": equilibration,
@@ -122,11 +127,16 @@ class MeltingPressure(ObservationSet):
 
     @classmethod
     def _parse_options(cls, spec: Mapping, where: str) -> dict:
-        equilibration = spec.get("equilibration", "top")
-        if equilibration not in EQUILIBRATION:
-            raise InputError(f"unknown value {equilibration!r}"
-                             + suggest(str(equilibration), EQUILIBRATION),
+        if "equilibration" not in spec:
+            raise InputError("missing 'equilibration', where the basalts last equilibrated"
+                             " with the mantle: " + _EQUILIBRATION_CHOICES,
                              key=f"{where}.equilibration")
+        equilibration = spec["equilibration"]
+        if not isinstance(equilibration, str) or equilibration not in EQUILIBRATION:
+            hint = suggest(str(equilibration), tuple(EQUILIBRATION))
+            hint = hint if hint.startswith("; did you mean") else ""
+            raise InputError(f"unknown value {equilibration!r}{hint}; choose "
+                             + _EQUILIBRATION_CHOICES, key=f"{where}.equilibration")
         points = spec.get("path_points", 64)
         low, high = _PATH_POINTS
         if isinstance(points, bool) or not isinstance(points, int) or \
@@ -278,7 +288,7 @@ class MeltingPressure(ObservationSet):
 
     def describe(self) -> str:
         where = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
-                 "path": "anywhere along the melting path, weighted by melt production"}
+                 "path": EQUILIBRATION["path"]}
         what = "pressure-temperature point(s)" if self.has_temperature else "pressure(s)"
         errors = []
         if self.model_error:
