@@ -64,7 +64,7 @@ def corner_figure(posterior) -> Figure:
     size = max(3.6, 2.4 * ndim)
     fig = Figure(figsize=(size, size))
     corner.corner(
-        kept, fig=fig, labels=[_SHORT[n] for n in posterior.names],
+        kept, fig=fig, labels=[axis_label(posterior, n) for n in posterior.names],
         quantiles=[0.16, 0.5, 0.84], show_titles=False, label_kwargs={"fontsize": 11},
         truths=[posterior.map[n] for n in posterior.names], truth_color="tab:red",
         levels=(0.393, 0.865), plot_datapoints=False, fill_contours=True, color="#1f4e79",
@@ -80,6 +80,17 @@ def corner_figure(posterior) -> Figure:
     return fig
 
 
+def axis_label(posterior, name: str) -> str:
+    """Short axis label of a free parameter, with unit (free model errors included)."""
+    if name in _SHORT:
+        return _SHORT[name]
+    error = next(e for e in posterior.logpost.errors if e.name == name)
+    block = error.name.rsplit(".", 1)[0]
+    what = {"temperature_model_error": "T", "model_error": {
+        "GPa": "P", "km": "thickness"}.get(error.unit, "")}[error.option]
+    return f"Model error, {block} {what} ({_UNIT_TEXT.get(error.unit, error.unit)})"
+
+
 def _title(row) -> str:
     from .report import _decimals
 
@@ -92,7 +103,8 @@ def _title(row) -> str:
 def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     """Observations against the model predictions of `ndraws` posterior draws."""
     column = posterior.logpost.column(posterior.predictive_draws(ndraws))
-    panels = list(_fit_panels(posterior.study.observations, column))
+    panels = list(_fit_panels(posterior.study.observations, column,
+                              _median_errors(posterior)))
     fig = Figure(figsize=(10.0, 0.6 + 2.6 * len(panels)), layout="constrained")
     axes = fig.subplots(len(panels), 1, squeeze=False)[:, 0]
     for ax, panel in zip(axes, panels, strict=True):
@@ -102,10 +114,22 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     return fig
 
 
-def _fit_panels(blocks, column):
-    """One panel per observed quantity: labels, observed values/sigmas, predictions."""
-    for block in blocks:
-        observed = block.observed()
+def _median_errors(posterior) -> list[dict[str, float]]:
+    """Posterior median of each block's free model errors (for the error bars)."""
+    medians = posterior.samples.median(numeric_only=True)
+    out = [{} for _ in posterior.study.observations]
+    for error in posterior.logpost.errors:
+        out[error.block][error.option] = float(medians[error.name])
+    return out
+
+
+def _fit_panels(blocks, column, errors):
+    """One panel per observed quantity: labels, observed values/sigmas, predictions.
+
+    Error bars include the model errors, free ones at their posterior median.
+    """
+    for block, block_errors in zip(blocks, errors, strict=True):
+        observed = block.observed(block_errors)
         predicted = block.predict(column)
         names = list(block.ids)
         if block.kind == "crustal_thickness":

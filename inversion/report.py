@@ -8,7 +8,7 @@ import numpy as np
 
 from .model import UNITS
 
-__all__ = ["CAUTION", "render"]
+__all__ = ["CAUTION", "parameter_title", "render"]
 
 #: The caution paragraph every report ends with.
 CAUTION = (
@@ -34,6 +34,14 @@ _NAMES = {
 _UNIT_TEXT = {"degC": "°C", "km": "km", "ppm": "ppm", "GPa": "GPa", "-": ""}
 
 
+def parameter_title(posterior, name: str) -> str:
+    """A free parameter or derived quantity in words (free model errors included)."""
+    if name in _NAMES:
+        return _NAMES[name]
+    error = next(e for e in posterior.logpost.errors if e.name == name)
+    return error.title(posterior.study.observations[error.block])
+
+
 def render(posterior) -> str:
     """Markdown text of the report for `posterior`."""
     study = posterior.study
@@ -43,9 +51,9 @@ def render(posterior) -> str:
         "## Estimates\n",
         "Median with the central 68 % and 95 % posterior intervals "
         "(2.5, 16, 84 and 97.5 % quantiles), and the maximum a posteriori (MAP) value.\n",
-        _table(posterior.summary()),
+        _table(posterior, posterior.summary()),
         "\nDerived quantities of the melting column:\n",
-        _table(posterior.derived_summary()),
+        _table(posterior, posterior.derived_summary()),
         _model_section(posterior),
         _sampler_section(posterior),
         _convergence_section(posterior),
@@ -59,7 +67,8 @@ def render(posterior) -> str:
 def _headline(posterior) -> str:
     lines = []
     for _, row in posterior.summary().iterrows():
-        lines.append(f"- {_NAMES[row['parameter']]}: {_interval_words(row)}")
+        lines.append(f"- {parameter_title(posterior, row['parameter'])}: "
+                     f"{_interval_words(row)}")
     flag = "" if posterior.converged else (
         "\n**Warning: the sampler did NOT converge** (see Convergence); the numbers below "
         "may be unreliable.\n")
@@ -79,14 +88,15 @@ def _interval_words(row) -> str:
             f"95 %: {_f(row['q2.5'], d)} to {_f(row['q97.5'], d)}{unit})")
 
 
-def _table(frame) -> str:
+def _table(posterior, frame) -> str:
     head = ("| quantity | unit | median | 68 % interval | 95 % interval | MAP | ESS "
             "| τ (steps) |\n|---|---|---|---|---|---|---|---|")
     rows = [head]
     for _, r in frame.iterrows():
         d = _decimals(r["sd"])
         rows.append(
-            f"| {_NAMES[r['parameter']]} | {_UNIT_TEXT[r['unit']] or '–'} "
+            f"| {parameter_title(posterior, r['parameter'])} | "
+            f"{_UNIT_TEXT[r['unit']] or '–'} "
             f"| {_f(r['median'], d)} "
             f"| {_f(r['q16'], d)} – {_f(r['q84'], d)} | {_f(r['q2.5'], d)} – "
             f"{_f(r['q97.5'], d)} | {_f(r['map'], d)} | {r['ess']:.0f} | {r['tau']:.1f} |"
@@ -102,10 +112,10 @@ def _model_section(posterior) -> str:
              f"{model.melting_region}; "
              f"crust density {model.crust_density:g} kg/m³, mantle density "
              f"{model.mantle_density:g} kg/m³."]
-    for name in posterior.names:
-        prior = study.priors[name]
-        lines.append(f"- Prior on {_NAMES[name].lower()}: "
-                     f"{prior.describe(unit=_UNIT_TEXT[UNITS[name]])}.")
+    for name, prior in zip(posterior.names, posterior.logpost.priors, strict=True):
+        unit = _UNIT_TEXT[posterior.logpost.units[name]]
+        lines.append(f"- Prior on {_lower_first(parameter_title(posterior, name))}: "
+                     f"{prior.describe(unit=unit)}.")
     for name, value in study.fixed.items():
         lines.append(f"- Held fixed: {_NAMES[name].lower()} = {value:g} "
                      f"{_UNIT_TEXT[UNITS[name]]}".rstrip() + ".")
@@ -162,6 +172,10 @@ def _files_section() -> str:
         "run.json (versions, seed, study-file hash, command line), corner.png, fit.png, "
         "pt.png.\n"
     )
+
+
+def _lower_first(text: str) -> str:
+    return text[:1].lower() + text[1:]
 
 
 def _decimals(sd: float) -> int:

@@ -7,10 +7,11 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
-from scipy import integrate, stats
+from scipy import integrate, special, stats
 
 from lidmelt import forward
 from lidmelt.inversion._errors import InputError
+from lidmelt.inversion.priors import LogUniform, TruncatedNormal, Uniform
 from lidmelt.inversion.observations import (
     KINDS,
     NO_MELT_SLOPE,
@@ -166,19 +167,159 @@ def test_path_marginal_against_closed_form():
     assert_allclose(coarse.log_likelihood(column), exact, rtol=5e-3)
 
 
-def test_path_marginal_with_temperature_against_quadrature():
+PT_RHO = PT.assign(pt_correlation=[0.8, -0.6, 0.3])
+
+
+def _covariance(row, p_error=0.0, t_error=0.0):
+    # The stated errors are correlated; model errors are added independently of them.
+    sp, st, rho = row.sigma_gpa, row.sigma_c, getattr(row, "pt_correlation", 0.0)
+    return np.array([[sp**2 + p_error**2, rho * sp * st],
+                     [rho * sp * st, st**2 + t_error**2]])
+
+
+@pytest.mark.parametrize("table", [PT, PT_RHO], ids=["independent", "correlated"])
+def test_path_marginal_with_temperature_against_quadrature(table):
     top, onset, t_top, slope = 1.0, 3.0, 1330.0, 50.0
     column = ConstantProductivityColumn([top], [onset], t_top=t_top, t_slope=slope)
-    obs = MeltingPressure.from_frame(PT, equilibration="path", path_points=512)
+    obs = MeltingPressure.from_frame(table, equilibration="path", path_points=512)
     expected = 0.0
-    for _, row in PT.iterrows():
-        def integrand(p, row=row):
-            return (stats.norm.pdf(row.pressure_gpa, p, row.sigma_gpa)
-                    * stats.norm.pdf(row.temperature_c, t_top + slope * (p - top), row.sigma_c)
-                    / (onset - top))
+    for row in table.itertuples():
+        # Reference: the continuous mixture over a uniform equilibration pressure of
+        # bivariate normals (scipy.stats.multivariate_normal), by adaptive quadrature.
+        normal = stats.multivariate_normal(cov=_covariance(row))
+
+        def integrand(p, row=row, normal=normal):
+            residual = [row.pressure_gpa - p, row.temperature_c - t_top - slope * (p - top)]
+            return normal.pdf(residual) / (onset - top)
+
         value, _ = integrate.quad(integrand, top, onset, epsabs=0, epsrel=1e-10)
         expected += np.log(value)
     assert_allclose(obs.log_likelihood(column), [expected], rtol=1e-5)
+
+
+@pytest.mark.parametrize("equilibration", ["top", "pooled"])
+def test_correlated_pt_point_models_against_scipy_multivariate_normal(equilibration):
+    tops, onsets = (1.0, 1.4), (3.0, 2.6)
+    column = ConstantProductivityColumn(tops, onsets, t_top=1330.0, t_slope=50.0)
+    obs = MeltingPressure.from_frame(PT_RHO, equilibration=equilibration, model_error=0.1,
+                                     temperature_model_error=15.0)
+    expected = []
+    for top, onset in zip(tops, onsets, strict=True):
+        # Constant productivity: the pooled melt sits at (Pf + P0) / 2, and the
+        # melt-weighted mean of a linear T(P) is T there (docs/model.md).
+        p = top if equilibration == "top" else 0.5 * (top + onset)
+        t = 1330.0 + 50.0 * (p - top)
+        expected.append(sum(
+            stats.multivariate_normal.logpdf([r.pressure_gpa, r.temperature_c], [p, t],
+                                             _covariance(r, 0.1, 15.0))
+            for r in PT_RHO.itertuples()))
+    assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
+
+
+def test_correlated_path_with_free_model_errors_against_scipy_mixture():
+    # "path" is the mixture over path points of bivariate normals; each walker has its
+    # own (free) model errors. ConstantProductivityColumn's path: midpoints of 16 equal
+    # intervals of [top, onset], equal weights 1/16, T linear in P.
+    tops, onsets = (1.0, 0.6), (3.0, 2.2)
+    column = ConstantProductivityColumn(tops, onsets, t_top=1330.0, t_slope=50.0)
+    obs = MeltingPressure.from_frame(PT_RHO, equilibration="path", path_points=16,
+                                     model_error=Uniform(0.0, 1.0),
+                                     temperature_model_error=Uniform(0.0, 100.0))
+    errors = {"model_error": np.array([0.1, 0.3]),
+              "temperature_model_error": np.array([15.0, 40.0])}
+    expected = []
+    for i, (top, onset) in enumerate(zip(tops, onsets, strict=True)):
+        mids = top + (onset - top) * (np.arange(16) + 0.5) / 16
+        points = np.column_stack([mids, 1330.0 + 50.0 * (mids - top)])
+        total = 0.0
+        for r in PT_RHO.itertuples():
+            cov = _covariance(r, errors["model_error"][i],
+                              errors["temperature_model_error"][i])
+            log_pdf = [stats.multivariate_normal.logpdf([r.pressure_gpa, r.temperature_c],
+                                                        point, cov) for point in points]
+            total += special.logsumexp(log_pdf) - np.log(16)
+        expected.append(total)
+    assert_allclose(obs.log_likelihood(column, errors=errors), expected, rtol=1e-12)
+    pointwise = obs.pointwise_log_likelihood(column, errors=errors)
+    assert_allclose(pointwise.sum(axis=1), expected, rtol=1e-12)
+    with pytest.raises(ValueError, match=r"model_error is free"):
+        obs.log_likelihood(column)
+
+
+def test_simulated_pt_errors_have_the_stated_correlation():
+    rows = 4000
+    table = _frame(sample=["s"] * rows, pressure_gpa=[2.0] * rows, sigma_gpa=[0.2] * rows,
+                   temperature_c=[1400.0] * rows, sigma_c=[25.0] * rows,
+                   pt_correlation=[0.8] * rows)
+    obs = MeltingPressure.from_frame(table, equilibration="top", model_error=0.1,
+                                     temperature_model_error=15.0)
+    column = ConstantProductivityColumn([1.0], [3.0], t_top=1330.0)
+    sim = obs.simulate(column, np.random.default_rng(8))
+    dp, dt = sim.values - 1.0, sim.temperature - 1330.0
+    s_p, s_t = np.hypot(0.2, 0.1), np.hypot(25.0, 15.0)
+    # Correlation of the total errors: 0.8 * 0.2 * 25 / (s_p s_t) = 0.614; the standard
+    # error of a sample correlation is (1 - r^2) / sqrt(n) = 0.01 (common practice).
+    r = 0.8 * 0.2 * 25.0 / (s_p * s_t)
+    assert abs(np.corrcoef(dp, dt)[0, 1] - r) < 4 * (1 - r**2) / np.sqrt(rows)
+    assert abs(np.std(dp) / s_p - 1) < 4 / np.sqrt(2 * rows)
+    assert abs(np.std(dt) / s_t - 1) < 4 / np.sqrt(2 * rows)
+
+
+# ---- model errors: fixed or free
+
+
+def test_free_crust_model_error_against_scipy():
+    prior = LogUniform(0.01, 2.0)
+    obs = CrustalThickness.from_frame(
+        _frame(site=["A", "B"], thickness_km=[7.0, 8.2], sigma_km=[0.8, 1.1]),
+        model_error=prior)
+    assert obs.free_errors == {"model_error": prior}
+    column = ConstantProductivityColumn([1.0, 1.2], [3.0, 3.1], crust=[6.5, 9.0])
+    errors = {"model_error": np.array([0.3, 1.5])}
+    expected = [stats.norm.logpdf([7.0, 8.2], m, np.sqrt(np.array([0.8, 1.1])**2 + e**2)).sum()
+                for m, e in ((6.5, 0.3), (9.0, 1.5))]
+    assert_allclose(obs.log_likelihood(column, errors=errors), expected, rtol=1e-12)
+    with pytest.raises(ValueError, match=r"model_error is free \(log-uniform"):
+        obs.log_likelihood(column)
+    # A free error's value is not part of the stated sigma; observed() can add one.
+    assert_allclose(obs.sigma, [0.8, 1.1])
+    assert_allclose(obs.observed({"model_error": 0.6})["sigma"], np.hypot([0.8, 1.1], 0.6))
+    assert "model error free, log-uniform on [0.01, 2] km" in obs.describe()
+
+
+@pytest.mark.parametrize(("spec", "match"), [
+    ({"model_error": {"prior": "uniform", "min": -0.1, "max": 1.0}},
+     r"key 'observations\[2\].model_error.min': prior min -0.1 is outside the physical "
+     r"range \[0, inf\]"),
+    ({"model_error": {"prior": "log-uniform", "min": 0.0, "max": 1.0}},
+     r"model_error.min': min = 0 must be > 0 for a log-uniform prior"),
+    ({"model_error": {"prior": "unifrom", "min": 0.0, "max": 1.0}},
+     r"model_error.prior': unknown prior 'unifrom'; did you mean 'uniform'"),
+    ({"model_error": "0.1"}, r"model_error': '0.1' must be a finite number or a prior"),
+    ({"temperature_model_error": {"value": -2.0}},
+     r"temperature_model_error.value': fixed value -2 is outside the physical range"),
+])
+def test_bad_model_error_settings(spec, match):
+    with pytest.raises(InputError, match=match) as info:
+        MeltingPressure.from_spec({**BASALT, "file": "basalts.csv", **spec}, base_dir=DATA,
+                                  where="observations[2]")
+    assert "\n" not in str(info.value)
+
+
+def test_model_error_priors_from_a_block(tmp_path):
+    spec = {**BASALT, "file": "basalts.csv",
+            "model_error": {"prior": "normal", "mean": 0.0, "sd": 0.2},
+            "temperature_model_error": {"value": 10.0}}
+    obs = MeltingPressure.from_spec(spec, base_dir=DATA, where="observations[2]")
+    # A normal prior on a standard deviation is cut to [0, inf): a half-normal.
+    assert obs.model_error == TruncatedNormal(0.0, 0.2, 0.0, np.inf)
+    assert obs.temperature_model_error == 10.0
+    assert list(obs.free_errors) == ["model_error"]
+    (tmp_path / "t.csv").write_text("sample,pressure_gpa,sigma_gpa\nA,1.5,0.2\n")
+    free_t = {**BASALT, "temperature_model_error": {"prior": "uniform", "min": 0, "max": 50}}
+    with pytest.raises(InputError, match=r"key 'observations\[2\].temperature_model_error': "
+                                         r"a free temperature_model_error needs temperatures"):
+        MeltingPressure.from_spec(free_t, base_dir=tmp_path, where="observations[2]")
 
 
 # forward tabulates F, so its slope has small kinks; quad warns about roundoff there
@@ -357,11 +498,12 @@ def test_simulate_is_seeded_and_centred_on_the_model():
                        np.random.default_rng(1))
 
 
-# ---- reading tables: every rule (issue 3, item 6)
+# ---- reading tables: every rule
 
 CRUST = {"kind": "crustal_thickness", "file": "t.csv"}
 BASALT = {"kind": "melting_pressure", "file": "t.csv", "equilibration": "top"}
 PT_HEADER = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\n"
+RHO_HEADER = PT_HEADER.replace("\n", ",pt_correlation\n")
 
 TABLE_CASES = {
     "missing-column": (CRUST, "site,thickness,sigma_km\nA,7,1\n",
@@ -395,6 +537,17 @@ TABLE_CASES = {
                      r"column 'sigma_c': value 0 must be > 0 degC"),
     "temperature-without-sigma": (BASALT, PT_HEADER.replace(",sigma_c", "") + "A,1,0.2,1350\n",
         r"missing column 'sigma_c', needed together with temperature_c"),
+    "correlation-one": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,0.5\nB,1,0.2,1350,20,1\n",
+        r"t.csv, row 3, column 'pt_correlation': value 1 must be > -1 and < 1 \(a "
+        r"correlation coefficient lies strictly between -1 and 1\)"),
+    "correlation-below-minus-one": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,-1.2\n",
+        r"row 2, column 'pt_correlation': value -1.2 must be > -1 and < 1"),
+    "correlation-empty": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,\n",
+        r"row 2, column 'pt_correlation': empty cell"),
+    "correlation-without-temperature": (BASALT,
+        "sample,pressure_gpa,sigma_gpa,pt_correlation\nA,1,0.2,0.5\n",
+        r"t.csv, row 1, column 'pt_correlation': column 'pt_correlation' is allowed only "
+        r"together with temperature_c, sigma_c \(missing: temperature_c, sigma_c\)"),
     "field-count": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,7\n",
                     r"row 3: has 2 fields but the header \(line 1\) has 3"),
     "empty-file": (CRUST, "\n# nothing here\n", r"the file is empty"),

@@ -101,12 +101,13 @@ def _run_and_report(study, args, out: Path, command: list[str]) -> int:
 
 def print_result(posterior, out: Path) -> None:
     """Headline numbers and where the results are, on stdout."""
-    from ..report import _NAMES, _interval_words
+    from ..report import _interval_words, parameter_title
 
     state = "converged" if posterior.converged else "NOT CONVERGED (see report.md)"
     print(f"{posterior.study.name}: {state}; {posterior.chain.shape[0]} steps x "
           f"{posterior.chain.shape[1]} walkers")
     for _, row in posterior.summary().iterrows():
-        print(f"  {_NAMES[row['parameter']]}: {_interval_words(row).replace('**', '')}")
+        print(f"  {parameter_title(posterior, row['parameter'])}: "
+              f"{_interval_words(row).replace('**', '')}")
     where = out.resolve()
     print(f"Results written to {where}/ (start with {where / 'report.md'})")

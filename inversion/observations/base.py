@@ -2,9 +2,10 @@
 
 An observation set is one ``[[observations]]`` block of a study file: a table of
 measurements of one kind with their 1-sigma uncertainties. Its likelihood is Gaussian and
-independent between rows; an optional ``model_error`` (same unit as the data) is added to
-each row's sigma in quadrature, sigma_total = sqrt(sigma^2 + model_error^2), to allow for
-what the forward model leaves out.
+independent between rows; an optional ``model_error`` (same unit as the data, fixed or
+free: `inversion.observations.model_error`) is added to each row's sigma in quadrature,
+sigma_total = sqrt(sigma^2 + model_error^2), to allow for what the forward model leaves
+out.
 
 No-melt penalty
 ---------------
@@ -43,11 +44,14 @@ import numpy as np
 import pandas as pd
 
 from .._errors import InputError, suggest
+from ..priors import Prior
+from .model_error import combine_sigma, parse_error_setting
 from .tables import ColumnRule, read_table, validate_frame
 
 __all__ = [
     "NO_MELT_SLOPE",
     "ObservationSet",
+    "bivariate_logpdf",
     "gaussian_logpdf",
     "melting_distance",
 ]
@@ -64,6 +68,31 @@ def gaussian_logpdf(x, mean, sd) -> np.ndarray:
     """Log density of the normal distribution N(mean, sd^2) at `x` (broadcasting)."""
     z = (np.asarray(x, float) - mean) / sd
     return -0.5 * z * z - np.log(sd) - _LOG_SQRT_2PI
+
+
+def bivariate_logpdf(dx, dy, sx, sy, rho) -> np.ndarray:
+    """Log density of a bivariate normal at residuals (dx, dy) (broadcasting).
+
+    Parameters
+    ----------
+    dx, dy : array_like
+        Observed minus mean, in the units of `sx` and `sy`.
+    sx, sy : array_like
+        Standard deviations (> 0).
+    rho : array_like
+        Correlation coefficient, -1 < rho < 1.
+
+    Returns
+    -------
+    numpy.ndarray
+        log N2 = -(zx^2 - 2 rho zx zy + zy^2) / (2 (1 - rho^2)) - log(2 pi sx sy
+        sqrt(1 - rho^2)), with z = d / s; rho = 0 gives the sum of two `gaussian_logpdf`.
+    """
+    zx = np.asarray(dx, float) / sx
+    zy = np.asarray(dy, float) / sy
+    spare = 1.0 - np.square(rho)
+    quad = (zx * zx - 2.0 * rho * zx * zy + zy * zy) / spare
+    return -0.5 * quad - np.log(sx) - np.log(sy) - 0.5 * np.log(spare) - 2.0 * _LOG_SQRT_2PI
 
 
 def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
@@ -135,8 +164,10 @@ class ObservationSet(ABC):
         The validated table, one row per observation, in file order.
     lines : tuple of int
         File line number of each row.
-    model_error : float
-        Added to every sigma in quadrature (unit of the values).
+    model_error : float or Prior
+        Added to every sigma in quadrature (unit of the values); a `Prior` when free.
+    error_options : tuple of str
+        Names of the block's model-error settings (class attribute).
     """
 
     kind: ClassVar[str]
@@ -146,17 +177,20 @@ class ObservationSet(ABC):
     value_column: ClassVar[str]
     sigma_column: ClassVar[str]
     option_keys: ClassVar[tuple[str, ...]] = ()
+    error_options: ClassVar[tuple[str, ...]] = ("model_error",)
 
     def __init__(self, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
-                 model_error: float = 0.0, lines: Sequence[int] | None = None) -> None:
+                 model_error: float | Prior = 0.0,
+                 lines: Sequence[int] | None = None) -> None:
         self.data = data
         self.file = None if file is None else Path(file)
-        self.model_error = float(model_error)
+        self.model_error = parse_error_setting(model_error, "model_error")
         self.lines = tuple(range(2, 2 + len(data))) if lines is None else tuple(lines)
         # The likelihood runs in the sampler's inner loop: convert the columns once.
         self._values = _frozen(data[self.value_column])
-        self._sigma = _frozen(np.hypot(data[self.sigma_column].to_numpy(float),
-                                       self.model_error))
+        self._stated_sigma = _frozen(data[self.sigma_column])
+        self._sigma = _frozen(combine_sigma(self._stated_sigma, _fixed(self.model_error),
+                                            "model_error", None))
 
     # ---- construction ------------------------------------------------------------------
 
@@ -195,22 +229,32 @@ class ObservationSet(ABC):
         if not isinstance(spec["file"], str) or not spec["file"].strip():
             raise InputError(f"{spec['file']!r} must be a file name in quotes",
                              key=f"{where}.file")
-        model_error = _non_negative(spec.get("model_error", 0.0), f"{where}.model_error")
+        model_error = parse_error_setting(spec.get("model_error", 0.0),
+                                          f"{where}.model_error")
         options = cls._parse_options(spec, where)
         path = Path(base_dir) / spec["file"]
         required, optional = cls.column_rules(**options)
         table = read_table(path, required, optional=optional, key=f"{where}.file")
-        return cls(table.data, file=path, model_error=model_error, lines=table.lines,
-                   **options)
+        try:
+            return cls(table.data, file=path, model_error=model_error, lines=table.lines,
+                       **options)
+        except InputError as err:  # a setting that does not fit the table: name the block
+            if err.file is not None or err.key is None:
+                raise
+            raise InputError(err.message, key=f"{where}.{err.key}") from None
 
     @classmethod
     def from_frame(cls, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
-                   model_error: float = 0.0, **options) -> ObservationSet:
-        """Build from a table in memory, checked by the same rules as a file."""
-        model_error = _non_negative(model_error, "model_error")
+                   model_error: float | Prior = 0.0, **options) -> ObservationSet:
+        """Build from a table in memory, checked by the same rules as a file.
+
+        `model_error` (and kind options such as ``temperature_model_error``) may be a
+        number or a `Prior` (free).
+        """
+        model_error = parse_error_setting(model_error, "model_error")
         options = cls._parse_options(options, "observations")
         required, optional = cls.column_rules(**options)
-        rules = list(required) + [r for group in optional if all(
+        rules = list(required) + [r for group in optional if any(
             rule.name in data.columns for rule in group) for r in group]
         table = validate_frame(data, rules, file=file)
         return cls(table.data, file=file, model_error=model_error, lines=table.lines,
@@ -233,12 +277,39 @@ class ObservationSet(ABC):
 
     @property
     def sigma(self) -> np.ndarray:
-        """Total 1-sigma uncertainty per row incl. model error, shape (rows,) (read-only)."""
+        """1-sigma uncertainty per row incl. a fixed model error, shape (rows,) (read-only).
+
+        A free model error is not included (its value varies); see `total_sigma`.
+        """
         return self._sigma
 
-    def observed(self) -> dict[str, np.ndarray]:
-        """Observed values for plotting: ``{"value": (rows,), "sigma": (rows,)}``."""
-        return {"value": self.values, "sigma": self.sigma}
+    @property
+    def free_errors(self) -> dict[str, Prior]:
+        """The block's free model errors: option name -> prior, in `error_options` order."""
+        return {option: getattr(self, option) for option in self.error_options
+                if isinstance(getattr(self, option), Prior)}
+
+    def total_sigma(self, errors: Mapping | None = None) -> np.ndarray:
+        """Stated sigma and model error in quadrature: (rows,), or (n, rows) for (n,) errors.
+
+        `errors` gives the values of the free model errors (see `free_errors`).
+        """
+        return self._sd(self._stated_sigma, "model_error", self._sigma, errors)
+
+    def _sd(self, stated, option: str, fixed: np.ndarray, errors: Mapping | None):
+        setting = getattr(self, option)
+        return fixed if not isinstance(setting, Prior) else combine_sigma(
+            stated, setting, option, errors)
+
+    def observed(self, errors: Mapping | None = None) -> dict[str, np.ndarray]:
+        """Observed values for plotting: ``{"value": (rows,), "sigma": (rows,)}``.
+
+        ``sigma`` includes the model error: the fixed one, or a free one at the scalar
+        values given in `errors` (without them, only the stated sigma).
+        """
+        sigma = self._sigma if not self.free_errors or errors is None else \
+            self.total_sigma(errors)
+        return {"value": self.values, "sigma": sigma}
 
     @property
     def name(self) -> str:
@@ -247,7 +318,8 @@ class ObservationSet(ABC):
 
     # ---- model comparison --------------------------------------------------------------
 
-    def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
+    def log_likelihood(self, column, *, parameters: Mapping | None = None,
+                       errors: Mapping | None = None) -> np.ndarray:
         """Log-likelihood summed over rows for each melting column.
 
         Parameters
@@ -257,6 +329,9 @@ class ObservationSet(ABC):
         parameters : mapping, optional
             The melt_column inputs per vector, each shape (n,); used only by the no-melt
             penalty (see `melting_distance`).
+        errors : mapping, optional
+            Value of each free model error (`free_errors`) per vector, shape (n,);
+            required when the block has one.
 
         Returns
         -------
@@ -264,15 +339,16 @@ class ObservationSet(ABC):
             Shape (n,); finite everywhere (never NaN). The sum over rows of
             `pointwise_log_likelihood`.
         """
-        return self.pointwise_log_likelihood(column, parameters=parameters).sum(axis=-1)
+        return self.pointwise_log_likelihood(column, parameters=parameters,
+                                             errors=errors).sum(axis=-1)
 
     @abstractmethod
-    def pointwise_log_likelihood(self, column, *,
-                                 parameters: Mapping | None = None) -> np.ndarray:
+    def pointwise_log_likelihood(self, column, *, parameters: Mapping | None = None,
+                                 errors: Mapping | None = None) -> np.ndarray:
         """Log-likelihood of every row (no-melt penalty included), shape ``(n, rows)``.
 
         Rows are independent given the parameters, so these are the terms a
-        leave-one-out comparison needs; they sum to `log_likelihood`.
+        leave-one-out comparison needs; they sum to `log_likelihood` (same arguments).
         """
 
     @abstractmethod
@@ -280,11 +356,13 @@ class ObservationSet(ABC):
         """Model prediction for each row, ``{"value": (n, rows), ...}``."""
 
     @abstractmethod
-    def simulate(self, column, rng: np.random.Generator) -> ObservationSet:
+    def simulate(self, column, rng: np.random.Generator, *,
+                 errors: Mapping | None = None) -> ObservationSet:
         """A copy whose values are drawn from the likelihood at one melting column.
 
-        The sigmas stay; `column` must hold a single parameter vector. The draws are not
-        re-validated (a simulated thickness may come out negative).
+        The sigmas and model-error settings stay; `column` must hold a single parameter
+        vector, and `errors` the scalar value of each free model error to draw with. The
+        draws are not re-validated (a simulated thickness may come out negative).
         """
 
     @abstractmethod
@@ -308,14 +386,23 @@ def _frozen(values) -> np.ndarray:
     return array
 
 
-def _non_negative(value, key: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float) or \
-            not math.isfinite(value):
-        raise InputError(f"{value!r} must be a finite number", key=key)
-    if value < 0:
-        raise InputError(f"{value:g} must be >= 0 (it is added to sigma in quadrature)",
-                         key=key)
-    return float(value)
+def _fixed(setting: float | Prior) -> float:
+    """The fixed part of a model-error setting (0 for a free one)."""
+    return 0.0 if isinstance(setting, Prior) else float(setting)
+
+
+def describe_errors(block, units: Mapping[str, str]) -> str:
+    """E.g. ``" (model error 0.1 GPa; temperature model error free, uniform on [0, 50]
+    degC)"``, or ``""`` when every model error is 0."""
+    parts = []
+    for option in block.error_options:
+        setting, unit = getattr(block, option), units[option]
+        words = option.replace("_", " ")
+        if isinstance(setting, Prior):
+            parts.append(f"{words} free, {setting.describe(unit=unit)}")
+        elif setting:
+            parts.append(f"{words} {setting:g} {unit}")
+    return f" ({'; '.join(parts)})" if parts else ""
 
 
 def require_single(column, who: str) -> None:
