@@ -76,7 +76,9 @@ def corner_figure(posterior) -> Figure:
     fig.suptitle(f"{posterior.study.name}: posterior of the free parameters\n"
                  "contours enclose 39 % and 86 % (1σ and 2σ in 2-D); red: MAP;\n"
                  "dashed: 16, 50 and 84 % quantiles", fontsize=9, y=0.995)
-    fig.subplots_adjust(top=0.85 if ndim > 1 else 0.7, left=0.14, bottom=0.12)
+    # About an inch of title space whatever the figure size (5+ parameters with errors).
+    fig.subplots_adjust(top=min(0.93, 1.0 - 1.0 / size) if ndim > 1 else 0.7, left=0.14,
+                        bottom=0.12)
     return fig
 
 
@@ -86,9 +88,9 @@ def axis_label(posterior, name: str) -> str:
         return _SHORT[name]
     error = next(e for e in posterior.logpost.errors if e.name == name)
     block = error.name.rsplit(".", 1)[0]
-    what = {"temperature_model_error": "T", "model_error": {
-        "GPa": "P", "km": "thickness"}.get(error.unit, "")}[error.option]
-    return f"Model error, {block} {what} ({_UNIT_TEXT.get(error.unit, error.unit)})"
+    what = {"temperature_model_error": " T", "model_error": {
+        "GPa": " P"}.get(error.unit, "")}[error.option]
+    return f"Model error,\n{block}{what} ({_UNIT_TEXT.get(error.unit, error.unit)})"
 
 
 def _title(row) -> str:
@@ -134,7 +136,7 @@ def _fit_panels(blocks, column, errors):
         names = list(block.ids)
         if block.kind == "crustal_thickness":
             target = f"{block.thickness_of} thickness"
-            label = "Igneous crust (km)" if target == "crustal thickness" else "Melt (km)"
+            label = "Igneous crust (km)" if block.thickness_of == "crust" else "Melt (km)"
             yield dict(names=names, obs=observed["value"], sigma=observed["sigma"],
                        pred=predicted["value"], ylabel=label,
                        title=f"{block.name}: thickness against the model {target}")
@@ -178,7 +180,7 @@ def _draw_fit_panel(ax, *, names, obs, sigma, pred, ylabel, title, interval=None
     centre = "model, median" if weighted is None else "model, melt-weighted mean"
     ax.hlines(med, x - width, x + width, color="tab:blue", lw=2.0, label=centre)
     ax.errorbar(x, obs, yerr=sigma, fmt="o", color="black", ms=4.5, capsize=3,
-                label="observed ± 1σ")
+                label="observed ± 1σ (incl. model error)")
     ax.set_xticks(x, names, rotation=30, ha="right", fontsize=8)
     ax.set_xlim(-0.7, len(names) - 0.3)
     ax.set_ylabel(ylabel)

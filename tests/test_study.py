@@ -11,7 +11,7 @@ import pytest
 from lidmelt import forward
 from lidmelt.inversion._errors import InputError
 from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
-from lidmelt.inversion.priors import Normal, TruncatedNormal, Uniform
+from lidmelt.inversion.priors import LogUniform, Normal, TruncatedNormal, Uniform
 from lidmelt.inversion.study import DEFAULT_FIXED, PARAMETERS, ModelSettings, SamplerSettings, Study
 
 DATA = Path(__file__).parent / "data"
@@ -159,6 +159,41 @@ def test_study_is_frozen():
         study.name = "other"
 
 
+def test_free_model_errors_in_a_study_file(make_study):
+    path = make_study(("model_error = 0.5",
+                       'model_error = { prior = "log-uniform", min = 0.01, max = 0.5 }'),
+                      ('equilibration = "top"',
+                       'equilibration = "top"\ntemperature_model_error = { prior = '
+                       '"uniform", min = 0.0, max = 60.0 }'))
+    study = Study.from_file(path)
+    crust, basalts = study.observations
+    assert crust.model_error == LogUniform(0.01, 0.5)
+    assert basalts.temperature_model_error == Uniform(0.0, 60.0)
+    assert [(e.name, e.block, e.option, e.unit) for e in study.error_parameters] == [
+        ("crust.model_error", 0, "model_error", "km"),
+        ("basalts.temperature_model_error", 1, "temperature_model_error", "degC")]
+    # The physical parameters stay as they were; the errors come after them.
+    assert study.free_parameters == ("potential_temperature", "lithosphere_thickness",
+                                     "solidus_offset")
+    assert "crust.model_error: free, log-uniform on [0.01, 0.5] km" in study.describe()
+    # Five free values now, so 8 walkers are too few (2 per free value).
+    with pytest.raises(InputError, match=r"walkers = 8 is too few for 5 free parameters"):
+        study.with_sampler(walkers=8)
+
+
+def test_error_parameter_names_are_unique_and_file_safe(tmp_path):
+    shutil.copy(DATA / "crust.csv", tmp_path / "crust survey (2019).csv")
+    study = Study.from_file(DATA / "study.toml")
+    free = {"model_error": {"prior": "uniform", "min": 0.0, "max": 2.0}}
+    a = CrustalThickness.from_spec({"file": "crust.csv", **free}, base_dir=DATA)
+    b = CrustalThickness.from_spec({"file": "crust.csv", **free}, base_dir=DATA)
+    c = CrustalThickness.from_spec({"file": "crust survey (2019).csv", **free},
+                                   base_dir=tmp_path)
+    names = [e.name for e in study.with_observations([a, b, c]).error_parameters]
+    assert names == ["crust-1.model_error", "crust-2.model_error",
+                     "crust_survey__2019_.model_error"]
+
+
 def test_describe_lists_every_parameter():
     text = Study.from_file(DATA / "study.toml").describe()
     for name in PARAMETERS:
@@ -166,7 +201,7 @@ def test_describe_lists_every_parameter():
     assert "uniform on [0, 150] km" in text and "fixed at 0 ppm" in text
 
 
-# ---- every bad-input rule (issue 3, item 6) -------------------------------------------------
+# ---- every bad-input rule -------------------------------------------------
 
 CASES = {
     # malformed TOML: file and line
