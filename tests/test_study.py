@@ -353,7 +353,9 @@ def test_bad_table_row_is_named_through_the_study(make_study):
 
 
 def test_study_values_reach_the_forward_model():
-    # The parsed settings are valid forward.melt_column inputs (integration with forward).
+    # The parsed settings, passed on to forward.melt_column, give the column of the values
+    # written in tests/data/study.toml (typed here by hand): prior medians Tp 1450 degC,
+    # lid 75 km, offset 0 degC; water 0, active upwelling 1, crust 2900 kg/m^3.
     study = Study.from_file(DATA / "study.toml")
     values = {name: np.array([study.priors[name].ppf(0.5)]) for name in study.free_parameters}
     values.update({name: np.array([v]) for name, v in study.fixed.items()})
@@ -361,4 +363,11 @@ def test_study_values_reach_the_forward_model():
         values.pop("potential_temperature"), values.pop("lithosphere_thickness"), **values,
         parameterization=study.model.parameterization, melting_region=study.model.melting_region,
         crust_density=study.model.crust_density, mantle_density=study.model.mantle_density)
-    assert column.melt_thickness.shape == (1,)
+    by_hand = forward.melt_column(1450.0, 75.0, water=0.0, active_upwelling=1.0,
+                                  solidus_offset=0.0, parameterization="katz2003",
+                                  melting_region="column", crust_density=2900.0,
+                                  mantle_density=3300.0)
+    assert float(by_hand.crustal_thickness) > 1.0  # a column that melts: a real check
+    for name in ("crustal_thickness", "onset_depth", "mean_melting_pressure"):
+        np.testing.assert_allclose(getattr(column, name), [getattr(by_hand, name)],
+                                   rtol=1e-12)
