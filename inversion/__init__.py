@@ -26,7 +26,7 @@ from .observations import KINDS, ObservationSet
 from .posterior import SUMMARY_COLUMNS, Posterior, fit
 from .priors import LogUniform, Normal, Prior, TruncatedNormal, Uniform, prior_from_spec
 from .sampler import ChainResult, assess_chain, read_chain, run_chain
-from .study import ModelSettings, SamplerSettings, Study
+from .study import ErrorParameter, ModelSettings, SamplerSettings, Study
 
 __all__ = [
     "DERIVED",
@@ -36,6 +36,7 @@ __all__ = [
     "SUMMARY_COLUMNS",
     "UNITS",
     "ChainResult",
+    "ErrorParameter",
     "InputError",
     "LogPosterior",
     "LogUniform",

@@ -214,7 +214,7 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
         np.array([[posterior.map[n] for n in posterior.names]]))
     plotting.draw_melting_path(ax, map_column, 0, color="tab:red", max_pressure=max_p,
                                label="melting path at the MAP (dotted: solid adiabat)")
-    _draw_observed_pt(ax, study.observations)
+    _draw_observed_pt(ax, study.observations, _median_errors(posterior))
     plotting.add_depth_axis(ax, study.model.mantle_density)
     ax.set_ylim(max_p, 0.0)
     handles, labels = _visible_legend_entries(ax)
@@ -292,12 +292,12 @@ def _draw_lid_band(ax, posterior, mantle_density) -> None:
         plotting.draw_lid(ax, lid, color="tab:green", label="lid base (fixed)")
 
 
-def _draw_observed_pt(ax, blocks) -> None:
+def _draw_observed_pt(ax, blocks, errors) -> None:
     first = True
-    for block in blocks:
+    for block, block_errors in zip(blocks, errors, strict=True):
         if block.kind != "melting_pressure":
             continue
-        obs = block.observed()
+        obs = block.observed(block_errors)
         label = "observed P–T ± 1σ" if first else None
         if "temperature" in obs:
             ax.errorbar(obs["temperature"], obs["value"], xerr=obs["temperature_sigma"],
