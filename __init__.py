@@ -19,15 +19,31 @@ Examples
 82.2
 """
 
-from importlib import metadata as _metadata
+from ._lazy import lazy_exports
 
-from .forward import MeltColumn, melt_column
-from .inversion import InputError, Posterior, Study, fit
+# Imported on first use, so `import lidmelt` does not load the sampler or plotting stack.
+_getattr, __dir__ = lazy_exports(__name__, globals(), {
+    "MeltColumn": ".forward", "melt_column": ".forward",
+    "InputError": ".inversion", "Posterior": ".inversion", "Study": ".inversion",
+    "fit": ".inversion",
+})
 
-try:
-    __version__ = _metadata.version("lidmelt")
-except _metadata.PackageNotFoundError:  # running from a source tree that is not installed
-    __version__ = "0+unknown"
+
+def _installed_version() -> str:
+    """The installed version of lidmelt (``"0+unknown"`` in an uninstalled source tree)."""
+    from importlib import metadata  # about 30 ms: only when asked
+
+    try:
+        return metadata.version("lidmelt")
+    except metadata.PackageNotFoundError:
+        return "0+unknown"
+
+
+def __getattr__(name: str):
+    if name == "__version__":
+        return _installed_version()
+    return _getattr(name)
+
 
 __all__ = ["InputError", "MeltColumn", "Posterior", "Study", "__version__", "fit",
            "melt_column"]

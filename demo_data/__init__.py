@@ -1,9 +1,9 @@
-"""Bundled demo study: an invented rift segment ("Orvanta Rift, Kessel segment").
+"""Bundled demo study: an invented rift segment ("Orvanta Rift, Vantrebel segment").
 
 The place names, sites, samples and numbers are invented for demonstration; they were
 simulated from lidmelt's forward model (Katz 2003 hydrous melting, 1-D column) at a
-potential temperature of 1400 degC, a 46 km lid, 150 ppm source water and no solidus
-shift, with Gaussian noise of the listed uncertainties added. They describe no real place.
+potential temperature of 1400 degC, a 46 km lid, 150 ppm source water and a zero solidus
+offset, with Gaussian noise of the listed uncertainties added. They describe no real place.
 """
 
 from __future__ import annotations

@@ -10,6 +10,7 @@ from ._validation import (
     DomainError,
     in_domain,
 )
+from .quantities import QUANTITIES, Quantity, quantity
 from .adiabat import MAX_PRESSURE, depth_per_pressure, solid_adiabat
 from .column import MELTING_REGIONS, MeltColumn, MeltingPath, melt_column
 from .parameterizations import (
@@ -29,6 +30,7 @@ __all__ = [
     "MELTING_REGIONS",
     "MAX_PRESSURE",
     "PARAMETERIZATIONS",
+    "QUANTITIES",
     "PARAMETER_DOMAIN",
     "PARAMETER_UNITS",
     "DomainError",
@@ -40,10 +42,12 @@ __all__ = [
     "MeltFraction",
     "MeltingPath",
     "Parameterization",
+    "Quantity",
     "ThermoConstants",
     "depth_per_pressure",
     "get_parameterization",
     "in_domain",
     "melt_column",
+    "quantity",
     "solid_adiabat",
 ]

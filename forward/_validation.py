@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .quantities import QUANTITIES
+
 __all__ = ["EXCLUSIVE_LOWER_BOUND", "PARAMETER_DOMAIN", "PARAMETER_UNITS", "DomainError",
            "check_inputs", "in_domain"]
 
@@ -22,16 +24,8 @@ PARAMETER_DOMAIN: dict[str, tuple[float, float]] = {
 #: Inputs whose lower bound in ``PARAMETER_DOMAIN`` is exclusive.
 EXCLUSIVE_LOWER_BOUND = frozenset({"active_upwelling"})
 
-#: Unit of every numeric input ("-" = dimensionless).
-PARAMETER_UNITS: dict[str, str] = {
-    "potential_temperature": "degC",
-    "lithosphere_thickness": "km",
-    "water": "ppm",
-    "active_upwelling": "-",
-    "solidus_offset": "degC",
-    "crust_density": "kg/m^3",
-    "mantle_density": "kg/m^3",
-}
+#: Unit of every numeric input ("-" = dimensionless), from the table of quantities.
+PARAMETER_UNITS: dict[str, str] = {name: QUANTITIES[name].unit for name in PARAMETER_DOMAIN}
 
 
 class DomainError(ValueError):

@@ -1,22 +1,20 @@
-"""P-T diagrams of melting: curves, melt-fraction contours, adiabats and paths.
+"""P-T diagrams of melting: curves, melt-fraction contours, adiabats, paths and lids.
 
-Pressure increases downward (as depth does); a second axis gives depth in km.
+Pressure increases downward (as depth does); a second axis gives depth in km. Colours
+and line styles come from `forward.figure_style` (explained in docs/figures.md).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from . import figure_style as style
 from .adiabat import depth_per_pressure, solid_adiabat
 from .parameterizations import get_parameterization
+from .quantities import quantity
 
-__all__ = ["add_depth_axis", "draw_lid", "draw_melting_path", "draw_pt_diagram"]
-
-_CURVE_STYLE = {
-    "solidus": dict(color="black", lw=1.8),
-    "lherzolite-out": dict(color="0.35", lw=1.2, ls="--"),
-    "liquidus": dict(color="black", lw=1.2, ls="-."),
-}
+__all__ = ["add_depth_axis", "draw_lid", "draw_melting_path", "draw_pt_diagram",
+           "label_contours", "visible_legend_entries"]
 
 
 def _melt_fraction_grid(param, temps, pressures, water, shift):
@@ -35,26 +33,31 @@ def draw_pt_diagram(ax, parameterization=None, *, water=0.0, solidus_offset=0.0,
                     contours=(0.1, 0.2, 0.3, 0.5)):
     """Melting curves and equilibrium melt-fraction contours on ``ax``.
 
-    Temperatures in degC on x, pressure in GPa on y (downward). The curves are shifted
-    by ``solidus_offset``; with ``water`` > 0 the wet solidus (F -> 0) is added.
+    Temperatures in degC on x, pressure in GPa on y (downward). The curves are moved by
+    ``solidus_offset`` (degC); with ``water`` (ppm) > 0 the wet solidus (F -> 0) is
+    added. Call `label_contours` once everything else is drawn.
     """
     param = get_parameterization(parameterization)
     pressures = np.linspace(0.0, max_pressure, 241)
     temps = np.linspace(*temperature_range, 361)
     frac = _melt_fraction_grid(param, temps, pressures, water, solidus_offset)
-    lines = ax.contour(temps, pressures, frac, levels=list(contours), colors="tab:olive",
-                       linewidths=0.7, alpha=0.8)
-    ax.clabel(lines, fmt=lambda f: f"F={f:g}", fontsize=7, inline_spacing=2)
+    ax.contour(temps, pressures, frac, levels=list(contours), colors=style.CONTOUR,
+               linewidths=0.8, zorder=1)
+    ax.plot([], [], color=style.CONTOUR, lw=0.8,
+            label="equilibrium melt fraction F (contours)")
     for name, temp in param.curves(pressures).items():
-        ax.plot(temp + solidus_offset, pressures, label=name, **_CURVE_STYLE.get(name, {}))
+        label = "solidus, dry" if name == "solidus" and water > 0 else name
+        ax.plot(temp + solidus_offset, pressures, label=label, zorder=2,
+                **style.CURVES.get(name, {}))
     if water > 0 and param.supports_water:
         wet = param.wet_solidus(pressures, water) + solidus_offset
-        ax.plot(wet, pressures, color="tab:blue", lw=1.4, label=f"solidus, {water:g} ppm H$_2$O")
+        ax.plot(wet, pressures, color=style.WET_SOLIDUS, lw=1.6, zorder=2,
+                label=f"solidus, {water:g} ppm H$_2$O")
     ax.set_xlim(*temperature_range)
     ax.set_ylim(max_pressure, 0.0)
-    ax.set_xlabel("Temperature (°C)")
-    ax.set_ylabel("Pressure (GPa)")
-    ax.grid(alpha=0.25, lw=0.5)
+    ax.set_xlabel(quantity("temperature").axis_label())
+    ax.set_ylabel(quantity("pressure").axis_label())
+    ax.grid(alpha=0.2, lw=0.5, color="0.6")
     return ax
 
 
@@ -66,26 +69,123 @@ def add_depth_axis(ax, mantle_density=3300.0):
     return sec
 
 
-def draw_melting_path(ax, column, index=(), *, color="tab:red", label=None, max_pressure=5.0):
-    """Solid adiabat (thin) and melting path (thick) of one point of a ``MeltColumn``."""
+def draw_melting_path(ax, column, index=(), *, color=None, label=None, max_pressure=5.0,
+                      adiabat=True):
+    """Solid adiabat (thin, dotted) and melting path (thick) of one point of a column.
+
+    The onset of melting is marked with a ring; `index` picks the point of an array
+    ``MeltColumn``.
+    """
+    color = style.MAP if color is None else color
     pressures = np.linspace(0.0, max_pressure, 400)
     temp, _ = column.profile(pressures)
     temp = np.asarray(temp)[index]
     q = column._query
     tp = float(np.asarray(q.potential_temperature)[index])
-    ax.plot(solid_adiabat(tp, pressures, q.param.thermo), pressures, color=color, lw=0.8,
-            ls=":", alpha=0.8)
+    if adiabat:
+        ax.plot(solid_adiabat(tp, pressures, q.param.thermo), pressures, color=color,
+                lw=0.9, ls=(0, (1, 2)), zorder=3)
     top = float(np.asarray(column.top_pressure)[index])
     onset = float(np.asarray(column.onset_pressure)[index])
     melting = (pressures >= top) & (pressures <= onset)
-    ax.plot(np.where(melting, temp, np.nan), pressures, color=color, lw=2.6, label=label)
+    ax.plot(np.where(melting, temp, np.nan), pressures, color=color, lw=2.6, label=label,
+            zorder=4, solid_capstyle="round")
     if column.produces_melt[index]:
-        ax.plot(float(np.interp(onset, pressures, temp)), onset, "o", color=color, ms=5)
+        ax.plot(float(np.interp(onset, pressures, temp)), onset, "o", mfc="white",
+                mec=color, mew=1.8, ms=6, zorder=5)
     return ax
 
 
-def draw_lid(ax, pressure, *, color="0.2", label="lid base"):
-    """Horizontal band above the lid base (GPa)."""
-    ax.axhspan(0.0, pressure, color="0.85", alpha=0.5, lw=0, zorder=0)
-    ax.axhline(pressure, color=color, lw=1.0, ls="--", label=label)
+def draw_lid(ax, pressure, *, label=None, text=None):
+    """Pale band over the lid and a thick dotted line at its base (pressure in GPa).
+
+    `text` is written on the line at the right (e.g. ``"lid base 40 km"``).
+    """
+    ax.axhspan(0.0, pressure, color=style.LID_FILL, lw=0, zorder=0)
+    ax.axhline(pressure, label=label, zorder=2, **style.LID_LINE)
+    if text:
+        ax.annotate(text, xy=(0.99, pressure), xycoords=("axes fraction", "data"),
+                    xytext=(0, -3), textcoords="offset points", ha="right", va="top",
+                    fontsize=8, color=style.LID, zorder=6)
     return ax
+
+
+def label_contours(ax, *, fontsize=7.5, margin=0.07):
+    """Label each melt-fraction contour once, away from other lines and the frame.
+
+    Call after everything else is drawn: for each level, the point of the contour inside
+    the axes (less `margin`, as a fraction of the axes) that is farthest from every other
+    line and from labels already placed gets the label, written inline (the contour is
+    cut there), so labels are neither clipped by the frame nor drawn over other lines.
+    """
+    from matplotlib.contour import ContourSet
+    from matplotlib.lines import Line2D
+
+    sets = [a for a in ax.get_children() if isinstance(a, ContourSet)]
+    if not sets:
+        return
+    ax.figure.draw_without_rendering()  # fixes the transforms (layout moves the axes)
+    box = ax.get_window_extent()
+    dx, dy = margin * box.width, margin * box.height
+    obstacles = [_display_points(line) for line in ax.get_lines()
+                 if isinstance(line, Line2D) and len(line.get_xdata())]
+    obstacles = np.concatenate(obstacles) if obstacles else np.empty((0, 2))
+    for cs in sets:
+        placed = []
+        for level, path in zip(cs.levels, cs.get_paths(), strict=False):
+            xy = ax.transData.transform(path.vertices) if len(path.vertices) else None
+            if xy is None:
+                continue
+            inside = ((xy[:, 0] > box.x0 + dx) & (xy[:, 0] < box.x1 - dx)
+                      & (xy[:, 1] > box.y0 + dy) & (xy[:, 1] < box.y1 - dy))
+            if not np.any(inside):
+                continue
+            cand = xy[inside]
+            others = np.concatenate([obstacles, np.array(placed).reshape(-1, 2)])
+            score = _nearest(cand, others) if len(others) else np.ones(len(cand))
+            best = cand[int(np.argmax(score))]
+            placed.append(best)
+            ax.clabel(cs, levels=[level], manual=[tuple(ax.transData.inverted()
+                                                        .transform(best))],
+                      inline=True, inline_spacing=3, fontsize=fontsize,
+                      fmt=lambda f: f"F = {f:g}")
+
+
+def _display_points(line, spacing: float = 4.0) -> np.ndarray:
+    """Points of `line` in display pixels, at most `spacing` apart (a straight line of
+    two vertices, such as a lid base, is filled in)."""
+    xy = np.column_stack([np.asarray(line.get_xdata(), float),
+                          np.asarray(line.get_ydata(), float)])
+    xy = line.get_transform().transform(xy[np.all(np.isfinite(xy), axis=1)])
+    if len(xy) < 2:
+        return xy.reshape(-1, 2)
+    pieces = [xy[:1]]
+    for a, b in zip(xy[:-1], xy[1:], strict=True):
+        n = int(min(np.hypot(*(b - a)) // spacing, 2000)) + 1
+        pieces.append(a + (b - a) * np.linspace(0.0, 1.0, n + 1)[1:, None])
+    return np.concatenate(pieces)
+
+
+def _nearest(points: np.ndarray, others: np.ndarray) -> np.ndarray:
+    """Distance (display pixels) from each of `points` to the nearest of `others`."""
+    from scipy.spatial import cKDTree
+
+    return cKDTree(others).query(points)[0]
+
+
+def visible_legend_entries(ax):
+    """Legend handles and labels, leaving out curves that lie wholly outside the axes."""
+    (x0, x1), (y1, y0) = ax.get_xlim(), ax.get_ylim()
+    y0, y1 = min(y0, y1), max(y0, y1)
+    keep_h, keep_l = [], []
+    for handle, label in zip(*ax.get_legend_handles_labels(), strict=True):
+        # Only data-coordinate curves can fall outside (axhline spans the axes anyway).
+        if (hasattr(handle, "get_xdata") and handle.get_transform() is ax.transData
+                and len(handle.get_xdata())):
+            x = np.asarray(handle.get_xdata(), float)
+            y = np.asarray(handle.get_ydata(), float)
+            if not np.any((x >= x0) & (x <= x1) & (y >= y0) & (y <= y1)):
+                continue
+        keep_h.append(handle)
+        keep_l.append(label)
+    return keep_h, keep_l

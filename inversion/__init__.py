@@ -19,14 +19,23 @@ Examples
     posterior.save("results")      # every output file, written atomically
 """
 
-from ._errors import InputError, NotConvergedWarning
-from ._outputs import OUTPUT_FILES
-from .model import DERIVED, PARAMETERS, UNITS, LogPosterior
-from .observations import KINDS, ObservationSet
-from .posterior import SUMMARY_COLUMNS, Posterior, fit
-from .priors import LogUniform, Normal, Prior, TruncatedNormal, Uniform, prior_from_spec
-from .sampler import ChainResult, assess_chain, read_chain, run_chain
-from .study import ErrorParameter, ModelSettings, SamplerSettings, Study
+from .._lazy import lazy_exports
+
+# Imported on first use: the sampler (emcee, h5py) and pandas load only when needed.
+_WHERE = {
+    "InputError": "._errors", "NotConvergedWarning": "._errors",
+    "OUTPUT_FILES": "._outputs",
+    "DERIVED": ".model", "PARAMETERS": ".model", "UNITS": ".model", "LogPosterior": ".model",
+    "KINDS": ".observations", "ObservationSet": ".observations",
+    "SUMMARY_COLUMNS": ".posterior", "Posterior": ".posterior", "fit": ".posterior",
+    "LogUniform": ".priors", "Normal": ".priors", "Prior": ".priors",
+    "TruncatedNormal": ".priors", "Uniform": ".priors", "prior_from_spec": ".priors",
+    "ChainResult": ".sampler", "assess_chain": ".sampler", "read_chain": ".sampler",
+    "run_chain": ".sampler",
+    "ErrorParameter": ".study", "ModelSettings": ".study", "SamplerSettings": ".study",
+    "Study": ".study",
+}
+__getattr__, __dir__ = lazy_exports(__name__, globals(), _WHERE)
 
 __all__ = [
     "DERIVED",

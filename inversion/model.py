@@ -27,13 +27,7 @@ __all__ = ["DERIVED", "PARAMETERS", "UNITS", "LogPosterior"]
 DERIVED = ("onset_depth", "crustal_thickness", "mean_melt_fraction", "mean_melting_pressure")
 
 #: Unit of every parameter and derived quantity ("-" = dimensionless).
-UNITS = {
-    **PARAMETER_UNITS,
-    "onset_depth": "km",
-    "crustal_thickness": "km",
-    "mean_melt_fraction": "-",
-    "mean_melting_pressure": "GPa",
-}
+UNITS = {**PARAMETER_UNITS, **{name: forward.QUANTITIES[name].unit for name in DERIVED}}
 
 class LogPosterior:
     """Vectorised log-posterior of a study for ``emcee.EnsembleSampler(vectorize=True)``.

@@ -372,8 +372,8 @@ def prior_from_spec(
         is returned as a `TruncatedNormal` cut to the domain, so that the prior is the
         normalised density the sampler actually explores.
     exclusive_low : bool, default False
-        The low end of `domain` itself is not allowed for a fixed value (e.g. an upwelling
-        ratio of exactly 0).
+        The low end of `domain` itself is not allowed for a fixed value (e.g. an active
+        upwelling of exactly 0).
 
     Returns
     -------

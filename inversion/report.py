@@ -3,43 +3,31 @@
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 
+from ..forward import get_parameterization
+from ..forward.quantities import quantity, unit_text
+from .checks import FLAG_LIMIT, posterior_checks
 from .model import UNITS
 
-__all__ = ["CAUTION", "parameter_title", "render"]
+__all__ = ["CAUTION", "decimals", "estimate", "interval_words", "render"]
 
 #: The caution paragraph every report ends with.
 CAUTION = (
     "These numbers are scientific estimates, not measurements. They depend on the chosen "
-    "melting parameterization, on the melting melting_region, on the values held fixed, on the "
+    "melting parameterization, on the shape of the melting region, on the values held fixed, "
+    "on the "
     "priors and on how the observations are linked to the melting column (for instance "
     "where the basalts last equilibrated). Another parameterization or other assumptions "
     "can move them by more than the quoted intervals. They are no basis on their own for "
     "hazard or resource decisions."
 )
 
-_NAMES = {
-    "potential_temperature": "Mantle potential temperature",
-    "lithosphere_thickness": "Lid (lithosphere) thickness",
-    "water": "Source water content",
-    "active_upwelling": "active upwelling",
-    "solidus_offset": "Solidus offset",
-    "onset_depth": "Depth where melting starts",
-    "crustal_thickness": "Igneous crust thickness",
-    "mean_melt_fraction": "Mean melt fraction of the pooled melt",
-    "mean_melting_pressure": "Mean melting pressure",
-}
-_UNIT_TEXT = {"degC": "°C", "km": "km", "ppm": "ppm", "GPa": "GPa", "-": ""}
-
-
-def parameter_title(posterior, name: str) -> str:
-    """A free parameter or derived quantity in words (free model errors included)."""
-    if name in _NAMES:
-        return _NAMES[name]
-    error = next(e for e in posterior.logpost.errors if e.name == name)
-    return error.title(posterior.study.observations[error.block])
+_MINUS = "\N{MINUS SIGN}"
+# A hyphen-minus that starts a number (not one inside a word, date or file name).
+_NEGATIVE = re.compile(r"(?<![\w.])-(?=\d)")
 
 
 def render(posterior) -> str:
@@ -51,24 +39,24 @@ def render(posterior) -> str:
         "## Estimates\n",
         "Median with the central 68 % and 95 % posterior intervals "
         "(2.5, 16, 84 and 97.5 % quantiles), and the maximum a posteriori (MAP) value.\n",
-        _table(posterior, posterior.summary()),
+        _table(posterior.summary()),
         "\nDerived quantities of the melting column:\n",
-        _table(posterior, posterior.derived_summary()),
+        _table(posterior.derived_summary()),
         _model_section(posterior),
+        _fit_section(posterior_checks(posterior)),
         _sampler_section(posterior),
         _convergence_section(posterior),
         "## Caution\n",
         CAUTION + "\n",
         _files_section(),
     ]
-    return "\n".join(parts)
+    return _NEGATIVE.sub(_MINUS, "\n".join(parts))
 
 
 def _headline(posterior) -> str:
     lines = []
     for _, row in posterior.summary().iterrows():
-        lines.append(f"- {parameter_title(posterior, row['parameter'])}: "
-                     f"{_interval_words(row)}")
+        lines.append(f"- {quantity(row['parameter']).title}: {interval_words(row)}")
     flag = "" if posterior.converged else (
         "\n**Warning: the sampler did NOT converge** (see Convergence); the numbers below "
         "may be unreliable.\n")
@@ -76,30 +64,49 @@ def _headline(posterior) -> str:
     return intro + "\n".join(lines) + "\n" + flag
 
 
-def _interval_words(row) -> str:
-    """E.g. ``**1392 +12/−10 °C** (68 %: 1382 to 1404 °C; 95 %: 1371 to 1416 °C)``."""
-    unit = _UNIT_TEXT[row["unit"]]
+def interval_words(row) -> str:
+    """A summary row in words: median, 68 % spread, both intervals, with the unit.
+
+    ``**1392 ± 11 °C** (68 %: 1381 to 1403 °C; 95 %: 1370 to 1415 °C)`` where the 68 %
+    interval is symmetric at the shown precision, else ``**1392 +12/−10 °C** (...)``.
+    """
+    unit = unit_text(row["unit"])
     unit = f" {unit}" if unit else ""
-    d = _decimals(row["sd"])
+    d = decimals(row["sd"])
+    return (f"**{estimate(row)}** "
+            f"(68 %: {_range(row['q16'], row['q84'], d)}{unit}; "
+            f"95 %: {_range(row['q2.5'], row['q97.5'], d)}{unit})")
+
+
+def estimate(row) -> str:
+    """Median and 68 % spread with the unit: ``1392 ± 11 °C`` or ``1392 +12/−10 °C``.
+
+    "±" where the interval is symmetric at the shown precision (about a tenth of the
+    posterior sd).
+    """
+    unit = unit_text(row["unit"])
+    d = decimals(row["sd"])
     med = row["median"]
-    plus, minus = row["q84"] - med, med - row["q16"]
-    return (f"**{_f(med, d)} +{_f(plus, d)}/−{_f(minus, d)}{unit}** "
-            f"(68 %: {_f(row['q16'], d)} to {_f(row['q84'], d)}{unit}; "
-            f"95 %: {_f(row['q2.5'], d)} to {_f(row['q97.5'], d)}{unit})")
+    plus, minus = _f(row["q84"] - med, d), _f(med - row["q16"], d)
+    spread = f" ± {plus}" if plus == minus else f" +{plus}/{_MINUS}{minus}"
+    return f"{_f(med, d)}{spread}" + (f" {unit}" if unit else "")
 
 
-def _table(posterior, frame) -> str:
+def _range(low: float, high: float, d: int) -> str:
+    return f"{_f(low, d)} to {_f(high, d)}"
+
+
+def _table(frame) -> str:
     head = ("| quantity | unit | median | 68 % interval | 95 % interval | MAP | ESS "
             "| τ (steps) |\n|---|---|---|---|---|---|---|---|")
     rows = [head]
     for _, r in frame.iterrows():
-        d = _decimals(r["sd"])
+        d = decimals(r["sd"])
         rows.append(
-            f"| {parameter_title(posterior, r['parameter'])} | "
-            f"{_UNIT_TEXT[r['unit']] or '–'} "
-            f"| {_f(r['median'], d)} "
-            f"| {_f(r['q16'], d)} – {_f(r['q84'], d)} | {_f(r['q2.5'], d)} – "
-            f"{_f(r['q97.5'], d)} | {_f(r['map'], d)} | {r['ess']:.0f} | {r['tau']:.1f} |"
+            f"| {quantity(r['parameter']).title} | {unit_text(r['unit']) or '–'} "
+            f"| {_f(r['median'], d)} | {_range(r['q16'], r['q84'], d)} "
+            f"| {_range(r['q2.5'], r['q97.5'], d)} | {_f(r['map'], d)} | {r['ess']:.0f} "
+            f"| {r['tau']:.1f} |"
         )
     return "\n".join(rows) + "\n"
 
@@ -107,21 +114,63 @@ def _table(posterior, frame) -> str:
 def _model_section(posterior) -> str:
     study = posterior.study
     model = study.model
+    region = _REGION_WORDS.get(model.melting_region, model.melting_region)
+    title = get_parameterization(model.parameterization).title
     lines = ["## Model, priors and data\n",
-             f"- Melting parameterization: {model.parameterization}; melting_region: "
-             f"{model.melting_region}; "
-             f"crust density {model.crust_density:g} kg/m³, mantle density "
-             f"{model.mantle_density:g} kg/m³."]
+             f"- Melting parameterization: {title} (`{model.parameterization}`); melting "
+             f"region: {region}; crust density "
+             f"{model.crust_density:g} kg/m³, mantle density {model.mantle_density:g} kg/m³."]
+    units = posterior.logpost.units  # free model errors have their block's unit
     for name, prior in zip(posterior.names, posterior.logpost.priors, strict=True):
-        unit = _UNIT_TEXT[posterior.logpost.units[name]]
-        lines.append(f"- Prior on {_lower_first(parameter_title(posterior, name))}: "
-                     f"{prior.describe(unit=unit)}.")
+        lines.append(f"- Prior on the {quantity(name).name}: "
+                     f"{prior.describe(unit=unit_text(units[name]))}.")
     for name, value in study.fixed.items():
-        lines.append(f"- Held fixed: {_NAMES[name].lower()} = {value:g} "
-                     f"{_UNIT_TEXT[UNITS[name]]}".rstrip() + ".")
+        lines.append(f"- Held fixed: {quantity(name).name} = "
+                     f"{_g(value)} {unit_text(UNITS[name])}".rstrip() + ".")
     for block in study.observations:
-        lines.append(f"- Data: {block.describe()}")
+        lines.append(f"- Data: {block.describe()}.")
     return "\n".join(lines) + "\n"
+
+
+_REGION_WORDS = {"column": "a 1-D melting column",
+                 "triangle": "the passive-flow triangle beneath a spreading axis"}
+
+
+def _fit_section(checks) -> str:
+    """Goodness of fit of every observation block: p-value and flagged residuals."""
+    lines = [
+        "## How well the model fits the data\n",
+        "For each observation block, data sets were replicated from the likelihood at "
+        f"{checks[0].ndraws if checks else 0} posterior draws and compared with the "
+        "observed data by the discrepancy −2 log L (the chi-square of the residuals for "
+        "Gaussian rows; for equilibration along the melting path, the deviance of the "
+        "mixture along the path). The posterior predictive p-value is the fraction of "
+        "replicates at least as discrepant as the data: near 0 the data scatter more "
+        "than their uncertainties allow or are offset from the model; near 1 the "
+        "uncertainties look too large. A standardized residual is (observed − mean "
+        "replicate) / sd of the replicates; rows beyond "
+        f"{FLAG_LIMIT:g} are flagged.\n",
+    ]
+    for check in checks:
+        largest = max((float(np.max(np.abs(r))) for r in check.residuals.values()),
+                      default=0.0)
+        verdict = ("no sign of misfit" if 0.05 <= check.p_value <= 0.95 else
+                   "the data scatter more than the model and uncertainties allow"
+                   if check.p_value < 0.05 else "the uncertainties may be too large")
+        lines.append(f"- {check.name} ({len(check.ids)} rows): p = "
+                     f"{_p(check.p_value, check.ndraws)}, {verdict}; largest |residual| "
+                     f"{largest:.1f}.")
+        for row, column, value in check.flagged():
+            what = "temperature" if column == "temperature" else "value"
+            lines.append(f"  - **{row}**: {what} residual {value:+.1f} (beyond "
+                         f"{FLAG_LIMIT:g})")
+    return "\n".join(lines) + "\n"
+
+
+def _p(p: float, ndraws: int) -> str:
+    if p == 0.0:
+        return f"< {1 / ndraws:.2g}"
+    return f"{p:.2f}" if p >= 0.01 else f"{p:.3f}"
 
 
 def _sampler_section(posterior) -> str:
@@ -174,16 +223,19 @@ def _files_section() -> str:
     )
 
 
-def _lower_first(text: str) -> str:
-    return text[:1].lower() + text[1:]
-
-
-def _decimals(sd: float) -> int:
+def decimals(sd: float) -> int:
     """Decimals that show the value to about a tenth of its posterior sd."""
     if not np.isfinite(sd) or sd <= 0:
         return 3
     return int(min(6, max(0, 1 - math.floor(math.log10(sd)))))
 
 
-def _f(value: float, decimals: int) -> str:
-    return f"{value:.{decimals}f}"
+def _f(value: float, places: int) -> str:
+    text = f"{value:.{places}f}"
+    if text.startswith("-") and float(text) == 0.0:
+        text = text[1:]  # no "−0.0"
+    return text.replace("-", _MINUS)
+
+
+def _g(value: float) -> str:
+    return f"{value:g}".replace("-", _MINUS)

@@ -124,12 +124,6 @@ class ErrorParameter:
     prior: Prior
     unit: str
 
-    def title(self, block: ObservationSet) -> str:
-        """The quantity in words, e.g. ``"Model error of the pressures in basalts.csv"``."""
-        what = "temperatures" if self.option == "temperature_model_error" else \
-            {"GPa": "pressures", "km": "thicknesses"}.get(self.unit, "values")
-        return f"Model error of the {what} in {block.name}"
-
 
 def error_parameters(observations) -> tuple[ErrorParameter, ...]:
     """The free model errors of a sequence of observation blocks, in block order."""
@@ -425,9 +419,10 @@ class Study:
 
     def describe(self) -> str:
         """Several lines in words: model, each parameter's prior or value, each data set."""
-        lines = [f"Study '{self.name}': {self.model.parameterization} melting, "
-                 f"{self.model.melting_region} melting_region, crust {self.model.crust_density:g} and "
-                 f"mantle {self.model.mantle_density:g} kg/m^3."]
+        model = self.model
+        lines = [f"Study '{self.name}': {model.parameterization} melting, melting region "
+                 f"{model.melting_region}, crust {model.crust_density:g} and mantle "
+                 f"{model.mantle_density:g} kg/m^3."]
         for name in PARAMETERS:
             unit = "" if PARAMETER_UNITS[name] == "-" else PARAMETER_UNITS[name]
             if name in self.priors:

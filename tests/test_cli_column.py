@@ -5,36 +5,57 @@ import io
 import json
 
 import pytest
-
 from lidmelt.forward import melt_column
-from lidmelt.inversion.cli.column import parse_values
 from lidmelt.inversion.cli import main
+from lidmelt.inversion.cli.column import parse_values
 
 
 def test_crust_against_tp_for_a_30_km_lid(capsys):
     assert main(["column", "--potential-temperature", "1300:1500:50",
                  "--lithosphere-thickness", "30", "--format", "csv"]) == 0
     rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
-    assert [float(r["potential_temperature_c"]) for r in rows] == [1300, 1350, 1400, 1450, 1500]
-    crust = [float(r["crustal_thickness_km"]) for r in rows]
+    assert [float(r["potential_temperature"]) for r in rows] == [1300, 1350, 1400, 1450, 1500]
+    crust = [float(r["crustal_thickness"]) for r in rows]
     assert crust == sorted(crust)
-    expected = float(melt_column(1400.0, 30.0).crustal_thickness)
-    assert crust[2] == pytest.approx(expected, rel=1e-3)
+    # CSV keeps full precision: the printed number reads back to the same float.
+    assert crust[2] == float(melt_column(1400.0, 30.0).crustal_thickness)
 
 
-def test_all_combinations_and_json(capsys):
-    assert main(["column", "--potential-temperature", "1350,1400", "--water", "0,100",
-                 "--melting-region", "column,triangle", "--format", "json"]) == 0
-    rows = json.loads(capsys.readouterr().out)
+def test_all_combinations_and_json_with_the_csv_keys(capsys):
+    argv = ["column", "--potential-temperature", "1350,1400", "--water", "0,100",
+            "--melting-region", "column,triangle"]
+    assert main([*argv, "--format", "json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert main([*argv, "--format", "csv"]) == 0
+    csv_rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
+    rows = data["rows"]
     assert len(rows) == 8
     assert {r["melting_region"] for r in rows} == {"column", "triangle"}
+    assert list(rows[0]) == list(csv_rows[0])  # same keys, same order
+    grouped = [key for keys in data["groups"].values() for key in keys]
+    assert grouped == list(rows[0])
+    assert list(data["groups"])[1:] == ["where it melts", "how much", "what melt"]
+    assert data["units"]["onset_depth"] == "km"
+    assert data["units"]["potential_temperature"] == "degC"
 
 
-def test_aligned_table_has_units_in_headers(capsys):
-    assert main(["column", "--potential-temperature", "1350"]) == 0
-    header, row = capsys.readouterr().out.splitlines()
-    assert "crustal_thickness_km" in header and "mean_melting_pressure_gpa" in header
-    assert len(header) == len(row)
+def test_table_says_shared_inputs_once_and_units_in_their_own_line(capsys):
+    assert main(["column", "--potential-temperature", "1300,1350",
+                 "--lithosphere-thickness", "30"]) == 0
+    text = capsys.readouterr().out
+    intro, table, legend = text.strip().split("\n\n")
+    assert "lid (lithosphere) thickness 30.0 km" in intro
+    groups, labels, units, *body = table.splitlines()
+    assert labels.split("|")[0].split() == ["Tp"]  # the only input that varies comes first
+    assert units.split("|")[0].split() == ["°C"]
+    assert [line.split("|")[0].split() for line in body] == [["1300"], ["1350"]]
+    assert groups.split("|")[1].strip() == "where it melts"
+    assert len({len(line) for line in (labels, units, *body)}) == 1
+    # fixed decimals per quantity: onset depth with one, melt fraction with three
+    onset, top = body[0].split("|")[1].split()
+    assert len(onset.split(".")[1]) == 1
+    assert len(body[0].split("|")[3].split()[0].split(".")[1]) == 3
+    assert "onset = depth where melting starts" in legend
 
 
 def test_plot_writes_a_png(tmp_path, capsys):
@@ -50,6 +71,7 @@ def test_plot_writes_a_png(tmp_path, capsys):
     [(["--potential-temperature", "hot"], "--potential-temperature: cannot read 'hot'"),
      (["--water", "10:0:5"], "--water: cannot read '10:0:5'"),
      (["--potential-temperature", "2500"], "potential_temperature = 2500 degC is outside"),
+     (["--solidus-offset=-150"], "solidus_offset = -150 degC is outside"),
      (["--melting-region", "plume"], "--melting-region: unknown 'plume'"),
      (["--parameterization", "katz"], "--parameterization: unknown 'katz'"),
      (["--plot", "figure.pdf"], "must end in .png")],

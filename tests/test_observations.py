@@ -627,5 +627,5 @@ def test_observed_and_describe():
     seen = obs.observed()
     assert set(seen) == {"value", "sigma", "temperature", "temperature_sigma"}
     assert_allclose(seen["sigma"], np.hypot(PT.sigma_gpa, 0.1))
-    assert "3 melting pressure-temperature point(s)" in obs.describe()
+    assert "3 melting pressure-temperature points" in obs.describe()
     assert "weighted by melt production" in obs.describe()

@@ -270,15 +270,14 @@ def test_free_model_errors_are_summarised_reported_and_drawn(quick_errors):
     from lidmelt.inversion.report import render
 
     text = render(quick_errors)
-    assert "Model error of the thicknesses in crust.csv" in text
-    assert "Prior on model error of the temperatures in basalts.csv: uniform on [0, 80] °C" \
-        in text
+    assert "Model error of crust" in text
+    assert "Prior on the temperature model error of basalts: uniform on [0, 80] °C" in text
     fig = figures.corner_figure(quick_errors)
     ndim = len(names)
     bottom = np.array(fig.axes).reshape(ndim, ndim)[-1]
     assert [ax.get_xlabel() for ax in bottom] == [
-        "$T_p$ (°C)", "Lid (km)", "Solidus offset (°C)", "Model error,\ncrust (km)",
-        "Model error,\nbasalts T (°C)"]
+        "$T_p$ (°C)", "lid (km)", r"$\Delta T_s$ (°C)", r"$\sigma_{model}$, crust (km)",
+        r"$\sigma_{model,T}$, basalts (°C)"]
     # The fit figure's error bars add the posterior-median model error to the stated
     # sigma; the crust panel's y label names what the data are compared with.
     from matplotlib.container import ErrorbarContainer
@@ -290,4 +289,5 @@ def test_free_model_errors_are_summarised_reported_and_drawn(quick_errors):
     median = quick_errors.samples["crust.model_error"].median()
     sigma = quick_errors.study.observations[0].data["sigma_km"].to_numpy()
     np.testing.assert_allclose(half, np.hypot(sigma, median), rtol=1e-9)
-    assert crust_ax.get_ylabel() == "Igneous crust (km)"
+    assert crust_ax.get_ylabel() == "Igneous crust thickness (km)"
+    assert "incl. model error" in bars.get_label() and "posterior median" in bars.get_label()

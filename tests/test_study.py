@@ -41,7 +41,7 @@ def make_study(tmp_path):
 
 def test_reads_the_test_study():
     study = Study.from_file(DATA / "study.toml")
-    assert study.name == "Vell Saddle (test)"
+    assert study.name == "Murrowtack Saddle (test)"
     assert study.free_parameters == ("potential_temperature", "lithosphere_thickness",
                                      "solidus_offset")
     assert study.fixed == {"water": 0.0, "active_upwelling": 1.0}
@@ -205,17 +205,17 @@ def test_describe_lists_every_parameter():
 
 CASES = {
     # malformed TOML: file and line
-    "malformed-toml": (('name = "Vell Saddle (test)"', 'name = "Vell Saddle (test)'),
+    "malformed-toml": (('Saddle (test)"', 'Saddle (test)'),
                        r"study.toml, line 3: malformed TOML"),
     # misspelt keys at every level, with the nearest valid one
     "misspelt-section": (("[sampler]", "[smapler]"),
         r"line 28, key 'smapler': unknown section 'smapler'; did you mean 'sampler'"),
-    "misspelt-study-key": (('name = "Vell', 'nme = "Vell'),
+    "misspelt-study-key": (('name = "Murrowtack', 'nme = "Murrowtack'),
                            r"key 'study.nme': unknown key 'nme'; did you mean 'name'"),
     "misspelt-model-key": (("melting_region = ", "melting_regio = "),
                            r"line 8, key 'model.melting_regio'.*did you mean 'melting_region'"),
-    "misspelt-parameter": (("solidus_offset = {", "solidus_shfit = {"),
-        r"line 16, key 'parameters.solidus_shfit': unknown parameter.*did you"
+    "misspelt-parameter": (("solidus_offset = {", "solidus_ofset = {"),
+        r"line 16, key 'parameters.solidus_ofset': unknown parameter.*did you"
         r" mean 'solidus_offset'"),
     "misspelt-prior-key": (("min = 0.0, max = 150.0", "min = 0.0, mx = 150.0"),
         r"line 13, key 'parameters.lithosphere_thickness.mx'.*did you mean 'max'"),

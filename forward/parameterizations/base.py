@@ -15,7 +15,6 @@ import abc
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq
 
 __all__ = ["MeltFraction", "Parameterization", "ThermoConstants"]
 
@@ -129,6 +128,8 @@ class Parameterization(abc.ABC):
         def mismatch(tau):
             frac = self.dry_melt_fraction(tau, pressure).fraction
             return tau - self.water_depression(frac, pressure, water)[0] - temperature
+
+        from scipy.optimize import brentq  # only this slow exact route needs scipy
 
         low = float(temperature)
         high = low + float(self.water_depression(0.0, pressure, water)[0]) + 1e-9

@@ -3,15 +3,18 @@
 from __future__ import annotations
 
 import argparse
+import csv
+import io
 import itertools
 import json
 import sys
+import textwrap
 
 import numpy as np
 
-from ...forward._validation import PARAMETER_UNITS
 from ...forward.column import MELTING_REGIONS, melt_column
-from ...forward.parameterizations import PARAMETERIZATIONS
+from ...forward.parameterizations import PARAMETERIZATIONS, get_parameterization
+from ...forward.quantities import GROUPS, quantity
 
 # option name (= melt_column argument) -> default
 _NUMERIC = {
@@ -21,36 +24,39 @@ _NUMERIC = {
     "active_upwelling": "1",
     "solidus_offset": "0",
 }
-_OUTPUTS = [
-    ("crustal_thickness", "km"),
-    ("melt_thickness", "km"),
-    ("onset_depth", "km"),
-    ("top_depth", "km"),
-    ("max_melt_fraction", ""),
-    ("mean_melt_fraction", ""),
-    ("mean_melting_pressure", "GPa"),
-]
+#: Every input of a row, in table order (numeric options, choices, densities).
+INPUT_KEYS = (*_NUMERIC, "parameterization", "melting_region", "crust_density",
+              "mantle_density")
+#: Outputs grouped by what a user asks: where melting happens, how much, what melt.
+OUTPUT_KEYS = ("onset_depth", "top_depth", "melt_thickness", "crustal_thickness",
+               "mean_melt_fraction", "max_melt_fraction", "mean_melting_pressure")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.description = (
         "Tabulate the melting column beneath a lithospheric lid for every combination of "
         "the given values. Numeric options take a value, a comma list (1300,1350) or an "
-        "inclusive range start:stop:step (1300:1500:50)."
+        "inclusive range start:stop:step (1300:1500:50); write a negative value with '=' "
+        "(--solidus-offset=-20)."
     )
     for name, default in _NUMERIC.items():
-        unit = PARAMETER_UNITS[name].replace("-", "dimensionless")
+        unit = quantity(name).unit_text or "dimensionless"
         parser.add_argument(f"--{name.replace('_', '-')}", default=default, metavar="VALUES",
-                            help=f"{name.replace('_', ' ')} ({unit}; default {default})")
+                            help=f"{quantity(name).name} ({unit}; default {default})")
     parser.add_argument("--melting-region", default="column", metavar="NAMES",
-                        help=f"melting region: {', '.join(MELTING_REGIONS)} (comma list allowed)")
+                        help=f"melting region: {', '.join(MELTING_REGIONS)} (comma list "
+                        "allowed)")
     parser.add_argument("--parameterization", default="katz2003", metavar="NAMES",
                         help=f"melting parameterization: {', '.join(PARAMETERIZATIONS)}")
-    parser.add_argument("--crust-density", type=float, default=2900.0, help="kg/m^3 (default 2900)")
-    parser.add_argument("--mantle-density", type=float, default=3300.0, help="kg/m^3 (default 3300)")
+    for name, default in (("crust_density", 2900.0), ("mantle_density", 3300.0)):
+        parser.add_argument(f"--{name.replace('_', '-')}", type=float, default=default,
+                            metavar="RHO", help=f"{quantity(name).name} "
+                            f"({quantity(name).unit_text}; default {default:g})")
     parser.add_argument("--format", choices=("table", "csv", "json"), default="table",
-                        help="output format (default: aligned table)")
-    parser.add_argument("--plot", metavar="FILE.png", help="also draw a P-T diagram to this PNG")
+                        help="output format: aligned table for people (default), or CSV / "
+                        "JSON at full precision with the same keys")
+    parser.add_argument("--plot", metavar="FILE.png",
+                        help="also draw P-T diagrams (one panel per lid) to this PNG")
 
 
 def parse_values(text: str, option: str) -> list[float]:
@@ -95,28 +101,113 @@ def tabulate(args) -> list[dict]:
                           crust_density=args.crust_density, mantle_density=args.mantle_density)
         for i in range(grid.shape[0]):
             row = {k: float(v[i]) for k, v in inputs.items()}
-            row |= {"parameterization": param, "melting_region": melting_region}
-            row |= {name: float(getattr(res, name)[i]) for name, _ in _OUTPUTS}
+            row |= {"parameterization": param, "melting_region": melting_region,
+                    "crust_density": args.crust_density,
+                    "mantle_density": args.mantle_density}
+            row |= {name: float(getattr(res, name)[i]) for name in OUTPUT_KEYS}
             rows.append(row)
     return rows
 
 
-def _header(name: str) -> str:
-    unit = dict(_OUTPUTS).get(name) or PARAMETER_UNITS.get(name, "").strip("-")
-    return f"{name}_{unit.lower().replace('degc', 'c')}" if unit else name
+def _cell(key: str, value) -> str:
+    return quantity(key).format(value) if isinstance(value, float) else str(value)
+
+
+def _varying(rows: list[dict]) -> list[str]:
+    """Input keys whose value differs between rows, in input order."""
+    return [k for k in INPUT_KEYS if len({r[k] for r in rows}) > 1]
+
+
+def _constant_line(rows: list[dict], varying: list[str]) -> str:
+    """The inputs shared by every row, said once above the table."""
+    first = rows[0]
+    words = []
+    for key in INPUT_KEYS:
+        if key in varying:
+            continue
+        value = first[key]
+        if key == "parameterization":
+            words.append(get_parameterization(value).title)
+        elif key == "melting_region":
+            words.append(f"{value} melting region")
+        else:
+            words.append(f"{quantity(key).name} {quantity(key).with_value(value)}")
+    return textwrap.fill("Same on every row: " + ", ".join(words) + ".", width=96)
+
+
+def _legend(keys: list[str], width: int = 96) -> str:
+    """``label = prose name`` for each column, wrapped between entries."""
+    entries = [f"{quantity(k).short} = {quantity(k).name}" for k in keys]
+    lines = [entries[0]]
+    for entry in entries[1:]:
+        if len(lines[-1]) + 2 + len(entry) > width:
+            lines[-1] += ";"
+            lines.append(entry)
+        else:
+            lines[-1] += "; " + entry
+    return "\n".join(lines) + "."
+
+
+def _grouped_block(rows: list[dict], keys: list[str]) -> list[str]:
+    """Group heading, column label and unit lines, then one line per row."""
+    columns = []  # (group, label, unit, cells)
+    for key in keys:
+        q = quantity(key)
+        cells = [_cell(key, r[key]) for r in rows]
+        group = GROUPS[q.group] if key not in INPUT_KEYS else GROUPS["input"]
+        unit = q.unit_text or ("–" if q.unit else "")  # "–": dimensionless number
+        columns.append([group, q.short, unit, cells])
+    widths = [max(len(c[1]), len(c[2]), *(len(x) for x in c[3])) for c in columns]
+    groups = list(dict.fromkeys(c[0] for c in columns))
+    for group in groups:  # a heading wider than its columns widens them evenly
+        idx = [i for i, c in enumerate(columns) if c[0] == group]
+        missing = len(group) - (sum(widths[i] for i in idx) + 2 * (len(idx) - 1))
+        for n, i in enumerate(idx):
+            widths[i] += max(0, missing) // len(idx) + (n < max(0, missing) % len(idx))
+    gap = "  "
+    sep = " | "
+
+    def line(cells):
+        out = []
+        for group in groups:
+            idx = [i for i, c in enumerate(columns) if c[0] == group]
+            out.append(gap.join(cells[i].rjust(widths[i]) for i in idx))
+        return sep.join(out).rstrip()
+
+    spans = [sum(widths[i] for i, c in enumerate(columns) if c[0] == g)
+             + 2 * (sum(c[0] == g for c in columns) - 1) for g in groups]
+    heading = sep.join(g.ljust(w) for g, w in zip(groups, spans, strict=True)).rstrip()
+    lines = [heading, line([c[1] for c in columns]), line([c[2] for c in columns])]
+    lines += [line([c[3][r] for c in columns]) for r in range(len(rows))]
+    return lines
 
 
 def format_rows(rows: list[dict], fmt: str) -> str:
+    """The rows as an aligned table for people, or CSV / JSON at full precision.
+
+    All three use the same keys in the same grouped order (inputs, where melting happens,
+    how much melt, what melt). The table prints the inputs shared by every row once,
+    above it, with units in a header line and a legend below.
+    """
+    keys = [*INPUT_KEYS, *OUTPUT_KEYS]
     if fmt == "json":
-        return json.dumps(rows, indent=2)
-    keys = list(rows[0])
-    headers = [_header(k) for k in keys]
-    cells = [[f"{r[k]:.4g}" if isinstance(r[k], float) else str(r[k]) for k in keys] for r in rows]
+        groups = {GROUPS["input"]: list(INPUT_KEYS)}
+        for key in OUTPUT_KEYS:
+            groups.setdefault(GROUPS[quantity(key).group], []).append(key)
+        units = {k: quantity(k).unit for k in keys if quantity(k).unit}
+        return json.dumps({"units": units, "groups": groups,
+                           "rows": [{k: r[k] for k in keys} for r in rows]}, indent=2)
     if fmt == "csv":
-        return "\n".join(",".join(line) for line in [headers, *cells])
-    widths = [max(len(h), *(len(c[i]) for c in cells)) for i, h in enumerate(headers)]
-    lines = ["  ".join(h.rjust(w) for h, w in zip(headers, widths, strict=True))]
-    lines += ["  ".join(c.rjust(w) for c, w in zip(row, widths, strict=True)) for row in cells]
+        buffer = io.StringIO()
+        writer = csv.writer(buffer, lineterminator="\n")
+        writer.writerow(keys)
+        writer.writerows([repr(r[k]) if isinstance(r[k], float) else r[k] for k in keys]
+                         for r in rows)
+        return buffer.getvalue().rstrip("\n")
+    varying = _varying(rows)
+    shown = [*varying, *OUTPUT_KEYS]
+    lines = [_constant_line(rows, varying), "", *_grouped_block(rows, shown), "",
+             _legend([k for k in shown if k not in ("parameterization", "melting_region")])]
     return "\n".join(lines)
 
 
@@ -135,4 +226,5 @@ def run(args) -> int:
     return 0
 
 
-__all__ = ["add_arguments", "format_rows", "parse_values", "run", "tabulate"]
+__all__ = ["INPUT_KEYS", "OUTPUT_KEYS", "add_arguments", "format_rows", "parse_values", "run",
+           "tabulate"]

@@ -101,13 +101,13 @@ def _run_and_report(study, args, out: Path, command: list[str]) -> int:
 
 def print_result(posterior, out: Path) -> None:
     """Headline numbers and where the results are, on stdout."""
-    from ..report import _interval_words, parameter_title
+    from ...forward.quantities import quantity
+    from ..report import interval_words
 
     state = "converged" if posterior.converged else "NOT CONVERGED (see report.md)"
     print(f"{posterior.study.name}: {state}; {posterior.chain.shape[0]} steps x "
           f"{posterior.chain.shape[1]} walkers")
     for _, row in posterior.summary().iterrows():
-        print(f"  {parameter_title(posterior, row['parameter'])}: "
-              f"{_interval_words(row).replace('**', '')}")
+        print(f"  {quantity(row['parameter']).title}: {interval_words(row).replace('**', '')}")
     where = out.resolve()
     print(f"Results written to {where}/ (start with {where / 'report.md'})")

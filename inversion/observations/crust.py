@@ -108,6 +108,7 @@ class CrustalThickness(ObservationSet):
         return self._replace_values({self.value_column: draws}, thickness_of=self.thickness_of)
 
     def describe(self) -> str:
-        return (f"{len(self)} crustal thickness value(s) from {self.name}, compared with the "
+        rows = "1 crustal thickness" if len(self) == 1 else f"{len(self)} crustal thicknesses"
+        return (f"{rows} from {self.name}, compared with the "
                 f"model {self.thickness_of} thickness"
                 + describe_errors(self, {"model_error": "km"}))

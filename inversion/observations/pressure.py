@@ -265,6 +265,23 @@ class MeltingPressure(ObservationSet):
         path_p, path_t, weight = self._path(column)
         return pressure, (weight * path_t).sum(axis=-1)
 
+    def equilibration_points(self, column):
+        """Where the model says the melts equilibrate: the distribution the likelihood uses.
+
+        Returns
+        -------
+        pressure, temperature, weight : ndarray, shape (n, k)
+            Candidate points (GPa, degC; temperature None without observed temperatures)
+            and their probabilities, summing to 1 over the last axis: the melt-weighted
+            path nodes for ``"path"`` (k = `path_points`), the single point for
+            ``"top"`` and ``"pooled"`` (k = 1).
+        """
+        if self.equilibration == "path":
+            return self._path(column)
+        pressure, temperature = self._point(column)
+        temperature = None if temperature is None else temperature[..., None]
+        return pressure[..., None], temperature, np.ones(pressure.shape + (1,))
+
     def _row_logpdf(self, dp, dt, errors: Mapping | None, *, axis: bool) -> np.ndarray:
         """Log density of residuals dp (GPa) and dt (degC or None) of every row.
 
@@ -355,7 +372,8 @@ class MeltingPressure(ObservationSet):
     def describe(self) -> str:
         where = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
                  "path": EQUILIBRATION["path"]}
-        what = "pressure-temperature point(s)" if self.has_temperature else "pressure(s)"
+        what = "pressure-temperature point" if self.has_temperature else "pressure"
+        what += "" if len(self) == 1 else "s"
         if self.has_correlation:
             what += " with correlated P-T errors"
         extra = describe_errors(self, {"model_error": "GPa",

@@ -1,0 +1,190 @@
+"""The one table of quantities: key, unit, labels, prose name and number format.
+
+Every layer reads units, labels and formats from here: the domain checks, the
+``lidmelt column`` table, the summary tables, the report and the figures. A key is the
+same word everywhere (the ``melt_column`` argument or attribute, the study-file key, the
+CLI flag with dashes, the CSV column).
+
+Keys built from a prefix and a known suffix, such as ``"crust.model_error"`` (the model
+error of one observation block), are described by the suffix's entry with the prefix put
+into the name (`quantity`).
+
+Examples
+--------
+>>> from lidmelt.forward.quantities import quantity
+>>> q = quantity("potential_temperature")
+>>> q.unit, q.unit_text, q.format(1351.27)
+('degC', '°C', '1351')
+>>> q.axis_label()
+'Mantle potential temperature (°C)'
+>>> quantity("crust.model_error", unit="km").name
+'model error of crust'
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+__all__ = ["GROUPS", "QUANTITIES", "Quantity", "quantity", "unit_text"]
+
+#: Plain units (as in files and messages) -> how people write them.
+_UNIT_TEXT = {"degC": "°C", "kg/m^3": "kg/m³", "-": ""}
+
+
+def unit_text(unit: str) -> str:
+    """Printable form of a plain unit (``"degC"`` -> ``"°C"``, ``"-"`` -> ``""``)."""
+    return _UNIT_TEXT.get(unit, unit)
+
+
+@dataclass(frozen=True)
+class Quantity:
+    """How one quantity is named, labelled and printed.
+
+    Attributes
+    ----------
+    key : str
+        Identifier (argument, attribute, study-file key, CSV column).
+    unit : str
+        Plain unit as written in files and messages (``"degC"``, ``"km"``, ``"-"`` for
+        dimensionless).
+    short : str
+        A few characters for table headers and tight axes (``"Tp"``).
+    name : str
+        Prose name, lower case, for sentences and legends.
+    decimals : int
+        Decimals shown in tables for people (machine formats keep full precision).
+    group : str
+        Which question the quantity answers (a key of `GROUPS`).
+    math : str
+        Label in matplotlib mathtext (defaults to `short`).
+    """
+
+    key: str
+    unit: str
+    short: str
+    name: str
+    decimals: int
+    group: str
+    math: str = ""
+
+    @property
+    def unit_text(self) -> str:
+        """Printable unit, ``""`` when dimensionless."""
+        return unit_text(self.unit)
+
+    @property
+    def title(self) -> str:
+        """The prose name with a capital first letter."""
+        return self.name[:1].upper() + self.name[1:]
+
+    @property
+    def symbol(self) -> str:
+        """Mathtext label for figures."""
+        return self.math or self.short
+
+    def format(self, value: float, decimals: int | None = None) -> str:
+        """`value` with this quantity's decimals (U+2212 minus sign for negatives)."""
+        places = self.decimals if decimals is None else decimals
+        text = f"{float(value):.{places}f}"
+        if text.startswith("-") and float(text) == 0.0:
+            text = text[1:]  # no "-0.0"
+        return text.replace("-", "\N{MINUS SIGN}")
+
+    def axis_label(self, *, short: bool = False) -> str:
+        """Axis label with the unit in parentheses (dimensionless: no parentheses)."""
+        text = self.symbol if short else self.title
+        return f"{text} ({self.unit_text})" if self.unit_text else text
+
+    def with_value(self, value: float, decimals: int | None = None) -> str:
+        """``"1350 °C"``: the formatted value and the printable unit."""
+        unit = f" {self.unit_text}" if self.unit_text else ""
+        return f"{self.format(value, decimals)}{unit}"
+
+
+#: What each group of outputs tells a user (``lidmelt column`` headings).
+GROUPS = {
+    "input": "inputs",
+    "where": "where it melts",
+    "amount": "how much",
+    "melt": "what melt",
+    "data": "observed",
+    "error": "model error",
+}
+
+
+def _q(key, unit, short, name, decimals, group, math="") -> Quantity:
+    return Quantity(key, unit, short, name, decimals, group, math)
+
+
+_ALL = (
+    # inputs of melt_column
+    _q("potential_temperature", "degC", "Tp", "mantle potential temperature", 0, "input",
+       "$T_p$"),
+    _q("lithosphere_thickness", "km", "lid", "lid (lithosphere) thickness", 1, "input"),
+    _q("water", "ppm", "H2O", "source water content", 0, "input",
+       "H$_2$O"),
+    _q("active_upwelling", "-", "upw", "active upwelling", 2, "input",
+       "active upwelling"),
+    _q("solidus_offset", "degC", "dTs", "solidus offset", 1, "input", r"$\Delta T_s$"),
+    _q("crust_density", "kg/m^3", "rho_c", "crust density", 0, "input", r"$\rho_c$"),
+    _q("mantle_density", "kg/m^3", "rho_m", "mantle density", 0, "input", r"$\rho_m$"),
+    _q("parameterization", "", "param", "melting parameterization", 0, "input"),
+    _q("melting_region", "", "region", "melting region", 0, "input"),
+    # where melting happens
+    _q("onset_depth", "km", "onset", "depth where melting starts", 1, "where"),
+    _q("top_depth", "km", "top", "depth where melting stops", 1, "where"),
+    _q("onset_pressure", "GPa", "P onset", "pressure where melting starts", 2, "where",
+       "$P_{onset}$"),
+    _q("top_pressure", "GPa", "P top", "pressure where melting stops", 2, "where",
+       "$P_{top}$"),
+    # how much melt
+    _q("melt_thickness", "km", "melt", "melt thickness", 2, "amount"),
+    _q("crustal_thickness", "km", "crust", "igneous crust thickness", 2, "amount"),
+    # what melt
+    _q("mean_melt_fraction", "-", "F mean", "mean melt fraction of the pooled melt", 3,
+       "melt", r"$\bar F$"),
+    _q("max_melt_fraction", "-", "F max", "largest melt fraction", 3, "melt",
+       "$F_{max}$"),
+    _q("mean_melting_pressure", "GPa", "P mean", "mean melting pressure", 2, "melt",
+       r"$\bar P$"),
+    # axes and observed quantities
+    _q("pressure", "GPa", "P", "pressure", 2, "data"),
+    _q("temperature", "degC", "T", "temperature", 0, "data"),
+    _q("depth", "km", "z", "depth", 1, "data"),
+    _q("melt_fraction", "-", "F", "equilibrium melt fraction", 2, "data"),
+    # model errors of observation blocks (`<block>.model_error`); unit from the block
+    _q("model_error", "", "σ_model", "model error", 2, "error", r"$\sigma_{model}$"),
+    _q("temperature_model_error", "degC", "σ_model,T", "temperature model error", 0,
+       "error", r"$\sigma_{model,T}$"),
+)
+
+#: Every known quantity by key.
+QUANTITIES: dict[str, Quantity] = {q.key: q for q in _ALL}
+
+
+def quantity(key: str, *, unit: str | None = None) -> Quantity:
+    """The `Quantity` of `key`; a dotted ``prefix.suffix`` falls back to the suffix.
+
+    Parameters
+    ----------
+    key : str
+        A key of `QUANTITIES`, or ``"<prefix>.<suffix>"`` whose suffix is one (the
+        prefix names what it belongs to, e.g. an observation block).
+    unit : str, optional
+        Overrides the unit (a block's model error has the unit of its data).
+
+    Raises
+    ------
+    KeyError
+        Neither the key nor its suffix is known.
+    """
+    found = QUANTITIES.get(key)
+    if found is None:
+        prefix, _, suffix = key.rpartition(".")
+        if not prefix or suffix not in QUANTITIES:
+            raise KeyError(f"no quantity {key!r} in lidmelt.forward.quantities")
+        base = QUANTITIES[suffix]
+        # The prefix goes into every label, so two blocks' errors never look alike.
+        found = replace(base, key=key, name=f"{base.name} of {prefix}",
+                        short=f"{prefix} {base.short}", math=f"{base.symbol}, {prefix}")
+    return found if unit is None else replace(found, unit=unit)
