@@ -5,7 +5,7 @@ The everyday API is re-exported here; the two layers sit beneath it:
 - `lidmelt.forward`: adiabatic decompression melting of peridotite beneath a lid
   (`melt_column`);
 - `lidmelt.inversion`: study files, priors, likelihoods and the emcee inversion (`Study`,
-  `fit`).
+  `fit`), and surveys of many sites (`survey`, imported on first use).
 
 Results are scientific estimates that depend on the chosen melting parameterization and the
 other modelling assumptions (see ``docs/model.md``); they are no basis on their own for
@@ -25,7 +25,7 @@ from ._lazy import lazy_exports
 _getattr, __dir__ = lazy_exports(__name__, globals(), {
     "MeltColumn": ".forward", "melt_column": ".forward",
     "InputError": ".inversion", "Posterior": ".inversion", "Study": ".inversion",
-    "fit": ".inversion",
+    "fit": ".inversion", "survey": ".inversion.survey",
 })
 
 
@@ -46,4 +46,5 @@ def __getattr__(name: str):
 
 
 __all__ = ["InputError", "MeltColumn", "Posterior", "Study", "__version__", "fit",
-           "melt_column"]
+           "melt_column", "survey"]
+

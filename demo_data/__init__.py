@@ -11,7 +11,8 @@ from __future__ import annotations
 from importlib import resources
 from pathlib import Path
 
-__all__ = ["DEMO_STUDY", "DEMO_TRUTH", "study_path"]
+__all__ = ["DEMO_STUDY", "DEMO_TRUTH", "SURVEY_DEMO", "SURVEY_TRUTH", "study_path",
+           "survey_paths"]
 
 #: Folder of the demo study inside this package.
 DEMO_STUDY = "orvanta_rift"
@@ -23,6 +24,25 @@ DEMO_TRUTH = {
     "water": 150.0,
     "solidus_offset": 0.0,
 }
+
+
+#: Folder of the survey demo (an invented ridge, 24 sites).
+SURVEY_DEMO = "kelvaro_ridge"
+
+#: Shared value the survey demo was simulated at (each site's lid is in its README).
+SURVEY_TRUTH = {"potential_temperature": 1380.0, "water": 150.0, "solidus_offset": 0.0}
+
+
+def survey_paths() -> tuple[Path, Path]:
+    """Paths of the survey demo's study file and sites table.
+
+    Examples
+    --------
+    >>> [p.name for p in survey_paths()]
+    ['study.toml', 'sites.csv']
+    """
+    folder = resources.files(__name__).joinpath(SURVEY_DEMO)
+    return Path(str(folder.joinpath("study.toml"))), Path(str(folder.joinpath("sites.csv")))
 
 
 def study_path() -> Path:

@@ -289,16 +289,7 @@ class Study:
             of the schema (the message names the key and the line where it is).
         """
         path = Path(path)
-        if not path.is_file():
-            why = "is a folder, not a study file" if path.is_dir() else "not found"
-            raise InputError(f"study file {why}; check the path", file=path)
-        raw = path.read_bytes()
-        try:
-            text = raw.decode("utf-8")
-        except UnicodeDecodeError as err:
-            raise InputError(f"not UTF-8 text (byte {err.start}); save the study file as "
-                             "UTF-8", file=path) from None
-        config = _parse_toml(text, path)
+        raw, text, config = _read_study_file(path)
         try:
             return cls.from_mapping(config, base_dir=path.parent, source=path,
                                     file_hash=hashlib.sha256(raw).hexdigest())
@@ -438,6 +429,20 @@ class Study:
 # ---- parsing helpers -------------------------------------------------------------------
 
 _TOML_POS = re.compile(r"\(at line (\d+), column (\d+)\)")
+
+
+def _read_study_file(path: Path) -> tuple[bytes, str, dict]:
+    """The bytes, text and parsed TOML of a study file (`InputError` if unreadable)."""
+    if not path.is_file():
+        why = "is a folder, not a study file" if path.is_dir() else "not found"
+        raise InputError(f"study file {why}; check the path", file=path)
+    raw = path.read_bytes()
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise InputError(f"not UTF-8 text (byte {err.start}); save the study file as "
+                         "UTF-8", file=path) from None
+    return raw, text, _parse_toml(text, path)
 
 
 def _parse_toml(text: str, path: Path) -> dict:

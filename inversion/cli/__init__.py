@@ -11,7 +11,7 @@ import argparse
 import sys
 
 from .._errors import InputError
-from . import column, demo, fit
+from . import column, demo, fit, survey
 
 # name -> (module, one-line help)
 _COMMANDS = {
@@ -19,6 +19,8 @@ _COMMANDS = {
     "fit": (fit, "fit a study file: posterior of potential temperature and lid "
             "thickness"),
     "demo": (demo, "fit the bundled demo study end to end (under a minute)"),
+    "survey": (survey, "many sites of a study area: each site's posterior and an "
+               "area-wide potential temperature, on local cores or a Dask cluster"),
 }
 
 

@@ -1,0 +1,88 @@
+"""``lidmelt survey``: every site of a study area, on local cores or a Dask cluster."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+__all__ = ["add_arguments", "run"]
+
+_EPILOG = """\
+SITES.csv has one row per site: site, thickness_km, sigma_km; optional position_km;
+optional pressure_gpa with pressure_sigma_gpa; optional temperature_c with
+temperature_sigma_c. A row with a bad value fails only its own site (named with its line
+and column in the summary and the report). The study file gives model, priors and sampler
+settings (its [[observations]] are not used) and a [survey] table: equilibration = "top" |
+"pooled" | "path" is required when the sites carry pressures; tp_spread = { prior = ... }
+makes --mode joint hierarchical.
+
+Units: potential temperature and its spread in degC, lid and crust thickness and position
+in km, pressure in GPa.
+
+Each site's result is written to DIR/sites/ as soon as it is done; after an interruption
+run the same command with --resume. Outputs: sites_summary.csv, area.csv (joint mode),
+profile.png, report.md. Results are scientific estimates that depend on the chosen
+melting parameterization.
+"""
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Options of ``lidmelt survey``."""
+    parser.formatter_class = argparse.RawDescriptionHelpFormatter
+    parser.epilog = _EPILOG
+    parser.add_argument("study", metavar="STUDY", help="study file (TOML) with [survey]")
+    parser.add_argument("--sites", metavar="SITES.csv", required=True,
+                        help="sites table, one row per site")
+    parser.add_argument("--out", metavar="DIR", required=True, help="result folder")
+    parser.add_argument("--mode", choices=("independent", "joint"), default="independent",
+                        help="one posterior per site (default), or one area-wide "
+                        "potential temperature with a lid per site")
+    where = parser.add_mutually_exclusive_group()
+    where.add_argument("--workers", metavar="N", type=int, default=None,
+                       help="local worker processes (default: number of cores)")
+    where.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                       help="run on an existing Dask cluster, e.g. tcp://host:8786 "
+                       "(needs pip install 'lidmelt[cluster]')")
+    parser.add_argument("--seed", metavar="N", type=int, default=None,
+                        help="master seed (default: [sampler] seed); site k gets the k-th "
+                        "child seed, so results do not depend on the workers")
+    parser.add_argument("--resume", action="store_true",
+                        help="continue an interrupted survey in DIR (refused if the "
+                        "study, the sites file or the settings changed)")
+    parser.add_argument("--force", action="store_true",
+                        help="replace DIR if it holds an earlier survey")
+    parser.add_argument("--keep-chains", action="store_true",
+                        help="keep every site's chain (emcee) or posterior grid")
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run the survey; 0 when it completed (even if some sites failed)."""
+    from ..survey import survey
+
+    try:
+        result = survey(args.study, args.sites, out=args.out, mode=args.mode,
+                        workers=args.workers, scheduler=args.scheduler, seed=args.seed,
+                        resume=args.resume, force=args.force, quiet=args.quiet,
+                        keep_chains=args.keep_chains)
+    except KeyboardInterrupt:
+        print(f"lidmelt survey: interrupted; finished sites are kept in {args.out}/ - "
+              "continue by running the same command with --resume", file=sys.stderr)
+        return 130
+    _print_result(result)
+    return 0
+
+
+def _print_result(result) -> None:
+    folder = Path(result.folder).resolve()
+    n = len(result.records)
+    print(f"survey: {n - len(result.failed)} of {n} sites gave a result")
+    if result.area is not None:
+        for _, row in result.area.iterrows():
+            print(f"  {row['parameter']} ({row['meaning']}): median {row['median']:.1f} "
+                  f"{row['unit']}, 95 % interval {row['q2.5']:.1f}-{row['q97.5']:.1f}")
+    for record in result.failed:
+        print(f"lidmelt survey: site '{record['site']}': {record['status']}",
+              file=sys.stderr)
+    print(f"Results written to {folder}/ (start with {folder / 'report.md'})")

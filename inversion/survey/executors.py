@@ -1,0 +1,159 @@
+"""Where the sites run: local worker processes or an existing Dask cluster.
+
+Both executors take a module-level function and a list of tasks and yield
+``(task number, result)`` pairs as tasks finish, in whatever order they finish; an
+exception raised by a task (or by the worker running it) is yielded as the result, so
+one lost site does not stop a survey. Every task carries its own seed, so the results do
+not depend on the executor, the number of workers or the order of completion.
+
+Local workers are started with ``forkserver`` (``spawn`` where it does not exist), not
+by forking a process that may already run threads (a progress bar, a Dask client), and
+with one numerical thread each so that N workers use N cores. Dask is imported only when
+a scheduler address is given (``pip install 'lidmelt[cluster]'``); the same lidmelt must
+be installed on the scheduler and every worker.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import multiprocessing
+import os
+from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import ProcessPoolExecutor, as_completed
+
+from .._errors import InputError
+
+__all__ = ["DaskExecutor", "LocalExecutor", "make_executor"]
+
+_PRELOAD = ("lidmelt.inversion.survey.job",)  # what every worker needs, imported once
+_THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+class LocalExecutor:
+    """Tasks on `workers` local processes (one worker: in this process).
+
+    Parameters
+    ----------
+    workers : int
+        Number of processes (>= 1).
+    """
+
+    def __init__(self, workers: int) -> None:
+        if workers < 1:
+            raise InputError(f"--workers {workers} must be at least 1", key="workers")
+        self.workers = int(workers)
+        self.where = f"{self.workers} local process{'es' if self.workers > 1 else ''}"
+        self._executor = None
+
+    def run(self, fn: Callable, tasks: Sequence) -> Iterator[tuple[int, object]]:
+        if self.workers == 1:  # one worker: this process, no pool to start
+            for k, task in enumerate(tasks):
+                yield k, _call(fn, task)
+            return
+        pool = self._pool()
+        with _single_threaded():  # processes start on demand, while submitting
+            futures = {pool.submit(fn, task): k for k, task in enumerate(tasks)}
+        try:
+            for future in as_completed(futures):
+                yield futures[future], _result(future)
+        finally:  # interrupted: drop the queue, do not wait for it
+            for future in futures:
+                future.cancel()
+
+    def _pool(self) -> ProcessPoolExecutor:
+        """One pool for the executor's lifetime (joint mode runs two passes on it)."""
+        if self._executor is None:
+            methods = multiprocessing.get_all_start_methods()
+            context = multiprocessing.get_context(
+                "forkserver" if "forkserver" in methods else "spawn")
+            if context.get_start_method() == "forkserver":  # import once, fork workers
+                context.set_forkserver_preload(list(_PRELOAD))
+            self._executor = ProcessPoolExecutor(self.workers, mp_context=context)
+        return self._executor
+
+    def close(self) -> None:
+        """Stop the worker processes (without waiting for queued work)."""
+        if self._executor is not None:
+            self._executor.shutdown(wait=True, cancel_futures=True)
+            self._executor = None
+
+
+class DaskExecutor:
+    """Tasks on an existing Dask distributed cluster.
+
+    Parameters
+    ----------
+    address : str
+        Scheduler address, e.g. ``"tcp://10.0.0.5:8786"``.
+    """
+
+    def __init__(self, address: str) -> None:
+        try:
+            from dask.distributed import Client
+        except ImportError:
+            raise InputError("--scheduler needs Dask: pip install 'lidmelt[cluster]'",
+                             key="scheduler") from None
+        try:
+            self.client = Client(address, timeout="20s", set_as_default=False)
+        except (OSError, TimeoutError) as err:
+            raise InputError(f"cannot reach the Dask scheduler at {address}: {err}",
+                             key="scheduler") from None
+        self.workers = len(self.client.scheduler_info().get("workers", {}))
+        self.where = f"Dask cluster {address} ({self.workers} workers)"
+
+    def run(self, fn: Callable, tasks: Sequence) -> Iterator[tuple[int, object]]:
+        from dask.distributed import as_completed as dask_completed
+
+        futures = {self.client.submit(fn, task, pure=False): k for k, task in enumerate(tasks)}
+        try:
+            with self.client.as_current():  # as_completed looks for the current client
+                completed = dask_completed(list(futures))
+            for future in completed:
+                yield futures[future], _result(future)
+        finally:
+            self.client.cancel(list(futures))
+
+    def close(self) -> None:
+        self.client.close()
+
+
+def _call(fn: Callable, task):
+    try:
+        return fn(task)
+    except Exception as err:  # as a worker process would report it
+        return err
+
+
+def _result(future):
+    try:
+        return future.result()
+    except Exception as err:  # the worker (not the site) failed: report it as the result
+        return err
+
+
+@contextlib.contextmanager
+def _single_threaded():
+    """Workers inherit one numerical thread each (the parent's setting is restored)."""
+    saved = {name: os.environ.get(name) for name in _THREAD_VARIABLES}
+    os.environ.update({name: "1" for name in _THREAD_VARIABLES})
+    try:
+        yield
+    finally:
+        for name, value in saved.items():
+            if value is None:
+                os.environ.pop(name, None)
+            else:
+                os.environ[name] = value
+
+
+def make_executor(workers: int | None = None, scheduler: str | None = None):
+    """A `DaskExecutor` when `scheduler` is given, else a `LocalExecutor`.
+
+    `workers` defaults to the number of cores.
+    """
+    if scheduler is not None and workers is not None:
+        raise InputError("give --workers or --scheduler, not both", key="scheduler")
+    if scheduler is not None:
+        return DaskExecutor(scheduler)
+    return LocalExecutor((os.cpu_count() or 1) if workers is None else workers)
+

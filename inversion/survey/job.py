@@ -1,0 +1,311 @@
+"""The work done for one site, on whichever process or cluster worker runs it.
+
+Three kinds of task (`SiteTask.kind`):
+
+``"posterior"`` (independent mode)
+    The site's own posterior: by grid quadrature (`inversion.grid`) when it has at most
+    `GRID_MAX_FREE` free parameters, otherwise by emcee (`inversion.fit`).
+``"likelihood"`` (joint mode, first pass)
+    The site's marginal likelihood of the potential temperature on the axis shared by
+    every site, L_i(Tp) = integral of L_i(Tp, phi) pi(phi) d phi, its own parameters phi
+    (lid, ...) integrated out by the midpoint rule over their whole prior.
+``"conditional"`` (joint mode, second pass)
+    The site's posterior given the area-wide answer: its likelihood times a tabulated
+    factor on Tp that carries what the other sites say (see `inversion.survey.joint`).
+
+A task never raises for a problem of its site (bad data, no melt possible, a forward
+model error): it returns a record with ``status`` saying why. Records hold only plain
+values (they are stored as JSON); a task is a pure function of its inputs and seed, so the
+numbers do not depend on which worker ran it or when.
+"""
+
+from __future__ import annotations
+
+import time
+import traceback
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.interpolate import CubicSpline
+from scipy.special import logsumexp
+
+from .._errors import InputError, NotConvergedWarning
+from ..grid import MASS_CUT, Axis, Grid, evaluate, find_box, grid_posterior, prior_axis
+from ..model import UNITS, LogPosterior
+from ..observations import THICKNESS_OF
+from .settings import SurveySettings
+from .sites import Site, site_observations
+
+__all__ = ["GRID_MAX_FREE", "QUANTILES", "TP", "SiteOutcome", "SiteTask", "run_site"]
+
+#: Sites with at most this many free parameters get a grid posterior, others emcee.
+GRID_MAX_FREE = 3
+#: Parameter shared by every site in joint mode.
+TP = "potential_temperature"
+#: Quantiles of every summary row: the median, then the 95 % and 68 % interval ends.
+QUANTILES = {"median": 0.5, "q2.5": 0.025, "q16": 0.16, "q84": 0.84, "q97.5": 0.975}
+#: Largest accepted quadrature error of a log-likelihood or ln Z (nats).
+LOG_TOLERANCE = 0.05
+_DRAWS = 4000  # posterior draws for the predicted thickness and the melt check
+_MIN_MELT_SHARE = 0.5  # below it a site that records melt "cannot make melt"
+_SITE_NODES = {1: 64, 2: 24}  # first try per site-level axis in the likelihood pass
+_SCAN_NODES = {1: 48, 2: 24}  # coarse scan for the per-Tp boxes
+_ROWS = 64  # Tp nodes per call of the log-likelihood (bounds memory)
+_REFINEMENTS = 2  # node doublings when the likelihood pass misses LOG_TOLERANCE
+
+
+@dataclass(frozen=True)
+class SiteTask:
+    """Everything a worker needs for one site (picklable).
+
+    Attributes
+    ----------
+    kind : {"posterior", "likelihood", "conditional"}
+    study : inversion.Study
+        Model, priors and sampler settings (no observations).
+    settings : SurveySettings
+    site : Site
+    seed : int
+        The site's own seed (from the master seed by site order).
+    keep_chains : bool
+        Return the chain (emcee) or grid for the site folder.
+    tp_axis : numpy.ndarray or None
+        ``"likelihood"``: Tp nodes (degC) shared by every site.
+    tp_factor : (numpy.ndarray, numpy.ndarray) or None
+        ``"conditional"``: Tp nodes (degC) and the log-factor on them.
+    tp_box : (float, float) or None
+        ``"conditional"``: part of the Tp prior's probability space holding the mass.
+    """
+
+    kind: str
+    study: object
+    settings: SurveySettings
+    site: Site
+    seed: int
+    keep_chains: bool = False
+    tp_axis: np.ndarray | None = None
+    tp_factor: tuple | None = None
+    tp_box: tuple | None = None
+
+
+@dataclass
+class SiteOutcome:
+    """What a task returns: the JSON-ready record and, optionally, bulky arrays."""
+
+    record: dict
+    arrays: dict = field(default_factory=dict)
+
+
+def run_site(task: SiteTask) -> SiteOutcome:
+    """Run one task; site problems become a record with a failed ``status``."""
+    started = time.perf_counter()
+    outcome = SiteOutcome(_base_record(task))
+    try:
+        if task.site.error is not None:
+            raise InputError(task.site.error)
+        study = task.study.with_observations(site_observations(task.site, task.settings))
+        _KINDS[task.kind](task, LogPosterior(study), outcome)
+    except (InputError, ValueError, FloatingPointError) as err:
+        outcome.record.update(status=f"failed: {err}", converged=False)
+    except Exception as err:  # a bug should not stop a thousand-site survey: report it
+        where = traceback.extract_tb(err.__traceback__)[-1]
+        outcome.record.update(status=f"failed: unexpected {type(err).__name__}: {err} "
+                              f"({where.filename}:{where.lineno})", converged=False)
+    outcome.record["seconds"] = round(time.perf_counter() - started, 3)
+    return outcome
+
+
+def _base_record(task: SiteTask) -> dict:
+    site = task.site
+    return {"site": site.name, "index": site.index, "line": site.line,
+            "position_km": site.position_km, "seed": task.seed, "phase": task.kind,
+            "method": "", "converged": False, "status": "ok"}
+
+
+# ---- independent mode -------------------------------------------------------------------
+
+def _posterior(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
+    if logpost.ndim <= GRID_MAX_FREE:
+        post = grid_posterior(logpost.log_likelihood, logpost.names, logpost.priors,
+                              max_points=task.settings.grid_points)
+        _grid_outcome(task, logpost, post, outcome, method="grid")
+    else:
+        _mcmc_outcome(task, logpost, outcome)
+
+
+def _grid_outcome(task, logpost, post, outcome: SiteOutcome, *, method: str) -> None:
+    error = float(post.log_evidence_error)
+    rows = [_row(name, post.quantile(name, list(QUANTILES.values())))
+            for name in logpost.names]
+    draws = post.sample(np.random.default_rng(task.seed), _DRAWS)
+    outcome.record.update(method=method, converged=bool(error <= LOG_TOLERANCE),
+                          diagnostics={"grid_shape": list(post.grid.shape),
+                                       "log_evidence": float(post.log_evidence),
+                                       "log_evidence_error": error})
+    if error > LOG_TOLERANCE:
+        outcome.record["status"] = (f"not converged: grid quadrature error of ln Z "
+                                    f"{error:.3g} > {LOG_TOLERANCE:g}; raise "
+                                    "survey.grid_points")
+    _finish(task, logpost, rows, draws, outcome)
+    if task.keep_chains:
+        outcome.arrays["grid"] = {**{f"axis_{a.name}": a.values for a in post.grid.axes},
+                                  "log_likelihood": post.log_likelihood}
+
+
+def _mcmc_outcome(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
+    from ..posterior import fit
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotConvergedWarning)
+        posterior = fit(logpost.study, seed=task.seed, quiet=True)
+    summary = posterior.summary().set_index("parameter")
+    rows = [_row(name, [summary.loc[name, key] for key in QUANTILES])
+            for name in logpost.names]
+    outcome.record.update(method="mcmc", converged=bool(posterior.converged),
+                          diagnostics={"steps": int(posterior.chain.shape[0]),
+                                       "walkers": int(posterior.chain.shape[1]),
+                                       "ess_min": float(np.min(posterior.ess)),
+                                       "tau_max": float(np.max(posterior.tau))})
+    if not posterior.converged:
+        outcome.record["status"] = (
+            f"not converged: emcee stopped at the step cap ({posterior.chain.shape[0]} "
+            f"steps, smallest ESS {np.min(posterior.ess):.0f}); raise sampler.max_steps")
+    _finish(task, logpost, rows, posterior.predictive_draws(_DRAWS), outcome)
+    if task.keep_chains:
+        outcome.arrays["chain"] = posterior.result
+
+
+def _finish(task, logpost, rows, draws: np.ndarray, outcome: SiteOutcome) -> None:
+    """Add the predicted thickness row and fail a site whose posterior makes no melt."""
+    column = logpost.column(draws)
+    quantity = THICKNESS_OF[task.settings.thickness_of]
+    predicted = np.asarray(getattr(column, quantity), float)
+    rows.append(_row(quantity, np.quantile(predicted, list(QUANTILES.values()))))
+    share = float(np.mean(np.asarray(column.produces_melt, bool)))
+    outcome.record.update(rows=rows, melt_share=share)
+    site = task.site
+    if site.records_melt and share < _MIN_MELT_SHARE:
+        outcome.record.update(status=(
+            f"failed: no melt possible: only {100 * share:.0f} % of the posterior makes "
+            f"melt, yet the site records {site.thickness_km:g} km of crust"
+            + (" and a melting pressure" if site.has_pressure else "")
+            + "; the priors cannot explain the data (mantle too cold or lid too thick)"),
+            converged=False)
+
+
+def _row(name: str, values) -> dict:
+    values = [float(v) for v in values]
+    return {"parameter": name, "unit": UNITS[name],
+            **{key: v for key, v in zip(QUANTILES, values, strict=True)}}
+
+
+# ---- joint mode ------------------------------------------------------------------------
+
+def _likelihood(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
+    """log L_i(Tp) on the shared axis, the site's own parameters integrated out.
+
+    For each Tp node the site's parameters are integrated by the midpoint rule over the
+    box of their prior probability space that holds the mass at that Tp (found on a
+    coarse scan, as `inversion.grid.find_box` does for a whole grid); the rule is
+    compared with the rule at half the resolution, and the nodes are doubled (at most
+    `_REFINEMENTS` times) until the two agree within `LOG_TOLERANCE` wherever log L_i is
+    within `MASS_CUT` of its largest value.
+    """
+    others = [n for n in logpost.names if n != TP]
+    tp = np.asarray(task.tp_axis, float)
+    if not others:
+        values = evaluate(logpost.log_likelihood, Grid((Axis(TP, tp, np.zeros(tp.size)),)))
+        fine, error, nodes = values, 0.0, 0
+    else:
+        boxes = _row_boxes(logpost, tp, others)
+        nodes = _SITE_NODES.get(len(others), 16)
+        coarse = _integrate_rows(logpost, tp, boxes, nodes // 2)
+        for step in range(_REFINEMENTS + 1):
+            fine = _integrate_rows(logpost, tp, boxes, nodes)
+            error = _difference(fine, coarse)
+            if error <= LOG_TOLERANCE or step == _REFINEMENTS:
+                break
+            coarse, nodes = fine, 2 * nodes
+    outcome.record.update(method="grid", converged=bool(error <= LOG_TOLERANCE),
+                          tp_log_likelihood=[float(v) for v in fine],
+                          diagnostics={"site_nodes": nodes, "quadrature_error": error})
+    if error > LOG_TOLERANCE:
+        outcome.record["status"] = (f"not converged: quadrature error of the site's Tp "
+                                    f"likelihood {error:.3g} > {LOG_TOLERANCE:g} nats")
+
+
+def _difference(fine: np.ndarray, coarse: np.ndarray) -> float:
+    finite = np.isfinite(fine)
+    if not finite.any():
+        raise InputError("the site's likelihood is zero everywhere on the Tp axis")
+    near = finite & (fine >= np.max(fine[finite]) - MASS_CUT)
+    return float(np.max(np.abs(fine[near] - coarse[near])))
+
+
+def _row_boxes(logpost, tp: np.ndarray, others) -> np.ndarray:
+    """Per Tp node, the (u_low, u_high) box of each site axis holding the mass.
+
+    Returns shape ``(len(tp), len(others), 2)``: the cells within `MASS_CUT` of that
+    row's largest value on a coarse grid over the whole prior, plus two cells each side.
+    """
+    priors = dict(zip(logpost.names, logpost.priors, strict=True))
+    scan = _SCAN_NODES.get(len(others), 16)
+    grid = Grid((Axis(TP, tp, np.zeros(tp.size)),
+                 *(prior_axis(n, priors[n], (0.0, 1.0), scan) for n in others)))
+    values = evaluate(logpost.log_likelihood, grid)
+    site_axes = tuple(range(1, len(others) + 1))
+    keep = values >= np.max(values, axis=site_axes, keepdims=True) - MASS_CUT
+    boxes = np.empty((tp.size, len(others), 2))
+    for j in range(len(others)):
+        used = keep.any(axis=tuple(a for a in site_axes if a != j + 1))
+        first = np.argmax(used, axis=1)
+        last = scan - 1 - np.argmax(used[:, ::-1], axis=1)
+        boxes[:, j, 0] = np.clip((first - 2) / scan, 0.0, 1.0)
+        boxes[:, j, 1] = np.clip((last + 3) / scan, 0.0, 1.0)
+    return boxes
+
+
+def _integrate_rows(logpost, tp: np.ndarray, boxes: np.ndarray, nodes: int) -> np.ndarray:
+    """Midpoint rule with `nodes` cells per site axis inside each Tp node's box."""
+    priors = dict(zip(logpost.names, logpost.priors, strict=True))
+    others = [n for n in logpost.names if n != TP]
+    mid = (np.arange(nodes) + 0.5) / nodes
+    width = boxes[:, :, 1] - boxes[:, :, 0]  # (m, d)
+    u = boxes[:, :, :1] + width[:, :, None] * mid  # (m, d, nodes)
+    values = {n: np.asarray(priors[n].ppf(u[:, j]), float) for j, n in enumerate(others)}
+    mesh = np.meshgrid(*([np.arange(nodes)] * len(others)), indexing="ij")
+    flat = [m.ravel() for m in mesh]
+    out = np.empty(tp.size)
+    for start in range(0, tp.size, _ROWS):
+        rows = slice(start, start + _ROWS)
+        count = tp[rows].size
+        theta = np.empty((count, flat[0].size, len(logpost.names)))
+        for c, name in enumerate(logpost.names):
+            theta[:, :, c] = (tp[rows, None] if name == TP
+                              else values[name][rows][:, flat[others.index(name)]])
+        log_l = logpost.log_likelihood(theta.reshape(-1, len(logpost.names)))
+        log_l = np.where(np.isnan(log_l), -np.inf, log_l).reshape(count, -1)
+        out[rows] = logsumexp(log_l, axis=1)
+    return out + np.sum(np.log(width / nodes), axis=1)
+
+
+def _conditional(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
+    """The site's posterior given the other sites (through the tabulated Tp factor)."""
+    nodes, log_factor = (np.asarray(a, float) for a in task.tp_factor)
+    factor = CubicSpline(nodes, log_factor)
+    column = logpost.names.index(TP)
+
+    def log_like(theta: np.ndarray) -> np.ndarray:
+        tp = theta[:, column]
+        extra = np.where((tp >= nodes[0]) & (tp <= nodes[-1]), factor(tp), -np.inf)
+        return logpost.log_likelihood(theta) + extra
+
+    start = [tuple(task.tp_box) if name == TP else (0.0, 1.0) for name in logpost.names]
+    box = find_box(log_like, logpost.names, logpost.priors, start=start)
+    post = grid_posterior(log_like, logpost.names, logpost.priors, box=box,
+                          max_points=task.settings.grid_points)
+    _grid_outcome(task, logpost, post, outcome, method="grid")
+
+
+_KINDS = {"posterior": _posterior, "likelihood": _likelihood, "conditional": _conditional}

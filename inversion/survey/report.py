@@ -1,0 +1,111 @@
+"""report.md of a survey: the area-wide answer, every site, the failed sites, a caution."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .job import TP
+
+__all__ = ["render", "write_report"]
+
+_LIST_LIMIT = 200  # sites listed one by one; a larger survey points to the CSV instead
+_CAUTION = (
+    "These are scientific estimates. They depend on the chosen melting parameterization, "
+    "the priors, the comparison choices (what the thickness is compared with, where the "
+    "melts equilibrated) and the other modelling assumptions described in the model "
+    "documentation (docs/model.md); joint mode further assumes that the sites are "
+    "independent given the area-wide parameters. They are no basis on their own for "
+    "hazard or resource decisions.")
+
+
+def write_report(result, plan, folder, *, executor_name: str) -> None:
+    """Write profile.png and report.md into the survey folder."""
+    import matplotlib.pyplot as plt
+
+    from .figure import profile_figure
+
+    figure = profile_figure(result, plan)
+    try:
+        folder.write_figure("profile.png", figure)
+    finally:
+        plt.close(figure)
+    folder.write_text("report.md", render(result, plan, executor_name=executor_name))
+
+
+def _interval(row) -> str:
+    if row["median"] is None or not np.isfinite(float(row["median"])):
+        return "—"
+    return (f"{row['median']:.4g} (68 %: {row['q16']:.4g}–{row['q84']:.4g}; "
+            f"95 %: {row['q2.5']:.4g}–{row['q97.5']:.4g})")
+
+
+def _area_section(result, plan) -> list[str]:
+    if result.area is None:
+        ok = result.summary[(result.summary["parameter"] == TP)
+                            & (result.summary["status"] == "ok")]
+        if ok.empty:
+            return ["No site gave a result."]
+        return [
+            "Each site was fitted on its own (independent mode); there is no area-wide "
+            "posterior. Across the sites with a result, the site medians of the potential "
+            f"temperature range from {ok['median'].min():.0f} to {ok['median'].max():.0f} "
+            f"°C (median of the medians {ok['median'].median():.0f} °C). Run with "
+            "`--mode joint` for one area-wide answer that uses every site at once."]
+    lines = []
+    for _, row in result.area.iterrows():
+        lines.append(f"- **{row['parameter']}** ({row['meaning']}): {_interval(row)} "
+                     f"{row['unit']}, from {row['sites']} sites")
+    return lines
+
+
+def _site_table(result) -> list[str]:
+    if len(result.records) > _LIST_LIMIT:
+        return [f"{len(result.records)} sites: see sites_summary.csv."]
+    lines = ["| site | position (km) | Tp (°C) | lid (km) | method | status |",
+             "|---|---|---|---|---|---|"]
+    summary = result.summary
+    for record in result.records:
+        rows = summary[summary["site"] == record["site"]].set_index("parameter")
+        tp = _interval(rows.loc[TP]) if TP in rows.index else "—"
+        lid = (_interval(rows.loc["lithosphere_thickness"])
+               if "lithosphere_thickness" in rows.index else "—")
+        position = "" if record["position_km"] is None else f"{record['position_km']:g}"
+        status = "ok" if record["status"] == "ok" else record["status"].split(":")[0]
+        lines.append(f"| {record['site']} | {position} | {tp} | {lid} | "
+                     f"{record['method'] or '—'} | {status} |")
+    return lines
+
+
+def _failed(result) -> list[str]:
+    failed = result.failed
+    if not failed:
+        return ["Every site gave a result."]
+    lines = [f"{len(failed)} of {len(result.records)} sites have no usable result "
+             "(excluded from the area-wide answer in joint mode):", ""]
+    lines += [f"- **{r['site']}** (line {r['line']}): {r['status']}" for r in failed]
+    return lines
+
+
+def render(result, plan, *, executor_name: str) -> str:
+    """The text of report.md."""
+    methods = sorted({r["method"] for r in result.records if r["method"]})
+    mode = plan.mode + (" (hierarchical)" if plan.mode == "joint"
+                        and plan.settings.hierarchical else "")
+    free = ", ".join(plan.study.free_parameters)
+    text = [
+        f"# Survey: {plan.study.name}", "",
+        f"{len(result.records)} sites from `{plan.table.path.name}`, mode **{mode}**, "
+        f"master seed {plan.seed}, run on {executor_name}. Free parameters per site: "
+        f"{free}. Methods used: {', '.join(methods) or 'none'} (grid = quadrature "
+        "on a grid in the priors' probability space for at most 3 free parameters, "
+        "mcmc = emcee); each site's method is in sites_summary.csv.", "",
+        "## Area-wide answer", "", *_area_section(result, plan), "",
+        "## Sites", "", *_site_table(result), "",
+        "## Failed sites", "", *_failed(result), "",
+        "## Files", "",
+        "sites_summary.csv (one row per site and parameter), "
+        + ("area.csv (the area-wide posterior), " if result.area is not None else "")
+        + "profile.png (sites against position), sites/ (one folder per site).", "",
+        "## Caution", "", _CAUTION, "",
+    ]
+    return "\n".join(text)

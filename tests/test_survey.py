@@ -1,0 +1,241 @@
+"""lidmelt survey: sites table, failures, executors (local and Dask), resume, --force."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import emcee
+import numpy as np
+import pandas as pd
+import pytest
+
+from lidmelt.inversion.cli import main
+from lidmelt.inversion.survey import read_sites, survey
+
+from survey_helpers import truth_table, write_sites, write_study
+
+_SITES = "site,position_km,thickness_km,sigma_km,pressure_gpa,pressure_sigma_gpa\n"
+
+
+@pytest.fixture(scope="session")
+def dask_cluster():
+    distributed = pytest.importorskip("distributed")
+    saved = os.environ.get("OMP_NUM_THREADS")
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                       dashboard_address=None, host="127.0.0.1")
+    yield cluster
+    cluster.close()
+    if saved is None:  # LocalCluster leaves OMP_NUM_THREADS=1 behind in this process
+        os.environ.pop("OMP_NUM_THREADS", None)
+    else:
+        os.environ["OMP_NUM_THREADS"] = saved
+
+
+@pytest.fixture(scope="module")
+def inputs(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("survey")
+    study = write_study(folder)
+    sites = write_sites(folder, study, truth_table(1390.0, [18.0, 30.0, 42.0, 26.0]), 4)
+    return folder, study, sites
+
+
+def _summary_text(folder: Path) -> str:
+    return (folder / "sites_summary.csv").read_text(encoding="utf-8")
+
+
+def test_same_numbers_on_one_and_two_workers_and_on_dask(inputs, dask_cluster, tmp_path):
+    _, study, sites = inputs
+    one = survey(study, sites, out=tmp_path / "one", workers=1, quiet=True)
+    two = survey(study, sites, out=tmp_path / "two", workers=2, quiet=True)
+    on_dask = survey(study, sites, out=tmp_path / "dask",
+                     scheduler=dask_cluster.scheduler_address, quiet=True)
+    assert _summary_text(tmp_path / "one") == _summary_text(tmp_path / "two")
+    assert _summary_text(tmp_path / "one") == _summary_text(tmp_path / "dask")
+    for a, b in zip(one.records, on_dask.records, strict=True):  # full precision too
+        assert a["rows"] == b["rows"] and a["seed"] == b["seed"]
+    assert one.records[0]["seed"] != one.records[1]["seed"]
+    expected = np.random.SeedSequence(11).spawn(4)[2].generate_state(1)[0]  # [sampler] seed
+    assert one.records[2]["seed"] == int(expected)
+    assert two.summary["method"].eq("grid").all()
+
+
+def test_mcmc_sites_match_between_local_and_dask(tmp_path, dask_cluster):
+    # four free parameters: each site is fitted by emcee with its own seed
+    study = write_study(tmp_path, extra_parameters=(
+        'solidus_offset = { prior = "normal", mean = 0.0, sd = 15.0 }\n'
+        'active_upwelling = { prior = "uniform", min = 1.0, max = 2.0 }'),
+        extra_sampler="walkers = 16\ness_target = 100\ntau_multiple = 5\nmax_steps = 300\n"
+        "check_interval = 100")
+    truth = truth_table(1400.0, [25.0, 40.0]).assign(solidus_offset=0.0,
+                                                     active_upwelling=1.0)
+    sites = write_sites(tmp_path, study, truth, 2)
+    local = survey(study, sites, out=tmp_path / "local", workers=2, quiet=True,
+                   keep_chains=True)
+    survey(study, sites, out=tmp_path / "remote",
+           scheduler=dask_cluster.scheduler_address, quiet=True)
+    assert local.summary["method"].eq("mcmc").all()
+    chain = emcee.backends.HDFBackend(next((tmp_path / "local" / "sites").glob(
+        "0001-*/chain.h5")), read_only=True)  # --keep-chains: emcee reads it
+    assert chain.get_chain().shape[1:] == (16, 4)
+    assert _summary_text(tmp_path / "local") == _summary_text(tmp_path / "remote")
+
+
+def test_a_site_with_bad_data_fails_alone(tmp_path, capsys):
+    study = write_study(tmp_path)
+    sites = tmp_path / "sites.csv"
+    sites.write_text(_SITES + "A,0,6.1,0.5,,\nB,10,5.2,-0.4,,\nC,20,4.8,0.5,1.1,0.1\n"
+                     "D,30,0.5,0.5,0.9,\n", encoding="utf-8")
+    code = main(["survey", str(study), "--sites", str(sites), "--out",
+                 str(tmp_path / "out"), "--workers", "1", "--quiet"])
+    assert code == 0
+    summary = pd.read_csv(tmp_path / "out" / "sites_summary.csv")
+    status = summary.groupby("site", sort=False)["status"].first()
+    assert status["A"] == "ok" and status["C"] == "ok"
+    assert status["B"].startswith("failed:")
+    assert "sites.csv, row 3, column 'sigma_km'" in status["B"]  # header is line 1
+    assert "must be > 0" in status["B"]
+    assert "row 5, column 'pressure_sigma_gpa'" in status["D"]  # half of a pair
+    assert summary[summary["site"] == "B"]["median"].isna().all()
+    report = (tmp_path / "out" / "report.md").read_text(encoding="utf-8")
+    assert "**B** (line 3)" in report and "no basis on their own" in report
+    assert "site 'B'" in capsys.readouterr().err
+
+
+def test_a_site_that_cannot_melt_fails_with_the_reason(tmp_path):
+    # Tp <= 1270 degC under a lid >= 90 km: no melt anywhere in the priors (melting
+    # starts near 50-60 km at such Tp, McKenzie & Bickle 1988; value from memory), yet
+    # the site records 6 km of crust; a site with no crust is explained by no melt
+    cold = write_study(tmp_path)
+    cold.write_text(cold.read_text().replace("max = 1600.0", "max = 1270.0").replace(
+        "min = 5.0", "min = 90.0"))
+    sites = tmp_path / "sites.csv"
+    sites.write_text("site,thickness_km,sigma_km\ncold,6,0.5\nnone,0,0.5\n",
+                     encoding="utf-8")
+    result = survey(cold, sites, out=tmp_path / "cold", workers=1, quiet=True,
+                    keep_chains=True)
+    assert result.records[0]["status"].startswith("failed: no melt possible")
+    assert "6 km of crust" in result.records[0]["status"]
+    assert result.records[1]["status"] == "ok"  # no crust observed: no melt is the answer
+    assert result.records[1]["melt_share"] == 0.0
+    grid = np.load(next((tmp_path / "cold" / "sites").glob("0002-*/grid.npz")))
+    assert grid["log_likelihood"].shape == (grid["axis_potential_temperature"].size,
+                                            grid["axis_lithosphere_thickness"].size)
+
+
+@pytest.mark.parametrize("content, needle", [
+    ("site,thickness_km\nA,6\n", "missing column 'sigma_km'"),
+    ("site,thickness_km,sigma_km,pressure_gpa\nA,6,0.5,1\n",
+     "missing column 'pressure_sigma_gpa', needed together with pressure_gpa"),
+    ("site,thickness_km,sigma_km\nA,6,0.5\nA,5,0.5\n", "row 3, column 'site': site 'A' "
+     "appears twice"),
+])
+def test_a_broken_sites_file_stops_with_exit_2(tmp_path, capsys, content, needle):
+    study = write_study(tmp_path)
+    sites = tmp_path / "sites.csv"
+    sites.write_text(content, encoding="utf-8")
+    code = main(["survey", str(study), "--sites", str(sites), "--out",
+                 str(tmp_path / "out"), "--quiet"])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert needle in err and err.count("\n") == 1
+    assert not (tmp_path / "out").exists()
+
+
+def test_pressures_need_an_equilibration(tmp_path, capsys):
+    study = write_study(tmp_path)
+    study.write_text(study.read_text().replace('equilibration = "top"', ""))
+    sites = tmp_path / "sites.csv"
+    sites.write_text(_SITES + "A,0,6.1,0.5,1.0,0.1\n", encoding="utf-8")
+    assert main(["survey", str(study), "--sites", str(sites), "--out",
+                 str(tmp_path / "out")]) == 2
+    assert "key 'survey.equilibration'" in capsys.readouterr().err
+
+
+def test_a_misspelt_survey_key_is_named_with_its_line(tmp_path, capsys):
+    study = write_study(tmp_path, extra_survey="tp_sprad = 3")
+    sites = tmp_path / "sites.csv"
+    sites.write_text("site,thickness_km,sigma_km\nA,6,0.5\n", encoding="utf-8")
+    assert main(["survey", str(study), "--sites", str(sites), "--out",
+                 str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert "line 14" in err and "survey.tp_sprad" in err and "did you mean 'tp_spread'" in err
+
+
+def _finished(folder: Path) -> int:
+    return len(list((folder / "sites").glob("*/site.json"))) if folder.exists() else 0
+
+
+def test_resume_after_a_survey_killed_halfway(inputs, tmp_path):
+    folder, study, _ = inputs
+    many = write_sites(tmp_path, study, truth_table(1390.0, np.linspace(15, 45, 8)), 9)
+    out = tmp_path / "killed"
+    command = [sys.executable, "-m", "lidmelt.inversion.cli", "survey", str(study),
+               "--sites", str(many), "--out", str(out), "--workers", "1", "--quiet"]
+    child = subprocess.Popen(command, start_new_session=True, stdout=subprocess.DEVNULL,
+                             stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 120
+        while _finished(out) < 3 and time.monotonic() < deadline and child.poll() is None:
+            time.sleep(0.05)
+    finally:
+        os.killpg(child.pid, signal.SIGKILL)  # the command, its workers, nothing else
+        child.wait()
+    done = _finished(out)
+    assert 3 <= done < 8, "the survey was not killed halfway"
+    assert not (out / "sites_summary.csv").exists()
+    resumed = survey(study, many, out=out, workers=1, resume=True, quiet=True)
+    survey(study, many, out=tmp_path / "fresh", workers=2, quiet=True)
+    assert _summary_text(out) == _summary_text(tmp_path / "fresh")
+    assert len(resumed.records) == 8 and not resumed.failed
+
+
+def test_resume_refuses_changed_inputs_and_force_guards_foreign_folders(inputs, tmp_path,
+                                                                       capsys):
+    _, study, sites = inputs
+    out = tmp_path / "run"
+    survey(study, sites, out=out, workers=1, quiet=True)
+    changed = tmp_path / "changed.csv"
+    changed.write_text(sites.read_text().replace("S01", "S1x"), encoding="utf-8")
+    args = ["survey", str(study), "--out", str(out), "--quiet", "--workers", "1"]
+    assert main([*args, "--sites", str(changed), "--resume"]) == 2
+    assert "the sites file changed" in capsys.readouterr().err
+    assert main([*args, "--sites", str(sites), "--resume", "--seed", "5"]) == 2
+    assert "the settings" in capsys.readouterr().err
+    assert main([*args, "--sites", str(sites)]) == 2  # exists, no --resume/--force
+    (out / "notes.txt").write_text("mine", encoding="utf-8")
+    assert main([*args, "--sites", str(sites), "--force"]) == 2
+    assert "did not write" in capsys.readouterr().err
+    assert (out / "notes.txt").read_text() == "mine"
+    (out / "notes.txt").unlink()
+    assert main([*args, "--sites", str(sites), "--force", "--seed", "5"]) == 0
+    assert json.loads((out / "survey.json").read_text())["settings"]["seed"] == 5
+    plain = tmp_path / "plain"
+    plain.mkdir()
+    (plain / "data.csv").write_text("x", encoding="utf-8")
+    assert main(["survey", str(study), "--sites", str(sites), "--out", str(plain),
+                 "--force", "--quiet"]) == 2
+    assert (plain / "data.csv").exists()
+
+
+def test_sites_table_reads_optional_columns(tmp_path):
+    path = tmp_path / "s.csv"
+    path.write_text("# invented sites\nsite,thickness_km,sigma_km,extra\nA,6,0.5,x\n",
+                    encoding="utf-8")
+    table = read_sites(path)
+    assert not table.has_positions and not table.has_pressures
+    assert table.sites[0].line == 3 and table.sites[0].thickness_km == 6.0
+
+
+def test_import_lidmelt_stays_light():
+    code = ("import sys, lidmelt; light = not any(m in sys.modules for m in "
+            "('lidmelt.inversion.survey', 'distributed', 'dask')); "
+            "f = lidmelt.survey; print(light, f.__name__, 'distributed' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.split()
+    assert out == ["True", "survey", "False"]
