@@ -2,12 +2,9 @@
 
 from __future__ import annotations
 
-import os
-import tempfile
-from pathlib import Path
-
 import numpy as np
 
+from .._atomic import replacing
 from . import figure_style as style
 from .adiabat import depth_per_pressure
 from .column import melt_column
@@ -139,14 +136,6 @@ def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300
 
 
 def save_figure_atomically(fig, path, dpi=150):
-    """Write to a temporary file beside ``path`` and rename it into place."""
-    target = Path(path)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(suffix=".png", dir=target.parent)
-    os.close(fd)
-    try:
+    """Write the figure as a PNG to a temporary file beside ``path``; rename it into place."""
+    with replacing(path) as tmp:
         fig.savefig(tmp, dpi=dpi)
-        os.replace(tmp, target)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)

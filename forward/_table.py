@@ -16,7 +16,6 @@ from __future__ import annotations
 import hashlib
 import itertools
 import os
-import tempfile
 import zipfile
 from dataclasses import dataclass
 from functools import lru_cache
@@ -24,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._atomic import replacing
 from ._integrate import integrate_paths
 from ._validation import PARAMETER_DOMAIN
 from .adiabat import MAX_PRESSURE, onset_state, solid_adiabat
@@ -198,16 +198,12 @@ def _read_cache(path):
 
 def _write_cache(path, table) -> None:
     """Atomic write; a cache is a convenience, so a read-only home must not stop the model."""
-    tmp = None
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(suffix=".npz", dir=path.parent)
-        with os.fdopen(fd, "wb") as handle:
-            np.savez(handle, state=table.state, onset=table.onset)
-        os.replace(tmp, path)
+        with replacing(path) as tmp:
+            np.savez(tmp, state=table.state, onset=table.onset)
     except OSError:
-        if tmp is not None and os.path.exists(tmp):
-            os.remove(tmp)
+        pass  # `replacing` has removed its temporary file
 
 
 @lru_cache(maxsize=8)

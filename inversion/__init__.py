@@ -24,6 +24,7 @@ from .._lazy import lazy_exports
 # Imported on first use: the sampler (emcee, h5py) and pandas load only when needed.
 _WHERE = {
     "InputError": "._errors", "NotConvergedWarning": "._errors",
+    "OutputConflict": "._errors", "PosteriorWarning": "._errors", "WriteError": "._errors",
     "OUTPUT_FILES": "._outputs",
     "DERIVED": ".model", "PARAMETERS": ".model", "UNITS": ".model", "LogPosterior": ".model",
     "KINDS": ".observations", "ObservationSet": ".observations",
@@ -53,12 +54,15 @@ __all__ = [
     "Normal",
     "NotConvergedWarning",
     "ObservationSet",
+    "OutputConflict",
     "Posterior",
+    "PosteriorWarning",
     "Prior",
     "SamplerSettings",
     "Study",
     "TruncatedNormal",
     "Uniform",
+    "WriteError",
     "assess_chain",
     "fit",
     "prior_from_spec",

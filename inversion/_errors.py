@@ -12,7 +12,8 @@ import difflib
 from collections.abc import Iterable
 from os import PathLike
 
-__all__ = ["InputError", "NotConvergedWarning", "suggest"]
+__all__ = ["InputError", "NotConvergedWarning", "OutputConflict", "PosteriorWarning",
+           "WriteError", "suggest"]
 
 
 class InputError(ValueError):
@@ -87,6 +88,72 @@ def _rebuild_input_error(message, file, row, column, key, line) -> InputError:
     return InputError(message, file=file, row=row, column=column, key=key, line=line)
 
 
+class OutputConflict(InputError):
+    """An existing result folder or checkpoint stands in the way of a run.
+
+    The message says what is in the way and how to resolve it with the arguments of
+    `fit`; `reason` lets a front end (the command line) word the remedy its own way.
+
+    Parameters
+    ----------
+    problem : str
+        What is in the way, e.g. ``"the result folder already exists"``.
+    reason : {"exists", "checkpoint", "no-checkpoint", "changed"}
+        ``"exists"``: the result folder exists (replace it with ``force=True``);
+        ``"checkpoint"``: an interrupted run is stored (``resume=True`` or ``force=True``);
+        ``"no-checkpoint"``: nothing to resume; ``"changed"``: the stored run cannot be
+        continued (other inputs, or a damaged checkpoint; ``force=True`` starts over).
+    file : str or path-like, optional
+        The folder or file concerned.
+    """
+
+    REMEDIES = {
+        "exists": "choose another folder or replace it with force=True",
+        "checkpoint": "continue it with resume=True or start over with force=True",
+        "no-checkpoint": "start a new run instead (resume=False)",
+        "changed": "restore what changed, or start over with force=True",
+    }
+
+    def __init__(self, problem: str, *, reason: str, file=None) -> None:
+        self.problem = " ".join(str(problem).split())
+        self.reason = reason
+        super().__init__(f"{self.problem}; {self.REMEDIES[reason]}", file=file)
+
+
+class WriteError(OSError):
+    """Writing a checkpoint or the results failed (a full disk, a lost mount).
+
+    Its string form is one line naming the path, the cause and what was kept.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file or folder that could not be written.
+    cause : OSError
+        The underlying error.
+    kept_steps : int
+        Steps of the chain stored in the checkpoint, 0 if none.
+    checkpoint : str or path-like, optional
+        The checkpoint folder that holds them.
+    """
+
+    def __init__(self, path, cause: OSError, *, kept_steps: int = 0, checkpoint=None) -> None:
+        super().__init__(cause.errno, cause.strerror or str(cause))
+        self.path = str(path)
+        self.cause = cause
+        self.kept_steps = int(kept_steps)
+        self.checkpoint = None if checkpoint is None else str(checkpoint)
+
+    def __str__(self) -> str:
+        text = f"cannot write {self.path} ({self.cause.strerror or self.cause})"
+        if self.checkpoint is None:
+            return text
+        if self.kept_steps:
+            return (f"{text}; the checkpoint up to step {self.kept_steps} is kept in "
+                    f"{self.checkpoint}")
+        return f"{text}; no step had been stored yet, so nothing was kept"
+
+
 class NotConvergedWarning(UserWarning):
     """The sampler stopped at its step cap before the convergence criteria were met.
 
@@ -106,7 +173,17 @@ class NotConvergedWarning(UserWarning):
         self.steps = steps
 
 
-def suggest(word: str, valid: Iterable[str]) -> str:
+class PosteriorWarning(UserWarning):
+    """The fit finished but its posterior needs care (one line: what and why).
+
+    Issued by `fit` for each entry of ``Posterior.posterior_warnings``: a posterior piled
+    against a prior bound or the edge of the model's range, samples whose melting starts
+    at the model's base, no melt anywhere in the prior. (Low acceptance and a high split
+    R-hat are part of the stopping rule: `NotConvergedWarning`.)
+    """
+
+
+def suggest(word: str, valid: Iterable[str], *, list_choices: bool = True) -> str:
     """Return a ``"; did you mean 'x'?"`` hint for a misspelt `word`, or a list of choices.
 
     Parameters
@@ -115,6 +192,9 @@ def suggest(word: str, valid: Iterable[str]) -> str:
         The unrecognised word.
     valid : iterable of str
         The accepted words.
+    list_choices : bool
+        Without a close match, list `valid` as the choices (False: return ``""``, for
+        words that are not choices, such as the columns a table happens to have).
 
     Returns
     -------
@@ -129,6 +209,8 @@ def suggest(word: str, valid: Iterable[str]) -> str:
     "; did you mean 'melt_thickness'?"
     >>> suggest("zzz", ["top", "pooled"])
     "; valid choices: 'top', 'pooled'"
+    >>> suggest("zzz", ["site", "notes"], list_choices=False)
+    ''
     """
     valid = [str(v) for v in valid]
     word = str(word)
@@ -137,4 +219,6 @@ def suggest(word: str, valid: Iterable[str]) -> str:
         close = [v for v in valid if v.lower().startswith(word.lower())][:1]
     if close:
         return f"; did you mean '{close[0]}'?"
+    if not list_choices:
+        return ""
     return "; valid choices: " + ", ".join(f"'{v}'" for v in valid)

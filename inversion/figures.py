@@ -17,8 +17,8 @@ it is safe to call from scripts and tests (Agg backend).
 
 from __future__ import annotations
 
+import io
 import textwrap
-from pathlib import Path
 
 import corner
 import numpy as np
@@ -32,19 +32,21 @@ from ..forward import plotting
 from ..forward.quantities import quantity, unit_text
 from .report import decimals, estimate
 
-__all__ = ["corner_figure", "fit_figure", "pt_figure", "save_figures"]
+__all__ = ["corner_figure", "figure_files", "fit_figure", "pt_figure"]
 
 _DPI = 150
 _INCH_FOR_LABELS = 0.95  # room left and below the corner grid for tick and axis labels
 
 
-def save_figures(posterior, folder: str | Path) -> None:
-    """Render corner.png, fit.png and pt.png of `posterior` into `folder`."""
-    folder = Path(folder)
+def figure_files(posterior) -> dict[str, bytes]:
+    """The PNG bytes of corner.png, fit.png and pt.png of `posterior`, in that order."""
+    files = {}
     for name, make in (("corner.png", corner_figure), ("fit.png", fit_figure),
                        ("pt.png", pt_figure)):
-        fig = make(posterior)
-        fig.savefig(folder / name, dpi=_DPI, metadata={"Software": None})
+        buffer = io.BytesIO()
+        make(posterior).savefig(buffer, format="png", dpi=_DPI, metadata={"Software": None})
+        files[name] = buffer.getvalue()
+    return files
 
 
 # ---- corner -----------------------------------------------------------------------------

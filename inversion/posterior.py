@@ -3,27 +3,37 @@
 `fit` validates the run settings, builds the vectorised log-posterior, starts the walkers
 (from the prior or around the MAP), runs the sampler until the autocorrelation-based
 stopping rule is met, polishes the MAP and returns a `Posterior`. With ``out`` the chain
-is checkpointed in ``<out>.partial/chain.h5`` while it runs (so ``resume=True`` can
-continue an interrupted run) and all outputs are then written atomically to ``out``.
+is checkpointed in ``<out>.partial/`` while it runs (so ``resume=True`` can continue an
+interrupted run) and all outputs are then written atomically to ``out``. Replacing an
+old output follows the one rule of `inversion._safety`.
 """
 
 from __future__ import annotations
 
-import shutil
 import time
-from collections.abc import Sequence
+import warnings
+from collections.abc import Mapping
 from functools import cached_property
+from numbers import Integral
 from os import PathLike
 from pathlib import Path
 
-import emcee
 import numpy as np
 import pandas as pd
 
 from . import _start
-from ._errors import InputError
+from ._checkpoint import CheckpointBackend, stored_steps
+from ._errors import InputError, OutputConflict, PosteriorWarning, WriteError
+from ._provenance import run_fingerprint, study_inputs
+from ._safety import (
+    check_output_folder,
+    check_replaceable,
+    output_lock,
+    remove_listed,
+    remove_stale_temporaries,
+)
 from .model import DERIVED, UNITS, LogPosterior
-from .sampler import ChainResult, read_chain, run_chain
+from .sampler import ChainResult, autocorrelation_time, run_chain
 
 __all__ = ["SUMMARY_COLUMNS", "Posterior", "fit"]
 
@@ -42,7 +52,7 @@ def fit(
     resume: bool = False,
     quiet: bool = False,
     force: bool = False,
-    command: Sequence[str] | None = None,
+    provenance: Mapping | None = None,
 ) -> Posterior:
     """Sample the posterior of a study's free parameters.
 
@@ -51,19 +61,22 @@ def fit(
     study : inversion.Study
         What to fit (priors, fixed values, model settings, observations, sampler).
     seed : int, optional
-        Master seed; overrides ``study.sampler.seed``. Same seed, same results.
+        Master seed, 0 <= seed < 2**32; overrides ``study.sampler.seed``. Same seed, same
+        results.
     out : str or path-like, optional
         Result folder. The chain is checkpointed in ``<out>.partial/`` during the run and
         every output is written to `out` at the end (atomically). None: nothing is
         written; call `Posterior.save` yourself.
     resume : bool
-        Continue the interrupted run checkpointed for `out`.
+        Continue the interrupted run checkpointed for `out`; refused unless the study
+        file, the tables, the seed and the lidmelt version are those of that run.
     quiet : bool
         Hide the progress bar.
     force : bool
-        Replace an existing `out` folder and discard an old checkpoint.
-    command : sequence of str, optional
-        Command line recorded in run.json (the CLI passes its arguments).
+        Replace an existing `out` folder and discard an old checkpoint, if lidmelt wrote
+        them (see `inversion._safety.check_replaceable`).
+    provenance : mapping, optional
+        Extra entries for run.json (the command line passes its arguments).
 
     Returns
     -------
@@ -72,123 +85,111 @@ def fit(
     Raises
     ------
     InputError
-        `out` exists without `force`, a checkpoint exists without `resume` or `force`,
-        `resume` without a checkpoint, or a checkpoint from a different run.
+        A bad seed, or `out` cannot be used (its parent is missing, it is not lidmelt's to
+        replace, another run is writing it). `OutputConflict` (an InputError) when `out`
+        or a checkpoint exists and neither `force` nor `resume` says what to do, or when
+        a resume does not match the stored run.
+    WriteError
+        A checkpoint record or the results could not be written (e.g. a full disk); the
+        checkpoint up to the last complete record is kept.
 
     Warns
     -----
     NotConvergedWarning
         The step cap was reached before the stopping rule was met.
+    PosteriorWarning
+        One per entry of `Posterior.warnings` about the posterior itself.
     """
+    seed = _check_seed(study.sampler.seed if seed is None else seed)
+    if out is None:
+        if resume:
+            raise InputError("resuming needs the result folder of the interrupted run",
+                             key="out")
+        started = time.time()
+        result = _sample(study, seed, None, resume=False, quiet=quiet)
+        return _finish(study, seed, result, started, provenance)
+    out = Path(out).absolute()
+    with output_lock(out):
+        partial = _prepare_folders(out, study, resume=resume, force=force)
+        started = time.time()
+        try:
+            result = _sample(study, seed, partial, resume=resume, quiet=quiet)
+        except BaseException:
+            if not resume and not stored_steps(partial):
+                CheckpointBackend(partial).remove()  # nothing worth keeping
+            raise
+        posterior = _finish(study, seed, result, started, provenance)
+        try:
+            posterior.save(out, force=force)
+        except WriteError as err:
+            raise WriteError(err.path, err.cause, kept_steps=stored_steps(partial),
+                             checkpoint=partial) from err.cause
+        CheckpointBackend(partial).remove()
+    return posterior
+
+
+def _check_seed(seed) -> int:
+    if isinstance(seed, bool) or not isinstance(seed, Integral) or not 0 <= seed < 2**32:
+        raise InputError(f"seed {seed!r} must be a whole number from 0 to {2**32 - 1}",
+                         key="seed")
+    return int(seed)
+
+
+def _sample(study, seed: int, checkpoint, *, resume: bool, quiet: bool) -> ChainResult:
+    """Start the walkers (unless resuming) and run the sampler to its stopping rule."""
     settings = study.sampler
-    seed = int(settings.seed if seed is None else seed)
-    out = None if out is None else Path(out).absolute()
-    if resume and out is None:
-        raise InputError("resume needs the result folder of the interrupted run", key="out")
     logpost = LogPosterior(study)
-    _check_walkers(logpost, settings)
-    checkpoint = None if out is None else _prepare_checkpoint(out, resume=resume, force=force)
-    resume = resume and _has_steps(checkpoint)  # nothing stored yet: start afresh
-    started = time.time()
-    try:
-        result = _sample(logpost, study, seed, checkpoint, resume=resume, quiet=quiet)
-    except BaseException:
-        if checkpoint is not None and not _has_steps(checkpoint):
-            shutil.rmtree(checkpoint.parent, ignore_errors=True)  # nothing worth keeping
-        raise
+    s_emcee, s_start = np.random.SeedSequence(seed).spawn(2)
+    rng = np.random.default_rng(s_start)
+    if resume:  # positions come from the checkpoint
+        initial = np.zeros((settings.walkers, logpost.ndim))
+    elif settings.start == "map":
+        initial = _start.map_start(logpost, settings.walkers, rng)[0]
+    else:
+        initial = _start.prior_start(logpost, settings.walkers, rng)
+    return run_chain(
+        logpost, initial, seed=int(s_emcee.generate_state(1)[0]),
+        ess_target=settings.ess_target, tau_multiple=settings.tau_multiple,
+        max_steps=settings.max_steps, check_interval=settings.check_interval,
+        checkpoint=checkpoint, resume=resume, quiet=quiet, names=logpost.names,
+        meta={"fingerprint": run_fingerprint(study, seed), "parameters": list(logpost.names)},
+    )
+
+
+def _finish(study, seed, result, started, provenance) -> Posterior:
     posterior = Posterior(study, result, seed=seed, run_info={
-        "command_line": list(command) if command is not None else ["inversion.fit"],
+        **dict(provenance or {}),
         "sampling_seconds": round(time.time() - started, 3),
         "finished_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         "resumed_from_step": result.resumed_from,
     })
-    if out is not None:
-        posterior.save(out, force=force)
-        shutil.rmtree(checkpoint.parent, ignore_errors=True)
+    for line in posterior.posterior_warnings:
+        warnings.warn(PosteriorWarning(line), stacklevel=3)
     return posterior
 
 
-def _sample(logpost, study, seed: int, checkpoint, *, resume: bool, quiet: bool):
-    """Start the walkers (unless resuming) and run the sampler to its stopping rule."""
-    settings = study.sampler
-    s_emcee, s_start = np.random.SeedSequence(seed).spawn(2)
-    rng = np.random.default_rng(s_start)
-    initial = _initial_positions(logpost, settings, rng, skip=resume)
-    return run_chain(
-        logpost, initial, seed=int(s_emcee.generate_state(1)[0]), nblobs=logpost.nblobs,
-        ess_target=settings.ess_target, tau_multiple=settings.tau_multiple,
-        max_steps=settings.max_steps, check_interval=_check_interval(settings),
-        path=checkpoint, resume=resume, meta=_chain_meta(study, seed, logpost),
-        quiet=quiet, names=logpost.names,
-    )
-
-
-def _has_steps(checkpoint) -> bool:
-    """Whether a checkpoint file holds at least one stored step."""
-    if checkpoint is None or not Path(checkpoint).is_file():
-        return False
-    try:
-        return read_chain(checkpoint)[0].nsteps > 0
-    except (OSError, KeyError):
-        return False
-
-
-def _prepare_checkpoint(out: Path, *, resume: bool, force: bool) -> Path:
-    """Check the output folder rules before any work; return the checkpoint file path."""
+def _prepare_folders(out: Path, study, *, resume: bool, force: bool) -> Path:
+    """Apply the output-folder rules before any work; return the checkpoint folder."""
     partial = out.with_name(out.name + ".partial")
-    if out.exists() and not force:
-        raise InputError(
-            "the result folder already exists; pass --force to replace it or choose "
-            "another --out", file=out,
-        )
-    if resume and not partial.exists():
-        raise InputError(
-            "there is no interrupted run to resume here; run again without --resume",
-            file=partial,
-        )
-    if partial.exists() and not resume:
+    inputs = study_inputs(study)
+    check_output_folder(out, force=force, inputs=inputs)
+    if resume and not partial.is_dir():
+        raise OutputConflict("there is no interrupted run to resume for this folder",
+                             reason="no-checkpoint", file=partial)
+    if not resume and (partial.exists() or partial.is_symlink()):
         if not force:
-            raise InputError(
-                "an interrupted run is stored here; pass --resume to continue it or "
-                "--force to start over", file=partial,
-            )
-        shutil.rmtree(partial)
-    if not out.parent.is_dir():
-        raise InputError("the parent folder of --out does not exist; create it first",
-                         file=out.parent)
-    partial.mkdir(exist_ok=True)
-    return partial / "chain.h5"
-
-
-def _check_walkers(logpost, settings) -> None:
-    nwalkers = int(settings.walkers)
-    if nwalkers < 2 * logpost.ndim:
-        raise InputError(
-            f"walkers = {nwalkers} is too few for {logpost.ndim} free parameters; the "
-            f"ensemble needs at least {2 * logpost.ndim}", key="sampler.walkers",
-        )
-
-
-def _initial_positions(logpost, settings, rng, *, skip: bool) -> np.ndarray:
-    nwalkers = int(settings.walkers)
-    if skip:  # resuming: positions come from the checkpoint
-        return np.zeros((nwalkers, logpost.ndim))
-    if getattr(settings, "start", "prior") == "map":
-        return _start.map_start(logpost, nwalkers, rng)[0]
-    return _start.prior_start(logpost, nwalkers, rng)
-
-
-def _check_interval(settings) -> int:
-    return int(getattr(settings, "check_interval", 250))
-
-
-def _chain_meta(study, seed, logpost) -> dict:
-    return {
-        "study_sha256": str(getattr(study, "file_hash", None) or ""),
-        "seed": seed,
-        "parameters": tuple(logpost.names),
-        "derived": tuple(DERIVED),
-    }
+            raise OutputConflict("an interrupted run is stored here", reason="checkpoint",
+                                 file=partial)
+        remove_listed(partial, check_replaceable(partial, inputs=inputs,
+                                                 what="checkpoint folder"))
+    remove_stale_temporaries(out)
+    if not resume:
+        try:
+            partial.mkdir()
+        except OSError as err:
+            raise InputError(f"cannot create the checkpoint folder ({err.strerror})",
+                             file=partial) from None
+    return partial
 
 
 class Posterior:
@@ -239,7 +240,8 @@ class Posterior:
         self.tau = np.asarray(assessment["tau"], dtype=float)
         self.ess = np.asarray(assessment["ess"], dtype=float)
         self.converged = bool(assessment["converged"])
-        self.thin = max(1, int(np.min(self.tau) // 2))
+        finite = self.tau[np.isfinite(self.tau)]
+        self.thin = max(1, int(np.min(finite) // 2)) if finite.size else 1
 
     @cached_property
     def map(self) -> dict:
@@ -294,7 +296,7 @@ class Posterior:
         """Like `summary` for the derived quantities of `DERIVED`."""
         kept = self._kept(self.derived_chain)
         # Same burn-in as the parameters; tau of each derived quantity on the kept chain.
-        tau = np.maximum(emcee.autocorr.integrated_time(kept, tol=0, quiet=True), 1.0)
+        tau = np.maximum(autocorrelation_time(kept), 1.0)
         ess = kept.shape[0] * kept.shape[1] / tau
         return _summary_table(DERIVED, kept, self.map, ess, tau, UNITS)
 
@@ -305,19 +307,40 @@ class Posterior:
 
         return diagnostics_dict(self)
 
+    @cached_property
+    def posterior_warnings(self) -> list[str]:
+        """What needs care about the posterior itself, one line each (see `warnings`)."""
+        from ._diagnostics import posterior_warnings
+
+        return posterior_warnings(self)
+
+    @property
+    def warnings(self) -> list[str]:
+        """Everything a user must know before using the numbers, one line each.
+
+        Why the run did not converge (each unmet part of the stopping rule), then
+        `posterior_warnings`: a posterior piled against a prior bound or the edge of the
+        model's range, samples whose melting starts at the model's base, no melt.
+        """
+        steps = self.chain.shape[0]
+        return [f"NOT converged within the step cap ({steps} steps): {line}"
+                for line in self.result.assessment["shortfalls"]] + self.posterior_warnings
+
     def save(self, directory: str | PathLike[str], *, force: bool = False) -> Path:
         """Write every output file to `directory` atomically.
 
         Files: summary.csv, derived.csv, samples.csv, chain.h5, diagnostics.json,
-        run.json, corner.png, fit.png, pt.png, report.md. They are written to a
-        temporary folder beside `directory`, which is then renamed into place.
+        run.json, corner.png, fit.png, pt.png, report.md and the manifest
+        lidmelt-files.json. They are written to a temporary folder beside `directory`,
+        which is then renamed into place.
 
         Parameters
         ----------
         directory : str or path-like
             Result folder; must not exist unless `force`.
         force : bool
-            Replace an existing folder.
+            Replace an existing folder, if lidmelt wrote it and it holds nothing else
+            (see `inversion._safety.check_replaceable`).
 
         Returns
         -------

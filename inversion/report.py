@@ -36,6 +36,7 @@ def render(posterior) -> str:
     parts = [
         f"# {study.name}: posterior estimates of mantle temperature and lid thickness\n",
         _headline(posterior),
+        _warnings_section(posterior),
         "## Estimates\n",
         "Median with the central 68 % and 95 % posterior intervals "
         "(2.5, 16, 84 and 97.5 % quantiles), and the maximum a posteriori (MAP) value.\n",
@@ -62,6 +63,14 @@ def _headline(posterior) -> str:
         "may be unreliable.\n")
     intro = "In short (median, 68 % interval, 95 % interval):\n\n"
     return intro + "\n".join(lines) + "\n" + flag
+
+
+def _warnings_section(posterior) -> str:
+    """Every warning, one line each (the same lines as diagnostics.json and stderr)."""
+    if not posterior.warnings:
+        return ""
+    lines = "\n".join(f"- {line}" for line in posterior.warnings)
+    return f"## Warnings\n\nRead these before using the numbers:\n\n{lines}\n"
 
 
 def interval_words(row) -> str:
@@ -105,8 +114,8 @@ def _table(frame) -> str:
         rows.append(
             f"| {quantity(r['parameter']).title} | {unit_text(r['unit']) or '–'} "
             f"| {_f(r['median'], d)} | {_range(r['q16'], r['q84'], d)} "
-            f"| {_range(r['q2.5'], r['q97.5'], d)} | {_f(r['map'], d)} | {r['ess']:.0f} "
-            f"| {r['tau']:.1f} |"
+            f"| {_range(r['q2.5'], r['q97.5'], d)} | {_f(r['map'], d)} | {_f(r['ess'], 0)} "
+            f"| {_f(r['tau'], 1)} |"
         )
     return "\n".join(rows) + "\n"
 
@@ -190,27 +199,34 @@ def _sampler_section(posterior) -> str:
 
 def _convergence_section(posterior) -> str:
     diag = posterior.diagnostics
-    tau_max = max(diag["tau_steps"].values())
-    ess_min = min(diag["ess"].values())
-    rhat_max = max(diag["split_rhat_approximate"].values())
-    rhat_ref = max(diag["split_rhat_if_converged"].values())
+    tau_max = _extreme(diag["tau_steps"], max)
+    ess_min = _extreme(diag["ess"], min)
+    rhat_max = _extreme(diag["split_rhat_approximate"], max)
+    rhat_ref = _extreme(diag["split_rhat_if_converged"], max)
     acc = diag["acceptance_fraction"]["mean"]
     state = ("The sampler **converged**: " if diag["converged"] else
              "The sampler **did NOT converge** before its step cap: ")
     text = (
         f"{state}{diag['steps']} steps of {diag['walkers']} walkers; the first "
         f"{diag['burn_in_steps']} steps were discarded as burn-in. The longest integrated "
-        f"autocorrelation time is {tau_max:.1f} steps, so the kept chain is "
-        f"{diag['tau_multiple_reached']:.0f} autocorrelation times long, and the smallest "
-        f"effective sample size is {ess_min:.0f} (stopping rule: {diag['stopping_rule']}). "
-        f"Mean acceptance fraction {acc:.2f}; largest split R-hat across walkers "
-        f"{rhat_max:.3f}, against about {rhat_ref:.3f} expected from a converged ensemble "
-        f"of this length (approximate, since walkers are not independent chains)."
+        f"autocorrelation time is {_f(tau_max, 1)} steps, so the kept chain is "
+        f"{_f(diag['tau_multiple_reached'], 0)} autocorrelation times long, and the "
+        f"smallest effective sample size is {_f(ess_min, 0)} "
+        f"(stopping rule: {diag['stopping_rule']}). "
+        f"Mean acceptance fraction {_f(acc, 2)}; largest split R-hat across walkers "
+        f"{_f(rhat_max, 3)}, against about {_f(rhat_ref, 3)} expected from a converged "
+        f"ensemble of this length (approximate, since walkers are not independent chains)."
     )
     if not diag["converged"]:
         text += (" Run longer (raise `max_steps` under `[sampler]`) before relying on "
-                 "these numbers.")
+                 "these numbers; the warnings above say what fell short.")
     return "## Convergence\n\n" + text + "\n"
+
+
+def _extreme(values: dict, pick) -> float | None:
+    """`pick` (max or min) of the estimated values; None if none could be estimated."""
+    finite = [v for v in values.values() if v is not None]
+    return pick(finite) if finite else None
 
 
 def _files_section() -> str:
@@ -218,8 +234,8 @@ def _files_section() -> str:
         "## Files\n\n"
         "summary.csv and derived.csv (these tables), samples.csv (posterior draws after "
         "burn-in, thinned), chain.h5 (every step, emcee HDF5 layout), diagnostics.json, "
-        "run.json (versions, seed, study-file hash, command line), corner.png, fit.png, "
-        "pt.png.\n"
+        "run.json (versions, seed, study-file hash, command line, times), corner.png, "
+        "fit.png, pt.png, lidmelt-files.json (the files lidmelt wrote here).\n"
     )
 
 
@@ -230,7 +246,10 @@ def decimals(sd: float) -> int:
     return int(min(6, max(0, 1 - math.floor(math.log10(sd)))))
 
 
-def _f(value: float, places: int) -> str:
+def _f(value: float | None, places: int) -> str:
+    """Fixed decimals, one minus sign; "–" for a value not estimated (None or NaN)."""
+    if value is None or not np.isfinite(value):
+        return "–"
     text = f"{value:.{places}f}"
     if text.startswith("-") and float(text) == 0.0:
         text = text[1:]  # no "−0.0"

@@ -433,10 +433,14 @@ _TOML_POS = re.compile(r"\(at line (\d+), column (\d+)\)")
 
 def _read_study_file(path: Path) -> tuple[bytes, str, dict]:
     """The bytes, text and parsed TOML of a study file (`InputError` if unreadable)."""
-    if not path.is_file():
-        why = "is a folder, not a study file" if path.is_dir() else "not found"
-        raise InputError(f"study file {why}; check the path", file=path)
-    raw = path.read_bytes()
+    try:
+        if not path.is_file():
+            why = "is a folder, not a study file" if path.is_dir() else "not found"
+            raise InputError(f"study file {why}; check the path", file=path)
+        raw = path.read_bytes()
+    except OSError as err:  # e.g. no read permission on the file or its folder
+        raise InputError(f"the study file cannot be read ({err.strerror}); check its "
+                         "permissions", file=path) from None
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as err:
@@ -542,7 +546,7 @@ def _parse_parameters(table) -> tuple[dict[str, Prior], dict[str, float]]:
         else:
             raise InputError(
                 f"'{name}' must be given, e.g. {name} = {{ prior = \"uniform\", min = ..., "
-                "max = ... }} or { value = ... }", key=f"parameters.{name}")
+                "max = ... } or { value = ... }", key=f"parameters.{name}")
         (priors if isinstance(value, Prior) else fixed)[name] = value
     return priors, fixed
 

@@ -7,7 +7,6 @@ import json
 import os
 import re
 import select
-import shutil
 import signal
 import subprocess
 import sys
@@ -18,42 +17,15 @@ import emcee
 import numpy as np
 import pandas as pd
 import pytest
+from helpers import DEMO, assert_same_outputs
+from helpers import small_study as _small_study
 from matplotlib import image
 from matplotlib.colors import to_rgb
-
 from lidmelt import demo_data
 from lidmelt.forward import figure_style as style
 from lidmelt.inversion import OUTPUT_FILES, SUMMARY_COLUMNS
+from lidmelt.inversion._checkpoint import stored_steps
 from lidmelt.inversion.cli import main
-from lidmelt.inversion.sampler import read_chain
-
-DEMO = demo_data.study_path().parent
-
-
-def _small_study(folder: Path, *, sampler: str = "", basalts: str | None = None,
-                 parameters: str | None = None, extra: str = "",
-                 replace: tuple[str, str] | None = None) -> Path:
-    """A copy of the demo study with a cheaper sampler section (and optional edits)."""
-    folder.mkdir(parents=True, exist_ok=True)
-    shutil.copy(DEMO / "crust.csv", folder / "crust.csv")
-    if basalts is None:
-        shutil.copy(DEMO / "basalts.csv", folder / "basalts.csv")
-    else:
-        (folder / "basalts.csv").write_text(basalts)
-    text = (DEMO / "study.toml").read_text()
-    if replace is not None:
-        assert replace[0] in text, replace[0]  # guards the test itself
-        text = text.replace(*replace)
-    head, _ = text.split("[sampler]")
-    if parameters is not None:
-        before, rest = head.split("[parameters]")
-        _, after = rest.split("[[observations]]", 1)
-        head = f"{before}[parameters]\n{parameters}\n[[observations]]{after}"
-    sampler = sampler or ("walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 300\n"
-                          "tau_multiple = 25\ncheck_interval = 50\n")
-    path = folder / "study.toml"
-    path.write_text(head + extra + "[sampler]\n" + sampler)
-    return path
 
 
 def _fit(capsys, *argv):
@@ -163,10 +135,7 @@ def test_same_seed_gives_identical_outputs(tmp_path, capsys):
                             "--seed", seed, "--quiet")
         assert code == 0, err
         runs[label] = tmp_path / label
-    for name in OUTPUT_FILES:
-        if name in ("run.json", "chain.h5"):
-            continue  # run.json records wall time; chain.h5 is compared by content below
-        assert (runs["a"] / name).read_bytes() == (runs["b"] / name).read_bytes(), name
+    assert_same_outputs(runs["a"], runs["b"])  # run.json records wall time
     chains = [emcee.backends.HDFBackend(str(runs[k] / "chain.h5"), read_only=True).get_chain()
               for k in "abc"]
     np.testing.assert_array_equal(chains[0], chains[1])
@@ -174,7 +143,7 @@ def test_same_seed_gives_identical_outputs(tmp_path, capsys):
     assert (runs["a"] / "summary.csv").read_bytes() != (runs["c"] / "summary.csv").read_bytes()
 
 
-def test_existing_folder_is_refused_without_force(tmp_path, capsys):
+def test_existing_folder_is_refused_and_force_replaces_only_lidmelt_folders(tmp_path, capsys):
     study = _small_study(tmp_path / "study")
     out_dir = tmp_path / "out"
     out_dir.mkdir()
@@ -182,10 +151,21 @@ def test_existing_folder_is_refused_without_force(tmp_path, capsys):
     code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet")
     assert code == 2
     assert "already exists" in err and "--force" in err and len(err.splitlines()) == 1
-    assert (out_dir / "keep.txt").exists()
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet", "--force")
+    assert code == 2 and "not written by lidmelt" in err and len(err.splitlines()) == 1
+    assert (out_dir / "keep.txt").read_text() == "old result"
+    (out_dir / "keep.txt").unlink()
+    out_dir.rmdir()
+    code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet")
+    assert code == 0, err
+    first = {p.name: p.stat().st_ino for p in out_dir.iterdir()}
     code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet", "--force")
     assert code == 0, err
     assert sorted(p.name for p in out_dir.iterdir()) == sorted(OUTPUT_FILES)
+    assert json.loads((out_dir / "lidmelt-files.json").read_text())["files"] == sorted(
+        OUTPUT_FILES)
+    assert all(p.stat().st_ino != first[p.name] for p in out_dir.iterdir())  # new files
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out", "study"]  # nothing left
 
 
 BAD_BASALTS = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\nA,1.5,0.2,1380,30\n"
@@ -272,7 +252,7 @@ def test_sigterm_keeps_a_resumable_checkpoint(tmp_path, capsys):
         [sys.executable, "-m", "lidmelt.inversion.cli", "fit", str(study), "--out", str(out_dir)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=dict(os.environ, MPLBACKEND="Agg"))
     try:
-        _wait_for(process, b"tau_max=", timeout=120)
+        _wait_for(process, b"ESS ", timeout=120)
         process.send_signal(signal.SIGTERM)  # what a job scheduler sends at its time limit
         _, err = process.communicate(timeout=60)
     finally:
@@ -280,48 +260,58 @@ def test_sigterm_keeps_a_resumable_checkpoint(tmp_path, capsys):
             process.kill()
     assert process.returncode == 130, err
     assert b"continue it by running the same command with --resume" in err
-    stored, _ = read_chain(tmp_path / "run.partial" / "chain.h5")
-    assert stored.nsteps > 0 and stored.nsteps % 50 == 0  # whole chunks only
+    assert stored_steps(tmp_path / "run.partial") >= 50  # the first record and after
     assert not out_dir.exists()
     # A new run on the same folder must not silently throw the checkpoint away.
     code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet")
     assert code == 2 and "pass --resume to continue it or --force" in err
-    assert (tmp_path / "run.partial" / "chain.h5").exists()
+    assert stored_steps(tmp_path / "run.partial") >= 50
+
+
+def _wait_for_record(folder: Path, process, timeout: float) -> None:
+    """Wait until the checkpoint holds its first record (the run is past its first check)."""
+    deadline = time.monotonic() + timeout
+    while not list(folder.glob("step-*.npz")):
+        if time.monotonic() > deadline or process.poll() is not None:
+            raise AssertionError(f"no checkpoint record in {folder}")
+        time.sleep(0.05)
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to a child process")
-def test_interrupted_fit_resumes_to_the_uninterrupted_result(tmp_path, capsys):
+def test_repeated_ctrl_c_is_one_line_and_resume_is_byte_identical(tmp_path, capsys):
     study = _small_study(tmp_path / "study", sampler=(
         "walkers = 16\nseed = 9\nstart = \"map\"\ness_target = 1200\ncheck_interval = 50\n"))
     out_dir = tmp_path / "run"
     env = dict(os.environ, MPLBACKEND="Agg")
     process = subprocess.Popen(
-        [sys.executable, "-m", "lidmelt.inversion.cli", "fit", str(study), "--out", str(out_dir)],
+        [sys.executable, "-m", "lidmelt.inversion.cli", "fit", str(study), "--out",
+         str(out_dir), "--quiet"],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, preexec_fn=_ctrl_c_enabled)
     try:
-        # The postfix "tau_max=" appears after the first check, i.e. after the first
-        # chunk of steps has been written to the checkpoint.
-        _wait_for(process, b"tau_max=", timeout=120)
-        process.send_signal(signal.SIGINT)  # what Ctrl-C does
+        _wait_for_record(tmp_path / "run.partial", process, timeout=120)
+        for _ in range(5):  # an impatient user
+            process.send_signal(signal.SIGINT)
+            time.sleep(0.02)
         _, err = process.communicate(timeout=60)
     finally:
         if process.poll() is None:
             process.kill()
     assert process.returncode == 130, err
-    assert b"--resume" in err
+    lines = err.decode().strip().splitlines()
+    assert len(lines) == 1, err  # no traceback, no "emcee: Exception while calling ..."
+    assert "interrupted; the chain up to step" in lines[0] and "--resume" in lines[0]
     assert not out_dir.exists()
-    assert (tmp_path / "run.partial" / "chain.h5").exists()
+    kept = stored_steps(tmp_path / "run.partial")
+    assert f"up to step {kept} " in lines[0] and kept >= 50
 
     code, _, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--resume",
                         "--quiet")
     assert code == 0, err
     assert not (tmp_path / "run.partial").exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["run", "study"]  # no lock left
     code, _, err = _fit(capsys, "fit", str(study), "--out", str(tmp_path / "ref"), "--quiet")
     assert code == 0, err
-    resumed = json.loads((out_dir / "diagnostics.json").read_text())
-    assert resumed["resumed_from_step"] > 0  # it really continued a stored chain
-    for name in ("summary.csv", "derived.csv", "samples.csv"):
-        assert (out_dir / name).read_bytes() == (tmp_path / "ref" / name).read_bytes(), name
-    chains = [emcee.backends.HDFBackend(str(d / "chain.h5"), read_only=True).get_chain()
-              for d in (out_dir, tmp_path / "ref")]
-    np.testing.assert_array_equal(*chains)
+    run = json.loads((out_dir / "run.json").read_text())
+    assert run["resumed_from_step"] == kept  # it really continued the stored chain
+    assert "resumed_from_step" not in json.loads((out_dir / "diagnostics.json").read_text())
+    assert_same_outputs(out_dir, tmp_path / "ref")

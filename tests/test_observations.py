@@ -525,8 +525,8 @@ TABLE_CASES = {
     "sigma-negative": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,1.5,-0.2\n",
                        r"column 'sigma_gpa': value -0.2 must be > 0 GPa"),
     "negative-thickness": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,-2,1\n",
-        r"row 3, column 'thickness_km': value -2 must be >= 0 km \(a thickness"
-        r" cannot be negative\)"),
+        r"row 3, column 'thickness_km': value -2 must be between 0 and 60 km \(a "
+        r"thickness cannot be negative, and the thickest"),
     "pressure-high": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,12.5,0.2\n",
                       r"column 'pressure_gpa': value 12.5 must be between 0 and 10 GPa"),
     "pressure-negative": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,-0.1,0.2\n",

@@ -1,8 +1,10 @@
 """Command-line entry point ``lidmelt``: a thin layer over the public API.
 
 Each subcommand lives in its own module exposing ``add_arguments(parser)`` and
-``run(args) -> int``; this module only dispatches and turns user mistakes into
-exit code 2 with a one-line message on stderr (no traceback, no result folder).
+``run(args) -> int``; this module only dispatches and turns user mistakes (the input
+error types: `InputError`, `UsageError`, forward's `DomainError`) into exit code 2 with a
+one-line message on stderr (no traceback, no result folder). Any other exception is a
+bug and shows as one, with its traceback.
 """
 
 from __future__ import annotations
@@ -10,7 +12,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from .._errors import InputError
+from ...forward._validation import DomainError
+from .._errors import InputError, OutputConflict
 from . import column, demo, fit, survey
 
 # name -> (module, one-line help)
@@ -56,6 +59,22 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: How the command line resolves each kind of `OutputConflict` (its `reason`).
+_REMEDIES = {
+    "exists": "pass --force to replace it or choose another --out",
+    "checkpoint": "pass --resume to continue it or --force to start over",
+    "no-checkpoint": "run again without --resume",
+    "changed": "restore what changed, or pass --force to start over",
+}
+
+
+def _worded(err) -> str:
+    """The one-line message, with an output conflict's remedy in terms of flags."""
+    if isinstance(err, OutputConflict):
+        return str(InputError(f"{err.problem}; {_REMEDIES[err.reason]}", file=err.file))
+    return str(err)
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
@@ -64,8 +83,8 @@ def main(argv: list[str] | None = None) -> int:
     module, _ = _COMMANDS[args.command]
     try:
         return module.run(args)
-    except (InputError, UsageError, ValueError) as err:
-        print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)
+    except (InputError, UsageError, DomainError) as err:  # not ValueError: a bug shows
+        print(f"lidmelt {args.command}: error: {_worded(err)}", file=sys.stderr)
         return 2
     except OSError as err:  # e.g. a result folder that cannot be written
         print(f"lidmelt {args.command}: error: {err}", file=sys.stderr)

@@ -9,12 +9,14 @@ import itertools
 import json
 import sys
 import textwrap
+from pathlib import Path
 
 import numpy as np
 
 from ...forward.column import MELTING_REGIONS, melt_column
 from ...forward.parameterizations import PARAMETERIZATIONS, get_parameterization
 from ...forward.quantities import GROUPS, quantity
+from .._errors import InputError
 
 # option name (= melt_column argument) -> default
 _NUMERIC = {
@@ -68,15 +70,15 @@ def parse_values(text: str, option: str) -> list[float]:
             if ":" in part:
                 start, stop, step = (float(x) for x in part.split(":"))
                 if step <= 0 or stop < start:
-                    raise ValueError
+                    raise ValueError("empty range")
                 values.extend(np.arange(start, stop + 0.5 * step, step).round(10).tolist())
             else:
                 values.append(float(part))
         except ValueError:
-            raise ValueError(f"--{option}: cannot read {part!r}; give a number, a comma list "
+            raise InputError(f"--{option}: cannot read {part!r}; give a number, a comma list "
                              "or start:stop:step with step > 0 and stop >= start") from None
     if not np.all(np.isfinite(values)):
-        raise ValueError(f"--{option}: values must be finite numbers")
+        raise InputError(f"--{option}: values must be finite numbers")
     return values
 
 
@@ -84,7 +86,7 @@ def _names(text: str, allowed, option: str) -> list[str]:
     names = [p.strip() for p in text.split(",") if p.strip()]
     for name in names:
         if name not in allowed:
-            raise ValueError(f"--{option}: unknown {name!r}; choose from {', '.join(allowed)}")
+            raise InputError(f"--{option}: unknown {name!r}; choose from {', '.join(allowed)}")
     return names
 
 
@@ -93,6 +95,9 @@ def tabulate(args) -> list[dict]:
     numeric = {k: parse_values(getattr(args, k), k.replace("_", "-")) for k in _NUMERIC}
     regions = _names(args.melting_region, MELTING_REGIONS, "melting-region")
     params = _names(args.parameterization, list(PARAMETERIZATIONS), "parameterization")
+    for param in params:
+        if not PARAMETERIZATIONS[param].supports_water and any(numeric["water"]):
+            raise InputError(f"--water: {param} is a dry parameterization; give --water 0")
     rows = []
     for param, melting_region in itertools.product(params, regions):
         grid = np.array(list(itertools.product(*numeric.values())), float)
@@ -212,10 +217,14 @@ def format_rows(rows: list[dict], fmt: str) -> str:
 
 
 def run(args) -> int:
-    rows = tabulate(args)
     if args.plot:
         if not args.plot.lower().endswith(".png"):
-            raise ValueError(f"--plot: {args.plot!r} must end in .png")
+            raise InputError(f"--plot: {args.plot!r} must end in .png")
+        if not Path(args.plot).absolute().parent.is_dir():
+            raise InputError("--plot: the folder for the figure does not exist; create it "
+                             "first", file=Path(args.plot).absolute().parent)
+    rows = tabulate(args)
+    if args.plot:
         from ...forward._pt_figure import write_column_figure
 
         write_column_figure(args.plot, rows, crust_density=args.crust_density,

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from .fit import _add_common, run_fit
+from .fit import _add_common, _study, run_fit
 
 __all__ = ["DEFAULT_OUT", "add_arguments", "run"]
 
@@ -26,9 +26,6 @@ def run(args: argparse.Namespace) -> int:
     """Fit the demo study; 0 on success."""
     from ... import demo_data
 
-    from ..study import Study
-
     path = demo_data.study_path()
     print(f"lidmelt demo: fitting {path}")
-    study = Study.from_file(path)
-    return run_fit(study, args, command=getattr(args, "argv", ["lidmelt", "demo"]))
+    return run_fit(lambda: _study(path), args)

@@ -9,8 +9,6 @@ import threading
 import warnings
 from pathlib import Path
 
-from .._errors import NotConvergedWarning
-
 __all__ = ["add_arguments", "print_result", "run", "run_fit"]
 
 _EPILOG = """\
@@ -18,10 +16,13 @@ Units: potential temperature and solidus offset in degC, lid (lithosphere) thick
 crust thickness in km, water in ppm H2O of the bulk source, pressure in GPa.
 
 The chain is checkpointed in DIR.partial/ while the sampler runs; after an interruption
-(Ctrl-C, a crash) continue it with --resume. All outputs are written at the end, at once:
-summary.csv, derived.csv, samples.csv, chain.h5, diagnostics.json, run.json, corner.png,
-fit.png, pt.png and report.md. Results are scientific estimates that depend on the chosen
-melting parameterization.
+(Ctrl-C, SIGTERM, a full disk) continue it with --resume. All outputs are written at the
+end, at once: summary.csv, derived.csv, samples.csv, chain.h5, diagnostics.json,
+run.json, corner.png, fit.png, pt.png, report.md and lidmelt-files.json (the list of
+files lidmelt wrote, which --force relies on). Exit codes: 0 done (read the warnings),
+1 a write failed or an internal error, 2 bad input or a folder in the way, 130
+interrupted. Results are scientific estimates that depend on the chosen melting
+parameterization.
 """
 
 
@@ -36,67 +37,133 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _add_common(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--seed", metavar="N", type=int, default=None,
-                        help="master random seed (default: [sampler] seed of the study); "
-                        "the same seed gives identical results")
+    parser.add_argument("--seed", metavar="N", type=_seed, default=None,
+                        help="master random seed, 0 to 4294967295 (default: [sampler] seed "
+                        "of the study); the same seed gives identical results")
     parser.add_argument("--resume", action="store_true",
-                        help="continue the interrupted run checkpointed in DIR.partial/")
+                        help="continue the interrupted run checkpointed in DIR.partial/ "
+                        "(refused if the study, a table, the seed or lidmelt changed)")
     parser.add_argument("--force", action="store_true",
-                        help="replace an existing result folder or old checkpoint")
+                        help="replace a result folder or checkpoint that lidmelt wrote "
+                        "(never a folder holding other files or the study's inputs)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _seed(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        value = -1
+    if not 0 <= value < 2**32 or not text.strip().lstrip("+").isdigit():
+        raise argparse.ArgumentTypeError(
+            f"{text!r} must be a whole number from 0 to {2**32 - 1}")
+    return value
 
 
 def run(args: argparse.Namespace) -> int:
     """Fit the study named on the command line; 0 on success."""
-    from ..study import Study
-
-    study = Study.from_file(args.study)
-    return run_fit(study, args, command=getattr(args, "argv", ["lidmelt", "fit", args.study]))
+    return run_fit(lambda: _study(args.study), args)
 
 
-def run_fit(study, args: argparse.Namespace, *, command: list[str]) -> int:
-    """Shared by ``fit`` and ``demo``: fit, report to stdout, handle interruption."""
+def _study(path):
+    from ..study import Study  # imported here: its libraries take a while to load
+
+    return Study.from_file(path)
+
+
+def run_fit(load_study, args: argparse.Namespace) -> int:
+    """Shared by ``fit`` and ``demo``: read the study (``load_study()``), fit, report to
+    stdout, handle interruption from the first moment on."""
+    from .._errors import WriteError
+
     out = Path(args.out)
-    if threading.current_thread() is not threading.main_thread():
-        return _run_and_report(study, args, out, command)
-    # A job scheduler's SIGTERM is handled like Ctrl-C: the checkpoint stays resumable.
-    previous = signal.signal(signal.SIGTERM, _terminate)
-    try:
-        return _run_and_report(study, args, out, command)
-    finally:
-        signal.signal(signal.SIGTERM, previous)
+    with _QuietInterrupts() as interrupts, warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            posterior = _fit(load_study(), args, out)
+        except KeyboardInterrupt:
+            interrupts.silence()
+            _print_warnings(caught)
+            _say_interrupted(out)
+            return 130
+        except WriteError as err:
+            _print_warnings(caught)
+            hint = "; free some space, then run the same command with --resume"
+            print(f"lidmelt {args.command}: error: {err}{hint if err.kept_steps else ''}",
+                  file=sys.stderr)
+            return 1
+    _print_warnings(caught, posterior)
+    print_result(posterior, out)
+    return 0
 
 
-def _terminate(signum, frame):
-    raise KeyboardInterrupt
-
-
-def _run_and_report(study, args, out: Path, command: list[str]) -> int:
+def _fit(study, args, out: Path):
     from ..posterior import fit
 
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", NotConvergedWarning)
-        try:
-            posterior = fit(study, seed=args.seed, out=out, resume=args.resume,
-                            quiet=args.quiet, force=args.force, command=command)
-        except KeyboardInterrupt:
-            partial = out.with_name(out.name + ".partial")
-            if partial.exists():
-                print(f"lidmelt: interrupted; the chain so far is kept in {partial}/ - "
-                      "continue it by running the same command with --resume",
-                      file=sys.stderr)
-            else:
-                print("lidmelt: interrupted before the first checkpoint; nothing was kept",
-                      file=sys.stderr)
-            return 130
+    return fit(study, seed=args.seed, out=out, resume=args.resume, quiet=args.quiet,
+               force=args.force, provenance={"command_line": list(args.argv)})
+
+
+def _print_warnings(caught, posterior=None) -> None:
+    """lidmelt's warnings one line each; the posterior's own list replaces the sampler's."""
+    from .._checkpoint import ResumeWarning
+    from .._errors import NotConvergedWarning, PosteriorWarning
+
     for warning in caught:
-        if issubclass(warning.category, NotConvergedWarning):
+        if issubclass(warning.category, (NotConvergedWarning, PosteriorWarning)):
+            continue  # the same lines are in posterior.warnings
+        if issubclass(warning.category, ResumeWarning):
             print(f"lidmelt: warning: {warning.message}", file=sys.stderr)
         else:
             warnings.showwarning(warning.message, warning.category, warning.filename,
                                  warning.lineno)
-    print_result(posterior, out)
-    return 0
+    for line in [] if posterior is None else posterior.warnings:
+        print(f"lidmelt: warning: {line}", file=sys.stderr)
+
+
+def _say_interrupted(out: Path) -> None:
+    from .._checkpoint import stored_steps
+
+    partial = out.with_name(out.name + ".partial")
+    steps = stored_steps(partial)
+    if steps:
+        print(f"lidmelt: interrupted; the chain up to step {steps} is kept in {partial}/ - "
+              "continue it by running the same command with --resume", file=sys.stderr)
+    else:
+        print("lidmelt: interrupted before the first step was stored; nothing was kept",
+              file=sys.stderr)
+
+
+class _QuietInterrupts:
+    """Ctrl-C and SIGTERM (a scheduler's time limit): the first one raises
+    KeyboardInterrupt, every later one is ignored, so the command prints one line and
+    ends with exit code 130 however many times the keys are pressed. The sampler holds
+    signals back itself until its checkpoint is complete (see `inversion.sampler`)."""
+
+    _SIGNALS = (signal.SIGINT, signal.SIGTERM)
+
+    def __enter__(self):
+        self.seen = False
+        self.previous = None
+        if threading.current_thread() is threading.main_thread():
+            self.previous = {s: signal.signal(s, self._handle) for s in self._SIGNALS}
+        return self
+
+    def _handle(self, signum, frame):
+        if not self.seen:
+            self.seen = True
+            raise KeyboardInterrupt
+
+    def silence(self) -> None:
+        """Ignore further signals (the command is about to end)."""
+        self.seen = True
+
+    def __exit__(self, *exc) -> None:
+        if self.previous is None:
+            return
+        for s, handler in self.previous.items():
+            # After a real signal the process is ending: stay deaf to more of them.
+            signal.signal(s, signal.SIG_IGN if self.seen and exc[0] is None else handler)
 
 
 def print_result(posterior, out: Path) -> None:

@@ -30,7 +30,11 @@ from .base import (
 )
 from .tables import ColumnRule
 
-__all__ = ["THICKNESS_OF", "CrustalThickness"]
+__all__ = ["MAX_THICKNESS", "THICKNESS_OF", "CrustalThickness"]
+
+#: km; largest observed thickness a table may hold. Igneous crust reaches about 40 km
+#: beneath Iceland and the Ontong Java plateau (common practice, value from memory).
+MAX_THICKNESS = 60.0
 
 #: ``thickness_of`` choice -> the model quantity a crustal thickness is compared with.
 THICKNESS_OF = {"crust": "crustal_thickness", "melt": "melt_thickness"}
@@ -71,8 +75,9 @@ class CrustalThickness(ObservationSet):
     def column_rules(cls, **options):
         return [
             ColumnRule("site", numeric=False),
-            ColumnRule("thickness_km", low=0.0, unit="km",
-                       why="a thickness cannot be negative"),
+            ColumnRule("thickness_km", low=0.0, high=MAX_THICKNESS, unit="km",
+                       why="a thickness cannot be negative, and the thickest igneous "
+                       "crust, beneath Iceland and oceanic plateaus, is about 40 km"),
             ColumnRule("sigma_km", low=0.0, low_open=True, unit="km",
                        why="a 1-sigma uncertainty must be positive"),
         ], []

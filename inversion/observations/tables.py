@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import csv
 import math
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 from os import PathLike
@@ -23,6 +24,11 @@ import pandas as pd
 from .._errors import InputError, suggest
 
 __all__ = ["ColumnRule", "Table", "read_table", "validate_frame"]
+
+_LINE_END = re.compile(r"\r\n|\r|\n")
+_CONTROL = re.compile("[\x00-\x08\x0b-\x1f\x7f\x85\u2028\u2029]")  # tab is allowed
+_DECIMAL = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
+_NAMED = ("nan", "inf", "infinity")  # refused below with their own messages
 
 
 @dataclass(frozen=True)
@@ -127,26 +133,42 @@ def read_table(
         non-numeric, empty, NaN or infinite cell, or a value outside its range.
     """
     path = Path(path)
-    if not path.is_file():
-        why = "is a folder, not a table" if path.is_dir() else "not found"
-        raise InputError(f"observation file {why}; paths are relative to the study file",
-                         file=path, key=key)
-    header, header_line, rows, lines = _read_rows(path)
+    try:
+        if not path.is_file():
+            why = "is a folder, not a table" if path.is_dir() else "not found"
+            raise InputError(f"observation file {why}; paths are relative to the study "
+                             "file", file=path, key=key)
+    except OSError as err:  # e.g. no permission to look into its folder
+        raise _unreadable(path, err, key) from None
+    header, header_line, rows, lines = _read_rows(path, key=key)
     rules = _rules_for(header, header_line, required, optional, path)
     return validate_frame(pd.DataFrame(rows, columns=header, dtype=object), rules,
                           file=path, lines=lines)
 
 
-def _read_rows(path: Path) -> tuple[list[str], int, list[list[str]], list[int]]:
+def _unreadable(path: Path, err: OSError, key: str | None) -> InputError:
+    return InputError(f"the file cannot be read ({err.strerror}); check its permissions",
+                      file=path, key=key)
+
+
+def _read_rows(path: Path, *, key: str | None = None,
+               ) -> tuple[list[str], int, list[list[str]], list[int]]:
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        data = path.read_bytes()
+    except OSError as err:  # e.g. no read permission
+        raise _unreadable(path, err, key) from None
+    try:
+        text = data.decode("utf-8-sig")
     except UnicodeDecodeError as err:
         raise InputError(f"not UTF-8 text (byte {err.start}); save the table as UTF-8 CSV",
                          file=path) from None
     header, header_line, rows, lines = None, 0, [], []
-    for number, raw in enumerate(text.splitlines(), start=1):
+    # Lines end at \n, \r\n or \r only; str.splitlines would also split a row at a
+    # form feed, U+2028 and other separators hidden inside a cell.
+    for number, raw in enumerate(_LINE_END.split(text), start=1):
         if not raw.strip() or raw.lstrip().startswith("#"):
             continue
+        _check_characters(raw, header, path, number)
         fields = [cell.strip() for cell in next(csv.reader([raw]))]
         if header is None:
             header, header_line = fields, number
@@ -165,6 +187,17 @@ def _read_rows(path: Path) -> tuple[list[str], int, list[list[str]], list[int]]:
     return header, header_line, rows, lines
 
 
+def _check_characters(raw: str, header, path: Path, line: int) -> None:
+    """Refuse control characters (NUL, line and paragraph separators) inside a row."""
+    bad = _CONTROL.search(raw)
+    if bad is None:
+        return
+    index = max(len(next(csv.reader([raw[: bad.start()]]))) - 1, 0)  # the cell it is in
+    column = header[index] if header is not None and index < len(header) else None
+    raise InputError(f"a cell holds the control character U+{ord(bad.group()):04X}; a cell "
+                     "must be plain text on one line", file=path, row=line, column=column)
+
+
 def _check_header(header: list[str], path: Path, line: int) -> None:
     seen = set()
     for name in header:
@@ -178,7 +211,7 @@ def _check_header(header: list[str], path: Path, line: int) -> None:
 
 def _rules_for(header, header_line, required, optional, path) -> list[ColumnRule]:
     def missing(rule: ColumnRule, extra: str = "") -> InputError:
-        hint = suggest(rule.name, header)
+        hint = suggest(rule.name, header, list_choices=False)
         if len(header) == 1 and any(sep in header[0] for sep in ";\t|"):
             hint = "; the header has one column only: is the file comma-separated?"
         return InputError(f"missing column '{rule.name}'{extra} (found: "
@@ -233,7 +266,8 @@ def validate_frame(
     out = frame.copy()
     for rule in rules:
         if rule.name not in out.columns:
-            raise InputError(f"missing column '{rule.name}'" + suggest(rule.name, out.columns),
+            raise InputError(f"missing column '{rule.name}'"
+                             + suggest(rule.name, out.columns, list_choices=False),
                              file=file, column=rule.name)
         if (problem := rule.unmet(out.columns)) is not None:
             raise InputError(problem, file=file, column=rule.name)
@@ -258,7 +292,10 @@ def _cell(value, rule: ColumnRule, file, line: int):
     try:
         number = float(text)
     except ValueError:
-        raise fail(f"'{text}' is not a number; write a plain decimal such as 1.5") from None
+        number = None
+    plain = _DECIMAL.fullmatch(text) or text.lower().lstrip("+-") in _NAMED
+    if number is None or not plain:  # float() also reads 6_5 as 65, and other digits
+        raise fail(f"'{text}' is not a number; write a plain decimal such as 1.5")
     if math.isnan(number):
         raise fail(f"value '{text}' (NaN) is not allowed; remove the row or give a number")
     if math.isinf(number):

@@ -1,23 +1,23 @@
-"""File safety of a survey folder: atomic writes and what ``--force`` may replace.
+"""File safety of a survey folder: atomic writes and what ``force`` may replace.
 
 Every file is written to a temporary name beside its target and renamed into place, so
 a reader (or a resumed survey) sees either the old file or the complete new one, never
-half of one. ``--force`` replaces only a folder that a survey wrote: it holds the
-survey manifest and nothing but files a survey writes, and it is neither the working
-folder nor a folder holding the study or sites file. lidmelt never deletes a file it did
-not write.
+half of one. ``force`` replaces only a folder that a survey wrote: it holds the survey
+manifest and nothing but files a survey writes, and `inversion._safety.check_not_protected`
+allows it (not a file, not the working folder or a parent of it, not a folder holding the
+study or sites file). lidmelt never deletes a file it did not write.
 """
 
 from __future__ import annotations
 
 import json
-import os
 import shutil
-import tempfile
 from collections.abc import Iterable
 from pathlib import Path
 
+from ..._atomic import temporary_target, write_bytes
 from .._errors import InputError
+from .._safety import check_not_protected
 
 __all__ = ["MANIFEST", "OWN_FILES", "SITE_FILES", "check_replaceable", "remove_own",
            "write_atomic", "write_json"]
@@ -29,22 +29,11 @@ OWN_FILES = (MANIFEST, "sites_summary.csv", "area.csv", "profile.png", "report.m
 #: Files a survey writes in each site's folder.
 SITE_FILES = ("site.json", "summary.csv", "likelihood.json", "tp_likelihood.csv",
               "chain.h5", "grid.npz")
-_TEMP = ".lidmelt-tmp-"
 
 
 def write_atomic(path: Path, data: bytes | str) -> None:
-    """Write `data` to `path` through a temporary file and a rename."""
-    path = Path(path)
-    payload = data.encode("utf-8") if isinstance(data, str) else data
-    fd, tmp = tempfile.mkstemp(prefix=f"{_TEMP}{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(payload)
-        os.chmod(tmp, 0o666 & ~_umask())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    """Write `data` to `path` atomically (lidmelt's one writer, `lidmelt._atomic`)."""
+    write_bytes(path, data.encode("utf-8") if isinstance(data, str) else data)
 
 
 def write_json(path: Path, data: dict) -> None:
@@ -52,28 +41,18 @@ def write_json(path: Path, data: dict) -> None:
     write_atomic(path, json.dumps(data, indent=1) + "\n")
 
 
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
 def _is_own(path: Path, names: Iterable[str]) -> bool:
-    return path.name in names or path.name.startswith(_TEMP)
+    target = temporary_target(path.name)  # a write that a killed survey left unfinished
+    return path.name in names or (target is not None and target in names)
 
 
 def check_replaceable(folder: Path, protected: Iterable[Path]) -> None:
-    """Raise `InputError` unless ``--force`` may replace `folder` (module docstring)."""
-    folder = Path(folder).resolve()
-    for other in [Path.cwd(), *protected]:
-        other = Path(other).resolve()
-        if folder == other or folder in other.parents:
-            raise InputError("--force will not replace this folder: it is the working "
-                             "folder or holds an input file; choose another --out",
-                             file=folder)
+    """Raise `InputError` unless `folder` may be replaced (module docstring)."""
+    folder = Path(folder)
+    check_not_protected(folder, inputs=protected, what="survey folder")
     if not (folder / MANIFEST).is_file():
-        raise InputError("--force replaces only a folder written by 'lidmelt survey' (it "
-                         f"has no {MANIFEST}); choose another --out", file=folder)
+        raise InputError("lidmelt replaces only a folder written by a survey, and this one "
+                         f"has no {MANIFEST}; choose another folder", file=folder)
     foreign = [p for p in folder.iterdir() if not _is_own(p, OWN_FILES)]
     sites = folder / "sites"
     if sites.is_dir():
@@ -83,9 +62,9 @@ def check_replaceable(folder: Path, protected: Iterable[Path]) -> None:
                 continue
             foreign += [p for p in site.iterdir() if not _is_own(p, SITE_FILES)]
     if foreign:
-        raise InputError(f"--force will not replace this folder: it holds files lidmelt "
-                         f"did not write, e.g. '{foreign[0].relative_to(folder)}'; move "
-                         "them or choose another --out", file=folder)
+        raise InputError(f"the survey folder holds files lidmelt did not write, e.g. "
+                         f"'{foreign[0].relative_to(folder)}'; move them or choose another "
+                         "folder", file=folder)
 
 
 def remove_own(folder: Path) -> None:
@@ -99,5 +78,6 @@ def remove_own(folder: Path) -> None:
 
 def remove_temporaries(folder: Path) -> None:
     """Delete temporary files left by an interrupted write (they are never results)."""
-    for path in Path(folder).rglob(f"{_TEMP}*"):
-        path.unlink(missing_ok=True)
+    for path in Path(folder).rglob(".*"):
+        if path.is_file() and temporary_target(path.name) is not None:
+            path.unlink(missing_ok=True)

@@ -29,7 +29,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .._errors import InputError
+from .._errors import InputError, OutputConflict
 from ._files import (
     MANIFEST,
     check_replaceable,
@@ -95,15 +95,14 @@ class SurveyFolder:
             remove_temporaries(target)
         elif target.exists():
             if not force:
-                raise InputError("the result folder already exists; pass --resume to "
-                                 "continue that survey, --force to replace it, or choose "
-                                 "another --out", file=target)
+                raise OutputConflict("the survey folder already exists", reason="checkpoint",
+                                     file=target)
             check_replaceable(target, protected)
             remove_own(target)
         else:
             if not target.absolute().parent.is_dir():
-                raise InputError("the parent folder of --out does not exist; create it "
-                                 "first", file=target.absolute().parent)
+                raise InputError("the folder to hold the survey folder does not exist; "
+                                 "create it first", file=target.absolute().parent)
             target.mkdir()
         (target / "sites").mkdir(exist_ok=True)
         write_json(target / MANIFEST, manifest)
@@ -112,17 +111,16 @@ class SurveyFolder:
     def _check_resumable(self, manifest: dict) -> None:
         path = self.path / MANIFEST
         if not path.is_file():
-            raise InputError(f"there is no survey to resume here (no {MANIFEST}); run "
-                             "again without --resume", file=self.path)
+            raise OutputConflict(f"there is no survey to resume here (no {MANIFEST})",
+                                 reason="no-checkpoint", file=self.path)
         old = json.loads(path.read_text(encoding="utf-8"))
         for key, what in (("study_sha256", "the study file"),
                           ("sites_sha256", "the sites file"),
                           ("settings_sha256", "the settings (mode, seed, options)"),
                           ("lidmelt", "the lidmelt version")):
             if old.get(key) != manifest.get(key):
-                raise InputError(f"--resume refused: {what} changed since this survey "
-                                 "started; run it anew with --force or another --out",
-                                 file=self.path)
+                raise OutputConflict(f"cannot resume: {what} changed since this survey "
+                                     "started", reason="changed", file=self.path)
 
     # ---- per site ----------------------------------------------------------------------
 
@@ -167,9 +165,7 @@ class SurveyFolder:
         if "chain" in arrays:
             from ..sampler import write_chain
 
-            tmp = folder / ".lidmelt-tmp-chain.h5"
-            write_chain(tmp, arrays["chain"])
-            tmp.replace(folder / "chain.h5")
+            write_chain(folder / "chain.h5", arrays["chain"])  # atomic itself
 
     # ---- whole survey ------------------------------------------------------------------
 

@@ -1,0 +1,182 @@
+"""A bad chain is never called converged, and what needs care is said, one line each."""
+
+from __future__ import annotations
+
+import json
+import math
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from helpers import small_study
+from lidmelt import forward, inversion
+from lidmelt.inversion import report
+from lidmelt.inversion._diagnostics import converged_rhat, rhat_too_high, split_rhat
+from lidmelt.inversion._progress import SamplingProgress
+from lidmelt.inversion.model import DERIVED
+from lidmelt.inversion.sampler import ChainResult, _Rule, assess_chain
+
+CAPPED = "walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 300\ntau_multiple = 25\n" \
+         "check_interval = 50\nmax_steps = 150\n"
+LID = 'lithosphere_thickness = { prior = "uniform", min = 10.0, max = 110.0 }'
+WATER = "water = { value = 150.0 }"
+
+
+def _ar1(nsteps: int, nwalkers: int, rho: float, seed: int) -> np.ndarray:
+    """Independent AR(1) walkers, unit variance, tau = (1 + rho) / (1 - rho) (Sokal 1997)."""
+    rng = np.random.default_rng(seed)
+    x = np.zeros((nsteps, nwalkers, 1))
+    x[0] = rng.normal(size=(nwalkers, 1))
+    noise = rng.normal(size=x.shape) * math.sqrt(1 - rho**2)
+    for t in range(1, nsteps):
+        x[t] = rho * x[t - 1] + noise[t]
+    return x
+
+
+def _strict_json(path) -> dict:
+    def refuse(token):
+        raise AssertionError(f"{token} in {path}: not valid JSON")
+    return json.loads(path.read_text(), parse_constant=refuse)
+
+
+# ---- the stopping rule -----------------------------------------------------------------
+
+def test_walkers_stuck_apart_are_not_converged_although_tau_and_ess_look_fine():
+    chain = _ar1(2000, 16, 0.5, seed=1)
+    accepted = np.full(16, 600.0)
+    fine = assess_chain(chain, tau_multiple=50, ess_target=1000, accepted=accepted)
+    assert fine["converged"], fine["shortfalls"]  # the control: a mixed ensemble passes
+    # Each walker explores its own region: emcee's tau subtracts each walker's mean, so
+    # tau and ESS do not change, but the walkers disagree (Gelman et al. 2013, 11.4).
+    apart = chain + np.linspace(-1.5, 1.5, 16)[None, :, None]
+    bad = assess_chain(apart, tau_multiple=50, ess_target=1000, accepted=accepted,
+                       names=["potential_temperature"])
+    np.testing.assert_allclose(bad["ess"], fine["ess"])
+    assert not bad["converged"]
+    assert any("split R-hat of potential_temperature" in s for s in bad["shortfalls"])
+
+
+def test_low_acceptance_is_not_converged():
+    chain = _ar1(2000, 16, 0.5, seed=2)
+    low = assess_chain(chain, tau_multiple=50, ess_target=1000, accepted=np.full(16, 20.0))
+    assert not low["converged"]
+    assert low["shortfalls"] == ["the mean acceptance fraction is 0.010, below 0.1: the "
+                                 "walkers rarely move"]
+
+
+def test_rhat_limit_is_not_reached_by_converged_ensembles_of_many_seeds():
+    # 40 converged ensembles like a quick fit's (16 walkers, tau 9, 300 kept steps).
+    flagged = 0
+    for seed in range(40):
+        x = _ar1(300, 16, 0.8, seed=100 + seed)
+        tau = np.array([9.0])
+        flagged += int(rhat_too_high(split_rhat(x), converged_rhat(150, tau))[0])
+    assert flagged == 0
+
+
+def test_nan_tau_of_a_chain_that_never_moves_is_handled():
+    chain = np.ones((200, 8, 2))
+    chain[:, :, 1] = np.random.default_rng(0).normal(size=(200, 8))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no RuntimeWarning from numpy or emcee either
+        result = assess_chain(chain, tau_multiple=5, ess_target=10, names=["tp", "lid"])
+    assert np.isnan(result["tau"][0]) and np.isnan(result["ess"][0])
+    assert not result["converged"]
+    assert result["shortfalls"][0] == ("the autocorrelation time of tp cannot be estimated: "
+                                       "its chain does not vary")
+
+
+def test_progress_never_goes_back_and_shows_what_it_waits_for(capsys):
+    rule = _Rule(ess_target=2000, tau_multiple=50, max_steps=20000, check_interval=100)
+    progress = SamplingProgress(rule, nwalkers=32, start=0, quiet=False)
+    seen = []
+    for done, tau in ((100, 2.0), (200, 12.0), (300, 11.0), (400, 30.0)):
+        for step in range(done - 99, done + 1):
+            progress.step(step)
+            seen.append(progress.percent)
+        kept = done - 2 * tau
+        progress.checked({"tau": np.array([tau]), "discard": int(2 * tau),
+                          "ess": np.array([kept * 32 / tau]),
+                          "tau_multiple_reached": kept / tau}, done)
+        seen.append(progress.percent)
+    text = progress.bar.desc
+    progress.close()
+    assert all(b >= a for a, b in zip(seen, seen[1:], strict=False))  # never backwards
+    assert max(seen) < 100
+    # At step 400 with tau 30: ESS 340 * 32 / 30 = 363 of 2000; 11.3 of 50 tau.
+    assert text.startswith("step 400, ESS 363/2000, chain 11.3/50 tau, ~")
+    assert text.endswith(" left")
+
+
+# ---- what a finished fit says ----------------------------------------------------------
+
+def test_a_stuck_chain_is_written_and_flagged_not_converged(tmp_path):
+    crust = "site,thickness_km,sigma_km\nAlpha line,6.5,0.000001\nBeta line,5.8,0.000001\n"
+    path = small_study(tmp_path / "study", sampler=CAPPED, crust=crust)
+    path.write_text(path.read_text().replace("model_error = 0.3", "model_error = 0.0"))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        posterior = inversion.fit(inversion.Study.from_file(path), out=tmp_path / "out",
+                                  quiet=True)
+    assert not [w for w in caught if issubclass(w.category, RuntimeWarning)]
+    diagnostics = _strict_json(tmp_path / "out" / "diagnostics.json")
+    assert diagnostics["converged"] is False and not posterior.converged
+    assert diagnostics["warnings"] == posterior.warnings and diagnostics["warnings"]
+    assert all(line.startswith("NOT converged within the step cap (150 steps): ")
+               for line in diagnostics["warnings"])
+    assert "nan" not in (tmp_path / "out" / "report.md").read_text().lower()
+    summary = pd.read_csv(tmp_path / "out" / "summary.csv")
+    assert len(summary) == 3
+
+
+def test_a_posterior_piled_against_a_prior_bound_is_named(tmp_path):
+    tp = 'potential_temperature = { prior = "uniform", min = 1000.0, max = 1150.0 }'
+    path = small_study(tmp_path / "study", sampler=CAPPED, parameters="\n".join(
+        [tp, LID, WATER, 'solidus_offset = { prior = "normal", mean = 0.0, sd = 20.0 }']))
+    with pytest.warns(inversion.PosteriorWarning, match="potential_temperature piles"):
+        posterior = inversion.fit(inversion.Study.from_file(path), quiet=True)
+    line = next(w for w in posterior.warnings if "potential_temperature piles" in w)
+    assert "against the upper bound of its prior, 1150 °C" in line
+    text = report.render(posterior)
+    assert "## Warnings" in text and line in text
+
+
+def test_no_melt_anywhere_in_the_prior_is_said(tmp_path):
+    path = small_study(tmp_path / "study", sampler=CAPPED, parameters="\n".join([
+        'potential_temperature = { prior = "uniform", min = 1000.0, max = 1100.0 }',
+        'lithosphere_thickness = { prior = "uniform", min = 100.0, max = 150.0 }', WATER]))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        posterior = inversion.fit(inversion.Study.from_file(path), quiet=True)
+    assert not [w for w in caught if issubclass(w.category, RuntimeWarning)]
+    assert any(w.startswith("no melt anywhere in the prior: none of 2000 prior draws")
+               for w in posterior.warnings)
+
+
+def test_samples_at_the_model_base_are_named(reference):
+    study = inversion.Study.from_file(reference[0])
+    base = forward.MAX_PRESSURE * float(forward.depth_per_pressure(3300.0))  # 308.9 km
+    chain = _ar1(200, 16, 0.5, seed=3).repeat(3, axis=2) * [30, 10, 10] + [1500, 50, 0]
+    blobs = np.full(chain.shape[:2] + (len(DERIVED),), 7.0)
+    blobs[..., DERIVED.index("onset_depth")] = 200.0
+    assessment = assess_chain(chain, tau_multiple=5, ess_target=10)
+
+    def warnings_with(onset_share: float) -> list[str]:
+        blobs[:, : int(16 * onset_share), DERIVED.index("onset_depth")] = base
+        result = ChainResult(chain, np.zeros(chain.shape[:2]), blobs.copy(),
+                             np.full(16, 60.0), assessment=assessment)
+        return inversion.Posterior(study, result, seed=1).posterior_warnings
+
+    assert warnings_with(0.0) == []
+    lines = warnings_with(0.25)
+    assert lines == ["25 % of the posterior samples start melting at the model's base "
+                     "(10 GPa, 309 km): the mantle would cross its solidus deeper than the "
+                     "model reaches, so those columns are extrapolated beyond the "
+                     "parameterization's calibration"]
+
+
+def test_a_good_fit_has_no_warnings(reference):
+    diagnostics = _strict_json(reference[1] / "diagnostics.json")
+    assert diagnostics["converged"] is True and diagnostics["warnings"] == []
+    assert "## Warnings" not in (reference[1] / "report.md").read_text()

@@ -1,0 +1,93 @@
+"""A full disk while writing the checkpoint or the results: one line, exit 1, checkpoint
+kept, and a resume that gives the uninterrupted result byte for byte."""
+
+from __future__ import annotations
+
+import errno
+import os
+from pathlib import Path
+
+from helpers import FULL, DiskFull, assert_same_outputs
+from lidmelt import _atomic
+from lidmelt.inversion._checkpoint import HEADER, stored_steps
+from lidmelt.inversion._safety import MANIFEST
+from lidmelt.inversion.cli import main
+
+
+def _fit(capsys, study, out, *extra):
+    code = main(["fit", str(study), "--out", str(out), "--quiet", *extra])
+    return code, capsys.readouterr().err
+
+
+def _resume_matches(capsys, study, out, reference) -> None:
+    code, err = _fit(capsys, study, out, "--resume")
+    assert code == 0, err
+    assert_same_outputs(out, reference)
+    assert not out.with_name(out.name + ".partial").exists()
+
+
+def test_full_disk_in_the_middle_of_a_checkpoint_record(reference, tmp_path, capsys,
+                                                        monkeypatch):
+    study, ref = reference
+    out, partial = tmp_path / "run", tmp_path / "run.partial"
+    with monkeypatch.context() as patch:
+        patch.setattr(_atomic, "_write_all", DiskFull("step-", nth=2))
+        code, err = _fit(capsys, study, out)
+    assert code == 1
+    assert err.strip() == (
+        f"lidmelt fit: error: cannot write {partial / 'step-000000100.npz'} ({FULL}); the "
+        f"checkpoint up to step 50 is kept in {partial}; free some space, then run the same "
+        "command with --resume")
+    # The half-written record is gone; the complete one before it is intact.
+    assert sorted(p.name for p in partial.iterdir()) == sorted(
+        [MANIFEST, HEADER, "step-000000050.npz"])
+    assert stored_steps(partial) == 50 and not out.exists()
+    _resume_matches(capsys, study, out, ref)
+
+
+def test_full_disk_when_a_record_is_renamed_into_place(reference, tmp_path, capsys,
+                                                       monkeypatch):
+    study, ref = reference
+    out, partial = tmp_path / "run", tmp_path / "run.partial"
+    rename = os.replace
+
+    def failing_replace(src, dst):
+        if Path(dst).name == "step-000000150.npz":
+            raise OSError(errno.ENOSPC, FULL)
+        rename(src, dst)
+
+    with monkeypatch.context() as patch:
+        patch.setattr(_atomic.os, "replace", failing_replace)
+        code, err = _fit(capsys, study, out)
+    assert code == 1 and "the checkpoint up to step 100 is kept" in err
+    assert len(err.strip().splitlines()) == 1
+    assert sorted(p.name for p in partial.glob("*step-*")) == [
+        "step-000000050.npz", "step-000000100.npz"]
+    _resume_matches(capsys, study, out, ref)
+
+
+def test_full_disk_while_writing_the_results(reference, tmp_path, capsys, monkeypatch):
+    study, ref = reference
+    out, partial = tmp_path / "run", tmp_path / "run.partial"
+    with monkeypatch.context() as patch:
+        patch.setattr(_atomic, "_write_all", DiskFull("fit.png"))
+        code, err = _fit(capsys, study, out)
+    assert code == 1 and len(err.strip().splitlines()) == 1
+    kept = stored_steps(partial)
+    assert f"cannot write {out / 'fit.png'} ({FULL}); the checkpoint up to step {kept} " \
+           "is kept" in err
+    assert kept > 0 and not out.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["run.partial"]  # no half result
+    _resume_matches(capsys, study, out, ref)  # the finished chain is not extended
+
+
+def test_full_disk_at_the_first_record_keeps_nothing_and_leaves_nothing(reference, tmp_path,
+                                                                        capsys, monkeypatch):
+    study, _ = reference
+    out = tmp_path / "run"
+    with monkeypatch.context() as patch:
+        patch.setattr(_atomic, "_write_all", DiskFull("step-"))
+        code, err = _fit(capsys, study, out)
+    assert code == 1
+    assert "no step had been stored yet, so nothing was kept" in err and "--resume" not in err
+    assert list(tmp_path.iterdir()) == []
