@@ -5,7 +5,8 @@ The everyday API is re-exported here; the two layers sit beneath it:
 - `lidmelt.forward`: adiabatic decompression melting of peridotite beneath a lid
   (`melt_column`);
 - `lidmelt.inversion`: study files, priors, likelihoods and the emcee inversion (`Study`,
-  `fit`), and surveys of many sites (`survey`, imported on first use).
+  `fit`), surveys of many sites (`survey`) and the comparison of competing scenarios by
+  evidence and PSIS-LOO (`compare`), both imported on first use.
 
 Results are scientific estimates that depend on the chosen melting parameterization and the
 other modelling assumptions (see ``docs/model.md``); they are no basis on their own for
@@ -26,6 +27,7 @@ _getattr, __dir__ = lazy_exports(__name__, globals(), {
     "MeltColumn": ".forward", "melt_column": ".forward",
     "InputError": ".inversion", "Posterior": ".inversion", "Study": ".inversion",
     "fit": ".inversion", "survey": ".inversion.survey",
+    "compare": ".inversion.comparison", "Comparison": ".inversion.comparison",
 })
 
 
@@ -45,6 +47,6 @@ def __getattr__(name: str):
     return _getattr(name)
 
 
-__all__ = ["InputError", "MeltColumn", "Posterior", "Study", "__version__", "fit",
-           "melt_column", "survey"]
+__all__ = ["Comparison", "InputError", "MeltColumn", "Posterior", "Study", "__version__",
+           "compare", "fit", "melt_column", "survey"]
 

@@ -11,8 +11,8 @@ from __future__ import annotations
 from importlib import resources
 from pathlib import Path
 
-__all__ = ["DEMO_STUDY", "DEMO_TRUTH", "SURVEY_DEMO", "SURVEY_TRUTH", "study_path",
-           "survey_paths"]
+__all__ = ["DEMO_STUDY", "DEMO_TRUTH", "SURVEY_DEMO", "SURVEY_TRUTH", "scenarios_path",
+           "study_path", "survey_paths"]
 
 #: Folder of the demo study inside this package.
 DEMO_STUDY = "orvanta_rift"
@@ -59,3 +59,17 @@ def study_path() -> Path:
     'study.toml'
     """
     return Path(str(resources.files(__name__).joinpath(DEMO_STUDY, "study.toml")))
+
+
+def scenarios_path() -> Path:
+    """Path of the demo scenario study ``scenarios.toml`` (lid free / thinned / unthinned).
+
+    The same data and base study as `study_path`, with three ``[[scenarios]]`` for
+    ``lidmelt compare``.
+
+    Examples
+    --------
+    >>> scenarios_path().name
+    'scenarios.toml'
+    """
+    return Path(str(resources.files(__name__).joinpath(DEMO_STUDY, "scenarios.toml")))

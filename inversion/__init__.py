@@ -17,6 +17,10 @@ Examples
     posterior = lidmelt.fit(study, seed=1)
     posterior.summary()            # DataFrame, one row per free parameter
     posterior.save("results")      # every output file, written atomically
+
+    comparison = lidmelt.compare("scenarios.toml", seed=1)   # [[scenarios]] of a study
+    comparison.table()             # evidence, probability and LOO of each scenario
+    comparison.save("comparison")
 """
 
 from .._lazy import lazy_exports
@@ -35,6 +39,9 @@ _WHERE = {
     "run_chain": ".sampler",
     "ErrorParameter": ".study", "ModelSettings": ".study", "SamplerSettings": ".study",
     "Study": ".study",
+    "ComparisonSettings": ".scenarios", "Scenario": ".scenarios",
+    "ScenarioSet": ".scenarios", "read_scenarios": ".scenarios",
+    "Comparison": ".comparison", "compare": ".comparison",
 }
 __getattr__, __dir__ = lazy_exports(__name__, globals(), _WHERE)
 
@@ -46,6 +53,8 @@ __all__ = [
     "SUMMARY_COLUMNS",
     "UNITS",
     "ChainResult",
+    "Comparison",
+    "ComparisonSettings",
     "ErrorParameter",
     "InputError",
     "LogPosterior",
@@ -59,13 +68,17 @@ __all__ = [
     "PosteriorWarning",
     "Prior",
     "SamplerSettings",
+    "Scenario",
+    "ScenarioSet",
     "Study",
     "TruncatedNormal",
     "Uniform",
     "WriteError",
     "assess_chain",
+    "compare",
     "fit",
     "prior_from_spec",
     "read_chain",
+    "read_scenarios",
     "run_chain",
 ]

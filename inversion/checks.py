@@ -105,10 +105,9 @@ def _check_one(block, columns, rng, errors) -> BlockCheck:
     replicated = {key: np.empty((len(columns), len(block))) for key in observed}
     exceed = 0
     for s, column in enumerate(columns):
-        draw = {option: float(np.ravel(value)[0]) for option, value in errors[s].items()}
-        replicate = block.simulate(column, rng, errors=draw)
-        d_obs = -2.0 * float(np.ravel(block.log_likelihood(column, errors=draw))[0])
-        d_rep = -2.0 * float(np.ravel(replicate.log_likelihood(column, errors=draw))[0])
+        replicate = block.simulate(column, rng, errors=errors[s])
+        d_obs = -2.0 * float(np.ravel(block.log_likelihood(column, errors=errors[s]))[0])
+        d_rep = -2.0 * float(np.ravel(replicate.log_likelihood(column, errors=errors[s]))[0])
         exceed += d_rep >= d_obs
         for key, values in _data_columns(replicate.observed()).items():
             replicated[key][s] = values

@@ -50,7 +50,9 @@ __all__ = [
 MASS_CUT = 25.0
 #: Default size of the final grid (points): 50 per axis in 3-D, ln Z to about 0.005 on the demo.
 MAX_POINTS = 125_000
-_CHUNK = 65_536  # points per call of the log-likelihood: bounds memory, keeps numpy busy
+# Points per call of the log-likelihood: ~2000 keeps the forward model's arrays in cache
+# (on the demo, 2048-point calls ran 5-9x faster than 65536-point ones).
+_CHUNK = 2048
 
 
 @dataclass(frozen=True)

@@ -65,7 +65,7 @@ class LogPosterior:
         self.study = study
         self.physical = tuple(study.free_parameters)
         self.errors = tuple(study.error_parameters)
-        self.names = self.physical + tuple(error.name for error in self.errors)
+        self.names = tuple(study.sampled_parameters)
         self.ndim = len(self.names)
         self.nblobs = len(DERIVED)
         self.units = {**{name: UNITS[name] for name in (*self.physical, *DERIVED)},

@@ -101,6 +101,9 @@ def fit(
         One per entry of `Posterior.warnings` about the posterior itself.
     """
     seed = _check_seed(study.sampler.seed if seed is None else seed)
+    if not study.priors:  # a scenario may fix everything (inversion.scenarios)
+        raise InputError("every parameter is fixed, so there is nothing to sample; give "
+                         "at least one a prior", key="parameters")
     if out is None:
         if resume:
             raise InputError("resuming needs the result folder of the interrupted run",

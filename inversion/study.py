@@ -55,6 +55,8 @@ DEFAULT_FIXED: dict[str, float] = {"water": 0.0, "active_upwelling": 1.0, "solid
 _REQUIRED = ("potential_temperature", "lithosphere_thickness")
 
 _TOP_KEYS = ("study", "model", "parameters", "observations", "sampler")
+# Read by inversion.scenarios (`lidmelt compare`); a plain fit ignores them.
+_COMPARISON_KEYS = ("scenarios", "comparison")
 _STUDY_KEYS = ("name", "description")
 _START = ("prior", "map")
 
@@ -211,7 +213,8 @@ class Study:
         The study file it was read from (None when built in code).
     model : ModelSettings
     priors : dict of str to Prior
-        Free parameters and their priors.
+        Free parameters and their priors (a study file needs at least one; a scenario
+        built with `with_overrides` may fix every parameter).
     fixed : dict of str to float
         Fixed parameters and their values. `priors` and `fixed` together hold each name of
         `PARAMETERS` exactly once.
@@ -321,7 +324,7 @@ class Study:
         file_hash : str, optional
             Recorded in `Study.file_hash`.
         """
-        _check_keys(config, _TOP_KEYS, "", what="section")
+        _check_keys(config, _TOP_KEYS + _COMPARISON_KEYS, "", what="section")
         study_tbl = _table(config, "study")
         _check_keys(study_tbl, _STUDY_KEYS, "study")
         source = None if source is None else Path(source)
@@ -338,6 +341,9 @@ class Study:
         _check_keys(sampler_tbl, _SAMPLER_KEYS, "sampler")
         sampler = SamplerSettings(**sampler_tbl)
         priors, fixed = _parse_parameters(config.get("parameters"))
+        if not priors:  # a scenario may fix everything (inversion.scenarios), a study not
+            raise InputError("every parameter is fixed; give at least one a prior to infer "
+                             "it", key="parameters")
         observations = _parse_observations(config.get("observations"), Path(base_dir))
         return cls(name=name, source=source, model=model, priors=priors, fixed=fixed,
                    observations=observations, sampler=sampler, file_hash=file_hash,
@@ -349,6 +355,14 @@ class Study:
     def free_parameters(self) -> tuple[str, ...]:
         """Names of the free parameters, in the canonical order of `PARAMETERS`."""
         return tuple(name for name in PARAMETERS if name in self.priors)
+
+    @property
+    def sampled_parameters(self) -> tuple[str, ...]:
+        """Every sampled name: `free_parameters`, then the `error_parameters` names.
+
+        The column order of `inversion.LogPosterior` and of every chain.
+        """
+        return self.free_parameters + tuple(e.name for e in self.error_parameters)
 
     @property
     def error_parameters(self) -> tuple[ErrorParameter, ...]:
@@ -481,9 +495,12 @@ def _key_line(text: str, dotted: str | None) -> int | None:
         head = _HEADER.match(line)
         if head:
             name = head.group(2)
+            first, _, rest = name.partition(".")
             if head.group(1):  # [[array]] block
                 counts[name] = counts.get(name, 0) + 1
                 name = f"{name}[{counts[name]}]"
+            elif rest and first in counts:  # [scenarios.parameters]: of the last block
+                name = f"{first}[{counts[first]}].{rest}"
             header = candidate = name
         else:
             assign = _ASSIGN.match(line)
@@ -590,9 +607,6 @@ def _check_parameter_sets(priors: dict, fixed: dict, file) -> None:
         if name not in priors and name not in fixed:
             raise InputError(f"'{name}' has neither a prior nor a fixed value",
                              file=file, key=f"parameters.{name}")
-    if not priors:
-        raise InputError("every parameter is fixed; give at least one a prior to infer it",
-                         file=file, key="parameters")
 
 
 def _parse_observations(blocks, base_dir: Path) -> tuple[ObservationSet, ...]:

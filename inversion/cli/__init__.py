@@ -14,7 +14,7 @@ import sys
 
 from ...forward._validation import DomainError
 from .._errors import InputError, OutputConflict
-from . import column, demo, fit, survey
+from . import column, compare, demo, fit, survey
 
 # name -> (module, one-line help)
 _COMMANDS = {
@@ -22,6 +22,8 @@ _COMMANDS = {
     "fit": (fit, "fit a study file: posterior of potential temperature and lid "
             "thickness"),
     "demo": (demo, "fit the bundled demo study end to end (under a minute)"),
+    "compare": (compare, "rank competing scenarios of a study by Bayesian evidence and "
+                "leave-one-out prediction"),
     "survey": (survey, "many sites of a study area: each site's posterior and an "
                "area-wide potential temperature, on local cores or a Dask cluster"),
 }

@@ -361,8 +361,8 @@ class ObservationSet(ABC):
         """A copy whose values are drawn from the likelihood at one melting column.
 
         The sigmas and model-error settings stay; `column` must hold a single parameter
-        vector, and `errors` the scalar value of each free model error to draw with. The
-        draws are not re-validated (a simulated thickness may come out negative).
+        vector, and `errors` the value (a number or shape (1,)) of each free model error.
+        The draws are not re-validated (a simulated thickness may come out negative).
         """
 
     @abstractmethod

@@ -109,7 +109,8 @@ class CrustalThickness(ObservationSet):
                  errors: Mapping | None = None) -> CrustalThickness:
         require_single(column, "simulate")
         model = float(np.ravel(self._model(column))[0])
-        draws = model + self.total_sigma(errors) * rng.standard_normal(len(self))
+        sigma = np.reshape(self.total_sigma(errors), len(self))  # errors: scalar or (1,)
+        draws = model + sigma * rng.standard_normal(len(self))
         return self._replace_values({self.value_column: draws}, thickness_of=self.thickness_of)
 
     def describe(self) -> str:

@@ -360,11 +360,11 @@ class MeltingPressure(ObservationSet):
             point_p = np.full(rows, float(np.ravel(p)[0]))
             point_t = None if t is None else np.full(rows, float(np.ravel(t)[0]))
         z_p = rng.standard_normal(rows)
-        s_p = self.total_sigma(errors)
+        s_p = np.reshape(self.total_sigma(errors), rows)  # errors: scalar or (1,) each
         new = {self.value_column: point_p + s_p * z_p}
         if point_t is not None:
             z_t = rng.standard_normal(rows)
-            s_t = self.total_temperature_sigma(errors)
+            s_t = np.reshape(self.total_temperature_sigma(errors), rows)
             rho = self._rho * self._stated_sigma * self._stated_t_sigma / (s_p * s_t)
             new["temperature_c"] = point_t + s_t * (rho * z_p + np.sqrt(1 - rho**2) * z_t)
         return self._replace_values(new, **self._options())

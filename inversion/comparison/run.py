@@ -1,0 +1,199 @@
+"""`compare`: evidence, posterior, PSIS-LOO and checks for every scenario of a study."""
+
+from __future__ import annotations
+
+import time
+import warnings
+from collections.abc import Callable
+from os import PathLike
+from pathlib import Path
+
+import numpy as np
+
+from .._errors import InputError, NotConvergedWarning, PosteriorWarning
+from ..model import LogPosterior
+from ..scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
+from ..study import Study
+from .checks import fit_check
+from .evidence import scenario_evidence
+from .loo import loo_fixed, loo_from_draws, posterior_draws
+from .result import Comparison, ScenarioResult
+
+__all__ = ["ComparisonWarning", "compare", "evaluate_scenario", "scenario_seeds"]
+
+
+class ComparisonWarning(UserWarning):
+    """A caveat of a scenario comparison (also listed in its report.md)."""
+
+
+def compare(
+    study: Study | ScenarioSet | str | PathLike[str],
+    *,
+    seed: int | None = None,
+    settings: ComparisonSettings | None = None,
+    out: str | PathLike[str] | None = None,
+    resume: bool = False,
+    force: bool = False,
+    quiet: bool = True,
+    progress: Callable[[str], None] | None = None,
+) -> Comparison:
+    """Compare the scenarios of a study by their evidence and by PSIS-LOO.
+
+    Parameters
+    ----------
+    study : Study, ScenarioSet, str or path-like
+        A study file with ``[[scenarios]]`` (path); a `Study` read from a file (the
+        scenarios of that file, which must be unchanged, are applied to it); a study
+        built in code (then it is the only scenario); or a `ScenarioSet`.
+    seed : int, optional
+        Master seed (default: the study's ``[sampler] seed``). Each scenario's posterior
+        is sampled with it, as ``lidmelt fit --seed`` would; the nested sampler of
+        scenario i uses the i-th seed spawned from it.
+    settings : ComparisonSettings, optional
+        Overrides the study file's ``[comparison]`` table.
+    out : str or path-like, optional
+        Result folder. Finished scenarios are kept in ``<out>.partial/`` while the others
+        run, and everything is moved to `out` at the end.
+    resume : bool
+        Skip the scenarios finished by an interrupted run for `out` (refused when the
+        study file or its tables changed since).
+    force : bool
+        Replace a comparison folder (or checkpoint) lidmelt wrote before (the rule of
+        `inversion._safety`: never the working folder, a folder holding the inputs, or
+        anything lidmelt did not write).
+    quiet : bool
+        Hide the samplers' progress bars.
+    progress : callable, optional
+        Called with a short message as each part of each scenario starts.
+
+    Returns
+    -------
+    Comparison
+
+    Warns
+    -----
+    ComparisonWarning
+        For every caveat in `Comparison.warnings`.
+    """
+    found = _scenario_set(study, settings)
+    seed = _check_seed(found.base.sampler.seed if seed is None else seed)
+    if out is None:
+        if resume:
+            raise InputError("resuming needs the result folder of the interrupted run",
+                             key="out")
+        comparison = _run(found, seed, None, quiet=quiet, progress=progress)
+    else:
+        from .._safety import output_lock
+        from .outputs import Checkpoint
+
+        out = Path(out).absolute()
+        with output_lock(out):
+            checkpoint = Checkpoint.open(out, found, seed, resume=resume, force=force)
+            comparison = _run(found, seed, checkpoint, quiet=quiet, progress=progress)
+            checkpoint.finish(comparison, force=force)
+    for message in comparison.warnings():
+        warnings.warn(ComparisonWarning(message), stacklevel=2)
+    return comparison
+
+
+def _run(found, seed: int, checkpoint, *, quiet: bool, progress) -> Comparison:
+    """Every scenario in turn; a finished one is loaded from the checkpoint."""
+    seeds = scenario_seeds(seed, len(found.scenarios))
+    results = []
+    for scenario, nested_seed in zip(found.scenarios, seeds, strict=True):
+        done = None if checkpoint is None else checkpoint.load(scenario)
+        if done is None:
+            done = evaluate_scenario(scenario, seed=seed, nested_seed=nested_seed,
+                                     settings=found.settings, quiet=quiet,
+                                     progress=progress)
+            if checkpoint is not None:
+                checkpoint.store(done)
+        results.append(done)
+    return Comparison(found, results, seed=seed)
+
+
+def _check_seed(seed) -> int:
+    from ..posterior import _check_seed as check
+
+    return check(seed)
+
+
+def scenario_seeds(seed: int, count: int) -> list[int]:
+    """Nested-sampling seed of each scenario, spawned from the master seed."""
+    return [int(child.generate_state(1)[0])
+            for child in np.random.SeedSequence(seed).spawn(count)]
+
+
+def evaluate_scenario(scenario: Scenario, *, seed: int, nested_seed: int,
+                      settings: ComparisonSettings, quiet: bool = True,
+                      progress: Callable[[str], None] | None = None) -> ScenarioResult:
+    """Evidence, posterior, LOO and checks of one scenario.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    seed : int
+        Seed of the posterior sampler (and of the predictive check).
+    nested_seed : int
+        Seed of the nested sampler.
+    settings : ComparisonSettings
+    quiet : bool
+        Hide the posterior sampler's progress bar.
+    progress : callable, optional
+        Receives a message as each part starts.
+    """
+    from ..posterior import fit
+
+    say = progress or (lambda message: None)
+    logpost = LogPosterior(scenario.study)
+    say(f"{scenario.name}: evidence (nested sampling"
+        + (", quadrature)" if 0 < logpost.ndim <= 3 else ")"))
+    evidence = scenario_evidence(logpost, live_points=settings.live_points,
+                                 effective_samples=settings.effective_samples,
+                                 grid_points=settings.grid_points, seed=nested_seed)
+    seconds = {"nested": evidence.seconds_nested, "quadrature": evidence.seconds_quadrature}
+    posterior, caveats = None, ()
+    started = time.perf_counter()
+    if logpost.ndim:
+        say(f"{scenario.name}: posterior (emcee)")
+        with warnings.catch_warnings():  # listed by the comparison (Posterior.warnings)
+            warnings.simplefilter("ignore", NotConvergedWarning)
+            warnings.simplefilter("ignore", PosteriorWarning)
+            posterior = fit(scenario.study, seed=seed, quiet=quiet)
+        seconds["posterior"] = time.perf_counter() - started
+        caveats = tuple(posterior.warnings)
+        say(f"{scenario.name}: leave-one-out (PSIS-LOO)")
+        draws = posterior_draws(posterior)
+        loo = loo_from_draws(posterior.logpost, draws)
+        flat = draws.reshape(-1, logpost.ndim)
+    else:
+        seconds["posterior"] = 0.0
+        loo, flat = loo_fixed(logpost), np.zeros((1, 0))
+    seconds["loo"] = loo.seconds
+    started = time.perf_counter()
+    check = fit_check(logpost, flat, np.random.default_rng(np.random.SeedSequence(seed)))
+    seconds["checks"] = time.perf_counter() - started
+    return ScenarioResult(scenario, evidence, loo, check, posterior, caveats,
+                          {k: round(float(v), 3) for k, v in seconds.items()})
+
+
+def _scenario_set(study, settings: ComparisonSettings | None) -> ScenarioSet:
+    if isinstance(study, ScenarioSet):
+        found = study
+    elif isinstance(study, Study):
+        found = _from_study(study)
+    elif isinstance(study, (str, PathLike)):
+        found = read_scenarios(study)
+    else:
+        raise TypeError(f"compare needs a Study, a ScenarioSet or a study file path, got "
+                        f"{type(study).__name__}")
+    if settings is not None:
+        found = ScenarioSet(found.base, found.scenarios, settings, found.input_hashes)
+    return found
+
+
+def _from_study(study: Study) -> ScenarioSet:
+    """The scenarios of the study's file applied to `study`; just `study` without a file."""
+    if study.source is None or not Path(study.source).is_file():
+        return ScenarioSet.from_study(study)
+    return read_scenarios(study.source, base=study)
