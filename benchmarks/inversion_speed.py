@@ -1,6 +1,6 @@
 """Wall time and effective samples per second of the demo fit.
 
-Target (issue 3): potential temperature, lid thickness and solidus offset free, every
+Target: potential temperature, lid thickness and solidus offset free, every
 effective sample size (ESS) >= 2000, in <= 20 s on a 2-core machine.
 
 Usage::

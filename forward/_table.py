@@ -141,7 +141,7 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     p = u[None, :] ** 2
     depression = param.water_depression(0.0, p, water[:, None])[0]
     sub_sigma = solid_adiabat(tp[:, None], p, param.thermo) + depression - shift[:, None]
-    below_onset = ~melts[:, None] | (p >= onset[:, None])
+    below_onset = ~melts[:, None] | (p > onset[:, None] + 1e-9)  # a capped path starts on a node
     paths[0] = np.where(below_onset, sub_sigma, paths[0])
     paths[1:] = np.where(below_onset[None], 0.0, paths[1:])
     shape = (theta_axis.size, shift_axis.size, water_axis.size)
@@ -162,7 +162,7 @@ def _param_axes(param, water):
     return theta, shift
 
 
-_FORMAT = 2  # bump when the table layout or the integration changes
+_FORMAT = 3  # bump when the table layout or the integration changes
 
 
 def _cache_file(param, axes) -> Path | None:

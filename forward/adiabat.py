@@ -11,9 +11,11 @@ __all__ = [
     "KELVIN",
     "MAX_PRESSURE",
     "depth_per_pressure",
+    "margin_trust",
     "onset_state",
     "refine_onset",
     "solid_adiabat",
+    "solidus_margin",
 ]
 
 KELVIN = 273.15
@@ -35,26 +37,54 @@ def solid_adiabat(potential_temperature, pressure, thermo):
 
 
 def _tau_gap(param, potential_temperature, pressure, water, shift):
-    """Dry-equivalent adiabat temperature minus the dry solidus (K); > 0 means melting."""
-    depression = param.water_depression(0.0, pressure, water)[0]
+    """Solid adiabat minus the wet, shifted solidus (K); > 0 means melting."""
     t_ad = solid_adiabat(potential_temperature, pressure, param.thermo)
-    return t_ad + depression - shift - param.solidus(pressure)
+    return t_ad - param.wet_solidus(pressure, water) - shift
 
 
-def refine_onset(param, pressure, potential_temperature, water, shift, iterations=1):
-    """Newton steps on the adiabat-solidus gap from an interpolated onset guess.
+#: K: where the solidus margin interpolated from the table is below -_MARGIN_RAMP[0] the
+#: outputs are scaled down, reaching 0 at -(sum of both) (see ``margin_trust``).
+_MARGIN_RAMP = (1.0, 5.0)
+_NEWTON_RAMP = 2.0  # K: Newton steps toward shallower pressure fade out over this margin
+_MIN_GAP_SLOPE = 5.0  # K/GPa; below this |d gap/dP| Newton steps are shortened, not lengthened
+_MAX_STEP = 0.2  # GPa per Newton step, so the iteration stays on the root it started near
 
-    Only points with ``0 < pressure < MAX_PRESSURE`` move; steps are limited to
-    0.2 GPa so the iteration stays on the root it started near.
+
+def margin_trust(margin):
+    """Continuous 0..1 weight of a point's melt: 1 for a margin >= -1 K, 0 below -6 K.
+
+    ``margin`` (K) is the solidus margin interpolated from the neighbouring table paths.
+    Those paths can melt a little where the point itself does not (margin < 0, the
+    adiabat never reaches the solidus); scaling by this weight makes that melt vanish
+    continuously within a table cell's worth (5 K of theta) of the edge of melting.
+    """
+    low, width = _MARGIN_RAMP
+    return np.clip(1.0 + (np.asarray(margin, float) + low) / width, 0.0, 1.0)
+
+
+def refine_onset(param, pressure, potential_temperature, water, shift, margin,
+                 iterations=2):
+    """Safeguarded Newton steps toward the deepest adiabat-solidus crossing (GPa).
+
+    Starts from an interpolated onset guess. A step is taken only where the gap
+    (adiabat minus wet, shifted solidus, K) falls with depth (the deep side of a
+    crossing): the Newton step ``-gap / slope``, shortened where the slope is gentler
+    than 5 K/GPa. Where the gap is negative (the guess lies too deep) the step toward
+    lower pressure fades out as the solidus ``margin`` (K, interpolated) falls from 0 to
+    -2 K: a point that does not melt keeps its tabulated closest-approach pressure
+    instead of stepping past it. Every factor is continuous in the gap, its
+    (finite-difference) slope and the margin, so the onset is continuous in the inputs.
     """
     p = np.asarray(pressure, float)
-    movable = (p > 0.0) & (p < MAX_PRESSURE)
     delta = 1e-4
+    fade = np.clip(1.0 + np.asarray(margin, float) / _NEWTON_RAMP, 0.0, 1.0)
     for _ in range(iterations):
         gap = _tau_gap(param, potential_temperature, p, water, shift)
         slope = (_tau_gap(param, potential_temperature, p + delta, water, shift) - gap) / delta
-        step = np.clip(-gap / np.where(slope < 0.0, slope, -1.0), -0.2, 0.2)
-        p = np.where(movable, np.clip(p + step, 1e-9, MAX_PRESSURE), p)
+        falling = np.maximum(-slope, 0.0)
+        newton = gap * falling / np.maximum(slope * slope, _MIN_GAP_SLOPE ** 2)
+        step = np.where(gap >= 0.0, newton, newton * fade)
+        p = np.clip(p + np.clip(step, -_MAX_STEP, _MAX_STEP), 0.0, MAX_PRESSURE)
     return p
 
 
@@ -76,9 +106,11 @@ def onset_state(param: Parameterization, potential_temperature, water, shift, *,
     The onset is the deepest pressure where the solid adiabat meets the wet, shifted
     solidus. ``sigma`` is the dry-equivalent temperature minus the shift, so the melt
     fraction is ``F_dry(sigma, P)``. Where the adiabat never reaches the solidus the
-    onset is 0 GPa with no melt. Where it is still above the solidus at
-    ``MAX_PRESSURE``, melting starts there, the mantle brought isentropically to
-    equilibrium: ``T = T_ad exp(-dS F / c_p)`` at that pressure.
+    "onset" is the pressure of closest approach (largest adiabat-solidus gap, 0 GPa
+    for a dry source), with no melt: it is where melting would begin in a slightly
+    hotter mantle, so the onset varies continuously across the edge of melting. Where
+    the adiabat is still above the solidus at ``MAX_PRESSURE``, melting starts there,
+    the mantle brought isentropically to equilibrium: ``T = T_ad exp(-dS F / c_p)``.
 
     Returns ``(pressure, sigma, melts)``; inputs are 1-D arrays of equal length.
     """
@@ -92,11 +124,42 @@ def onset_state(param: Parameterization, potential_temperature, water, shift, *,
     deep = grid_p[np.maximum(first - 1, 0)]
     shallow = grid_p[first]
     onset = _bisect(lambda p: _tau_gap(param, tp, p, w, s), shallow, deep)
-    onset = np.where(capped, MAX_PRESSURE, np.where(melts, onset, 0.0))
+    closest = _closest_approach(lambda p: _tau_gap(param, tp, p, w, s), grid_p, gaps)[0]
+    onset = np.where(capped, MAX_PRESSURE, np.where(melts, onset, closest))
     sigma = param.solidus(onset)
     if np.any(capped):
         sigma = np.where(capped, _equilibrated_sigma(param, tp, w, s), sigma)
     return onset, sigma, melts
+
+
+def solidus_margin(param: Parameterization, potential_temperature, water, shift, *, grid=201):
+    """Largest excess (K) of the solid adiabat over the wet, shifted solidus, 0-10 GPa.
+
+    Negative where the mantle is too cold to melt at any depth. Returns ``(margin,
+    pressure)``, the pressure (GPa) where it is reached; inputs are 1-D arrays.
+    """
+    tp, w, s = (np.asarray(v, float) for v in (potential_temperature, water, shift))
+    grid_p = np.linspace(MAX_PRESSURE, 0.0, grid)
+    gaps = _tau_gap(param, tp[:, None], grid_p[None, :], w[:, None], s[:, None])
+    pressure, margin = _closest_approach(lambda p: _tau_gap(param, tp, p, w, s), grid_p, gaps)
+    return margin, pressure
+
+
+def _closest_approach(gap, grid_p, gaps, iterations=60):
+    """Pressure and value of the largest gap: grid maximum, then a golden-section search."""
+    best = np.argmax(gaps, axis=1)
+    low = grid_p[np.minimum(best + 1, grid_p.size - 1)]  # grid_p descends
+    high = grid_p[np.maximum(best - 1, 0)]
+    ratio = 0.5 * (np.sqrt(5.0) - 1.0)
+    for _ in range(iterations):
+        a, b = high - ratio * (high - low), low + ratio * (high - low)
+        left_better = gap(a) >= gap(b)
+        high = np.where(left_better, b, high)
+        low = np.where(left_better, low, a)
+    found = 0.5 * (low + high)
+    at_surface, inside = gap(np.zeros_like(found)), gap(found)
+    surface = at_surface >= inside
+    return np.where(surface, 0.0, found), np.where(surface, at_surface, inside)
 
 
 def _equilibrated_sigma(param, tp, water, shift):

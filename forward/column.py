@@ -7,11 +7,14 @@ from functools import cached_property
 
 import numpy as np
 
+from ._aligned import blended_sigma, corner_states
 from ._integrate import column_temperature
-from ._table import PathTable, path_table
+from ._path_facts import path_facts
+from ._pooling import pool
+from ._table import PathTable, deep_depression, path_table
 from ._validation import check_inputs
-from ._table import deep_depression
-from .adiabat import MAX_PRESSURE, depth_per_pressure, refine_onset, solid_adiabat
+from .adiabat import depth_per_pressure, margin_trust, refine_onset, solid_adiabat
+from .adiabat import solidus_margin as adiabat_margin
 from .parameterizations import Parameterization, get_parameterization
 
 __all__ = ["MELTING_REGIONS", "MeltColumn", "MeltingPath", "melt_column"]
@@ -23,9 +26,11 @@ MELTING_REGIONS = ("column", "triangle")
 class MeltingPath:
     """Pressure-temperature-melt fraction path; every array has shape ``(..., num)``.
 
-    ``weight`` is the share of the pooled melt made in each interval (column: the
-    melt fraction increment; ridge: times the width of the triangular melting
-    region); it sums to 1 along the last axis, and is 0 everywhere where no melt forms.
+    ``weight`` is the share of the pooled melt made in each interval: the increase of
+    the melt fraction across it (decreases, where melt refreezes, count as none), for
+    the triangle times the width of the melting region there, which grows from the
+    apex at the top of melting, ``P - P_top`` (docs/model.md, "Melting regions"). It
+    sums to 1 along the last axis, and is 0 everywhere where no melt forms.
     """
 
     pressure: np.ndarray  # GPa
@@ -58,14 +63,19 @@ class MeltColumn:
     ----------
     melt_thickness : km, active_upwelling x the integral of F over depth.
     crustal_thickness : km, melt_thickness x mantle_density / crust_density.
-    onset_depth, onset_pressure : km, GPa; where the solid adiabat meets the solidus
-        (0 where it never does).
+    onset_depth, onset_pressure : km, GPa; the deepest crossing of the solid adiabat
+        and the solidus. Where the adiabat never meets the solidus: where it comes
+        closest (0 for a dry source), so the onset is continuous across the edge.
     top_depth, top_pressure : km, GPa; top of melting, min(lid base, onset).
-    max_melt_fraction : melt fraction at the top of melting.
-    mean_melt_fraction : of the pooled melt; column: F at the top; ridge: the
-        Plank & Langmuir (1992) triangle mean, integral of F dz / (z0 - zf).
-    mean_melting_pressure : GPa, melt-production weighted (ridge: also weighted by
-        the width of the melting region); equals top_pressure where no melt forms.
+    max_melt_fraction : the largest melt fraction in the melting interval.
+    top_melt_fraction : the melt fraction at the top of melting (below the largest
+        where water-saturated melt refreezes near the surface).
+    mean_melt_fraction : of the pooled melt; column: the largest F (every parcel has
+        been melted that far when it leaves the melting interval); triangle: the
+        Plank & Langmuir (1992) mean, integral of F dz / (z0 - zf).
+    mean_melting_pressure : GPa, the mean pressure at which the melt was made,
+        weighted by melt production (triangle: also by the width of the melting region,
+        P - P_top); where no melt forms, the onset pressure (see docs/model.md).
     produces_melt : bool, melt_thickness > 0.
     potential_temperature, lithosphere_thickness, water, solidus_offset : the inputs,
         broadcast (degC, km, ppm, degC).
@@ -81,6 +91,7 @@ class MeltColumn:
     top_depth: np.ndarray
     top_pressure: np.ndarray
     max_melt_fraction: np.ndarray
+    top_melt_fraction: np.ndarray
     mean_melt_fraction: np.ndarray
     mean_melting_pressure: np.ndarray
     produces_melt: np.ndarray
@@ -92,11 +103,10 @@ class MeltColumn:
 
     @cached_property
     def solidus_margin(self):
-        pressures = np.linspace(0.0, MAX_PRESSURE, 201)
-        param = self._query.param
-        adiabat = solid_adiabat(self.potential_temperature[..., None], pressures, param.thermo)
-        wet = param.wet_solidus(pressures, self.water[..., None])
-        return np.max(adiabat - wet - self.solidus_offset[..., None], axis=-1)
+        shape = np.shape(self.potential_temperature)
+        margin, _ = adiabat_margin(self._query.param, np.ravel(self.potential_temperature),
+                                   np.ravel(self.water), np.ravel(self.solidus_offset))
+        return margin.reshape(shape)
 
     def profile(self, pressure):
         """Temperature (degC) and melt fraction along the whole adiabat at ``pressure``.
@@ -107,8 +117,19 @@ class MeltColumn:
         """
         q = self._query
         flats, weights = q.corners
-        sigma, _, _ = q.table.lookup((flats[..., None], weights[..., None]), pressure)
-        return column_temperature(q.param, sigma, pressure, q.water[..., None], q.shift[..., None])
+        onset = self.onset_pressure[..., None]
+        pressure = np.asarray(pressure, float)
+        above = np.minimum(pressure, onset)
+        c = corner_states(q.param, q.table, (flats[..., None], weights[..., None]), onset,
+                          above)
+        temp, _ = column_temperature(q.param, blended_sigma(q.param, c, above), above,
+                                     q.water[..., None], q.shift[..., None])
+        trust = margin_trust(_margin(q))[..., None]
+        frac = trust * np.einsum("k...,k...->...", c.weights,
+                                 q.param.dry_fraction(c.sigma, c.pressure))
+        solid = solid_adiabat(q.potential_temperature[..., None], pressure, q.param.thermo)
+        deeper = pressure > onset
+        return np.where(deeper, solid, temp), np.where(deeper, 0.0, frac)
 
     def path(self, num: int = 64) -> MeltingPath:
         """The melting path between top and onset, in ``num`` intervals of equal pressure.
@@ -126,7 +147,7 @@ class MeltColumn:
         frac_edges[..., -1] = 0.0  # melt present at the onset counts as made there
         made = np.maximum(frac_edges[..., :-1] - frac_edges[..., 1:], 0.0)
         if self._query.melting_region == "triangle":
-            made = made * (bottom - mids)
+            made = made * (mids - top)  # width of the triangle: 0 at its apex, the top
         total = made.sum(axis=-1, keepdims=True)
         weight = np.where(total > 0.0, made / np.where(total > 0.0, total, 1.0), 0.0)
         depth = mids * self._query.km_per_gpa[..., None]
@@ -150,7 +171,9 @@ def melt_column(
     The solid adiabat (T = Tp exp(alpha P / rho c_p)) meets the solidus at the onset;
     above it the mantle follows the isentropic melting path of Katz et al. (2003,
     eq. 22 in substance) up to the lid base, where melting stops. Array arguments
-    broadcast by numpy rules; the work is vectorised over all points.
+    broadcast by numpy rules; the work is vectorised over all points. Every output is
+    continuous in every input. Equations, constants and the pooling of the melt in the
+    two melting regions: docs/model.md.
 
     Parameters
     ----------
@@ -178,6 +201,9 @@ def melt_column(
 
     Examples
     --------
+    Onset depth (km) and melt thickness (km) of dry mantle at Tp 1350 degC with no lid;
+    values computed from the published equations (docs/model.md, "Worked values"):
+
     >>> res = melt_column(1350.0, 0.0, parameterization="katz2003")
     >>> round(float(res.onset_depth), 1), round(float(res.melt_thickness), 2)
     (82.2, 8.85)
@@ -198,34 +224,22 @@ def melt_column(
     table = path_table(param, float(water.flat[0]) if one_water and water.size else None)
     km_per_gpa = depth_per_pressure(b["mantle_density"])
     theta = b["potential_temperature"] - b["solidus_offset"] + deep_depression(param, b["water"])
-    query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region, km_per_gpa,
-                   b["potential_temperature"], table.corners(theta, b["solidus_offset"], b["water"]))
+    corners = _live(table.corners(theta, b["solidus_offset"], b["water"]))
+    query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region,
+                   km_per_gpa, b["potential_temperature"], corners)
     return _column_outputs(query, b, km_per_gpa)
 
 
 def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
-    onset = query.table.onset_pressure(query.corners)
-    onset = refine_onset(query.param, onset, query.potential_temperature, query.water, query.shift)
+    guess = query.table.onset_pressure(query.corners)
+    margin = _margin(query)
+    onset = refine_onset(query.param, guess, query.potential_temperature, query.water,
+                         query.shift, margin)
     top = np.minimum(b["lithosphere_thickness"] / km_per_gpa, onset)
-    sigma, int_f, int_pf = query.table.lookup(query.corners, top)
-    frac_top = query.param.dry_melt_fraction(sigma, top).fraction
-    melts = (onset > top) & (int_f > 0.0) & (frac_top > 0.0)
-    int_f = np.where(melts, int_f, 0.0)
-    frac_top = np.where(melts, frac_top, 0.0)
-    interval = np.where(melts, onset - top, 1.0)
-    safe_f = np.where(melts, frac_top, 1.0)
-    if query.melting_region == "triangle":
-        mean_f = int_f / interval
-        width_weighted = frac_top * (onset - top) - int_f
-        moment = top * (onset - top) * frac_top + onset * int_f - 2.0 * np.where(melts, int_pf, 0.0)
-        ok = melts & (width_weighted > 0.0)
-        mean_p = np.where(ok, moment / np.where(ok, width_weighted, 1.0), top)
-    else:
-        mean_f = frac_top
-        mean_p = np.where(melts, top + int_f / safe_f, top)
-    # interpolation across a path that barely melts can stray; the mean lies in the interval
-    mean_p = np.clip(mean_p, top, np.maximum(onset, top))
-    melt = b["active_upwelling"] * int_f * km_per_gpa
+    trust = margin_trust(margin)  # 0 where even the neighbouring paths barely melt
+    pooled = pool(query.param, query.table, query.corners, onset, top, query.melting_region,
+                  trust)
+    melt = b["active_upwelling"] * pooled.int_f * km_per_gpa
     return MeltColumn(
         melt_thickness=melt,
         crustal_thickness=melt * b["mantle_density"] / b["crust_density"],
@@ -233,13 +247,27 @@ def _column_outputs(query: _Query, b: dict, km_per_gpa) -> MeltColumn:
         onset_pressure=onset,
         top_depth=top * km_per_gpa,
         top_pressure=top,
-        max_melt_fraction=frac_top,
-        mean_melt_fraction=mean_f,
-        mean_melting_pressure=mean_p,
-        produces_melt=melts,
+        max_melt_fraction=pooled.max_fraction,
+        top_melt_fraction=pooled.top_fraction,
+        mean_melt_fraction=pooled.mean_fraction,
+        mean_melting_pressure=pooled.mean_pressure,
+        produces_melt=melt > 0.0,
         potential_temperature=b["potential_temperature"],
         lithosphere_thickness=b["lithosphere_thickness"],
         water=b["water"],
         solidus_offset=b["solidus_offset"],
         _query=query,
     )
+
+
+def _margin(query: _Query):
+    """Solidus margin (K) interpolated from the neighbouring paths' margins."""
+    flats, weights = query.corners
+    return np.sum(weights * path_facts(query.param, query.table).margin[flats], axis=0)
+
+
+def _live(corners):
+    """Drop interpolation corners that carry no weight anywhere (e.g. a shift on a node)."""
+    flats, weights = corners
+    keep = np.any(weights != 0.0, axis=tuple(range(1, weights.ndim)))
+    return (flats[keep], weights[keep]) if 0 < keep.sum() < keep.size else corners

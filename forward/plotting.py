@@ -84,7 +84,8 @@ def draw_melting_path(ax, column, index=(), *, color=None, label=None, max_press
     tp = float(np.asarray(q.potential_temperature)[index])
     if adiabat:
         ax.plot(solid_adiabat(tp, pressures, q.param.thermo), pressures, color=color,
-                lw=0.9, ls=(0, (1, 2)), zorder=3)
+                lw=0.9, ls=(0, (1, 2)), zorder=3,
+                label=None if label is None else f"solid adiabat (no melting), Tp {tp:.0f} °C")
     top = float(np.asarray(column.top_pressure)[index])
     onset = float(np.asarray(column.onset_pressure)[index])
     melting = (pressures >= top) & (pressures <= onset)

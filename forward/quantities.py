@@ -145,6 +145,8 @@ _ALL = (
        "melt", r"$\bar F$"),
     _q("max_melt_fraction", "-", "F max", "largest melt fraction", 3, "melt",
        "$F_{max}$"),
+    _q("top_melt_fraction", "-", "F top", "melt fraction at the top of melting", 3, "melt",
+       "$F_{top}$"),
     _q("mean_melting_pressure", "GPa", "P mean", "mean melting pressure", 2, "melt",
        r"$\bar P$"),
     # axes and observed quantities

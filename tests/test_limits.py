@@ -2,18 +2,19 @@
 
 With no thermal expansion and no entropy of fusion the isentropic path is isothermal,
 so a melt fraction linear in (T - T_sol) with a linear solidus makes F rise linearly
-with decompression: F = c (P0 - P). Then (SCIENCE.md section 5; Plank & Langmuir 1992):
-column mean F = F_top, ridge mean F = F_top / 2, column mean P = (P0 + Pf) / 2,
-ridge mean P = Pf + (P0 - Pf) / 3, melt = c (P0 - Pf)^2 / 2 in GPa, times km/GPa.
+with decompression: F = c (P0 - P). Then (docs/model.md, "Melting regions"; Plank &
+Langmuir 1992): column mean F = F_top, triangle mean F = F_top / 2, column mean P =
+(P0 + Pf) / 2, and in the triangle, whose width grows as P - Pf from its apex at the top
+of melting, mean P = int P (P - Pf) dP / int (P - Pf) dP = Pf + 2 (P0 - Pf) / 3;
+melt = c (P0 - Pf)^2 / 2 in GPa, times km/GPa.
 """
 
 from dataclasses import dataclass, field
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose
-
 from lidmelt.forward import MeltFraction, Parameterization, ThermoConstants, melt_column
+from numpy.testing import assert_allclose
 
 T0, SLOPE, WIDTH = 1000.0, 100.0, 500.0  # degC, degC/GPa, degC
 PRODUCTIVITY = SLOPE / WIDTH  # 0.2 per GPa
@@ -57,6 +58,7 @@ def test_constant_productivity_limits(toy, tp, lid_gpa):
     assert float(column.mean_melt_fraction) == pytest.approx(f_top, rel=1e-6)
     assert float(ridge.mean_melt_fraction) == pytest.approx(f_top / 2, rel=1e-4)
     assert float(column.mean_melting_pressure) == pytest.approx((p0 + lid_gpa) / 2, rel=1e-4)
-    assert float(ridge.mean_melting_pressure) == pytest.approx(lid_gpa + (p0 - lid_gpa) / 3, rel=1e-4)
+    assert float(ridge.mean_melting_pressure) == pytest.approx(lid_gpa + 2 * (p0 - lid_gpa) / 3,
+                                                               rel=1e-4)
     melt = PRODUCTIVITY * (p0 - lid_gpa) ** 2 / 2 * km
     assert_allclose([column.melt_thickness, ridge.melt_thickness], melt, rtol=1e-4)

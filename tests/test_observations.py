@@ -134,7 +134,7 @@ def test_top_pressure_and_temperature_against_scipy():
 def test_pooled_uses_mean_pressure_and_path_mean_temperature():
     column = ConstantProductivityColumn([1.0], [3.0], t_top=1330.0, t_slope=50.0)
     obs = MeltingPressure.from_frame(PT, equilibration="pooled")
-    # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (SCIENCE.md section 5), and
+    # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (docs/model.md, "Melting regions"), and
     # the melt-weighted mean of a linear T(P) is T at that pressure, 1330 + 50 * 1.0.
     expected = (stats.norm.logpdf(PT.pressure_gpa, 2.0, PT.sigma_gpa).sum()
                 + stats.norm.logpdf(PT.temperature_c, 1380.0, PT.sigma_c).sum())
@@ -330,10 +330,11 @@ def test_model_error_priors_from_a_block(tmp_path):
 def test_path_marginal_real_forward_against_slow_quadrature(melting_region):
     # Reference route: adaptive quadrature of the same marginal written without the path
     # or its weights. The equilibration-pressure density is -dF/dP (column) or
-    # -dF/dP (P0 - P) (ridge; Plank & Langmuir 1992 triangle), with F(P) from
-    # MeltColumn.profile. Integrating by parts avoids differentiating F:
+    # -dF/dP (P - Pf) (triangle, widening from its apex at the top of melting; Plank &
+    # Langmuir 1992), with F(P) from MeltColumn.profile (F rises monotonically here: a
+    # dry column). Integrating by parts avoids differentiating F:
     #   int g(P) (-dF/dP) dP = g(Pf) F(Pf) + int F(P) g'(P) dP      (F(P0) = 0)
-    # with g = N(y; P, s) for the column and g = N(y; P, s) (P0 - P) for the ridge.
+    # with g = N(y; P, s) for the column and g = N(y; P, s) (P - Pf) for the triangle.
     column = forward.melt_column(np.array([1420.0]), np.array([30.0]), melting_region=melting_region)
     top, onset = float(column.top_pressure[0]), float(column.onset_pressure[0])
 
@@ -341,10 +342,10 @@ def test_path_marginal_real_forward_against_slow_quadrature(melting_region):
         return float(column.profile(np.array([p]))[1][0, 0])
 
     def width(p):
-        return (onset - p) if melting_region == "triangle" else 1.0
+        return (p - top) if melting_region == "triangle" else 1.0
 
     def d_width(p):
-        return -1.0 if melting_region == "triangle" else 0.0
+        return 1.0 if melting_region == "triangle" else 0.0
 
     def marginal(g, dg):
         body, _ = integrate.quad(lambda p: melt_fraction(p) * dg(p), top, onset,
@@ -409,6 +410,21 @@ def test_no_melt_penalty_is_finite_and_slopes_toward_melting(equilibration):
     assert np.all(column.onset_depth == 0.0)
     ll = obs.log_likelihood(column, parameters=_params(cold, 0.0))
     assert np.all(np.isfinite(ll)) and np.all(np.diff(ll) > 0)
+    # Wet mantle too cold to melt has its closest approach to the solidus below the
+    # surface (onset > 0, above the lid here): it still slopes toward hotter mantle, by
+    # 1 nat per row per km of the margin / 3.66 K/km (docs/model.md, "No-melt penalty").
+    cold = np.array([1000.0, 1010.0, 1020.0])
+    for lid in (0.0, 10.0):
+        column = forward.melt_column(cold, lid, water=100.0)
+        assert not column.produces_melt.any() and np.all(column.onset_depth > 0.0)
+        ll = obs.log_likelihood(column, parameters=_params(cold, lid))
+        np.testing.assert_array_less(0.0, np.diff(ll))
+    # Pressures only, top of melting at the surface: only the penalty moves with Tp.
+    pressures = MeltingPressure.from_frame(PRESSURES, equilibration="top")
+    column = forward.melt_column(cold, 0.0, water=100.0)
+    ll = pressures.log_likelihood(column, parameters=_params(cold, 0.0))
+    slope = np.diff(ll) / np.diff(np.asarray(column.solidus_margin))
+    assert_allclose(slope, len(pressures) * NO_MELT_SLOPE / 3.66, rtol=1e-6)
 
 
 @pytest.mark.parametrize("equilibration", ["top", "pooled", "path"])
@@ -417,7 +433,7 @@ def test_no_melt_penalty_joins_the_melting_likelihood_continuously(equilibration
     # and once in Tp: the two log-likelihoods must differ by O(h), not by a constant.
     obs = MeltingPressure.from_frame(PT, equilibration=equilibration, path_points=64)
     onset = float(forward.melt_column(1350.0, 0.0).onset_depth)
-    steps = np.array([1.0, 0.3, 0.1])  # km
+    steps = np.array([1.0, 0.1, 0.01])  # km
 
     def jump(tp, lid):
         column = forward.melt_column(tp, lid)
@@ -427,17 +443,18 @@ def test_no_melt_penalty_joins_the_melting_likelihood_continuously(equilibration
 
     lids = np.ravel(np.column_stack([onset - steps, onset + steps]))
     across_lid = jump(np.full(lids.size, 1350.0), lids)
-    # The same boundary crossed in Tp at a fixed lid: Tp where the onset is 0.3 km below
-    # or above the lid (the onset deepens by about 0.37 km per K near 1350 degC).
+    # The same boundary crossed in Tp at a fixed lid: Tp where the onset is h below or
+    # above the lid (the onset deepens by about 0.37 km per K near 1350 degC).
     lid = np.full(6, onset)
     tps = np.ravel(np.column_stack([1350.0 + steps / 0.37, 1350.0 - steps / 0.37]))
     across_tp = jump(tps, lid)
     # Outside, 3 rows x NO_MELT_SLOPE nat/km; inside, the Gaussians follow the top of
     # melting (about 1 nat/km in all here): the gap grows like ~3 nat/km x 2h (measured
-    # 2.2-2.7), so 5 nat/km is a bound that a constant offset of even 1 nat breaks at h=0.1.
+    # up to 2.7), so 5 nat/km is a bound that a constant offset of even 0.1 nat breaks at
+    # h = 0.01 km.
     for gaps, width in ((across_lid, 2 * steps), (across_tp, 2 * steps)):
         np.testing.assert_array_less(gaps, 5.0 * width)
-        assert gaps[-1] < gaps[0] / 3  # shrinks with the step
+        assert gaps[-1] < gaps[0] / 10  # shrinks with the step (100 times smaller)
 
 
 def test_crust_no_melt_keeps_the_zero_thickness_gaussian_and_slopes():

@@ -201,7 +201,7 @@ def test_describe_lists_every_parameter():
     assert "uniform on [0, 150] km" in text and "fixed at 0 ppm" in text
 
 
-# ---- every bad-input rule -------------------------------------------------
+# ---- every bad-input rule ---------------------------------------------------------------
 
 CASES = {
     # malformed TOML: file and line

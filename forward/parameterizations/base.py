@@ -75,6 +75,10 @@ class Parameterization(abc.ABC):
     def dry_melt_fraction(self, tau, pressure) -> MeltFraction:
         """Melt fraction of the dry source at temperature ``tau`` with partials."""
 
+    def dry_fraction(self, tau, pressure) -> np.ndarray:
+        """The melt fraction of ``dry_melt_fraction`` alone (override if it is cheaper)."""
+        return self.dry_melt_fraction(tau, pressure).fraction
+
     def curves(self, pressure) -> dict[str, np.ndarray]:
         """Named melting curves (degC) for plotting, shallowest first."""
         return {"solidus": self.solidus(pressure), "liquidus": self.liquidus(pressure)}

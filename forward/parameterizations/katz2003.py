@@ -41,6 +41,15 @@ class KatzConstants:
     water_partition: float = 0.01  # bulk D_H2O
 
 
+def _power(x, exponent):
+    """x ** exponent, by square or cube roots for the published exponents (3/2, 2/3)."""
+    if exponent == 1.5:
+        return x * np.sqrt(x)
+    if exponent == 2.0 / 3.0:
+        return np.cbrt(x * x)
+    return x ** exponent
+
+
 def _quadratic(c0, c1, c2, p):
     return c0 + c1 * p + c2 * p * p, c1 + 2.0 * c2 * p
 
@@ -126,6 +135,35 @@ class Katz2003(Parameterization):
         d_t = np.where(molten | below, 0.0, d_t)
         d_p = np.where(molten | below, 0.0, d_p)
         return MeltFraction(frac, d_t, d_p)
+
+    def wet_solidus(self, pressure, water=0.0):
+        """Solidus (degC) at vanishing melt fraction: T_sol - K min(X_bulk / D, X_sat)^gamma.
+
+        Katz et al. (2003) eqs. 16-19 at F = 0; the same as the interface's default, with
+        none of the derivative work of ``water_depression``.
+        """
+        c = self.constants
+        p = np.asarray(pressure, float)
+        if not np.any(water):
+            return self.solidus(p) + 0.0 * np.asarray(water, float)
+        in_melt = np.asarray(water, float) * 1e-4 / c.water_partition
+        p_safe = np.maximum(p, 1e-12)  # as in water_depression
+        saturation = c.sat_chi1 * p_safe**c.sat_lambda + c.sat_chi2 * p_safe
+        return self.solidus(p) - c.water_k * np.minimum(in_melt, saturation) ** c.water_gamma
+
+    def dry_fraction(self, tau, pressure):
+        """Dry melt fraction alone (Katz et al. 2003, eqs. 3 and 9), without partials."""
+        c = self.constants
+        tau, p = np.broadcast_arrays(np.asarray(tau, float), np.asarray(pressure, float))
+        t_sol = c.a1 + (c.a2 + c.a3 * p) * p
+        t_lz = c.b1 + (c.b2 + c.b3 * p) * p
+        t_liq = c.c1 + (c.c2 + c.c3 * p) * p
+        f_cpx = c.cpx_mode / (c.r1 + c.r2 * p)
+        t_cpx = _power(f_cpx, 1.0 / c.beta1) * (t_lz - t_sol) + t_sol
+        lherz = _power(np.clip((tau - t_sol) / (t_lz - t_sol), 0.0, 1.0), c.beta1)
+        harz = f_cpx + (1.0 - f_cpx) * _power(np.clip((tau - t_cpx) / (t_liq - t_cpx), 0.0, 1.0),
+                                              c.beta2)
+        return np.where(tau < t_cpx, lherz, harz)
 
     def water_depression(self, fraction, pressure, water):
         """Solidus depression by water, Katz et al. (2003) eqs. 16-19.

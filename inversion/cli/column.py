@@ -31,7 +31,8 @@ INPUT_KEYS = (*_NUMERIC, "parameterization", "melting_region", "crust_density",
               "mantle_density")
 #: Outputs grouped by what a user asks: where melting happens, how much, what melt.
 OUTPUT_KEYS = ("onset_depth", "top_depth", "melt_thickness", "crustal_thickness",
-               "mean_melt_fraction", "max_melt_fraction", "mean_melting_pressure")
+               "mean_melt_fraction", "max_melt_fraction", "top_melt_fraction",
+               "mean_melting_pressure")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:

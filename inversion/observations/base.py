@@ -17,14 +17,14 @@ direction to move) the log-likelihood of each row that records melt is lowered b
     NO_MELT_SLOPE * d
 
 where d (km, `melting_distance`) is how far the point is from making melt: the lid
-thickness below the onset depth or, for mantle too cold to meet the solidus at all
-(onset depth 0), the lid thickness plus the height the onset would have to rise: the
-amount (K) by which the adiabat misses the solidus (``MeltColumn.solidus_margin``; for a
-column without it, 1100 degC - (Tp - solidus offset), 1100 degC being about the surface
-solidus of dry peridotite) divided by 3.66 K/km, the difference between the solidus and
-adiabat slopes (about 113 K/GPa at 30.89 km/GPa, docs/model.md; the value only sets the
-penalty's direction and scale). d is 0 on the melting boundary, and each kind evaluates
-its Gaussian at the degenerate melting column there (top = onset), so the likelihood is
+thickness below the onset depth plus, for mantle too cold to meet the solidus at all,
+the height the onset would have to rise: the amount (K) by which the adiabat misses the
+solidus (``MeltColumn.solidus_margin``; for a column without it, 1100 degC - (Tp -
+solidus offset), 1100 degC being about the surface solidus of dry peridotite) divided by
+3.66 K/km, the difference between the solidus and adiabat slopes (about 113 K/GPa at
+30.89 km/GPa; docs/model.md, "No-melt penalty"; the value only sets the penalty's
+direction and scale). d is 0 on the melting boundary, and each kind evaluates its
+Gaussian at the degenerate melting column there (top = onset), so the likelihood is
 continuous across the boundary: finite, never NaN, and falling steadily away from it, so
 the search slopes back toward melting. The lid thickness comes from the column
 (``MeltColumn.lithosphere_thickness``) or from ``parameters=`` of `log_likelihood`;
@@ -124,11 +124,12 @@ def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
     lid = np.broadcast_to(np.asarray(lid, float), shape)
     onset = np.asarray(column.onset_depth, float)
     distance = np.maximum(lid - onset, 0.0)
-    too_cold = (onset <= 0.0) & ~melts
-    if np.any(too_cold):  # the solidus margin costs a scan of the adiabat: only if needed
+    if not np.all(melts):  # the solidus margin costs a scan of the adiabat: only if needed
+        # Too-cold mantle (margin < 0) is further away by the height the onset must rise,
+        # whatever the lid: added everywhere it applies, so d stays continuous.
         cold = _cold_distance(column, parameters, shape)
         if cold is not None:
-            distance = np.where(too_cold, lid + cold, distance)
+            distance = distance + cold
     return np.where(melts, 0.0, distance)
 
 

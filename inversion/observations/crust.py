@@ -2,7 +2,7 @@
 
 Table columns: ``site`` (name), ``thickness_km`` (>= 0) and ``sigma_km`` (> 0, 1 sigma).
 Each row is compared with the model's igneous crustal thickness (mass balance,
-h_c = h rho_mantle / rho_crust; docs/model.md, common practice) or, with
+h_c = h rho_mantle / rho_crust; docs/model.md, "Observables"; common practice) or, with
 ``thickness_of = "melt"``, with the melt thickness h itself (as many papers do).
 
 log L = sum_rows log N(obs_i; model, sigma_i^2 + model_error^2)

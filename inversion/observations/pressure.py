@@ -8,7 +8,7 @@ pressure and temperature errors (a thermobarometer's pressure depends on its
 temperature, so these are often strongly correlated).
 
 Where in the melting interval a primary melt last equilibrated is a modelling choice
-(docs/model.md, common practice), set by the required ``equilibration``:
+(docs/model.md, "Likelihoods"; common practice), set by the required ``equilibration``:
 
 ``"top"``
     At the top of melting (the lid base, or the onset when the lid is deeper):
@@ -70,7 +70,7 @@ EQUILIBRATION = {
     "pooled": "at the mean melting pressure and temperature of the pooled melt",
     "path": "anywhere along the melting path, weighted by melt production",
 }
-#: Accepted range of observed pressures, GPa (the forward model's 0-10 GPa).
+#: Accepted range of observed pressures, GPa (the forward model spans 0-10 GPa).
 PRESSURE_RANGE = (0.0, 10.0)
 #: Accepted range of observed temperatures, degC (a sanity check on units, not physics).
 TEMPERATURE_RANGE = (800.0, 2000.0)
