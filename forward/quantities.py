@@ -186,6 +186,7 @@ def quantity(key: str, *, unit: str | None = None) -> Quantity:
         if not prefix or suffix not in QUANTITIES:
             raise KeyError(f"no quantity {key!r} in lidmelt.forward.quantities")
         base = QUANTITIES[suffix]
+        # The prefix goes into every label, so two blocks' errors never look alike.
         found = replace(base, key=key, name=f"{base.name} of {prefix}",
-                        short=f"{prefix} {base.short}")
+                        short=f"{prefix} {base.short}", math=f"{base.symbol}, {prefix}")
     return found if unit is None else replace(found, unit=unit)

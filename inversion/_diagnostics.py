@@ -9,6 +9,7 @@ import numpy as np
 from .. import forward
 from ..forward.quantities import quantity
 from .model import DERIVED
+from .observations.model_error import ERROR_DOMAIN
 
 __all__ = ["MIN_ACCEPTANCE", "converged_rhat", "diagnostics_dict", "posterior_warnings",
            "rhat_too_high", "split_rhat"]
@@ -149,15 +150,19 @@ def posterior_warnings(posterior) -> list[str]:
     kept = posterior.chain[posterior.discard:].reshape(-1, len(posterior.names))
     derived = posterior.derived_chain[posterior.discard:].reshape(-1, len(DERIVED))
     lines = []
-    for j, name in enumerate(posterior.names):
-        lines.extend(_bound_warnings(name, kept[:, j], posterior.study.priors[name]))
+    logpost = posterior.logpost
+    for j, (name, prior) in enumerate(zip(posterior.names, logpost.priors, strict=True)):
+        # A free model error's valid range is [0, inf); its unit is its block's.
+        domain = forward.PARAMETER_DOMAIN.get(name, ERROR_DOMAIN)
+        unit = quantity(name, unit=logpost.units[name]).unit_text
+        lines.extend(_bound_warnings(name, kept[:, j], prior, domain, unit))
     lines.extend(_base_warning(posterior, derived))
     lines.extend(_melt_warning(posterior, derived))
     return lines
 
 
-def _bound_warnings(name: str, x: np.ndarray, prior) -> list[str]:
-    low, high = forward.PARAMETER_DOMAIN[name]
+def _bound_warnings(name: str, x: np.ndarray, prior, domain, unit: str) -> list[str]:
+    low, high = domain
     p_low, p_high = prior.bounds
     spread = 0.5 * float(np.subtract(*np.quantile(x, [0.84, 0.16])))
     if not spread > 0:
@@ -171,7 +176,7 @@ def _bound_warnings(name: str, x: np.ndarray, prior) -> list[str]:
                     f"the {side} bound of its prior")
             lines.append(
                 f"the posterior of {name} piles against {what}, {bound:g} "
-                f"{quantity(name).unit_text} ({100 * share:.0f} % of the samples lie within "
+                f"{unit} ({100 * share:.0f} % of the samples lie within "
                 f"{_EDGE_ZONE:g} posterior sd of it): the bound, not the data, sets the "
                 "estimate there; widen the prior or check the data")
     return lines

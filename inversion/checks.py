@@ -1,8 +1,8 @@
 """Does the model fit the data? Posterior predictive checks of every observation block.
 
 For each posterior draw theta_s a replicated data set y_rep is drawn from the block's own
-likelihood (`ObservationSet.simulate`: the same sigmas, model errors and equilibration
-rule), and the discrepancy
+likelihood (`ObservationSet.simulate`: the same sigmas, model errors (free ones at the
+draw's values) and equilibration rule), and the discrepancy
 
     D(y, theta) = -2 log L_block(y | theta)
 
@@ -73,8 +73,8 @@ class BlockCheck:
         return out
 
 
-def check_blocks(blocks: Sequence, columns: Sequence, rng: np.random.Generator
-                 ) -> list[BlockCheck]:
+def check_blocks(blocks: Sequence, columns: Sequence, rng: np.random.Generator,
+                 errors: Sequence | None = None) -> list[BlockCheck]:
     """Posterior predictive checks of `blocks` over single-draw melting columns.
 
     Parameters
@@ -85,23 +85,29 @@ def check_blocks(blocks: Sequence, columns: Sequence, rng: np.random.Generator
         One melting column per posterior draw, each for a single parameter vector.
     rng : numpy.random.Generator
         Source of the replicated data (the only one used).
+    errors : sequence, optional
+        Per draw, one dict per block of its free model errors (option -> value), as
+        `LogPosterior.block_errors` gives them; needed when a block has a free one.
 
     Returns
     -------
     list of BlockCheck
         One per block, in order.
     """
-    return [_check_one(block, columns, rng) for block in blocks]
+    if errors is None:
+        errors = [[{} for _ in blocks] for _ in columns]
+    return [_check_one(block, columns, rng, [draw[b] for draw in errors])
+            for b, block in enumerate(blocks)]
 
 
-def _check_one(block, columns, rng) -> BlockCheck:
+def _check_one(block, columns, rng, errors) -> BlockCheck:
     observed = _data_columns(block.observed())
     replicated = {key: np.empty((len(columns), len(block))) for key in observed}
     exceed = 0
     for s, column in enumerate(columns):
-        replicate = block.simulate(column, rng)
-        d_obs = -2.0 * float(np.ravel(block.log_likelihood(column))[0])
-        d_rep = -2.0 * float(np.ravel(replicate.log_likelihood(column))[0])
+        replicate = block.simulate(column, rng, errors=errors[s])
+        d_obs = -2.0 * float(np.ravel(block.log_likelihood(column, errors=errors[s]))[0])
+        d_rep = -2.0 * float(np.ravel(replicate.log_likelihood(column, errors=errors[s]))[0])
         exceed += d_rep >= d_obs
         for key, values in _data_columns(replicate.observed()).items():
             replicated[key][s] = values
@@ -124,5 +130,6 @@ def posterior_checks(posterior, ndraws: int = _DRAWS) -> list[BlockCheck]:
     """
     theta = posterior.predictive_draws(ndraws)
     columns = [posterior.logpost.column(theta[i:i + 1]) for i in range(theta.shape[0])]
+    errors = [posterior.logpost.block_errors(theta[i:i + 1]) for i in range(theta.shape[0])]
     rng = np.random.default_rng(np.random.SeedSequence(posterior.seed).spawn(4)[3])
-    return check_blocks(posterior.study.observations, columns, rng)
+    return check_blocks(posterior.study.observations, columns, rng, errors)

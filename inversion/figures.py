@@ -53,13 +53,14 @@ def figure_files(posterior) -> dict[str, bytes]:
 
 def corner_figure(posterior) -> Figure:
     """Marginals of the free parameters: priors, median, 68 % interval and MAP marked."""
-    names = posterior.names
+    names, units = posterior.names, posterior.logpost.units
     ndim = len(names)
     kept = posterior.chain[posterior.discard:: posterior.thin].reshape(-1, ndim)
     size = max(5.0, 2.3 * ndim + _INCH_FOR_LABELS + 0.3)
     fig = Figure(figsize=(size, size + 0.5))
     corner.corner(
-        kept, fig=fig, labels=[quantity(n).axis_label(short=True) for n in names],
+        kept, fig=fig, labels=[quantity(n, unit=units[n]).axis_label(short=True)
+                               for n in names],
         show_titles=False, label_kwargs={"fontsize": 10}, levels=(0.393, 0.865),
         plot_datapoints=False, fill_contours=True, color=style.POSTERIOR, smooth=1.0,
         bins=30, max_n_ticks=4, labelpad=0.08,
@@ -68,9 +69,8 @@ def corner_figure(posterior) -> Figure:
     axes = np.array(fig.axes).reshape(ndim, ndim)
     summary = posterior.summary().set_index("parameter")
     point = [posterior.map[n] for n in names]
-    for j, name in enumerate(names):
-        _mark_marginal(axes[j, j], summary.loc[name], posterior.study.priors[name],
-                       point[j])
+    for j, (name, prior) in enumerate(zip(names, posterior.logpost.priors, strict=True)):
+        _mark_marginal(axes[j, j], summary.loc[name], prior, point[j])
         for i in range(j + 1, ndim):
             axes[i, j].plot(point[j], point[i], "D", color=style.MAP, mec="white",
                             ms=6, mew=1.0, zorder=6)
@@ -136,33 +136,50 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     fig = Figure(figsize=(13.0 if any(joint) else 10.0, 0.9 + 3.3 * len(blocks)),
                  layout="constrained")
     grid = fig.add_gridspec(len(blocks), 5 if any(joint) else 1)
+    errors = _median_errors(posterior)
     for row, (block, both) in enumerate(zip(blocks, joint, strict=True)):
         ax = fig.add_subplot(grid[row, :3] if both else grid[row, :])
-        _draw_fit_panel(ax, **_fit_panel(block, column), legend_columns=2 if any(joint) else 4)
+        _draw_fit_panel(ax, **_fit_panel(block, column, errors[row]),
+                        legend_columns=2 if any(joint) else 4)
         if both:
-            _draw_joint_panel(fig.add_subplot(grid[row, 3:]), block, column)
+            _draw_joint_panel(fig.add_subplot(grid[row, 3:]), block, column, errors[row])
     fig.suptitle(f"{posterior.study.name}: observations against the posterior predictive "
                  f"distribution ({column.melt_thickness.shape[0]} draws)", fontsize=11)
     return fig
 
 
-def _bar_label(block) -> str:
+def _median_errors(posterior) -> list[dict[str, float]]:
+    """Posterior median of each block's free model errors (for the error bars)."""
+    medians = posterior.samples.median(numeric_only=True)
+    out = [{} for _ in posterior.study.observations]
+    for error in posterior.logpost.errors:
+        out[error.block][error.option] = float(medians[error.name])
+    return out
+
+
+def _bar_label(block, errors: dict[str, float]) -> str:
+    unit = unit_text(block.unit)
+    if "model_error" in errors:
+        return (f"observed ± 1σ, incl. model error {errors['model_error']:.2g} {unit} "
+                "(free; posterior median)")
     if block.model_error > 0:
-        return (f"observed ± 1σ, incl. model error {block.model_error:g} "
-                f"{unit_text(block.unit)}")
+        return f"observed ± 1σ, incl. model error {block.model_error:g} {unit}"
     return "observed ± 1σ (measurement only; no model error)"
 
 
-def _fit_panel(block, column) -> dict:
-    """What one per-row panel shows: labels, observations and the predicted points."""
-    observed = block.observed()
+def _fit_panel(block, column, errors: dict[str, float]) -> dict:
+    """What one per-row panel shows: labels, observations and the predicted points.
+
+    The error bars include the model error; a free one at its posterior median.
+    """
+    observed = block.observed(errors)
     common = dict(names=list(block.ids), obs=observed["value"], sigma=observed["sigma"])
     if block.kind == "crustal_thickness":
         key = "crustal_thickness" if block.thickness_of == "crust" else "melt_thickness"
         values = np.asarray(block.predict(column)["value"], float)
         return common | dict(
             points=values[..., None], weights=np.ones(values.shape + (1,)),
-            ylabel=quantity(key).axis_label(), bar_label=_bar_label(block),
+            ylabel=quantity(key).axis_label(), bar_label=_bar_label(block, errors),
             model_label=f"model {quantity(key).name}",
             title=f"{block.name}: thickness against the model {quantity(key).name}")
     pressure, _, weight = block.equilibration_points(column)
@@ -173,7 +190,7 @@ def _fit_panel(block, column) -> dict:
     return common | dict(
         points=np.repeat(pressure[:, None, :], len(block), axis=1),
         weights=np.repeat(weight[:, None, :], len(block), axis=1),
-        ylabel=quantity("pressure").axis_label(), bar_label=_bar_label(block),
+        ylabel=quantity("pressure").axis_label(), bar_label=_bar_label(block, errors),
         model_label=model, invert=True,
         title=f"{block.name}: melting pressure, equilibrated {how[block.equilibration]}")
 
@@ -217,7 +234,7 @@ def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, ba
               frameon=False)
 
 
-def _draw_joint_panel(ax, block, column, *, per_draw: int = 40) -> None:
+def _draw_joint_panel(ax, block, column, errors, *, per_draw: int = 40) -> None:
     """Each sample's P and T together against the predicted P-T distribution."""
     pressure, temperature, weight = block.equilibration_points(column)
     rng = np.random.default_rng(0)  # only picks plotted points; the figure is reproducible
@@ -225,7 +242,7 @@ def _draw_joint_panel(ax, block, column, *, per_draw: int = 40) -> None:
     p = np.concatenate([pressure[i, k] for i, k in enumerate(picks)])
     t = np.concatenate([temperature[i, k] for i, k in enumerate(picks)])
     ax.plot(t, p, ".", color=style.POSTERIOR, ms=2, alpha=0.12, zorder=1)
-    obs = block.observed()
+    obs = block.observed(errors)
     ax.errorbar(obs["temperature"], obs["value"], xerr=obs["temperature_sigma"],
                 yerr=obs["sigma"], zorder=5, **style.OBSERVED)
     for name, tx, py in zip(block.ids, obs["temperature"], obs["value"], strict=True):
@@ -263,7 +280,7 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
                                label="melting path at the MAP, Tp " + quantity(
                                    "potential_temperature").with_value(
                                    at_map["potential_temperature"]))
-    _draw_observed_pt(ax, study.observations)
+    _draw_observed_pt(ax, study.observations, _median_errors(posterior))
     plotting.add_depth_axis(ax, study.model.mantle_density)
     ax.set_ylim(max_p, 0.0)
     ax.legend(*plotting.visible_legend_entries(ax), loc="lower left", fontsize=7.5,
@@ -316,12 +333,12 @@ def _draw_lid_band(ax, posterior, mantle_density) -> None:
     plotting.draw_lid(ax, med / km, label=f"lid base, posterior median {med:.{d}f} km")
 
 
-def _draw_observed_pt(ax, blocks) -> None:
+def _draw_observed_pt(ax, blocks, errors) -> None:
     labelled = {"points": False, "bands": False}
-    for block in blocks:
+    for block, block_errors in zip(blocks, errors, strict=True):
         if block.kind != "melting_pressure":
             continue
-        obs = block.observed()
+        obs = block.observed(block_errors)
         if "temperature" in obs:
             ax.errorbar(obs["temperature"], obs["value"], xerr=obs["temperature_sigma"],
                         yerr=obs["sigma"], zorder=6, **style.OBSERVED,

@@ -1,10 +1,11 @@
 """The vectorised log-posterior of a study, as emcee calls it.
 
-A point in parameter space is a row of free-parameter values in the order of
-`Study.free_parameters`; the fixed parameters of the study are filled in, the prior and
-the forward model's valid domain are checked (``-inf`` outside either), the melting column
-is computed once for all valid rows, and the log-likelihoods of every observation set are
-summed:
+A point in parameter space is a row of free-parameter values: the physical parameters
+in the order of `Study.free_parameters`, then the free model errors of the observation
+blocks (`Study.error_parameters`); the fixed parameters of the study are filled in, the
+prior and the forward model's valid domain are checked (``-inf`` outside either), the
+melting column is computed once for all valid rows, and the log-likelihoods of every
+observation set are summed (each block given its model errors):
 
     log p(theta | d) = sum_j log pi_j(theta_j) + sum_blocks log L_block(column(theta)) + const
 
@@ -39,7 +40,14 @@ class LogPosterior:
     Attributes
     ----------
     names : tuple of str
-        Free parameters, in the column order of `theta`.
+        Free parameters, in the column order of `theta`: the physical ones
+        (`physical`), then the free model errors (`errors`).
+    physical : tuple of str
+        The free melt_column inputs, in the order of `Study.free_parameters`.
+    errors : tuple of ErrorParameter
+        The free model errors, in the order of `Study.error_parameters`.
+    units : dict of str to str
+        Unit of every free parameter and derived quantity.
     ndim : int
         Number of free parameters.
     nblobs : int
@@ -55,10 +63,15 @@ class LogPosterior:
 
     def __init__(self, study) -> None:
         self.study = study
-        self.names = tuple(study.free_parameters)
+        self.physical = tuple(study.free_parameters)
+        self.errors = tuple(study.error_parameters)
+        self.names = tuple(study.sampled_parameters)
         self.ndim = len(self.names)
         self.nblobs = len(DERIVED)
-        self._priors = [study.priors[name] for name in self.names]
+        self.units = {**{name: UNITS[name] for name in (*self.physical, *DERIVED)},
+                      **{error.name: error.unit for error in self.errors}}
+        self._priors = [study.priors[name] for name in self.physical] + [
+            error.prior for error in self.errors]
 
     @property
     def priors(self) -> list:
@@ -75,7 +88,7 @@ class LogPosterior:
         if np.any(ok):
             values = self.parameters(theta[ok])
             column = self._column(values)
-            out[ok, 0] = log_prior[ok] + self._log_likelihood(column, values)
+            out[ok, 0] = log_prior[ok] + self._log_likelihood(column, values, theta[ok])
             out[ok, 1:] = derived_quantities(column)
         return out
 
@@ -94,7 +107,7 @@ class LogPosterior:
         ok = self.in_domain(theta)
         if np.any(ok):
             values = self.parameters(theta[ok])
-            out[ok] = self._log_likelihood(self._column(values), values)
+            out[ok] = self._log_likelihood(self._column(values), values, theta[ok])
         return out
 
     @property
@@ -114,16 +127,23 @@ class LogPosterior:
         if np.any(ok):
             values = self.parameters(theta[ok])
             column = self._column(values)
+            errors = self.block_errors(theta[ok])
             out[ok] = np.concatenate(
-                [block.pointwise_log_likelihood(column, parameters=values)
-                 for block in self.study.observations], axis=-1)
+                [block.pointwise_log_likelihood(column, parameters=values, errors=e)
+                 for block, e in zip(self.study.observations, errors, strict=True)],
+                axis=-1)
         return out
 
     def in_domain(self, theta: np.ndarray) -> np.ndarray:
-        """True where every free value lies in forward.PARAMETER_DOMAIN, shape ``(n,)``."""
+        """True where every free value is valid, shape ``(n,)``.
+
+        Physical parameters must lie in forward.PARAMETER_DOMAIN, model errors be >= 0.
+        """
         theta = np.atleast_2d(theta)
         ok = np.all(np.isfinite(theta), axis=1)
-        values = {name: theta[:, j] for j, name in enumerate(self.names)}
+        k = len(self.physical)
+        ok &= np.all(theta[:, k:] >= 0.0, axis=1)
+        values = {name: theta[:, j] for j, name in enumerate(self.physical)}
         return ok & forward.in_domain(**values) if values else ok
 
     def parameters(self, theta: np.ndarray) -> dict[str, np.ndarray]:
@@ -131,9 +151,21 @@ class LogPosterior:
         theta = np.atleast_2d(theta)
         n = theta.shape[0]
         values = {name: np.full(n, float(value)) for name, value in self.study.fixed.items()}
-        for j, name in enumerate(self.names):
+        for j, name in enumerate(self.physical):
             values[name] = theta[:, j]
         return values
+
+    def block_errors(self, theta: np.ndarray) -> list[dict[str, np.ndarray]]:
+        """The free model errors of each observation block for each row of `theta`.
+
+        One dict per block (in study order), option name -> shape ``(n,)``; empty for a
+        block whose model errors are fixed.
+        """
+        theta = np.atleast_2d(theta)
+        out = [{} for _ in self.study.observations]
+        for j, error in enumerate(self.errors, start=len(self.physical)):
+            out[error.block][error.option] = theta[:, j]
+        return out
 
     def column(self, theta: np.ndarray):
         """The melting columns (forward.melt_column result) for each row of `theta`."""
@@ -153,11 +185,13 @@ class LogPosterior:
             mantle_density=model.mantle_density,
         )
 
-    def _log_likelihood(self, column, values: dict[str, np.ndarray]) -> np.ndarray:
+    def _log_likelihood(self, column, values: dict[str, np.ndarray],
+                        theta: np.ndarray) -> np.ndarray:
         # `parameters` lets the no-melt penalty slope toward melting (lid vs onset depth).
         total = np.zeros(np.shape(column.melt_thickness))
-        for block in self.study.observations:
-            total = total + block.log_likelihood(column, parameters=values)
+        for block, errors in zip(self.study.observations, self.block_errors(theta),
+                                 strict=True):
+            total = total + block.log_likelihood(column, parameters=values, errors=errors)
         return total
 
 

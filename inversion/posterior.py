@@ -286,11 +286,14 @@ class Posterior:
     def summary(self) -> pd.DataFrame:
         """One row per free parameter with the columns of `SUMMARY_COLUMNS`.
 
+        Free model errors follow the physical parameters, named as in
+        `inversion.study.ErrorParameter` (e.g. ``basalts.model_error``).
+
         Statistics use every kept step (after burn-in, not thinned); ``ess`` and ``tau``
         are emcee's autocorrelation estimates (tau in steps).
         """
         return _summary_table(self.names, self._kept(self.chain), self.map, self.ess,
-                              self.tau)
+                              self.tau, self.logpost.units)
 
     def derived_summary(self) -> pd.DataFrame:
         """Like `summary` for the derived quantities of `DERIVED`."""
@@ -298,7 +301,7 @@ class Posterior:
         # Same burn-in as the parameters; tau of each derived quantity on the kept chain.
         tau = np.maximum(autocorrelation_time(kept), 1.0)
         ess = kept.shape[0] * kept.shape[1] / tau
-        return _summary_table(DERIVED, kept, self.map, ess, tau)
+        return _summary_table(DERIVED, kept, self.map, ess, tau, UNITS)
 
     @cached_property
     def diagnostics(self) -> dict:
@@ -367,14 +370,15 @@ class Posterior:
                 f"{self.chain.shape[0]} steps x {self.chain.shape[1]} walkers, {state})")
 
 
-def _summary_table(names, kept: np.ndarray, map_point: dict, ess, tau) -> pd.DataFrame:
+def _summary_table(names, kept: np.ndarray, map_point: dict, ess, tau,
+                   units) -> pd.DataFrame:
     flat = kept.reshape(-1, kept.shape[-1])
     rows = []
     for j, name in enumerate(names):
         x = flat[:, j]
         q = np.quantile(x, _QUANTILES)
         rows.append({
-            "parameter": name, "unit": UNITS[name], "median": float(np.median(x)),
+            "parameter": name, "unit": units[name], "median": float(np.median(x)),
             "mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1)),
             "q2.5": q[0], "q16": q[1], "q84": q[2], "q97.5": q[3],
             "map": map_point[name], "ess": float(ess[j]), "tau": float(tau[j]),

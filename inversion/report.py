@@ -45,6 +45,7 @@ def render(posterior) -> str:
         _table(posterior.derived_summary()),
         _model_section(posterior),
         _fit_section(posterior_checks(posterior)),
+        _sampler_section(posterior),
         _convergence_section(posterior),
         "## Caution\n",
         CAUTION + "\n",
@@ -128,10 +129,10 @@ def _model_section(posterior) -> str:
              f"- Melting parameterization: {title} (`{model.parameterization}`); melting "
              f"region: {region}; crust density "
              f"{model.crust_density:g} kg/m³, mantle density {model.mantle_density:g} kg/m³."]
-    for name in posterior.names:
-        prior = study.priors[name]
+    units = posterior.logpost.units  # free model errors have their block's unit
+    for name, prior in zip(posterior.names, posterior.logpost.priors, strict=True):
         lines.append(f"- Prior on the {quantity(name).name}: "
-                     f"{prior.describe(unit=unit_text(UNITS[name]))}.")
+                     f"{prior.describe(unit=unit_text(units[name]))}.")
     for name, value in study.fixed.items():
         lines.append(f"- Held fixed: {quantity(name).name} = "
                      f"{_g(value)} {unit_text(UNITS[name])}".rstrip() + ".")
@@ -179,6 +180,21 @@ def _p(p: float, ndraws: int) -> str:
     if p == 0.0:
         return f"< {1 / ndraws:.2g}"
     return f"{p:.2f}" if p >= 0.01 else f"{p:.3f}"
+
+
+def _sampler_section(posterior) -> str:
+    """Every [sampler] value this run used, defaults marked, so a reader can repeat it."""
+    from dataclasses import fields
+
+    settings = posterior.study.sampler
+    used = {f.name: getattr(settings, f.name) for f in fields(settings)}
+    used["seed"] = posterior.seed  # --seed may override the study file
+    items = []
+    for f in fields(settings):
+        value = used[f.name]
+        text = f'"{value}"' if isinstance(value, str) else f"{value:g}"
+        items.append(f"`{f.name}` = {text}" + (" (default)" if value == f.default else ""))
+    return "## Sampler settings used\n\n" + "; ".join(items) + ".\n"
 
 
 def _convergence_section(posterior) -> str:

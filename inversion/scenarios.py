@@ -104,8 +104,8 @@ class Scenario:
 
     @property
     def n_free(self) -> int:
-        """Number of free parameters."""
-        return len(self.study.free_parameters)
+        """Number of free parameters (free model errors included)."""
+        return len(self.study.sampled_parameters)
 
 
 @dataclass(frozen=True)

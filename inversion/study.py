@@ -34,6 +34,7 @@ __all__ = [
     "DEFAULT_FIXED",
     "PARAMETERS",
     "PARAMETER_UNITS",
+    "ErrorParameter",
     "ModelSettings",
     "SamplerSettings",
     "Study",
@@ -96,6 +97,53 @@ class ModelSettings:
     def supports_water(self) -> bool:
         """Whether the parameterization takes a water content (hydrous melting)."""
         return bool(forward.PARAMETERIZATIONS[self.parameterization].supports_water)
+
+
+@dataclass(frozen=True)
+class ErrorParameter:
+    """A free model error of one observation block, sampled with the parameters.
+
+    Attributes
+    ----------
+    name : str
+        ``<block label>.<option>``, e.g. ``"basalts.model_error"``: the block label is its
+        table's file stem (the kind for a block built in code), with any character other
+        than letters, digits, ``_`` and ``-`` replaced by ``_``, and ``-<block number>``
+        (1-based) appended when two blocks would share a label. Used in summary.csv,
+        samples.csv and the figures; file-safe and unique within a study.
+    block : int
+        Index of the block in `Study.observations` (0-based).
+    option : str
+        ``"model_error"`` or ``"temperature_model_error"``.
+    prior : Prior
+    unit : str
+        Unit of the error (the unit of the data it is added to).
+    """
+
+    name: str
+    block: int
+    option: str
+    prior: Prior
+    unit: str
+
+
+def error_parameters(observations) -> tuple[ErrorParameter, ...]:
+    """The free model errors of a sequence of observation blocks, in block order."""
+    labels = [_block_label(block) for block in observations]
+    labels = [f"{label}-{i + 1}" if labels.count(label) > 1 else label
+              for i, label in enumerate(labels)]
+    units = {"model_error": None, "temperature_model_error": "degC"}
+    out = []
+    for index, (block, label) in enumerate(zip(observations, labels, strict=True)):
+        for option, prior in block.free_errors.items():
+            out.append(ErrorParameter(f"{label}.{option}", index, option, prior,
+                                      units[option] or block.unit))
+    return tuple(out)
+
+
+def _block_label(block: ObservationSet) -> str:
+    stem = block.file.stem if block.file is not None else block.kind
+    return re.sub(r"[^A-Za-z0-9_-]", "_", stem) or block.kind
 
 
 @dataclass(frozen=True)
@@ -215,7 +263,7 @@ class Study:
         for block in self.observations:
             if not isinstance(block, ObservationSet):
                 raise TypeError(f"observations must be ObservationSet objects, got {block!r}")
-        ndim = len(self.priors)
+        ndim = len(self.priors) + len(self.error_parameters)
         if self.sampler.walkers < 2 * ndim:
             raise InputError(
                 f"walkers = {self.sampler.walkers} is too few for {ndim} free parameters; the "
@@ -309,6 +357,22 @@ class Study:
         return tuple(name for name in PARAMETERS if name in self.priors)
 
     @property
+    def sampled_parameters(self) -> tuple[str, ...]:
+        """Every sampled name: `free_parameters`, then the `error_parameters` names.
+
+        The column order of `inversion.LogPosterior` and of every chain.
+        """
+        return self.free_parameters + tuple(e.name for e in self.error_parameters)
+
+    @property
+    def error_parameters(self) -> tuple[ErrorParameter, ...]:
+        """The free model errors of the observation blocks, in block order.
+
+        They are sampled after the physical `free_parameters` (see `ErrorParameter`).
+        """
+        return error_parameters(self.observations)
+
+    @property
     def fixed_parameters(self) -> tuple[str, ...]:
         """Names of the fixed parameters, in the canonical order of `PARAMETERS`."""
         return tuple(name for name in PARAMETERS if name in self.fixed)
@@ -371,6 +435,8 @@ class Study:
             else:
                 lines.append(f"  {name}: fixed at {self.fixed[name]:g} {unit}".rstrip())
         lines.extend(f"  data: {block.describe()}" for block in self.observations)
+        lines.extend(f"  {error.name}: free, {error.prior.describe(unit=error.unit)}"
+                     for error in self.error_parameters)
         return "\n".join(lines)
 
 

@@ -22,8 +22,11 @@ QUICK = ("walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 300\ntau_multipl
 
 def small_study(folder: Path, *, sampler: str = "", basalts: str | None = None,
                 parameters: str | None = None, extra: str = "", crust: str | None = None,
-                ) -> Path:
-    """A copy of the demo study in `folder` with a cheaper sampler (and optional edits)."""
+                replace: tuple[str, str] | None = None) -> Path:
+    """A copy of the demo study in `folder` with a cheaper sampler (and optional edits).
+
+    `replace` is an (old, new) text replacement in the study file.
+    """
     folder.mkdir(parents=True, exist_ok=True)
     for name, text in (("crust.csv", crust), ("basalts.csv", basalts)):
         if text is None:
@@ -31,6 +34,9 @@ def small_study(folder: Path, *, sampler: str = "", basalts: str | None = None,
         else:
             (folder / name).write_text(text)
     text = (DEMO / "study.toml").read_text()
+    if replace is not None:
+        assert replace[0] in text, replace[0]  # guards the test itself
+        text = text.replace(*replace)
     head, _ = text.split("[sampler]")
     if parameters is not None:
         before, rest = head.split("[parameters]")

@@ -17,9 +17,12 @@ import emcee
 import numpy as np
 import pandas as pd
 import pytest
-from helpers import assert_same_outputs
+from helpers import DEMO, assert_same_outputs
 from helpers import small_study as _small_study
+from matplotlib import image
+from matplotlib.colors import to_rgb
 from lidmelt import demo_data
+from lidmelt.forward import figure_style as style
 from lidmelt.inversion import OUTPUT_FILES, SUMMARY_COLUMNS
 from lidmelt.inversion._checkpoint import stored_steps
 from lidmelt.inversion.cli import main
@@ -33,11 +36,9 @@ def _fit(capsys, *argv):
 
 def test_demo_end_to_end(tmp_path, capsys):
     out_dir = tmp_path / "demo-results"
-    start = time.perf_counter()
+    # (Its speed is measured by benchmarks/inversion_speed.py, not asserted here.)
     code, out, err = _fit(capsys, "demo", "--out", str(out_dir), "--quiet")
-    elapsed = time.perf_counter() - start
     assert code == 0, err
-    assert elapsed < 60  # issue 3: the demo runs end to end in under a minute
     assert f"Results written to {out_dir.resolve()}" in out
     assert "Mantle potential temperature" in out and "°C" in out
     assert sorted(p.name for p in out_dir.iterdir()) == sorted(OUTPUT_FILES)
@@ -79,9 +80,51 @@ def test_demo_end_to_end(tmp_path, capsys):
     report = (out_dir / "report.md").read_text()
     for phrase in ("68 %", "95 %", "converged", "no basis on their own", "katz2003"):
         assert phrase in report
-    for name in ("corner.png", "fit.png", "pt.png"):
-        data = (out_dir / name).read_bytes()
-        assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 20_000
+    # The figures hold what they should (their content is tested on the Figure objects
+    # in test_figures): at 150 dpi every figure is over 5 inches a side, and the colours
+    # of their parts (forward.figure_style) cover a share of the image that a blank or
+    # half-drawn figure would not reach.
+    _check_png(out_dir / "corner.png",
+               {style.POSTERIOR: 0.005, style.MAP: 0.0001, style.PRIOR: 0.0003})
+    _check_png(out_dir / "fit.png", {style.POSTERIOR: 0.001, style.INK: 0.005})
+    _check_png(out_dir / "pt.png", {style.MAP: 0.0005, style.LID: 0.0002, style.INK: 0.003})
+
+
+def _check_png(path: Path, colours: dict[str, float]) -> None:
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    pixels = image.imread(path)[..., :3]
+    assert min(pixels.shape[:2]) > 750, (path.name, pixels.shape)
+    drawn = np.mean(np.any(pixels < 0.95, axis=-1))
+    assert 0.03 < drawn < 0.8, (path.name, drawn)
+    for colour, least in colours.items():
+        share = np.mean(np.all(np.abs(pixels - to_rgb(colour)) < 0.06, axis=-1))
+        assert share > least, (path.name, colour, share)
+
+
+def test_correlated_pt_and_free_model_errors_end_to_end(tmp_path, capsys):
+    rows = (DEMO / "basalts.csv").read_text().strip().splitlines()
+    basalts = "\n".join([rows[0] + ",pt_correlation"]
+                        + [row + ",0.6" for row in rows[1:]]) + "\n"
+    free = ('equilibration = "path"\n'
+            'model_error = { prior = "log-uniform", min = 0.01, max = 0.5 }\n'
+            'temperature_model_error = { prior = "uniform", min = 0.0, max = 60.0 }\n')
+    study = _small_study(tmp_path / "study", basalts=basalts,
+                         replace=('equilibration = "path"\n', free))
+    out_dir = tmp_path / "out"
+    code, out, err = _fit(capsys, "fit", str(study), "--out", str(out_dir), "--quiet")
+    assert code == 0, err
+    summary = pd.read_csv(out_dir / "summary.csv")
+    assert summary["parameter"].tolist()[3:] == ["basalts.model_error",
+                                                 "basalts.temperature_model_error"]
+    assert summary["unit"].tolist()[3:] == ["GPa", "degC"]
+    assert {"basalts.model_error", "basalts.temperature_model_error"} <= set(
+        pd.read_csv(out_dir / "samples.csv").columns)
+    report = (out_dir / "report.md").read_text()
+    assert "with correlated P-T errors" in report
+    assert "Model error of basalts" in report
+    assert "Temperature model error of basalts" in out
+    diagnostics = json.loads((out_dir / "diagnostics.json").read_text())
+    assert set(diagnostics["ess"]) == set(summary["parameter"])
 
 
 def test_same_seed_gives_identical_outputs(tmp_path, capsys):
@@ -148,6 +191,9 @@ LID_40 = "\nlithosphere_thickness = { value = 40.0 }"
         ({"parameters": 'potential_temperature = { value = 1400.0 }\n'
                         'lithosphere_thickness = { value = -5.0 }'}, r"lithosphere_thickness"),
         ({"sampler": "walkers = 16\nseed = [1\n"}, r"malformed TOML"),
+        ({"replace": ('equilibration = "path"\n', "")},
+         r"study.toml, line \d+, key 'observations\[2\].equilibration': missing "
+         r"'equilibration'.*\"top\".*\"pooled\".*\"path\""),
     ],
 )
 def test_bad_input_exits_2_with_one_line_and_no_folder(tmp_path, capsys, edit, message):

@@ -204,3 +204,27 @@ def test_compare_is_loaded_lazily():
                          check=True).stdout.split("\n")
     assert out[0] == "[]"  # import lidmelt loads none of them
     assert out[1] == "True False"  # lidmelt.compare loads the code, not the sampler
+
+
+def test_scenarios_with_a_free_model_error(tmp_path):
+    # A free model error is a sampled parameter of every scenario: it counts in n_free,
+    # is summarised under its block's name, and the fit check replicates each draw's data
+    # with its own value.
+    for name in ("crust.csv", "basalts.csv"):
+        shutil.copy(DATA / name, tmp_path / name)
+    text = (DATA / "scenarios.toml").read_text()
+    assert "model_error = 0.5" in text  # guards the test itself
+    text = text.replace("model_error = 0.5",
+                        'model_error = { prior = "log-uniform", min = 0.05, max = 3.0 }')
+    (tmp_path / "scenarios.toml").write_text(text)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ComparisonWarning)  # 'unthinned' cannot fit
+        result = lidmelt.compare(read_scenarios(tmp_path / "scenarios.toml"), seed=3)
+    table = result.table().set_index("scenario")
+    assert table.loc["unthinned", "n_free"] == 2 and table.loc["thinned", "n_free"] == 3
+    summary = result.results[0].posterior.summary().set_index("parameter")
+    assert summary.loc["crust.model_error", "unit"] == "km"
+    assert 0.05 <= summary.loc["crust.model_error", "q2.5"] < summary.loc[
+        "crust.model_error", "q97.5"] <= 3.0
+    assert 0.0 <= result.results[0].fit.p_value <= 1.0
+    assert table["probability"].sum() == pytest.approx(1.0)

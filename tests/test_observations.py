@@ -7,13 +7,14 @@ import numpy as np
 import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
-from scipy import integrate, stats
+from scipy import integrate, special, stats
 
 from lidmelt import forward
 from lidmelt.inversion._errors import InputError
+from lidmelt.inversion.priors import LogUniform, TruncatedNormal, Uniform
 from lidmelt.inversion.observations import (
     KINDS,
-    NO_MELT_OFFSET,
+    NO_MELT_SLOPE,
     CrustalThickness,
     MeltingPressure,
     melting_distance,
@@ -118,12 +119,13 @@ def test_crust_against_the_real_forward_model():
 
 def test_top_pressure_and_temperature_against_scipy():
     column = ConstantProductivityColumn([1.1, 1.5], [3.2, 2.9], t_top=1340.0)
-    obs = MeltingPressure.from_frame(PT, model_error=0.1, temperature_model_error=15.0)
+    obs = MeltingPressure.from_frame(PT, equilibration="top", model_error=0.1,
+                                     temperature_model_error=15.0)
     sp, st = np.hypot(PT.sigma_gpa, 0.1), np.hypot(PT.sigma_c, 15.0)
     expected = [stats.norm.logpdf(PT.pressure_gpa, p, sp).sum()
                 + stats.norm.logpdf(PT.temperature_c, 1340.0, st).sum() for p in (1.1, 1.5)]
     assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
-    pressure_only = MeltingPressure.from_frame(PRESSURES)
+    pressure_only = MeltingPressure.from_frame(PRESSURES, equilibration="top")
     expected = [stats.norm.logpdf(PRESSURES.pressure_gpa, p, PRESSURES.sigma_gpa).sum()
                 for p in (1.1, 1.5)]
     assert_allclose(pressure_only.log_likelihood(column), expected, rtol=1e-12)
@@ -140,7 +142,8 @@ def test_pooled_uses_mean_pressure_and_path_mean_temperature():
     pred = obs.predict(column)
     assert_allclose(pred["value"], [[2.0] * 3])
     assert_allclose(pred["temperature"], [[1380.0] * 3])
-    assert_allclose(pred["low"], [[1.0] * 3]) and assert_allclose(pred["high"], [[3.0] * 3])
+    assert_allclose(pred["low"], [[1.0] * 3])
+    assert_allclose(pred["high"], [[3.0] * 3])
 
 
 # ---- melting pressures: the path marginal
@@ -165,19 +168,159 @@ def test_path_marginal_against_closed_form():
     assert_allclose(coarse.log_likelihood(column), exact, rtol=5e-3)
 
 
-def test_path_marginal_with_temperature_against_quadrature():
+PT_RHO = PT.assign(pt_correlation=[0.8, -0.6, 0.3])
+
+
+def _covariance(row, p_error=0.0, t_error=0.0):
+    # The stated errors are correlated; model errors are added independently of them.
+    sp, st, rho = row.sigma_gpa, row.sigma_c, getattr(row, "pt_correlation", 0.0)
+    return np.array([[sp**2 + p_error**2, rho * sp * st],
+                     [rho * sp * st, st**2 + t_error**2]])
+
+
+@pytest.mark.parametrize("table", [PT, PT_RHO], ids=["independent", "correlated"])
+def test_path_marginal_with_temperature_against_quadrature(table):
     top, onset, t_top, slope = 1.0, 3.0, 1330.0, 50.0
     column = ConstantProductivityColumn([top], [onset], t_top=t_top, t_slope=slope)
-    obs = MeltingPressure.from_frame(PT, equilibration="path", path_points=512)
+    obs = MeltingPressure.from_frame(table, equilibration="path", path_points=512)
     expected = 0.0
-    for _, row in PT.iterrows():
-        def integrand(p, row=row):
-            return (stats.norm.pdf(row.pressure_gpa, p, row.sigma_gpa)
-                    * stats.norm.pdf(row.temperature_c, t_top + slope * (p - top), row.sigma_c)
-                    / (onset - top))
+    for row in table.itertuples():
+        # Reference: the continuous mixture over a uniform equilibration pressure of
+        # bivariate normals (scipy.stats.multivariate_normal), by adaptive quadrature.
+        normal = stats.multivariate_normal(cov=_covariance(row))
+
+        def integrand(p, row=row, normal=normal):
+            residual = [row.pressure_gpa - p, row.temperature_c - t_top - slope * (p - top)]
+            return normal.pdf(residual) / (onset - top)
+
         value, _ = integrate.quad(integrand, top, onset, epsabs=0, epsrel=1e-10)
         expected += np.log(value)
     assert_allclose(obs.log_likelihood(column), [expected], rtol=1e-5)
+
+
+@pytest.mark.parametrize("equilibration", ["top", "pooled"])
+def test_correlated_pt_point_models_against_scipy_multivariate_normal(equilibration):
+    tops, onsets = (1.0, 1.4), (3.0, 2.6)
+    column = ConstantProductivityColumn(tops, onsets, t_top=1330.0, t_slope=50.0)
+    obs = MeltingPressure.from_frame(PT_RHO, equilibration=equilibration, model_error=0.1,
+                                     temperature_model_error=15.0)
+    expected = []
+    for top, onset in zip(tops, onsets, strict=True):
+        # Constant productivity: the pooled melt sits at (Pf + P0) / 2, and the
+        # melt-weighted mean of a linear T(P) is T there (docs/model.md).
+        p = top if equilibration == "top" else 0.5 * (top + onset)
+        t = 1330.0 + 50.0 * (p - top)
+        expected.append(sum(
+            stats.multivariate_normal.logpdf([r.pressure_gpa, r.temperature_c], [p, t],
+                                             _covariance(r, 0.1, 15.0))
+            for r in PT_RHO.itertuples()))
+    assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
+
+
+def test_correlated_path_with_free_model_errors_against_scipy_mixture():
+    # "path" is the mixture over path points of bivariate normals; each walker has its
+    # own (free) model errors. ConstantProductivityColumn's path: midpoints of 16 equal
+    # intervals of [top, onset], equal weights 1/16, T linear in P.
+    tops, onsets = (1.0, 0.6), (3.0, 2.2)
+    column = ConstantProductivityColumn(tops, onsets, t_top=1330.0, t_slope=50.0)
+    obs = MeltingPressure.from_frame(PT_RHO, equilibration="path", path_points=16,
+                                     model_error=Uniform(0.0, 1.0),
+                                     temperature_model_error=Uniform(0.0, 100.0))
+    errors = {"model_error": np.array([0.1, 0.3]),
+              "temperature_model_error": np.array([15.0, 40.0])}
+    expected = []
+    for i, (top, onset) in enumerate(zip(tops, onsets, strict=True)):
+        mids = top + (onset - top) * (np.arange(16) + 0.5) / 16
+        points = np.column_stack([mids, 1330.0 + 50.0 * (mids - top)])
+        total = 0.0
+        for r in PT_RHO.itertuples():
+            cov = _covariance(r, errors["model_error"][i],
+                              errors["temperature_model_error"][i])
+            log_pdf = [stats.multivariate_normal.logpdf([r.pressure_gpa, r.temperature_c],
+                                                        point, cov) for point in points]
+            total += special.logsumexp(log_pdf) - np.log(16)
+        expected.append(total)
+    assert_allclose(obs.log_likelihood(column, errors=errors), expected, rtol=1e-12)
+    pointwise = obs.pointwise_log_likelihood(column, errors=errors)
+    assert_allclose(pointwise.sum(axis=1), expected, rtol=1e-12)
+    with pytest.raises(ValueError, match=r"model_error is free"):
+        obs.log_likelihood(column)
+
+
+def test_simulated_pt_errors_have_the_stated_correlation():
+    rows = 4000
+    table = _frame(sample=["s"] * rows, pressure_gpa=[2.0] * rows, sigma_gpa=[0.2] * rows,
+                   temperature_c=[1400.0] * rows, sigma_c=[25.0] * rows,
+                   pt_correlation=[0.8] * rows)
+    obs = MeltingPressure.from_frame(table, equilibration="top", model_error=0.1,
+                                     temperature_model_error=15.0)
+    column = ConstantProductivityColumn([1.0], [3.0], t_top=1330.0)
+    sim = obs.simulate(column, np.random.default_rng(8))
+    dp, dt = sim.values - 1.0, sim.temperature - 1330.0
+    s_p, s_t = np.hypot(0.2, 0.1), np.hypot(25.0, 15.0)
+    # Correlation of the total errors: 0.8 * 0.2 * 25 / (s_p s_t) = 0.614; the standard
+    # error of a sample correlation is (1 - r^2) / sqrt(n) = 0.01 (common practice).
+    r = 0.8 * 0.2 * 25.0 / (s_p * s_t)
+    assert abs(np.corrcoef(dp, dt)[0, 1] - r) < 4 * (1 - r**2) / np.sqrt(rows)
+    assert abs(np.std(dp) / s_p - 1) < 4 / np.sqrt(2 * rows)
+    assert abs(np.std(dt) / s_t - 1) < 4 / np.sqrt(2 * rows)
+
+
+# ---- model errors: fixed or free
+
+
+def test_free_crust_model_error_against_scipy():
+    prior = LogUniform(0.01, 2.0)
+    obs = CrustalThickness.from_frame(
+        _frame(site=["A", "B"], thickness_km=[7.0, 8.2], sigma_km=[0.8, 1.1]),
+        model_error=prior)
+    assert obs.free_errors == {"model_error": prior}
+    column = ConstantProductivityColumn([1.0, 1.2], [3.0, 3.1], crust=[6.5, 9.0])
+    errors = {"model_error": np.array([0.3, 1.5])}
+    expected = [stats.norm.logpdf([7.0, 8.2], m, np.sqrt(np.array([0.8, 1.1])**2 + e**2)).sum()
+                for m, e in ((6.5, 0.3), (9.0, 1.5))]
+    assert_allclose(obs.log_likelihood(column, errors=errors), expected, rtol=1e-12)
+    with pytest.raises(ValueError, match=r"model_error is free \(log-uniform"):
+        obs.log_likelihood(column)
+    # A free error's value is not part of the stated sigma; observed() can add one.
+    assert_allclose(obs.sigma, [0.8, 1.1])
+    assert_allclose(obs.observed({"model_error": 0.6})["sigma"], np.hypot([0.8, 1.1], 0.6))
+    assert "model error free, log-uniform on [0.01, 2] km" in obs.describe()
+
+
+@pytest.mark.parametrize(("spec", "match"), [
+    ({"model_error": {"prior": "uniform", "min": -0.1, "max": 1.0}},
+     r"key 'observations\[2\].model_error.min': prior min -0.1 is outside the physical "
+     r"range \[0, inf\]"),
+    ({"model_error": {"prior": "log-uniform", "min": 0.0, "max": 1.0}},
+     r"model_error.min': min = 0 must be > 0 for a log-uniform prior"),
+    ({"model_error": {"prior": "unifrom", "min": 0.0, "max": 1.0}},
+     r"model_error.prior': unknown prior 'unifrom'; did you mean 'uniform'"),
+    ({"model_error": "0.1"}, r"model_error': '0.1' must be a finite number or a prior"),
+    ({"temperature_model_error": {"value": -2.0}},
+     r"temperature_model_error.value': fixed value -2 is outside the physical range"),
+])
+def test_bad_model_error_settings(spec, match):
+    with pytest.raises(InputError, match=match) as info:
+        MeltingPressure.from_spec({**BASALT, "file": "basalts.csv", **spec}, base_dir=DATA,
+                                  where="observations[2]")
+    assert "\n" not in str(info.value)
+
+
+def test_model_error_priors_from_a_block(tmp_path):
+    spec = {**BASALT, "file": "basalts.csv",
+            "model_error": {"prior": "normal", "mean": 0.0, "sd": 0.2},
+            "temperature_model_error": {"value": 10.0}}
+    obs = MeltingPressure.from_spec(spec, base_dir=DATA, where="observations[2]")
+    # A normal prior on a standard deviation is cut to [0, inf): a half-normal.
+    assert obs.model_error == TruncatedNormal(0.0, 0.2, 0.0, np.inf)
+    assert obs.temperature_model_error == 10.0
+    assert list(obs.free_errors) == ["model_error"]
+    (tmp_path / "t.csv").write_text("sample,pressure_gpa,sigma_gpa\nA,1.5,0.2\n")
+    free_t = {**BASALT, "temperature_model_error": {"prior": "uniform", "min": 0, "max": 50}}
+    with pytest.raises(InputError, match=r"key 'observations\[2\].temperature_model_error': "
+                                         r"a free temperature_model_error needs temperatures"):
+        MeltingPressure.from_spec(free_t, base_dir=tmp_path, where="observations[2]")
 
 
 # forward tabulates F, so its slope has small kinks; quad warns about roundoff there
@@ -234,7 +377,6 @@ def test_path_is_vectorised_over_columns():
     together = obs.log_likelihood(column)
     one_by_one = [obs.log_likelihood(forward.melt_column(tps[i:i + 1], lids[i:i + 1]))[0]
                   for i in range(4)]
-    assert together.shape == (4,)
     assert_allclose(together, one_by_one, rtol=1e-12)
 
 
@@ -257,7 +399,10 @@ def test_no_melt_penalty_is_finite_and_slopes_toward_melting(equilibration):
     assert np.all(np.isfinite(ll))
     assert column.produces_melt[0] and not column.produces_melt[1:].any()
     assert np.all(np.diff(ll[1:]) < 0)  # thicker lid, further from melting: lower
-    assert ll[0] - ll[1] > len(obs) * NO_MELT_OFFSET * 0.5  # a steep step at the boundary
+    # Beyond the boundary the Gaussian stays at top = onset: only the slope changes ll.
+    distance = lids[1:] - column.onset_depth[1:]
+    assert_allclose(np.diff(ll[1:]), -len(obs) * NO_MELT_SLOPE * np.diff(distance),
+                    rtol=1e-9)
     # Mantle too cold to meet the solidus at all (onset depth 0): still finite, and
     # lower the colder it is, so an optimiser is led toward hotter mantle.
     cold = np.array([1000.0, 1030.0, 1060.0])
@@ -265,6 +410,51 @@ def test_no_melt_penalty_is_finite_and_slopes_toward_melting(equilibration):
     assert np.all(column.onset_depth == 0.0)
     ll = obs.log_likelihood(column, parameters=_params(cold, 0.0))
     assert np.all(np.isfinite(ll)) and np.all(np.diff(ll) > 0)
+    # Wet mantle too cold to melt has its closest approach to the solidus below the
+    # surface (onset > 0, above the lid here): it still slopes toward hotter mantle, by
+    # 1 nat per row per km of the margin / 3.66 K/km (docs/model.md, "No-melt penalty").
+    cold = np.array([1000.0, 1010.0, 1020.0])
+    for lid in (0.0, 10.0):
+        column = forward.melt_column(cold, lid, water=100.0)
+        assert not column.produces_melt.any() and np.all(column.onset_depth > 0.0)
+        ll = obs.log_likelihood(column, parameters=_params(cold, lid))
+        np.testing.assert_array_less(0.0, np.diff(ll))
+    # Pressures only, top of melting at the surface: only the penalty moves with Tp.
+    pressures = MeltingPressure.from_frame(PRESSURES, equilibration="top")
+    column = forward.melt_column(cold, 0.0, water=100.0)
+    ll = pressures.log_likelihood(column, parameters=_params(cold, 0.0))
+    slope = np.diff(ll) / np.diff(np.asarray(column.solidus_margin))
+    assert_allclose(slope, len(pressures) * NO_MELT_SLOPE / 3.66, rtol=1e-6)
+
+
+@pytest.mark.parametrize("equilibration", ["top", "pooled", "path"])
+def test_no_melt_penalty_joins_the_melting_likelihood_continuously(equilibration):
+    # Step across the melting boundary (lid base = onset depth) by +-h, once in the lid
+    # and once in Tp: the two log-likelihoods must differ by O(h), not by a constant.
+    obs = MeltingPressure.from_frame(PT, equilibration=equilibration, path_points=64)
+    onset = float(forward.melt_column(1350.0, 0.0).onset_depth)
+    steps = np.array([1.0, 0.1, 0.01])  # km
+
+    def jump(tp, lid):
+        column = forward.melt_column(tp, lid)
+        assert column.produces_melt[0::2].all() and not column.produces_melt[1::2].any()
+        ll = obs.log_likelihood(column, parameters=_params(tp, lid))
+        return np.abs(ll[0::2] - ll[1::2])
+
+    lids = np.ravel(np.column_stack([onset - steps, onset + steps]))
+    across_lid = jump(np.full(lids.size, 1350.0), lids)
+    # The same boundary crossed in Tp at a fixed lid: Tp where the onset is h below or
+    # above the lid (the onset deepens by about 0.37 km per K near 1350 degC).
+    lid = np.full(6, onset)
+    tps = np.ravel(np.column_stack([1350.0 + steps / 0.37, 1350.0 - steps / 0.37]))
+    across_tp = jump(tps, lid)
+    # Outside, 3 rows x NO_MELT_SLOPE nat/km; inside, the Gaussians follow the top of
+    # melting (about 1 nat/km in all here): the gap grows like ~3 nat/km x 2h (measured
+    # up to 2.7), so 5 nat/km is a bound that a constant offset of even 0.1 nat breaks at
+    # h = 0.01 km.
+    for gaps, width in ((across_lid, 2 * steps), (across_tp, 2 * steps)):
+        np.testing.assert_array_less(gaps, 5.0 * width)
+        assert gaps[-1] < gaps[0] / 10  # shrinks with the step (100 times smaller)
 
 
 def test_crust_no_melt_keeps_the_zero_thickness_gaussian_and_slopes():
@@ -328,8 +518,9 @@ def test_simulate_is_seeded_and_centred_on_the_model():
 # ---- reading tables: every rule
 
 CRUST = {"kind": "crustal_thickness", "file": "t.csv"}
-BASALT = {"kind": "melting_pressure", "file": "t.csv"}
+BASALT = {"kind": "melting_pressure", "file": "t.csv", "equilibration": "top"}
 PT_HEADER = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\n"
+RHO_HEADER = PT_HEADER.replace("\n", ",pt_correlation\n")
 
 TABLE_CASES = {
     "missing-column": (CRUST, "site,thickness,sigma_km\nA,7,1\n",
@@ -363,6 +554,17 @@ TABLE_CASES = {
                      r"column 'sigma_c': value 0 must be > 0 degC"),
     "temperature-without-sigma": (BASALT, PT_HEADER.replace(",sigma_c", "") + "A,1,0.2,1350\n",
         r"missing column 'sigma_c', needed together with temperature_c"),
+    "correlation-one": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,0.5\nB,1,0.2,1350,20,1\n",
+        r"t.csv, row 3, column 'pt_correlation': value 1 must be > -1 and < 1 \(a "
+        r"correlation coefficient lies strictly between -1 and 1\)"),
+    "correlation-below-minus-one": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,-1.2\n",
+        r"row 2, column 'pt_correlation': value -1.2 must be > -1 and < 1"),
+    "correlation-empty": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,\n",
+        r"row 2, column 'pt_correlation': empty cell"),
+    "correlation-without-temperature": (BASALT,
+        "sample,pressure_gpa,sigma_gpa,pt_correlation\nA,1,0.2,0.5\n",
+        r"t.csv, row 1, column 'pt_correlation': column 'pt_correlation' is allowed only "
+        r"together with temperature_c, sigma_c \(missing: temperature_c, sigma_c\)"),
     "field-count": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,7\n",
                     r"row 3: has 2 fields but the header \(line 1\) has 3"),
     "empty-file": (CRUST, "\n# nothing here\n", r"the file is empty"),
@@ -416,7 +618,25 @@ def test_unknown_option_key_for_a_kind():
 ])
 def test_bad_pressure_options(options, match):
     with pytest.raises(InputError, match=match):
-        MeltingPressure.from_frame(PRESSURES, **options)
+        MeltingPressure.from_frame(PRESSURES, **{"equilibration": "top", **options})
+
+
+def test_equilibration_is_required_and_its_choices_are_explained(tmp_path):
+    # No silent default: each choice moves Tp and the lid, so the user must pick one.
+    (tmp_path / "t.csv").write_text("sample,pressure_gpa,sigma_gpa\nA,1.5,0.2\n")
+    spec = {key: value for key, value in BASALT.items() if key != "equilibration"}
+    with pytest.raises(InputError) as info:
+        MeltingPressure.from_spec(spec, base_dir=tmp_path, where="observations[2]")
+    message = str(info.value)
+    assert message.startswith("key 'observations[2].equilibration': missing 'equilibration'")
+    for choice in ('"top" (at the top of melting', '"pooled" (at the mean melting pressure',
+                   '"path" (anywhere along the melting path, weighted by melt production'):
+        assert choice in message
+    assert "\n" not in message
+    with pytest.raises(InputError, match=r"missing 'equilibration'"):
+        MeltingPressure.from_frame(PRESSURES)
+    with pytest.raises(InputError, match=r"unknown value 'bottom'; choose \"top\" \(at"):
+        MeltingPressure.from_frame(PRESSURES, equilibration="bottom")
 
 
 def test_observed_and_describe():

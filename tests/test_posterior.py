@@ -3,17 +3,22 @@
 from __future__ import annotations
 
 import json
+import math
+import statistics
 
 import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
+from scipy.stats.mstats import mquantiles
 
 from lidmelt import demo_data
 from lidmelt import forward
 from lidmelt import inversion
 from lidmelt.inversion import figures
 from lidmelt.inversion.model import DERIVED, LogPosterior
+from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
+from lidmelt.inversion.priors import LogUniform, Uniform
 
 
 @pytest.fixture(scope="module")
@@ -39,7 +44,11 @@ def test_log_posterior_is_prior_plus_likelihoods_from_forward_model(study):
     values = {"potential_temperature": theta[:, 0], "lithosphere_thickness": theta[:, 1],
               "water": np.full(3, 150.0), "active_upwelling": np.ones(3),
               "solidus_offset": theta[:, 2]}
-    expected = sum(study.priors[n].logpdf(theta[:, j]) for j, n in enumerate(logpost.names))
+    # Priors of the demo study file by scipy.stats; each block's likelihood is checked
+    # against scipy in test_observations, so here they are only summed.
+    expected = (stats.uniform.logpdf(theta[:, 0], 1250.0, 350.0)
+                + stats.uniform.logpdf(theta[:, 1], 10.0, 100.0)
+                + stats.truncnorm.logpdf(theta[:, 2], -5.0, 5.0, loc=0.0, scale=20.0))
     expected = expected + sum(b.log_likelihood(column, parameters=values)
                               for b in study.observations)
     np.testing.assert_allclose(out[:, 0], expected, rtol=1e-12)
@@ -80,16 +89,21 @@ def test_fixed_parameters_are_filled_in(study):
     assert values["solidus_offset"][0] == 3.0
 
 
-def test_summary_matches_numpy_quantiles_of_kept_chain(quick):
+def test_summary_matches_independent_quantiles_of_kept_chain(quick):
     summary = quick.summary()
     kept = quick.chain[quick.discard:].reshape(-1, len(quick.names))
     for j, name in enumerate(quick.names):
         row = summary.set_index("parameter").loc[name]
-        # Independent route: numpy.percentile (as corner checks its own quantiles).
+        # Independent routes: scipy.stats.mstats.mquantiles with alphap = betap = 1 (the
+        # linear-interpolation definition, Hyndman & Fan 1996 type 7) and the standard
+        # library's statistics.stdev.
+        expected = mquantiles(kept[:, j], [0.025, 0.16, 0.5, 0.84, 0.975], alphap=1,
+                              betap=1)
         np.testing.assert_allclose([row["q2.5"], row["q16"], row["median"], row["q84"],
-                                    row["q97.5"]],
-                                   np.percentile(kept[:, j], [2.5, 16, 50, 84, 97.5]))
-        np.testing.assert_allclose(row["sd"], np.std(kept[:, j], ddof=1))
+                                    row["q97.5"]], expected, rtol=1e-12)
+        np.testing.assert_allclose(row["sd"], statistics.stdev(kept[:, j]), rtol=1e-9)
+        assert row["mean"] == pytest.approx(math.fsum(kept[:, j]) / kept.shape[0],
+                                            rel=1e-12)
     # The MAP is at least as probable as every sample.
     assert quick.map["log_posterior"] >= quick.log_prob.max() - 1e-9
     derived = quick.derived_summary()
@@ -154,9 +168,26 @@ def test_report_states_numbers_with_units_and_caution(quick):
     assert "katz2003" in text
 
 
-def test_fit_refuses_too_few_walkers(study):
-    with pytest.raises(inversion.InputError, match="walkers"):
-        inversion.fit(study.with_sampler(walkers=4), quiet=True)
+def test_report_states_every_sampler_setting_used(quick):
+    from lidmelt.inversion.report import render
+
+    text = render(quick)
+    section = text.split("## Sampler settings used")[1].split("##")[0]
+    # quick: the demo study file (start "map", seed 1) with four settings replaced; the
+    # README's defaults are max_steps 20000 and seed 1.
+    for item in ("`walkers` = 16;", "`seed` = 1 (default);", "`ess_target` = 300;",
+                 "`tau_multiple` = 20;", "`max_steps` = 20000 (default);",
+                 "`check_interval` = 50;", '`start` = "map".'):
+        assert item in section, (item, section)
+
+
+def test_too_few_walkers_are_refused_by_the_study_before_any_fit(study):
+    # The one check lives in Study (fit takes a validated study): a study with too few
+    # walkers cannot be made, so no fit ever starts with them.
+    with pytest.raises(inversion.InputError, match=r"walkers = 4 is too few for 3 free "
+                                                   r"parameters.*sampler needs at least 6"):
+        study.with_sampler(walkers=4)
+    assert study.with_sampler(walkers=6).sampler.walkers == 6  # the bound itself is fine
 
 
 def test_pointwise_log_likelihood_sums_to_the_total(study):
@@ -167,5 +198,95 @@ def test_pointwise_log_likelihood_sums_to_the_total(study):
     assert rows.shape == (3, sum(len(b) for b in study.observations))
     assert logpost.rows[0] == (study.observations[0].name, study.observations[0].ids[0])
     np.testing.assert_allclose(rows.sum(axis=1), logpost.log_likelihood(theta), rtol=1e-12)
-    # the third point makes no melt: every row carries part of the no-melt penalty
-    assert not logpost.column(theta[2:]).produces_melt[0]
+    # The third point makes no melt: each crust row is the Gaussian at zero thickness
+    # less 1 nat per km that the lid lies below the onset (docs/model.md, no-melt penalty).
+    column = logpost.column(theta[2:])
+    assert not column.produces_melt[0]
+    crust = study.observations[0]
+    distance = 120.0 - float(column.onset_depth[0])
+    sd = np.hypot(crust.data["sigma_km"], 0.3)  # model_error = 0.3 km in the study file
+    np.testing.assert_allclose(
+        rows[2, :len(crust)],
+        stats.norm.logpdf(crust.data["thickness_km"], 0.0, sd) - distance, rtol=1e-12)
+
+
+# ---- free model errors ----------------------------------------------------------------
+
+
+def _with_free_errors(study):
+    """The demo study with the crust model error and basalt temperature error free."""
+    crust, basalts = study.observations
+    free = [
+        CrustalThickness.from_frame(crust.data, file=crust.file,
+                                    model_error=LogUniform(0.01, 2.0)),
+        MeltingPressure.from_frame(basalts.data, file=basalts.file, equilibration="path",
+                                   path_points=32, temperature_model_error=Uniform(0, 80)),
+    ]
+    return study.with_observations(free)
+
+
+@pytest.fixture(scope="module")
+def quick_errors(study):
+    return inversion.fit(_with_free_errors(study).with_sampler(
+        walkers=16, ess_target=300, tau_multiple=20, check_interval=50), quiet=True)
+
+
+def test_log_posterior_with_a_free_model_error_against_scipy(study):
+    crust = CrustalThickness.from_frame(study.observations[0].data, file="crust.csv",
+                                        model_error=LogUniform(0.01, 2.0))
+    logpost = LogPosterior(study.with_observations([crust]))
+    assert logpost.names == ("potential_temperature", "lithosphere_thickness",
+                             "solidus_offset", "crust.model_error")
+    assert logpost.units["crust.model_error"] == "km"
+    theta = np.array([[1420.0, 40.0, 5.0, 0.7], [1420.0, 40.0, 5.0, -0.1]])
+    column = forward.melt_column(1420.0, 40.0, water=150.0, solidus_offset=5.0)
+    data = crust.data
+    sd = np.sqrt(data["sigma_km"] ** 2 + 0.7**2)
+    like = stats.norm.logpdf(data["thickness_km"], float(column.crustal_thickness), sd).sum()
+    prior = (stats.uniform.logpdf(1420.0, 1250.0, 350.0)
+             + stats.uniform.logpdf(40.0, 10.0, 100.0)
+             + stats.truncnorm.logpdf(5.0, -5.0, 5.0, loc=0.0, scale=20.0)
+             + stats.loguniform.logpdf(0.7, 0.01, 2.0))
+    out = logpost(theta)
+    np.testing.assert_allclose(out[0, 0], like + prior, rtol=1e-10)
+    assert np.isneginf(out[1, 0])  # a negative standard deviation is outside the domain
+    np.testing.assert_allclose(logpost.pointwise_log_likelihood(theta[:1]).sum(),
+                               like, rtol=1e-10)
+
+
+def test_free_model_errors_are_summarised_reported_and_drawn(quick_errors):
+    names = ("potential_temperature", "lithosphere_thickness", "solidus_offset",
+             "crust.model_error", "basalts.temperature_model_error")
+    assert quick_errors.names == names
+    summary = quick_errors.summary().set_index("parameter")
+    assert summary.loc["crust.model_error", "unit"] == "km"
+    assert summary.loc["basalts.temperature_model_error", "unit"] == "degC"
+    assert 0.01 <= summary.loc["crust.model_error", "q2.5"]
+    assert summary.loc["basalts.temperature_model_error", "q97.5"] <= 80.0
+    assert set(names) <= set(quick_errors.samples.columns)
+    assert 0.01 <= quick_errors.map["crust.model_error"] <= 2.0  # inside its prior
+
+    from lidmelt.inversion.report import render
+
+    text = render(quick_errors)
+    assert "Model error of crust" in text
+    assert "Prior on the temperature model error of basalts: uniform on [0, 80] °C" in text
+    fig = figures.corner_figure(quick_errors)
+    ndim = len(names)
+    bottom = np.array(fig.axes).reshape(ndim, ndim)[-1]
+    assert [ax.get_xlabel() for ax in bottom] == [
+        "$T_p$ (°C)", "lid (km)", r"$\Delta T_s$ (°C)", r"$\sigma_{model}$, crust (km)",
+        r"$\sigma_{model,T}$, basalts (°C)"]
+    # The fit figure's error bars add the posterior-median model error to the stated
+    # sigma; the crust panel's y label names what the data are compared with.
+    from matplotlib.container import ErrorbarContainer
+
+    crust_ax = figures.fit_figure(quick_errors, ndraws=20).axes[0]
+    bars = next(c for c in crust_ax.containers if isinstance(c, ErrorbarContainer))
+    segments = bars.lines[2][0].get_segments()
+    half = np.array([0.5 * (seg[1, 1] - seg[0, 1]) for seg in segments])
+    median = quick_errors.samples["crust.model_error"].median()
+    sigma = quick_errors.study.observations[0].data["sigma_km"].to_numpy()
+    np.testing.assert_allclose(half, np.hypot(sigma, median), rtol=1e-9)
+    assert crust_ax.get_ylabel() == "Igneous crust thickness (km)"
+    assert "incl. model error" in bars.get_label() and "posterior median" in bars.get_label()

@@ -8,12 +8,14 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy import stats
 
 from lidmelt import demo_data
 from lidmelt import inversion
-from lidmelt.inversion.observations.pressure import MeltingPressure
+from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
+from lidmelt.inversion.priors import Uniform
 
 # Five truths spread over the demo's prior (Tp degC, lid km, solidus offset degC).
 TRUTHS = [
@@ -51,10 +53,11 @@ def test_synthetic_recovery_within_95_percent_for_several_seeds(demo_study):
             row = summary.loc[name]
             misses += not (row["q2.5"] <= value <= row["q97.5"])
             far.append(abs(value - row["median"]) / row["sd"])
-    # 15 intervals at 95 %: with calibrated intervals P(4 or more misses) = 0.005
-    # (binomial, scipy.stats.binom), so more than 3 misses means miscalibration.
-    assert stats.binom.sf(3, 15, 0.05) < 0.01
-    assert misses <= 3, f"{misses} of 15 truths outside the 95 % interval"
+    # 15 intervals at 95 %: with calibrated intervals the number of misses is
+    # binomial(15, 0.05) (scipy.stats.binom); allow the count that is exceeded with
+    # probability below 1 % (3 misses; P(4 or more) = 0.005).
+    allowed = int(stats.binom.isf(0.01, 15, 0.05))
+    assert misses <= allowed, f"{misses} of 15 truths outside the 95 % interval"
     assert max(far) < 4.0  # no truth 4 posterior sd from the median (p < 1e-4 each)
 
 
@@ -98,3 +101,53 @@ def test_simulation_based_calibration_ranks_are_uniform(demo_study):
     # not shifted by more than 4 sd, which a biased posterior would show.
     np.testing.assert_array_less(np.abs(ranks.mean(axis=0) - draws / 2),
                                  4 * np.sqrt(((draws + 1) ** 2 - 1) / 12 / replicas))
+
+
+def test_free_model_errors_recover_extra_scatter():
+    # Data scattered beyond their stated errors (a basalt suite is never as tidy as its
+    # analytical errors): stated 0.3 km and 0.1 GPa, true extra scatter 0.8 km and
+    # 0.25 GPa. Fitted with both model errors free, every truth, the two model errors
+    # included, lies inside its central 99 % posterior interval.
+    truth = {"potential_temperature": 1400.0, "lithosphere_thickness": 40.0,
+             "crust.model_error": 0.8, "basalts.model_error": 0.25}
+    crust = CrustalThickness.from_frame(
+        pd.DataFrame({"site": [f"c{i}" for i in range(30)], "thickness_km": 7.0,
+                      "sigma_km": 0.3}), file="crust.csv",
+        model_error={"prior": "log-uniform", "min": 0.01, "max": 5.0})
+    basalts = MeltingPressure.from_frame(
+        pd.DataFrame({"sample": [f"b{i}" for i in range(20)], "pressure_gpa": 1.5,
+                      "sigma_gpa": 0.1}), file="basalts.csv", equilibration="top",
+        model_error={"prior": "log-uniform", "min": 0.01, "max": 2.0})
+    study = inversion.Study(
+        name="extra scatter", source=None, model=inversion.ModelSettings(),
+        priors={"potential_temperature": Uniform(1250.0, 1600.0),
+                "lithosphere_thickness": Uniform(10.0, 100.0)},
+        fixed={"water": 0.0, "active_upwelling": 1.0, "solidus_offset": 0.0},
+        observations=(crust, basalts),
+        sampler=inversion.SamplerSettings(walkers=16, ess_target=400, tau_multiple=30,
+                                          check_interval=100, start="map"))
+    column = inversion.LogPosterior(study).column(np.array([[1400.0, 40.0, 0.8, 0.25]]))
+    rng = np.random.default_rng(77)
+    simulated = study.with_observations([
+        crust.simulate(column, rng, errors={"model_error": 0.8}),
+        basalts.simulate(column, rng, errors={"model_error": 0.25})])
+    posterior = inversion.fit(simulated, seed=3, quiet=True)
+    assert posterior.converged
+    assert posterior.names == tuple(truth)
+    samples = posterior.samples
+    for name, value in truth.items():
+        low, high = np.quantile(samples[name], [0.005, 0.995])
+        assert low <= value <= high, (name, value, low, high)
+    # Fitted with the stated errors alone, the same data claim more than they hold: the
+    # Tp interval is much narrower than with the model errors free.
+    stated = simulated.with_observations(
+        type(block).from_frame(block.data, file=block.file, **options)
+        for block, options in zip(simulated.observations,
+                                  ({}, {"equilibration": "top"}), strict=True))
+    overconfident = inversion.fit(stated, seed=3, quiet=True).samples
+
+    def width(frame):
+        return np.diff(np.quantile(frame["potential_temperature"], [0.16, 0.84]))[0]
+
+    # Expected ratio about 0.3 / hypot(0.3, 0.8) = 0.35 (measured 0.37).
+    assert width(overconfident) < 0.6 * width(samples)

@@ -11,7 +11,7 @@ import pytest
 from lidmelt import forward
 from lidmelt.inversion._errors import InputError
 from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
-from lidmelt.inversion.priors import Normal, TruncatedNormal, Uniform
+from lidmelt.inversion.priors import LogUniform, Normal, TruncatedNormal, Uniform
 from lidmelt.inversion.study import DEFAULT_FIXED, PARAMETERS, ModelSettings, SamplerSettings, Study
 
 DATA = Path(__file__).parent / "data"
@@ -159,6 +159,41 @@ def test_study_is_frozen():
         study.name = "other"
 
 
+def test_free_model_errors_in_a_study_file(make_study):
+    path = make_study(("model_error = 0.5",
+                       'model_error = { prior = "log-uniform", min = 0.01, max = 0.5 }'),
+                      ('equilibration = "top"',
+                       'equilibration = "top"\ntemperature_model_error = { prior = '
+                       '"uniform", min = 0.0, max = 60.0 }'))
+    study = Study.from_file(path)
+    crust, basalts = study.observations
+    assert crust.model_error == LogUniform(0.01, 0.5)
+    assert basalts.temperature_model_error == Uniform(0.0, 60.0)
+    assert [(e.name, e.block, e.option, e.unit) for e in study.error_parameters] == [
+        ("crust.model_error", 0, "model_error", "km"),
+        ("basalts.temperature_model_error", 1, "temperature_model_error", "degC")]
+    # The physical parameters stay as they were; the errors come after them.
+    assert study.free_parameters == ("potential_temperature", "lithosphere_thickness",
+                                     "solidus_offset")
+    assert "crust.model_error: free, log-uniform on [0.01, 0.5] km" in study.describe()
+    # Five free values now, so 8 walkers are too few (2 per free value).
+    with pytest.raises(InputError, match=r"walkers = 8 is too few for 5 free parameters"):
+        study.with_sampler(walkers=8)
+
+
+def test_error_parameter_names_are_unique_and_file_safe(tmp_path):
+    shutil.copy(DATA / "crust.csv", tmp_path / "crust survey (2019).csv")
+    study = Study.from_file(DATA / "study.toml")
+    free = {"model_error": {"prior": "uniform", "min": 0.0, "max": 2.0}}
+    a = CrustalThickness.from_spec({"file": "crust.csv", **free}, base_dir=DATA)
+    b = CrustalThickness.from_spec({"file": "crust.csv", **free}, base_dir=DATA)
+    c = CrustalThickness.from_spec({"file": "crust survey (2019).csv", **free},
+                                   base_dir=tmp_path)
+    names = [e.name for e in study.with_observations([a, b, c]).error_parameters]
+    assert names == ["crust-1.model_error", "crust-2.model_error",
+                     "crust_survey__2019_.model_error"]
+
+
 def test_describe_lists_every_parameter():
     text = Study.from_file(DATA / "study.toml").describe()
     for name in PARAMETERS:
@@ -235,6 +270,10 @@ CASES = {
         r"observations\[1\].kind': missing 'kind'"),
     "unknown-equilibration": (('equilibration = "top"', 'equilibration = "pooledd"'),
         r"observations\[2\].equilibration': unknown value 'pooledd'; did you mean 'pooled'"),
+    "missing-equilibration": (('equilibration = "top"\n', ""),
+        r"line 23, key 'observations\[2\].equilibration': missing 'equilibration', where "
+        r"the basalts last equilibrated with the mantle: \"top\" \(at the top of melting.*"
+        r"\"pooled\" \(at the mean melting pressure.*\"path\" \(anywhere along"),
     "unknown-thickness-of": (("model_error = 0.5", 'model_error = 0.5\nthickness_of = "mlt"'),
         r"observations\[1\].thickness_of': unknown value 'mlt'; did you mean 'melt'"),
     "negative-model-error": (("model_error = 0.5", "model_error = -0.5"),
@@ -314,7 +353,9 @@ def test_bad_table_row_is_named_through_the_study(make_study):
 
 
 def test_study_values_reach_the_forward_model():
-    # The parsed settings are valid forward.melt_column inputs (integration with forward).
+    # The parsed settings, passed on to forward.melt_column, give the column of the values
+    # written in tests/data/study.toml (typed here by hand): prior medians Tp 1450 degC,
+    # lid 75 km, offset 0 degC; water 0, active upwelling 1, crust 2900 kg/m^3.
     study = Study.from_file(DATA / "study.toml")
     values = {name: np.array([study.priors[name].ppf(0.5)]) for name in study.free_parameters}
     values.update({name: np.array([v]) for name, v in study.fixed.items()})
@@ -322,4 +363,11 @@ def test_study_values_reach_the_forward_model():
         values.pop("potential_temperature"), values.pop("lithosphere_thickness"), **values,
         parameterization=study.model.parameterization, melting_region=study.model.melting_region,
         crust_density=study.model.crust_density, mantle_density=study.model.mantle_density)
-    assert column.melt_thickness.shape == (1,)
+    by_hand = forward.melt_column(1450.0, 75.0, water=0.0, active_upwelling=1.0,
+                                  solidus_offset=0.0, parameterization="katz2003",
+                                  melting_region="column", crust_density=2900.0,
+                                  mantle_density=3300.0)
+    assert float(by_hand.crustal_thickness) > 1.0  # a column that melts: a real check
+    for name in ("crustal_thickness", "onset_depth", "mean_melting_pressure"):
+        np.testing.assert_allclose(getattr(column, name), [getattr(by_hand, name)],
+                                   rtol=1e-12)

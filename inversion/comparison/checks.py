@@ -64,13 +64,14 @@ def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
     """
     from ..checks import check_blocks
 
-    columns = [column for _, column in _columns(logpost, draws, rng, replicates)]
-    melting = [c for c in columns if bool(np.all(c.produces_melt))]
+    drawn = list(_columns(logpost, draws, rng, replicates))
+    melting = [(theta, c) for theta, c in drawn if bool(np.all(c.produces_melt))]
     if not melting:
         return FitCheck(0.0, replicates)
-    blocks = check_blocks(logpost.study.observations, melting, rng)
+    errors = [logpost.block_errors(theta[None, :]) for theta, _ in melting]
+    blocks = check_blocks(logpost.study.observations, [c for _, c in melting], rng, errors)
     worst = min(blocks, key=lambda b: b.p_value)
-    return FitCheck(worst.p_value * len(melting) / len(columns), replicates, worst.name)
+    return FitCheck(worst.p_value * len(melting) / len(drawn), replicates, worst.name)
 
 
 def _columns(logpost, draws: np.ndarray, rng: np.random.Generator, replicates: int):
@@ -90,4 +91,6 @@ def replicate_data(logpost, draws: np.ndarray, rng: np.random.Generator, replica
         if not bool(np.all(column.produces_melt)):
             yield theta, None
             continue
-        yield theta, [block.simulate(column, rng) for block in logpost.study.observations]
+        errors = logpost.block_errors(theta[None, :])  # free model errors at this draw
+        yield theta, [block.simulate(column, rng, errors=e)
+                      for block, e in zip(logpost.study.observations, errors, strict=True)]

@@ -172,7 +172,7 @@ def load_scenario(folder: Path, scenario) -> ScenarioResult:
         sampler = scenario.study.sampler
         assessment = assess_chain(chain.chain, tau_multiple=sampler.tau_multiple,
                                   ess_target=sampler.ess_target, accepted=chain.accepted,
-                                  names=scenario.study.free_parameters)
+                                  names=scenario.study.sampled_parameters)
         posterior = Posterior(scenario.study,
                               dataclasses.replace(chain, assessment=assessment),
                               seed=int(run["seed"]),

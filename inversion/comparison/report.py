@@ -83,7 +83,8 @@ def _scenario_section(comparison) -> str:
             "| scenario | description | free parameters | prior odds | differs from the "
             "base study by |", "|---|---|---|---|---|"]
     for r in comparison.results:
-        free = ", ".join(quantity(n).name for n in r.scenario.study.free_parameters) or "none"
+        free = ", ".join(quantity(n).name for n in r.scenario.study.sampled_parameters) \
+            or "none"
         rows.append(f"| {r.name} | {r.scenario.description} | {free} | "
                     f"{r.scenario.prior_odds:g} | {_override_words(r.scenario)} |")
     return "\n".join(rows) + "\n"

@@ -8,7 +8,6 @@ from .base import NO_MELT_SLOPE, ObservationSet, gaussian_logpdf, melting_distan
 from .crust import THICKNESS_OF, CrustalThickness
 from .pressure import (
     EQUILIBRATION,
-    NO_MELT_OFFSET,
     PRESSURE_RANGE,
     TEMPERATURE_RANGE,
     MeltingPressure,
@@ -19,7 +18,6 @@ __all__ = [
     "THICKNESS_OF",
     "EQUILIBRATION",
     "KINDS",
-    "NO_MELT_OFFSET",
     "NO_MELT_SLOPE",
     "PRESSURE_RANGE",
     "TEMPERATURE_RANGE",

@@ -2,9 +2,10 @@
 
 An observation set is one ``[[observations]]`` block of a study file: a table of
 measurements of one kind with their 1-sigma uncertainties. Its likelihood is Gaussian and
-independent between rows; an optional ``model_error`` (same unit as the data) is added to
-each row's sigma in quadrature, sigma_total = sqrt(sigma^2 + model_error^2), to allow for
-what the forward model leaves out.
+independent between rows; an optional ``model_error`` (same unit as the data, fixed or
+free: `inversion.observations.model_error`) is added to each row's sigma in quadrature,
+sigma_total = sqrt(sigma^2 + model_error^2), to allow for what the forward model leaves
+out.
 
 No-melt penalty
 ---------------
@@ -13,19 +14,21 @@ or the mantle is too cold to meet the solidus), an observed melt product cannot 
 explained. Instead of ``-inf`` (which would leave a sampler or optimiser started there no
 direction to move) the log-likelihood of each row that records melt is lowered by
 
-    NO_MELT_OFFSET_kind + NO_MELT_SLOPE * d
+    NO_MELT_SLOPE * d
 
 where d (km, `melting_distance`) is how far the point is from making melt: the lid
-thickness below the onset depth or, for mantle too cold to meet the solidus at all
-(onset depth 0), the lid thickness plus the height the onset would have to rise: the
-amount (K) by which the adiabat misses the solidus (``MeltColumn.solidus_margin``; for a
-column without it, 1100 degC - (Tp - solidus offset), 1100 degC being about the surface
-solidus of dry peridotite) divided by 3.66 K/km, the difference between the solidus and
-adiabat slopes (about 113 K/GPa at 30.89 km/GPa; docs/model.md, "No-melt penalty"; the value only
-sets the penalty's direction and scale). The penalty is finite, never NaN, and grows
-steadily away from the melting boundary, so the search slopes back toward melting. The
-lid thickness comes from the column (``MeltColumn.lithosphere_thickness``) or from
-``parameters=`` of `log_likelihood`; without either, d is 0 and the penalty is constant.
+thickness below the onset depth plus, for mantle too cold to meet the solidus at all,
+the height the onset would have to rise: the amount (K) by which the adiabat misses the
+solidus (``MeltColumn.solidus_margin``; for a column without it, 1100 degC - (Tp -
+solidus offset), 1100 degC being about the surface solidus of dry peridotite) divided by
+3.66 K/km, the difference between the solidus and adiabat slopes (about 113 K/GPa at
+30.89 km/GPa; docs/model.md, "No-melt penalty"; the value only sets the penalty's
+direction and scale). d is 0 on the melting boundary, and each kind evaluates its
+Gaussian at the degenerate melting column there (top = onset), so the likelihood is
+continuous across the boundary: finite, never NaN, and falling steadily away from it, so
+the search slopes back toward melting. The lid thickness comes from the column
+(``MeltColumn.lithosphere_thickness``) or from ``parameters=`` of `log_likelihood`;
+without either, d is 0 and there is no slope.
 """
 
 from __future__ import annotations
@@ -41,18 +44,21 @@ import numpy as np
 import pandas as pd
 
 from .._errors import InputError, suggest
+from ..priors import Prior
+from .model_error import combine_sigma, parse_error_setting
 from .tables import ColumnRule, read_table, validate_frame
 
 __all__ = [
     "NO_MELT_SLOPE",
     "ObservationSet",
+    "bivariate_logpdf",
     "gaussian_logpdf",
     "melting_distance",
 ]
 
 #: Nats per km of distance from melting, per row that records melt (see module docstring).
 NO_MELT_SLOPE = 1.0
-_COLD_REFERENCE = 1100.0  # degC, surface solidus of dry peridotite (docs/model.md, "Worked values")
+_COLD_REFERENCE = 1100.0  # degC, surface solidus of dry peridotite (docs/model.md)
 _COLD_GRADIENT = 3.66  # degC/km, solidus minus adiabat slope, 113 K/GPa / 30.89 km/GPa
 _COMMON_KEYS = ("kind", "file", "model_error")
 _LOG_SQRT_2PI = 0.5 * math.log(2.0 * math.pi)
@@ -62,6 +68,31 @@ def gaussian_logpdf(x, mean, sd) -> np.ndarray:
     """Log density of the normal distribution N(mean, sd^2) at `x` (broadcasting)."""
     z = (np.asarray(x, float) - mean) / sd
     return -0.5 * z * z - np.log(sd) - _LOG_SQRT_2PI
+
+
+def bivariate_logpdf(dx, dy, sx, sy, rho) -> np.ndarray:
+    """Log density of a bivariate normal at residuals (dx, dy) (broadcasting).
+
+    Parameters
+    ----------
+    dx, dy : array_like
+        Observed minus mean, in the units of `sx` and `sy`.
+    sx, sy : array_like
+        Standard deviations (> 0).
+    rho : array_like
+        Correlation coefficient, -1 < rho < 1.
+
+    Returns
+    -------
+    numpy.ndarray
+        log N2 = -(zx^2 - 2 rho zx zy + zy^2) / (2 (1 - rho^2)) - log(2 pi sx sy
+        sqrt(1 - rho^2)), with z = d / s; rho = 0 gives the sum of two `gaussian_logpdf`.
+    """
+    zx = np.asarray(dx, float) / sx
+    zy = np.asarray(dy, float) / sy
+    spare = 1.0 - np.square(rho)
+    quad = (zx * zx - 2.0 * rho * zx * zy + zy * zy) / spare
+    return -0.5 * quad - np.log(sx) - np.log(sy) - 0.5 * np.log(spare) - 2.0 * _LOG_SQRT_2PI
 
 
 def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
@@ -93,11 +124,12 @@ def melting_distance(column, parameters: Mapping | None = None) -> np.ndarray:
     lid = np.broadcast_to(np.asarray(lid, float), shape)
     onset = np.asarray(column.onset_depth, float)
     distance = np.maximum(lid - onset, 0.0)
-    too_cold = (onset <= 0.0) & ~melts
-    if np.any(too_cold):  # the solidus margin costs a scan of the adiabat: only if needed
+    if not np.all(melts):  # the solidus margin costs a scan of the adiabat: only if needed
+        # Too-cold mantle (margin < 0) is further away by the height the onset must rise,
+        # whatever the lid: added everywhere it applies, so d stays continuous.
         cold = _cold_distance(column, parameters, shape)
         if cold is not None:
-            distance = np.where(too_cold, lid + cold, distance)
+            distance = distance + cold
     return np.where(melts, 0.0, distance)
 
 
@@ -133,8 +165,10 @@ class ObservationSet(ABC):
         The validated table, one row per observation, in file order.
     lines : tuple of int
         File line number of each row.
-    model_error : float
-        Added to every sigma in quadrature (unit of the values).
+    model_error : float or Prior
+        Added to every sigma in quadrature (unit of the values); a `Prior` when free.
+    error_options : tuple of str
+        Names of the block's model-error settings (class attribute).
     """
 
     kind: ClassVar[str]
@@ -144,17 +178,20 @@ class ObservationSet(ABC):
     value_column: ClassVar[str]
     sigma_column: ClassVar[str]
     option_keys: ClassVar[tuple[str, ...]] = ()
+    error_options: ClassVar[tuple[str, ...]] = ("model_error",)
 
     def __init__(self, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
-                 model_error: float = 0.0, lines: Sequence[int] | None = None) -> None:
+                 model_error: float | Prior = 0.0,
+                 lines: Sequence[int] | None = None) -> None:
         self.data = data
         self.file = None if file is None else Path(file)
-        self.model_error = float(model_error)
+        self.model_error = parse_error_setting(model_error, "model_error")
         self.lines = tuple(range(2, 2 + len(data))) if lines is None else tuple(lines)
         # The likelihood runs in the sampler's inner loop: convert the columns once.
         self._values = _frozen(data[self.value_column])
-        self._sigma = _frozen(np.hypot(data[self.sigma_column].to_numpy(float),
-                                       self.model_error))
+        self._stated_sigma = _frozen(data[self.sigma_column])
+        self._sigma = _frozen(combine_sigma(self._stated_sigma, _fixed(self.model_error),
+                                            "model_error", None))
 
     # ---- construction ------------------------------------------------------------------
 
@@ -193,22 +230,32 @@ class ObservationSet(ABC):
         if not isinstance(spec["file"], str) or not spec["file"].strip():
             raise InputError(f"{spec['file']!r} must be a file name in quotes",
                              key=f"{where}.file")
-        model_error = _non_negative(spec.get("model_error", 0.0), f"{where}.model_error")
+        model_error = parse_error_setting(spec.get("model_error", 0.0),
+                                          f"{where}.model_error")
         options = cls._parse_options(spec, where)
         path = Path(base_dir) / spec["file"]
         required, optional = cls.column_rules(**options)
         table = read_table(path, required, optional=optional, key=f"{where}.file")
-        return cls(table.data, file=path, model_error=model_error, lines=table.lines,
-                   **options)
+        try:
+            return cls(table.data, file=path, model_error=model_error, lines=table.lines,
+                       **options)
+        except InputError as err:  # a setting that does not fit the table: name the block
+            if err.file is not None or err.key is None:
+                raise
+            raise InputError(err.message, key=f"{where}.{err.key}") from None
 
     @classmethod
     def from_frame(cls, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
-                   model_error: float = 0.0, **options) -> ObservationSet:
-        """Build from a table in memory, checked by the same rules as a file."""
-        model_error = _non_negative(model_error, "model_error")
+                   model_error: float | Prior = 0.0, **options) -> ObservationSet:
+        """Build from a table in memory, checked by the same rules as a file.
+
+        `model_error` (and kind options such as ``temperature_model_error``) may be a
+        number or a `Prior` (free).
+        """
+        model_error = parse_error_setting(model_error, "model_error")
         options = cls._parse_options(options, "observations")
         required, optional = cls.column_rules(**options)
-        rules = list(required) + [r for group in optional if all(
+        rules = list(required) + [r for group in optional if any(
             rule.name in data.columns for rule in group) for r in group]
         table = validate_frame(data, rules, file=file)
         return cls(table.data, file=file, model_error=model_error, lines=table.lines,
@@ -231,12 +278,39 @@ class ObservationSet(ABC):
 
     @property
     def sigma(self) -> np.ndarray:
-        """Total 1-sigma uncertainty per row incl. model error, shape (rows,) (read-only)."""
+        """1-sigma uncertainty per row incl. a fixed model error, shape (rows,) (read-only).
+
+        A free model error is not included (its value varies); see `total_sigma`.
+        """
         return self._sigma
 
-    def observed(self) -> dict[str, np.ndarray]:
-        """Observed values for plotting: ``{"value": (rows,), "sigma": (rows,)}``."""
-        return {"value": self.values, "sigma": self.sigma}
+    @property
+    def free_errors(self) -> dict[str, Prior]:
+        """The block's free model errors: option name -> prior, in `error_options` order."""
+        return {option: getattr(self, option) for option in self.error_options
+                if isinstance(getattr(self, option), Prior)}
+
+    def total_sigma(self, errors: Mapping | None = None) -> np.ndarray:
+        """Stated sigma and model error in quadrature: (rows,), or (n, rows) for (n,) errors.
+
+        `errors` gives the values of the free model errors (see `free_errors`).
+        """
+        return self._sd(self._stated_sigma, "model_error", self._sigma, errors)
+
+    def _sd(self, stated, option: str, fixed: np.ndarray, errors: Mapping | None):
+        setting = getattr(self, option)
+        return fixed if not isinstance(setting, Prior) else combine_sigma(
+            stated, setting, option, errors)
+
+    def observed(self, errors: Mapping | None = None) -> dict[str, np.ndarray]:
+        """Observed values for plotting: ``{"value": (rows,), "sigma": (rows,)}``.
+
+        ``sigma`` includes the model error: the fixed one, or a free one at the scalar
+        values given in `errors` (without them, only the stated sigma).
+        """
+        sigma = self._sigma if not self.free_errors or errors is None else \
+            self.total_sigma(errors)
+        return {"value": self.values, "sigma": sigma}
 
     @property
     def name(self) -> str:
@@ -245,7 +319,8 @@ class ObservationSet(ABC):
 
     # ---- model comparison --------------------------------------------------------------
 
-    def log_likelihood(self, column, *, parameters: Mapping | None = None) -> np.ndarray:
+    def log_likelihood(self, column, *, parameters: Mapping | None = None,
+                       errors: Mapping | None = None) -> np.ndarray:
         """Log-likelihood summed over rows for each melting column.
 
         Parameters
@@ -255,6 +330,9 @@ class ObservationSet(ABC):
         parameters : mapping, optional
             The melt_column inputs per vector, each shape (n,); used only by the no-melt
             penalty (see `melting_distance`).
+        errors : mapping, optional
+            Value of each free model error (`free_errors`) per vector, shape (n,);
+            required when the block has one.
 
         Returns
         -------
@@ -262,15 +340,16 @@ class ObservationSet(ABC):
             Shape (n,); finite everywhere (never NaN). The sum over rows of
             `pointwise_log_likelihood`.
         """
-        return self.pointwise_log_likelihood(column, parameters=parameters).sum(axis=-1)
+        return self.pointwise_log_likelihood(column, parameters=parameters,
+                                             errors=errors).sum(axis=-1)
 
     @abstractmethod
-    def pointwise_log_likelihood(self, column, *,
-                                 parameters: Mapping | None = None) -> np.ndarray:
+    def pointwise_log_likelihood(self, column, *, parameters: Mapping | None = None,
+                                 errors: Mapping | None = None) -> np.ndarray:
         """Log-likelihood of every row (no-melt penalty included), shape ``(n, rows)``.
 
         Rows are independent given the parameters, so these are the terms a
-        leave-one-out comparison needs; they sum to `log_likelihood`.
+        leave-one-out comparison needs; they sum to `log_likelihood` (same arguments).
         """
 
     @abstractmethod
@@ -278,11 +357,13 @@ class ObservationSet(ABC):
         """Model prediction for each row, ``{"value": (n, rows), ...}``."""
 
     @abstractmethod
-    def simulate(self, column, rng: np.random.Generator) -> ObservationSet:
+    def simulate(self, column, rng: np.random.Generator, *,
+                 errors: Mapping | None = None) -> ObservationSet:
         """A copy whose values are drawn from the likelihood at one melting column.
 
-        The sigmas stay; `column` must hold a single parameter vector. The draws are not
-        re-validated (a simulated thickness may come out negative).
+        The sigmas and model-error settings stay; `column` must hold a single parameter
+        vector, and `errors` the value (a number or shape (1,)) of each free model error.
+        The draws are not re-validated (a simulated thickness may come out negative).
         """
 
     @abstractmethod
@@ -306,14 +387,23 @@ def _frozen(values) -> np.ndarray:
     return array
 
 
-def _non_negative(value, key: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float) or \
-            not math.isfinite(value):
-        raise InputError(f"{value!r} must be a finite number", key=key)
-    if value < 0:
-        raise InputError(f"{value:g} must be >= 0 (it is added to sigma in quadrature)",
-                         key=key)
-    return float(value)
+def _fixed(setting: float | Prior) -> float:
+    """The fixed part of a model-error setting (0 for a free one)."""
+    return 0.0 if isinstance(setting, Prior) else float(setting)
+
+
+def describe_errors(block, units: Mapping[str, str]) -> str:
+    """E.g. ``" (model error 0.1 GPa; temperature model error free, uniform on [0, 50]
+    degC)"``, or ``""`` when every model error is 0."""
+    parts = []
+    for option in block.error_options:
+        setting, unit = getattr(block, option), units[option]
+        words = option.replace("_", " ")
+        if isinstance(setting, Prior):
+            parts.append(f"{words} free, {setting.describe(unit=unit)}")
+        elif setting:
+            parts.append(f"{words} {setting:g} {unit}")
+    return f" ({'; '.join(parts)})" if parts else ""
 
 
 def require_single(column, who: str) -> None:

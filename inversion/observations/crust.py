@@ -23,6 +23,7 @@ from .._errors import InputError, suggest
 from .base import (
     NO_MELT_SLOPE,
     ObservationSet,
+    describe_errors,
     gaussian_logpdf,
     melting_distance,
     require_single,
@@ -47,8 +48,8 @@ class CrustalThickness(ObservationSet):
     data : pandas.DataFrame
         Columns ``site``, ``thickness_km``, ``sigma_km`` (validated).
     file : path-like, optional
-    model_error : float
-        km, added to sigma in quadrature.
+    model_error : float or Prior
+        km, added to sigma in quadrature (a `Prior`: free, sampled with the parameters).
     lines : sequence of int, optional
     thickness_of : {"crust", "melt"}
         Compare the data with the igneous crust thickness (default) or the melt thickness.
@@ -92,10 +93,10 @@ class CrustalThickness(ObservationSet):
     def _model(self, column) -> np.ndarray:
         return np.asarray(getattr(column, THICKNESS_OF[self.thickness_of]), float)
 
-    def pointwise_log_likelihood(self, column, *,
-                                 parameters: Mapping | None = None) -> np.ndarray:
+    def pointwise_log_likelihood(self, column, *, parameters: Mapping | None = None,
+                                 errors: Mapping | None = None) -> np.ndarray:
         model = self._model(column)[..., None]  # (n, 1) against rows (rows,)
-        per_row = gaussian_logpdf(self.values, model, self.sigma)
+        per_row = gaussian_logpdf(self.values, model, self.total_sigma(errors))
         records_melt = self.values > 0.0  # only these rows are penalised for no melt
         distance = melting_distance(column, parameters)[..., None]
         return per_row - np.where(records_melt, NO_MELT_SLOPE * distance, 0.0)
@@ -104,14 +105,16 @@ class CrustalThickness(ObservationSet):
         model = self._model(column)[..., None]
         return {"value": np.broadcast_to(model, model.shape[:-1] + (len(self),)).copy()}
 
-    def simulate(self, column, rng: np.random.Generator) -> CrustalThickness:
+    def simulate(self, column, rng: np.random.Generator, *,
+                 errors: Mapping | None = None) -> CrustalThickness:
         require_single(column, "simulate")
         model = float(np.ravel(self._model(column))[0])
-        draws = model + self.sigma * rng.standard_normal(len(self))
+        sigma = np.reshape(self.total_sigma(errors), len(self))  # errors: scalar or (1,)
+        draws = model + sigma * rng.standard_normal(len(self))
         return self._replace_values({self.value_column: draws}, thickness_of=self.thickness_of)
 
     def describe(self) -> str:
         rows = "1 crustal thickness" if len(self) == 1 else f"{len(self)} crustal thicknesses"
         return (f"{rows} from {self.name}, compared with the "
                 f"model {self.thickness_of} thickness"
-                + (f" (model error {self.model_error:g} km)" if self.model_error else ""))
+                + describe_errors(self, {"model_error": "km"}))

@@ -2,28 +2,41 @@
 
 Table columns: ``sample`` (name), ``pressure_gpa`` (0-10 GPa) and ``sigma_gpa`` (> 0),
 optionally ``temperature_c`` (800-2000 degC, a sanity range) with ``sigma_c`` (> 0); the
-two temperature columns come together, and then every row needs both.
+two temperature columns come together, and then every row needs both. With temperatures,
+an optional ``pt_correlation`` (-1 < rho < 1) gives the correlation of each row's
+pressure and temperature errors (a thermobarometer's pressure depends on its
+temperature, so these are often strongly correlated).
 
 Where in the melting interval a primary melt last equilibrated is a modelling choice
-(docs/model.md, "Likelihoods"; common practice), set by ``equilibration``:
+(docs/model.md, "Likelihoods"; common practice), set by the required ``equilibration``:
 
 ``"top"``
     At the top of melting (the lid base, or the onset when the lid is deeper):
-    log L_i = log N(P_i; P_top, s_P^2) [+ log N(T_i; T(P_top), s_T^2)].
+    L_i = N2((P_i, T_i); (P_top, T(P_top)), C_i).
 ``"pooled"``
     At the melt-production weighted mean melting pressure of the pooled melt
     (``MeltColumn.mean_melting_pressure``), with the melt-production weighted mean
     temperature along the path.
 ``"path"``
     Anywhere along the melting path, with probability proportional to the melt made
-    there: L_i = sum_k w_k N(P_i; P_k, s_P^2) [N(T_i; T_k, s_T^2)], the midpoint rule on
+    there: L_i = sum_k w_k N2((P_i, T_i); (P_k, T_k), C_i), the midpoint rule on
     ``path_points`` equal-pressure intervals of the path (``MeltColumn.path``), evaluated
     for all walkers and rows at once with log-sum-exp.
 
-s_P^2 = sigma_gpa^2 + model_error^2 and s_T^2 = sigma_c^2 + temperature_model_error^2.
+N2 is the bivariate normal with covariance C_i = [[s_P^2, rho_i sigma_P sigma_T],
+[rho_i sigma_P sigma_T, s_T^2]], where s_P^2 = sigma_gpa^2 + model_error^2 and
+s_T^2 = sigma_c^2 + temperature_model_error^2: the correlation belongs to the stated
+(analytical) errors, and the model errors are added independently, so the correlation of
+the total errors is rho_i sigma_P sigma_T / (s_P s_T). Without temperatures L_i is the
+normal N(P_i; P, s_P^2); without ``pt_correlation`` rho_i = 0 (two independent normals).
+Either model error may be free (`inversion.observations.model_error`).
+
 Each row is an observed melt, so where the model makes no melt every row gets the
-no-melt penalty of `inversion.observations.base` with the constant offset
-`NO_MELT_OFFSET` (the likelihood is evaluated at the degenerate point top = onset).
+sloping no-melt penalty of `inversion.observations.base`. The likelihood is then
+evaluated at the degenerate point top = onset, which is also the limit of each
+equilibration model as the melting interval shrinks to nothing, so the log-likelihood
+joins the melting side continuously (no constant offset) and falls by `NO_MELT_SLOPE` nats
+per km per row away from it.
 """
 
 from __future__ import annotations
@@ -34,29 +47,36 @@ import numpy as np
 from scipy.special import logsumexp
 
 from .._errors import InputError, suggest
+from ..priors import Prior
 from .base import (
     NO_MELT_SLOPE,
     ObservationSet,
+    _fixed,
     _frozen,
-    _non_negative,
+    bivariate_logpdf,
+    describe_errors,
     gaussian_logpdf,
     melting_distance,
     require_single,
 )
+from .model_error import combine_sigma, parse_error_setting
 from .tables import ColumnRule
 
-__all__ = ["EQUILIBRATION", "NO_MELT_OFFSET", "PRESSURE_RANGE", "TEMPERATURE_RANGE",
-           "MeltingPressure"]
+__all__ = ["EQUILIBRATION", "PRESSURE_RANGE", "TEMPERATURE_RANGE", "MeltingPressure"]
 
-#: Where the observed melts are assumed to have equilibrated.
-EQUILIBRATION = ("top", "pooled", "path")
-#: Nats subtracted per row where the model makes no melt (an observed melt exists).
-NO_MELT_OFFSET = 50.0
+#: Where the observed melts are assumed to have equilibrated, and what each choice means.
+EQUILIBRATION = {
+    "top": "at the top of melting (the lid base, or the onset when the lid is deeper)",
+    "pooled": "at the mean melting pressure and temperature of the pooled melt",
+    "path": "anywhere along the melting path, weighted by melt production",
+}
 #: Accepted range of observed pressures, GPa (the forward model spans 0-10 GPa).
 PRESSURE_RANGE = (0.0, 10.0)
 #: Accepted range of observed temperatures, degC (a sanity check on units, not physics).
 TEMPERATURE_RANGE = (800.0, 2000.0)
 _PATH_POINTS = (8, 1024)
+_EQUILIBRATION_CHOICES = ", ".join(f'"{k}" ({v})' for k, v in EQUILIBRATION.items())
+_TEMPERATURE_COLUMNS = ("temperature_c", "sigma_c")
 
 
 class MeltingPressure(ObservationSet):
@@ -66,16 +86,17 @@ class MeltingPressure(ObservationSet):
     ----------
     data : pandas.DataFrame
         Columns ``sample``, ``pressure_gpa``, ``sigma_gpa`` [, ``temperature_c``,
-        ``sigma_c``] (validated).
-    file : path-like, optional
-    model_error : float
-        GPa, added to sigma_gpa in quadrature.
-    lines : sequence of int, optional
+        ``sigma_c`` [, ``pt_correlation``]] (validated).
     equilibration : {"top", "pooled", "path"}
+        Required: where the melts last equilibrated (see the module docstring).
+    file : path-like, optional
+    model_error : float or Prior
+        GPa, added to sigma_gpa in quadrature (a `Prior`: free).
+    lines : sequence of int, optional
     path_points : int
         Number of path intervals for "pooled" temperatures and "path" (8-1024, default 64).
-    temperature_model_error : float
-        degC, added to sigma_c in quadrature.
+    temperature_model_error : float or Prior
+        degC, added to sigma_c in quadrature (a `Prior`: free; needs temperatures).
     """
 
     kind = "melting_pressure"
@@ -85,10 +106,11 @@ class MeltingPressure(ObservationSet):
     value_column = "pressure_gpa"
     sigma_column = "sigma_gpa"
     option_keys = ("equilibration", "path_points", "temperature_model_error")
+    error_options = ("model_error", "temperature_model_error")
 
-    def __init__(self, data, *, file=None, model_error=0.0, lines=None,
-                 equilibration: str = "top", path_points: int = 64,
-                 temperature_model_error: float = 0.0) -> None:
+    def __init__(self, data, *, equilibration: str, file=None, model_error=0.0,
+                 lines=None, path_points: int = 64,
+                 temperature_model_error: float | Prior = 0.0) -> None:
         super().__init__(data, file=file, model_error=model_error, lines=lines)
         options = self._parse_options({"equilibration": equilibration,
                                        "path_points": path_points,
@@ -97,10 +119,20 @@ class MeltingPressure(ObservationSet):
         self.equilibration = options["equilibration"]
         self.path_points = options["path_points"]
         self.temperature_model_error = options["temperature_model_error"]
+        rows = len(data)
         if self.has_temperature:
             self._temperature = _frozen(data["temperature_c"])
-            self._temperature_sigma = _frozen(np.hypot(data["sigma_c"].to_numpy(float),
-                                                       self.temperature_model_error))
+            self._stated_t_sigma = _frozen(data["sigma_c"])
+        elif isinstance(self.temperature_model_error, Prior):
+            raise InputError("a free temperature_model_error needs temperatures "
+                             "(columns temperature_c and sigma_c) in the table",
+                             key="temperature_model_error")
+        else:
+            self._temperature = self._stated_t_sigma = _frozen(np.full(rows, np.nan))
+        self._temperature_sigma = _frozen(combine_sigma(
+            self._stated_t_sigma, _fixed(self.temperature_model_error), "", None))
+        self._rho = _frozen(data["pt_correlation"] if "pt_correlation" in data.columns
+                            else np.zeros(rows))
 
     @classmethod
     def column_rules(cls, **options):
@@ -118,23 +150,33 @@ class MeltingPressure(ObservationSet):
             ColumnRule("sigma_c", low=0.0, low_open=True, unit="degC",
                        why="a 1-sigma uncertainty must be positive"),
         ]
-        return required, [temperature]
+        correlation = [
+            ColumnRule("pt_correlation", low=-1.0, high=1.0, low_open=True, high_open=True,
+                       requires=_TEMPERATURE_COLUMNS,
+                       why="a correlation coefficient lies strictly between -1 and 1"),
+        ]
+        return required, [temperature, correlation]
 
     @classmethod
     def _parse_options(cls, spec: Mapping, where: str) -> dict:
-        equilibration = spec.get("equilibration", "top")
-        if equilibration not in EQUILIBRATION:
-            raise InputError(f"unknown value {equilibration!r}"
-                             + suggest(str(equilibration), EQUILIBRATION),
+        if "equilibration" not in spec:
+            raise InputError("missing 'equilibration', where the basalts last equilibrated"
+                             " with the mantle: " + _EQUILIBRATION_CHOICES,
                              key=f"{where}.equilibration")
+        equilibration = spec["equilibration"]
+        if not isinstance(equilibration, str) or equilibration not in EQUILIBRATION:
+            hint = suggest(str(equilibration), tuple(EQUILIBRATION))
+            hint = hint if hint.startswith("; did you mean") else ""
+            raise InputError(f"unknown value {equilibration!r}{hint}; choose "
+                             + _EQUILIBRATION_CHOICES, key=f"{where}.equilibration")
         points = spec.get("path_points", 64)
         low, high = _PATH_POINTS
         if isinstance(points, bool) or not isinstance(points, int) or \
                 not low <= points <= high:
             raise InputError(f"{points!r} must be a whole number from {low} to {high}",
                              key=f"{where}.path_points")
-        t_error = _non_negative(spec.get("temperature_model_error", 0.0),
-                                f"{where}.temperature_model_error")
+        t_error = parse_error_setting(spec.get("temperature_model_error", 0.0),
+                                      f"{where}.temperature_model_error")
         return {"equilibration": equilibration, "path_points": points,
                 "temperature_model_error": t_error}
 
@@ -150,20 +192,37 @@ class MeltingPressure(ObservationSet):
         return "temperature_c" in self.data.columns
 
     @property
+    def has_correlation(self) -> bool:
+        """Whether the table gives P-T error correlations (``pt_correlation``)."""
+        return "pt_correlation" in self.data.columns
+
+    @property
     def temperature(self) -> np.ndarray:
-        """Observed temperatures, degC, shape (rows,) (read-only)."""
+        """Observed temperatures, degC, shape (rows,) (read-only; NaN without them)."""
         return self._temperature
 
     @property
     def temperature_sigma(self) -> np.ndarray:
-        """Total 1-sigma temperature uncertainty incl. model error, degC, shape (rows,)."""
+        """1-sigma temperature uncertainty incl. a fixed model error, degC, (rows,)."""
         return self._temperature_sigma
 
-    def observed(self) -> dict[str, np.ndarray]:
-        out = super().observed()
+    @property
+    def pt_correlation(self) -> np.ndarray:
+        """Correlation of each row's stated P and T errors, shape (rows,) (0 if not given)."""
+        return self._rho
+
+    def total_temperature_sigma(self, errors: Mapping | None = None) -> np.ndarray:
+        """Like `total_sigma`, for the temperatures: (rows,) or (n, rows)."""
+        return self._sd(self._stated_t_sigma, "temperature_model_error",
+                        self._temperature_sigma, errors)
+
+    def observed(self, errors: Mapping | None = None) -> dict[str, np.ndarray]:
+        out = super().observed(errors)
         if self.has_temperature:
             out["temperature"] = self.temperature
-            out["temperature_sigma"] = self.temperature_sigma
+            out["temperature_sigma"] = self.temperature_sigma \
+                if errors is None or "temperature_model_error" not in self.free_errors \
+                else self.total_temperature_sigma(errors)
         return out
 
     # ---- model side --------------------------------------------------------------------
@@ -223,33 +282,43 @@ class MeltingPressure(ObservationSet):
         temperature = None if temperature is None else temperature[..., None]
         return pressure[..., None], temperature, np.ones(pressure.shape + (1,))
 
-    def _per_row(self, column) -> np.ndarray:
+    def _row_logpdf(self, dp, dt, errors: Mapping | None, *, axis: bool) -> np.ndarray:
+        """Log density of residuals dp (GPa) and dt (degC or None) of every row.
+
+        The residuals have shape (n, rows) or, with ``axis=True``, (n, rows, k) for k
+        path points; the sigmas and correlation of each row broadcast against them.
+        """
+        def per_row(a):
+            return a[..., None] if axis else a
+
+        s_p = self.total_sigma(errors)
+        if dt is None:
+            return gaussian_logpdf(dp, 0.0, per_row(s_p))
+        s_t = self.total_temperature_sigma(errors)
+        # The stated errors are correlated; the model errors are added independently.
+        rho = self._rho * self._stated_sigma * self._stated_t_sigma / (s_p * s_t)
+        return bivariate_logpdf(dp, dt, per_row(s_p), per_row(s_t), per_row(rho))
+
+    def _per_row(self, column, errors: Mapping | None) -> np.ndarray:
         """Log-likelihood of every row, shape (n, rows)."""
-        s_p = self.sigma
         if self.equilibration == "path":
             pressure, temperature, weight = self._path(column)
-            terms = gaussian_logpdf(self.values[:, None], pressure[..., None, :],
-                                    s_p[:, None])
-            if temperature is not None:
-                terms = terms + gaussian_logpdf(self.temperature[:, None],
-                                                temperature[..., None, :],
-                                                self.temperature_sigma[:, None])
+            dp = self.values[:, None] - pressure[..., None, :]
+            dt = None if temperature is None else \
+                self.temperature[:, None] - temperature[..., None, :]
+            terms = self._row_logpdf(dp, dt, errors, axis=True)
             with np.errstate(divide="ignore"):
                 log_w = np.log(weight)[..., None, :]
             return logsumexp(terms + log_w, axis=-1)
         pressure, temperature = self._point(column)
-        per_row = gaussian_logpdf(self.values, pressure[..., None], s_p)
-        if temperature is not None:
-            per_row = per_row + gaussian_logpdf(self.temperature, temperature[..., None],
-                                                self.temperature_sigma)
-        return per_row
+        dt = None if temperature is None else self.temperature - temperature[..., None]
+        return self._row_logpdf(self.values - pressure[..., None], dt, errors, axis=False)
 
-    def pointwise_log_likelihood(self, column, *,
-                                 parameters: Mapping | None = None) -> np.ndarray:
-        dry = ~np.asarray(column.produces_melt, bool)
-        distance = melting_distance(column, parameters)
-        penalty = np.where(dry, NO_MELT_OFFSET + NO_MELT_SLOPE * distance, 0.0)
-        return self._per_row(column) - penalty[..., None]
+    def pointwise_log_likelihood(self, column, *, parameters: Mapping | None = None,
+                                 errors: Mapping | None = None) -> np.ndarray:
+        # The distance is 0 wherever melt forms, so the penalty needs no mask.
+        penalty = NO_MELT_SLOPE * melting_distance(column, parameters)
+        return self._per_row(column, errors) - penalty[..., None]
 
     def predict(self, column) -> dict[str, np.ndarray]:
         """Model prediction per row, arrays of shape (n, rows).
@@ -276,7 +345,8 @@ class MeltingPressure(ObservationSet):
             out["temperature"] = spread(point_t)
         return out
 
-    def simulate(self, column, rng: np.random.Generator) -> MeltingPressure:
+    def simulate(self, column, rng: np.random.Generator, *,
+                 errors: Mapping | None = None) -> MeltingPressure:
         require_single(column, "simulate")
         rows = len(self)
         if self.equilibration == "path":
@@ -289,21 +359,24 @@ class MeltingPressure(ObservationSet):
             p, t = self._point(column)
             point_p = np.full(rows, float(np.ravel(p)[0]))
             point_t = None if t is None else np.full(rows, float(np.ravel(t)[0]))
-        new = {self.value_column: point_p + self.sigma * rng.standard_normal(rows)}
+        z_p = rng.standard_normal(rows)
+        s_p = np.reshape(self.total_sigma(errors), rows)  # errors: scalar or (1,) each
+        new = {self.value_column: point_p + s_p * z_p}
         if point_t is not None:
-            new["temperature_c"] = point_t + self.temperature_sigma * rng.standard_normal(rows)
+            z_t = rng.standard_normal(rows)
+            s_t = np.reshape(self.total_temperature_sigma(errors), rows)
+            rho = self._rho * self._stated_sigma * self._stated_t_sigma / (s_p * s_t)
+            new["temperature_c"] = point_t + s_t * (rho * z_p + np.sqrt(1 - rho**2) * z_t)
         return self._replace_values(new, **self._options())
 
     def describe(self) -> str:
         where = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
-                 "path": "anywhere along the melting path, weighted by melt production"}
+                 "path": EQUILIBRATION["path"]}
         what = "pressure-temperature point" if self.has_temperature else "pressure"
         what += "" if len(self) == 1 else "s"
-        errors = []
-        if self.model_error:
-            errors.append(f"{self.model_error:g} GPa")
-        if self.has_temperature and self.temperature_model_error:
-            errors.append(f"{self.temperature_model_error:g} degC")
-        extra = f" (model error {', '.join(errors)})" if errors else ""
+        if self.has_correlation:
+            what += " with correlated P-T errors"
+        extra = describe_errors(self, {"model_error": "GPa",
+                                       "temperature_model_error": "degC"})
         return (f"{len(self)} melting {what} from {self.name}, equilibrated "
                 f"{where[self.equilibration]}{extra}")

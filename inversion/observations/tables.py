@@ -43,12 +43,15 @@ class ColumnRule:
         True: every cell is a finite number; False: every cell is a non-empty text.
     low, high : float, optional
         Allowed range of a numeric column.
-    low_open : bool
-        The value must be strictly greater than `low` (e.g. a standard deviation > 0).
+    low_open, high_open : bool
+        The value must be strictly greater than `low` (e.g. a standard deviation > 0) or
+        strictly less than `high`.
     unit : str
         Unit shown in messages.
     why : str
         Short reason appended to a range message, e.g. ``"a thickness cannot be negative"``.
+    requires : tuple of str
+        Other columns this one is meaningful only with (checked on the header).
     """
 
     name: str
@@ -58,23 +61,35 @@ class ColumnRule:
     low_open: bool = False
     unit: str = ""
     why: str = ""
+    high_open: bool = False
+    requires: tuple[str, ...] = ()
 
     def rule_text(self) -> str:
         """The range rule in words, e.g. ``"must be > 0 GPa"``."""
         unit = f" {self.unit}" if self.unit else ""
-        if self.low is not None and self.high is not None:
+        low = f"{'>' if self.low_open else '>='} {self.low:g}" if self.low is not None else ""
+        high = f"{'<' if self.high_open else '<='} {self.high:g}" \
+            if self.high is not None else ""
+        if low and high and not (self.low_open or self.high_open):
             return f"must be between {self.low:g} and {self.high:g}{unit}"
-        if self.low is not None:
-            return f"must be {'>' if self.low_open else '>='} {self.low:g}{unit}"
-        if self.high is not None:
-            return f"must be <= {self.high:g}{unit}"
+        if low or high:
+            return f"must be {' and '.join(part for part in (low, high) if part)}{unit}"
         return "must be a finite number"
 
     def broken(self, value: float) -> bool:
         """True if `value` breaks the range rule."""
         if self.low is not None and (value <= self.low if self.low_open else value < self.low):
             return True
-        return self.high is not None and value > self.high
+        return self.high is not None and (value >= self.high if self.high_open
+                                          else value > self.high)
+
+    def unmet(self, columns) -> str | None:
+        """A message if a column in `requires` is missing from `columns`, else None."""
+        missing = [name for name in self.requires if name not in columns]
+        if not missing:
+            return None
+        return (f"column '{self.name}' is allowed only together with "
+                + ", ".join(self.requires) + " (missing: " + ", ".join(missing) + ")")
 
 
 @dataclass(frozen=True)
@@ -216,6 +231,9 @@ def _rules_for(header, header_line, required, optional, path) -> list[ColumnRule
             raise missing(absent, f", needed together with {others}")
         if all(present):
             rules.extend(group)
+    for rule in rules:
+        if (problem := rule.unmet(header)) is not None:
+            raise InputError(problem, file=path, row=header_line, column=rule.name)
     return rules
 
 
@@ -251,6 +269,8 @@ def validate_frame(
             raise InputError(f"missing column '{rule.name}'"
                              + suggest(rule.name, out.columns, list_choices=False),
                              file=file, column=rule.name)
+        if (problem := rule.unmet(out.columns)) is not None:
+            raise InputError(problem, file=file, column=rule.name)
         values = [_cell(v, rule, file, line) for v, line in zip(out[rule.name], lines,
                                                                strict=True)]
         out[rule.name] = pd.Series(values, index=out.index,
