@@ -18,7 +18,15 @@ def table_cache(tmp_path_factory):
     ``LIDMELT_TEST_CACHE`` to a folder to keep them between sessions instead.
     """
     kept = os.environ.get("LIDMELT_TEST_CACHE")
-    folder = Path(kept) if kept else tmp_path_factory.mktemp("lidmelt-cache")
+    if kept:
+        folder = Path(kept)
+    elif "PYTEST_XDIST_WORKER" in os.environ:
+        # parallel workers share one folder of this run (the tables are built once, under
+        # the cache's per-table lock), inside the run's own temporary root
+        folder = tmp_path_factory.getbasetemp().parent / "lidmelt-cache"
+        folder.mkdir(exist_ok=True)
+    else:
+        folder = tmp_path_factory.mktemp("lidmelt-cache")
     with pytest.MonkeyPatch.context() as patch:
         patch.setenv("LIDMELT_CACHE", str(folder))
         patch.delenv("LIDMELT_CACHE_MAX_MB", raising=False)
