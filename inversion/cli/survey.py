@@ -75,13 +75,17 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _print_result(result) -> None:
+    from ...forward.quantities import unit_text
+
     folder = Path(result.folder).resolve()
     n = len(result.records)
     print(f"survey: {n - len(result.failed)} of {n} sites gave a result")
     if result.area is not None:
         for _, row in result.area.iterrows():
+            unit = unit_text(row["unit"])
+            low, high = (f"{row[q]:.1f}".replace("-", "\u2212") for q in ("q2.5", "q97.5"))
             print(f"  {row['parameter']} ({row['meaning']}): median {row['median']:.1f} "
-                  f"{row['unit']}, 95 % interval {row['q2.5']:.1f}-{row['q97.5']:.1f}")
+                  f"{unit}, 95 % interval {low} to {high} {unit}")
     for record in result.failed:
         print(f"lidmelt survey: site '{record['site']}': {record['status']}",
               file=sys.stderr)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from ...forward import get_parameterization
 from .job import TP
 
 __all__ = ["profile_figure"]
@@ -135,7 +136,8 @@ def profile_figure(result, plan):
     mode = {"independent": "each site on its own",
             "joint": "hierarchical: site Tp around an area mean"
             if plan.settings.hierarchical else "joint: one Tp shared by every site"}
+    melting = get_parameterization(plan.study.model.parameterization).title
     fig.suptitle(f"{plan.study.name} — {n} sites, {mode[plan.mode]}\n"
-                 f"{plan.study.model.parameterization} melting; scientific estimates that "
-                 "depend on the chosen parameterization", fontsize=10)
+                 f"{melting} melting; scientific estimates that depend on the chosen "
+                 "parameterization", fontsize=10)
     return fig
