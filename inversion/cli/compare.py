@@ -126,7 +126,8 @@ def _pct(p: float) -> str:
 
 def _print_result(result, out: Path) -> None:
     table = result.table().set_index("scenario")
-    print(f"{result.scenarios.base.name}: {len(result.results)} scenario(s) compared")
+    n = len(result.results)
+    print(f"{result.scenarios.base.name}: {n} scenario{'s' if n != 1 else ''} compared")
     print(f"  {'scenario':<16} {'probability':>12} {'ln Z':>17} {'elpd_loo':>15}")
     for name in table.index:
         row = table.loc[name]

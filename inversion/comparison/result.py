@@ -220,7 +220,8 @@ def _scenario_warnings(r: ScenarioResult) -> list[str]:
         labels = LogPosterior(r.scenario.study).rows
         rows = [f"{labels[i][0]} {labels[i][1]}" for i in bad]
         out.append(
-            f"'{r.name}': PSIS-LOO is unreliable for {bad.size} observation row(s) "
+            f"'{r.name}': PSIS-LOO is unreliable for {bad.size} observation "
+            f"{'rows' if bad.size != 1 else 'row'} "
             f"({', '.join(rows)}; Pareto k up to {r.loo.pareto_k_max:.2f} > "
             f"{PARETO_K_WARN:g}): these rows pull the posterior strongly.")
     out.extend(f"'{r.name}': {line}." for line in r.posterior_warnings)
