@@ -29,7 +29,7 @@ COLUMN_TARGET_SECONDS = 1.0
 def _lidmelt() -> list[str]:
     """The installed console script, or the same entry point through ``-m``."""
     script = shutil.which("lidmelt")
-    return [script] if script else [sys.executable, "-m", "lidmelt.inversion.cli"]
+    return [script] if script else [sys.executable, "-m", "lidmelt.cli"]
 
 
 def _median_seconds(argv: list[str], repeat: int) -> float:

@@ -41,7 +41,7 @@ def reference(tmp_path_factory):
     be placed at the second and third checkpoint records.
     """
     from helpers import small_study
-    from lidmelt.inversion.cli import main
+    from lidmelt.cli import main
 
     root = tmp_path_factory.mktemp("reference")
     study = small_study(root / "study")

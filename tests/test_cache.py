@@ -17,7 +17,7 @@ import numpy as np
 import platformdirs
 import pytest
 from lidmelt.forward import _cache, _path_facts, _table, get_parameterization, melt_column
-from lidmelt.inversion.cli import main
+from lidmelt.cli import main
 
 KATZ = get_parameterization("katz2003")
 TINY_AXES = (_table._Axis(1300.0, 50.0, 3), _table._Axis(0.0, 1.0, 1),
@@ -414,7 +414,7 @@ def test_cache_command_when_off_or_empty(monkeypatch, tmp_path, capsys):
 
 
 def test_cli_subprocess_sees_the_session_cache(table_cache):
-    run = subprocess.run([sys.executable, "-m", "lidmelt.inversion.cli", "cache"],
+    run = subprocess.run([sys.executable, "-m", "lidmelt.cli", "cache"],
                          capture_output=True, text=True, env=dict(os.environ), check=True)
     assert f"table cache: {table_cache} (from LIDMELT_CACHE)" in run.stdout
 

@@ -4,7 +4,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from lidmelt.forward import melt_column
-from lidmelt.inversion.checks import check_blocks
+from lidmelt.inversion.results.checks import check_blocks
 from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
 from scipy import stats
 

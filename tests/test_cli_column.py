@@ -6,8 +6,8 @@ import json
 
 import pytest
 from lidmelt.forward import melt_column
-from lidmelt.inversion.cli import main
-from lidmelt.inversion.cli.column import parse_values
+from lidmelt.cli import main
+from lidmelt.cli.column import parse_values
 
 
 def test_crust_against_tp_for_a_30_km_lid(capsys):

@@ -24,8 +24,8 @@ from matplotlib.colors import to_rgb
 from lidmelt import demo_data
 from lidmelt.forward import figure_style as style
 from lidmelt.inversion import OUTPUT_FILES, SUMMARY_COLUMNS
-from lidmelt.inversion._checkpoint import stored_steps
-from lidmelt.inversion.cli import main
+from lidmelt.inversion.fitting.checkpoint import stored_steps
+from lidmelt.cli import main
 
 
 def _fit(capsys, *argv):
@@ -249,7 +249,7 @@ def test_sigterm_keeps_a_resumable_checkpoint(tmp_path, capsys):
         "walkers = 16\nseed = 9\nstart = \"map\"\ness_target = 5000\ncheck_interval = 50\n"))
     out_dir = tmp_path / "run"
     process = subprocess.Popen(
-        [sys.executable, "-m", "lidmelt.inversion.cli", "fit", str(study), "--out", str(out_dir)],
+        [sys.executable, "-m", "lidmelt.cli", "fit", str(study), "--out", str(out_dir)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=dict(os.environ, MPLBACKEND="Agg"))
     try:
         _wait_for(process, b"ESS ", timeout=120)
@@ -284,7 +284,7 @@ def test_repeated_ctrl_c_is_one_line_and_resume_is_byte_identical(tmp_path, caps
     out_dir = tmp_path / "run"
     env = dict(os.environ, MPLBACKEND="Agg")
     process = subprocess.Popen(
-        [sys.executable, "-m", "lidmelt.inversion.cli", "fit", str(study), "--out",
+        [sys.executable, "-m", "lidmelt.cli", "fit", str(study), "--out",
          str(out_dir), "--quiet"],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, preexec_fn=_ctrl_c_enabled)
     try:

@@ -5,7 +5,7 @@ import sys
 from importlib import metadata
 
 import pytest
-from lidmelt.inversion.cli import main
+from lidmelt.cli import main
 
 # Loaded only by the command that needs them (sampler, HDF5, tables, plotting).
 HEAVY = ("emcee", "h5py", "pandas", "scipy", "matplotlib", "corner", "tqdm")
@@ -20,12 +20,12 @@ def _loaded_after(statement: str) -> list[str]:
 
 
 @pytest.mark.parametrize("statement", [
-    "import lidmelt.inversion.cli",
+    "import lidmelt.cli",
     "import lidmelt",
     "import lidmelt.inversion",
-    "from lidmelt.inversion.cli import build_parser; build_parser().format_help()",
+    "from lidmelt.cli import build_parser; build_parser().format_help()",
     # a table of melting columns needs only numpy
-    "import contextlib, io; from lidmelt.inversion.cli import main; "
+    "import contextlib, io; from lidmelt.cli import main; "
     "f = io.StringIO(); ctx = contextlib.redirect_stdout(f); ctx.__enter__(); "
     "main(['column']); ctx.__exit__(None, None, None)",
 ])

@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from lidmelt.inversion import OUTPUT_FILES, read_scenarios
-from lidmelt.inversion.cli import main
+from lidmelt.cli import main
 from lidmelt.inversion.comparison import EVIDENCE_COLUMNS, ComparisonWarning
 from lidmelt.inversion.comparison.outputs import COMPARISON_FILES, SCENARIO_FILE
 

@@ -20,7 +20,7 @@ from lidmelt.inversion.comparison import (
 from lidmelt.inversion.comparison.checks import FitCheck
 from lidmelt.inversion.comparison.report import render
 from lidmelt.inversion.comparison.result import ScenarioResult
-from lidmelt.inversion.scenarios import Scenario, ScenarioSet
+from lidmelt.inversion.study.scenarios import Scenario, ScenarioSet
 
 DATA = Path(__file__).parent / "data"
 

@@ -11,11 +11,11 @@ import pandas as pd
 import pytest
 from helpers import small_study
 from lidmelt import forward, inversion
-from lidmelt.inversion import report
-from lidmelt.inversion._diagnostics import converged_rhat, rhat_too_high, split_rhat
-from lidmelt.inversion._progress import SamplingProgress
-from lidmelt.inversion.model import DERIVED
-from lidmelt.inversion.sampler import ChainResult, _Rule, assess_chain
+from lidmelt.inversion.results import report
+from lidmelt.inversion.fitting.convergence import converged_rhat, rhat_too_high, split_rhat
+from lidmelt.inversion.fitting.progress import SamplingProgress
+from lidmelt.inversion.fitting.log_posterior import DERIVED
+from lidmelt.inversion.fitting.sampler import ChainResult, _Rule, assess_chain
 
 CAPPED = "walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 300\ntau_multiple = 25\n" \
          "check_interval = 50\nmax_steps = 150\n"

@@ -16,7 +16,8 @@ import lidmelt
 def _module_names() -> list[str]:
     names = ["lidmelt"]
     for info in pkgutil.walk_packages(lidmelt.__path__, prefix="lidmelt."):
-        if not info.name.endswith("__main__"):
+        # __main__ runs the command line; setup.py is the build script, not installed
+        if not info.name.endswith("__main__") and info.name != "lidmelt.setup":
             names.append(info.name)
     return sorted(names)
 

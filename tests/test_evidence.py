@@ -19,8 +19,8 @@ from lidmelt.inversion.comparison import (
     quadrature_evidence,
     scenario_evidence,
 )
-from lidmelt.inversion.grid import grid_posterior
-from lidmelt.inversion.priors import LogUniform, Normal, TruncatedNormal, Uniform
+from lidmelt.inversion.fitting.grid import grid_posterior
+from lidmelt.inversion.study.priors import LogUniform, Normal, TruncatedNormal, Uniform
 from scipy import integrate, stats
 from toys import GaussianToy
 
@@ -99,7 +99,7 @@ def test_nested_sampling_matches_quadrature_on_a_melting_study(thinned, thinned_
     assert thinned.names == ("potential_temperature", "lithosphere_thickness")
     assert abs(estimate.log_evidence - estimate.quadrature) < 0.15
     assert not estimate.disagrees
-    # the parameter-space grid against the probability-space grid of inversion.grid
+    # the parameter-space grid against the probability-space grid of inversion.fitting.grid
     # (another integrator, with its own box search)
     other = grid_posterior(thinned.log_likelihood, thinned.names, thinned.priors,
                            max_points=40_000)

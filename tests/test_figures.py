@@ -11,7 +11,7 @@ from lidmelt import demo_data, inversion
 from lidmelt.forward import figure_style as style
 from lidmelt.forward import melt_column
 from lidmelt.forward._pt_figure import write_column_figure
-from lidmelt.inversion import figures
+from lidmelt.inversion.results import figures
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.text import Text

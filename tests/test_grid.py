@@ -1,4 +1,4 @@
-"""Grid quadrature of posteriors and evidence (inversion.grid) against closed forms."""
+"""Grid quadrature of posteriors and evidence (inversion.fitting.grid) against closed forms."""
 
 from __future__ import annotations
 
@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from lidmelt.inversion.grid import Grid, find_box, grid_posterior, prior_axis
-from lidmelt.inversion.priors import LogUniform, Normal, TruncatedNormal, Uniform
+from lidmelt.inversion.fitting.grid import Grid, find_box, grid_posterior, prior_axis
+from lidmelt.inversion.study.priors import LogUniform, Normal, TruncatedNormal, Uniform
 
 
 def test_gaussian_toy_evidence_is_exact():

@@ -9,8 +9,8 @@ from pathlib import Path
 import pytest
 from helpers import small_study
 from lidmelt import inversion
-from lidmelt.inversion.cli import fit as cli_fit
-from lidmelt.inversion.cli import main
+from lidmelt.cli import fit as cli_fit
+from lidmelt.cli import main
 
 CRUST_HEAD = "site,thickness_km,sigma_km\n"
 

@@ -11,7 +11,7 @@ from lidmelt import Study, demo_data
 from lidmelt.inversion import LogPosterior
 from lidmelt.inversion.comparison import elpd_differences, loo_fixed, loo_from_draws
 from lidmelt.inversion.comparison.loo import _arviz, posterior_draws
-from lidmelt.inversion.priors import Normal
+from lidmelt.inversion.study.priors import Normal
 from scipy import stats
 from toys import GaussianToy
 

@@ -10,8 +10,8 @@ from numpy.testing import assert_allclose
 from scipy import integrate, special, stats
 
 from lidmelt import forward
-from lidmelt.inversion._errors import InputError
-from lidmelt.inversion.priors import LogUniform, TruncatedNormal, Uniform
+from lidmelt.inversion.errors import InputError
+from lidmelt.inversion.study.priors import LogUniform, TruncatedNormal, Uniform
 from lidmelt.inversion.observations import (
     KINDS,
     NO_MELT_SLOPE,

@@ -11,9 +11,9 @@ from pathlib import Path
 
 import pytest
 from lidmelt import demo_data, inversion
-from lidmelt.inversion import figures
-from lidmelt.inversion.cli import build_parser, main
-from lidmelt.inversion.study import _MODEL_KEYS, _SAMPLER_KEYS, _STUDY_KEYS, _TOP_KEYS
+from lidmelt.inversion.results import figures
+from lidmelt.cli import build_parser, main
+from lidmelt.inversion.study.file import _MODEL_KEYS, _SAMPLER_KEYS, _STUDY_KEYS, _TOP_KEYS
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.text import Text
 

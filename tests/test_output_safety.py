@@ -11,14 +11,14 @@ from pathlib import Path
 import pytest
 from helpers import small_study
 from lidmelt.inversion import InputError
-from lidmelt.inversion._safety import (
+from lidmelt.inversion.outputs.folder import (
     MANIFEST,
     check_replaceable,
     output_lock,
     remove_stale_temporaries,
     write_manifest,
 )
-from lidmelt.inversion.cli import main
+from lidmelt.cli import main
 
 
 def _snapshot(folder: Path) -> dict:

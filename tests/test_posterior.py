@@ -15,10 +15,10 @@ from scipy.stats.mstats import mquantiles
 from lidmelt import demo_data
 from lidmelt import forward
 from lidmelt import inversion
-from lidmelt.inversion import figures
-from lidmelt.inversion.model import DERIVED, LogPosterior
+from lidmelt.inversion.results import figures
+from lidmelt.inversion.fitting.log_posterior import DERIVED, LogPosterior
 from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
-from lidmelt.inversion.priors import LogUniform, Uniform
+from lidmelt.inversion.study.priors import LogUniform, Uniform
 
 
 @pytest.fixture(scope="module")
@@ -158,7 +158,7 @@ def test_step_cap_flags_not_converged_everywhere(study, tmp_path):
 
 
 def test_report_states_numbers_with_units_and_caution(quick):
-    from lidmelt.inversion.report import render
+    from lidmelt.inversion.results.report import render
 
     text = render(quick)
     row = quick.summary().set_index("parameter").loc["potential_temperature"]
@@ -169,7 +169,7 @@ def test_report_states_numbers_with_units_and_caution(quick):
 
 
 def test_report_states_every_sampler_setting_used(quick):
-    from lidmelt.inversion.report import render
+    from lidmelt.inversion.results.report import render
 
     text = render(quick)
     section = text.split("## Sampler settings used")[1].split("##")[0]
@@ -266,7 +266,7 @@ def test_free_model_errors_are_summarised_reported_and_drawn(quick_errors):
     assert set(names) <= set(quick_errors.samples.columns)
     assert 0.01 <= quick_errors.map["crust.model_error"] <= 2.0  # inside its prior
 
-    from lidmelt.inversion.report import render
+    from lidmelt.inversion.results.report import render
 
     text = render(quick_errors)
     assert "Model error of crust" in text

@@ -9,8 +9,8 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy import stats
 
-from lidmelt.inversion._errors import InputError
-from lidmelt.inversion.priors import (
+from lidmelt.inversion.errors import InputError
+from lidmelt.inversion.study.priors import (
     LogUniform,
     Normal,
     TruncatedNormal,

@@ -15,7 +15,7 @@ from scipy import stats
 from lidmelt import demo_data
 from lidmelt import inversion
 from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
-from lidmelt.inversion.priors import Uniform
+from lidmelt.inversion.study.priors import Uniform
 
 # Five truths spread over the demo's prior (Tp degC, lid km, solidus offset degC).
 TRUTHS = [

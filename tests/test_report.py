@@ -4,7 +4,7 @@ import re
 
 import pytest
 from lidmelt import demo_data, inversion
-from lidmelt.inversion.report import interval_words, render
+from lidmelt.inversion.results.report import interval_words, render
 
 
 @pytest.fixture(scope="module")

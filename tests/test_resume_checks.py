@@ -7,9 +7,9 @@ import shutil
 import pytest
 from helpers import DiskFull, assert_same_outputs
 from lidmelt import _atomic, inversion
-from lidmelt.inversion import _provenance
-from lidmelt.inversion._checkpoint import stored_steps
-from lidmelt.inversion.cli import main
+from lidmelt.inversion.outputs import identity as _provenance
+from lidmelt.inversion.fitting.checkpoint import stored_steps
+from lidmelt.cli import main
 
 
 @pytest.fixture()

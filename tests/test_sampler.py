@@ -11,9 +11,9 @@ import pytest
 from scipy import stats
 
 from lidmelt.inversion import InputError, NotConvergedWarning
-from lidmelt.inversion._checkpoint import CheckpointBackend, stored_steps
-from lidmelt.inversion._diagnostics import converged_rhat, split_rhat
-from lidmelt.inversion.sampler import assess_chain, read_chain, run_chain, write_chain
+from lidmelt.inversion.fitting.checkpoint import CheckpointBackend, stored_steps
+from lidmelt.inversion.fitting.convergence import converged_rhat, split_rhat
+from lidmelt.inversion.fitting.sampler import assess_chain, read_chain, run_chain, write_chain
 
 
 class LinearGaussian:

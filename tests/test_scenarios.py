@@ -9,9 +9,9 @@ from pathlib import Path
 import pytest
 from lidmelt import demo_data
 from lidmelt.inversion import ComparisonSettings, InputError, Study, read_scenarios
-from lidmelt.inversion.cli import main
-from lidmelt.inversion.priors import Uniform
-from lidmelt.inversion.scenarios import ScenarioSet
+from lidmelt.cli import main
+from lidmelt.inversion.study.priors import Uniform
+from lidmelt.inversion.study.scenarios import ScenarioSet
 
 DATA = Path(__file__).parent / "data"
 TEXT = (DATA / "scenarios.toml").read_text()

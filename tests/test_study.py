@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 
 from lidmelt import forward
-from lidmelt.inversion._errors import InputError
+from lidmelt.inversion.errors import InputError
 from lidmelt.inversion.observations import CrustalThickness, MeltingPressure
-from lidmelt.inversion.priors import LogUniform, Normal, TruncatedNormal, Uniform
+from lidmelt.inversion.study.priors import LogUniform, Normal, TruncatedNormal, Uniform
 from lidmelt.inversion.study import DEFAULT_FIXED, PARAMETERS, ModelSettings, SamplerSettings, Study
 
 DATA = Path(__file__).parent / "data"

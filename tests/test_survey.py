@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from lidmelt.inversion.cli import main
+from lidmelt.cli import main
 from lidmelt.inversion.survey import read_sites, survey
 
 from survey_helpers import truth_table, write_sites, write_study
@@ -175,7 +175,7 @@ def test_resume_after_a_survey_killed_halfway(inputs, tmp_path):
     folder, study, _ = inputs
     many = write_sites(tmp_path, study, truth_table(1390.0, np.linspace(15, 45, 8)), 9)
     out = tmp_path / "killed"
-    command = [sys.executable, "-m", "lidmelt.inversion.cli", "survey", str(study),
+    command = [sys.executable, "-m", "lidmelt.cli", "survey", str(study),
                "--sites", str(many), "--out", str(out), "--workers", "1", "--quiet"]
     child = subprocess.Popen(command, start_new_session=True, stdout=subprocess.DEVNULL,
                              stderr=subprocess.DEVNULL)

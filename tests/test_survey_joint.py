@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from lidmelt.inversion.model import LogPosterior
-from lidmelt.inversion.priors import Uniform
+from lidmelt.inversion.fitting.log_posterior import LogPosterior
+from lidmelt.inversion.study.priors import Uniform
 from lidmelt.inversion.survey import (
     combine_hierarchical,
     combine_shared,

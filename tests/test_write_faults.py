@@ -9,9 +9,9 @@ from pathlib import Path
 
 from helpers import FULL, DiskFull, assert_same_outputs
 from lidmelt import _atomic
-from lidmelt.inversion._checkpoint import HEADER, stored_steps
-from lidmelt.inversion._safety import MANIFEST
-from lidmelt.inversion.cli import main
+from lidmelt.inversion.fitting.checkpoint import HEADER, stored_steps
+from lidmelt.inversion.outputs.folder import MANIFEST
+from lidmelt.cli import main
 
 
 def _fit(capsys, study, out, *extra):

@@ -1,6 +1,6 @@
 """Comparing competing scenarios of a study: Bayesian evidence and PSIS-LOO.
 
-`compare` takes a study file with ``[[scenarios]]`` (see `inversion.scenarios`) and, for
+`compare` takes a study file with ``[[scenarios]]`` (see `inversion.study.scenarios`) and, for
 every scenario, estimates the evidence with an error bar (`evidence`: nested sampling,
 cross-checked by quadrature where there are at most 3 free parameters), samples the
 posterior as ``lidmelt fit`` does, and computes the leave-one-out predictive accuracy

@@ -1,7 +1,7 @@
 """Checks of each scenario's posterior that the comparison report warns about.
 
 * `fit_check`: does the scenario fit the data at all? The posterior predictive check of
-  `inversion.checks` (discrepancy -2 log L of each observation block; Gelman, Meng &
+  `inversion.results.checks` (discrepancy -2 log L of each observation block; Gelman, Meng &
   Stern 1996, Statistica Sinica 6, 733), over draws of the scenario's posterior; the
   scenario is reported as not fitting when a block's p-value is below `NO_FIT_P`. A
   small p means the observed data are far less likely than data the scenario itself
@@ -46,7 +46,7 @@ class FitCheck:
 
 def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
               replicates: int = _REPLICATES) -> FitCheck:
-    """Posterior predictive p-value of each block's -2 log L (`inversion.checks`).
+    """Posterior predictive p-value of each block's -2 log L (`inversion.results.checks`).
 
     Parameters
     ----------
@@ -62,7 +62,7 @@ def fit_check(logpost, draws: np.ndarray, rng: np.random.Generator,
     products cannot be simulated there): each block's p-value is scaled by the share of
     draws that melt.
     """
-    from ..checks import check_blocks
+    from ..results.checks import check_blocks
 
     drawn = list(_columns(logpost, draws, rng, replicates))
     melting = [(theta, c) for theta, c in drawn if bool(np.all(c.produces_melt))]

@@ -146,7 +146,7 @@ def _draw_loo(ax, comparison) -> None:
 def _predictions(result, seed: int) -> list[dict]:
     """Posterior predictive panels of one scenario: observations and data simulated from
     its posterior draws (`checks.replicate_data`), one panel per observed quantity."""
-    from ..model import LogPosterior
+    from ..fitting.log_posterior import LogPosterior
 
     study = result.scenario.study
     if result.posterior is not None:

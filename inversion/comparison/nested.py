@@ -31,7 +31,7 @@ __all__ = ["NETWORKS", "NestedResult", "nested_evidence"]
 #: with one network took about 8 s against 30-47 s for 1000 points with four, and gave
 #: the same ln Z within the stated errors (-72.565 +- 0.005 over 4 seeds vs -72.561).
 NETWORKS = 1
-_BATCH = 2048  # points per likelihood call (cache-friendly size, see inversion.grid)
+_BATCH = 2048  # points per likelihood call (cache-friendly size, see inversion.fitting.grid)
 
 
 @dataclass(frozen=True)

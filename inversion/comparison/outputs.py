@@ -6,7 +6,7 @@ Layout of ``DIR``::
     compare.png         posteriors, predictions and scenario probabilities
     report.md           the comparison in words
     comparison.json     provenance: inputs (sha256), seed, settings, ranking
-    lidmelt-files.json  the manifest that marks the folder as lidmelt's (`inversion._safety`)
+    lidmelt-files.json  the manifest that marks the folder as lidmelt's (`inversion.outputs.folder`)
     <scenario>/         what ``lidmelt fit`` writes, plus scenario.json (evidence, LOO,
                         checks, wall times), with a manifest of its own
 
@@ -16,7 +16,7 @@ complete or absent); at the end the summary files are added and ``DIR.partial`` 
 renamed to ``DIR``. A resumed run reloads the finished scenarios after checking that the
 study file, its tables, the seed and the settings are unchanged.
 
-What may be replaced follows lidmelt's one rule (`inversion._safety`): never a file, the
+What may be replaced follows lidmelt's one rule (`inversion.outputs.folder`): never a file, the
 working folder or a folder holding an input; only a folder whose manifest lists
 everything in it. A comparison folder holds scenario folders, which that rule (written
 for flat folders) does not look into, so `check_replaceable` here checks each of them
@@ -35,10 +35,10 @@ from importlib import metadata
 from pathlib import Path
 
 from ..._atomic import staged_folder, temporary_target, write_bytes
-from .._errors import InputError, OutputConflict
-from .._outputs import _written as _guarded  # OSError (a full disk) -> WriteError
-from .._provenance import study_inputs
-from .._safety import (
+from ..errors import InputError, OutputConflict
+from ..results.writers import _written as _guarded  # OSError (a full disk) -> WriteError
+from ..outputs.identity import study_inputs
+from ..outputs.folder import (
     MANIFEST,
     check_not_protected,
     output_lock,
@@ -46,9 +46,8 @@ from .._safety import (
     remove_stale_temporaries,
     write_manifest,
 )
-from .._safety import check_replaceable as check_flat_replaceable
-from ..sampler import assess_chain, read_chain
-from .result import ScenarioResult
+from ..outputs.folder import check_replaceable as check_flat_replaceable
+from ..fitting.sampler import assess_chain, read_chain
 
 __all__ = ["COMPARISON_FILES", "RECORD", "SCENARIO_FILE", "Checkpoint", "check_replaceable",
            "save_comparison"]
@@ -101,8 +100,12 @@ class Checkpoint:
             _write_json(partial / RECORD, record)
         return cls(out, partial, found)
 
-    def load(self, scenario) -> ScenarioResult | None:
-        """The stored result of a finished scenario, or None."""
+    def load(self, scenario) -> tuple[dict, object] | None:
+        """The stored record and posterior of a finished scenario, or None.
+
+        ``ScenarioResult.from_dict(*stored, ...)`` rebuilds the result (this module does
+        not import `result`, which imports it to save).
+        """
         folder = self.partial / scenario.name
         if not (folder / SCENARIO_FILE).is_file():
             return None
@@ -153,19 +156,19 @@ def _scenario_files(result: ScenarioResult) -> dict[str, bytes]:
     """Name -> bytes of a scenario folder (built in memory before anything is written)."""
     files = {}
     if result.posterior is not None:
-        from .._outputs import _files as fit_files
+        from ..results.writers import _files as fit_files
 
         files.update(fit_files(result.posterior))
     files[SCENARIO_FILE] = _json_bytes(result.to_dict())
     return files
 
 
-def load_scenario(folder: Path, scenario) -> ScenarioResult:
-    """Rebuild a stored scenario result (numbers and, if it has one, its posterior)."""
+def load_scenario(folder: Path, scenario) -> tuple[dict, object]:
+    """A stored scenario's record (scenario.json) and, if it has one, its posterior."""
     data = json.loads((folder / SCENARIO_FILE).read_text(encoding="utf-8"))
     posterior = None
     if scenario.n_free:
-        from ..posterior import Posterior
+        from ..results.posterior import Posterior
 
         chain, _ = read_chain(folder / "chain.h5")
         run = json.loads((folder / "run.json").read_text(encoding="utf-8"))
@@ -177,7 +180,7 @@ def load_scenario(folder: Path, scenario) -> ScenarioResult:
                               dataclasses.replace(chain, assessment=assessment),
                               seed=int(run["seed"]),
                               run_info={k: run[k] for k in _RUN_INFO if k in run})
-    return ScenarioResult.from_dict(data, scenario, posterior)
+    return data, posterior
 
 
 def write_summary(comparison, folder: Path) -> None:
@@ -205,7 +208,7 @@ def write_summary(comparison, folder: Path) -> None:
 def check_replaceable(path: Path, *, inputs=(), what: str = "comparison folder") -> list:
     """Check that the comparison folder `path` may be replaced; return what to remove.
 
-    The rule of `inversion._safety` (module docstring), applied to the top level (its
+    The rule of `inversion.outputs.folder` (module docstring), applied to the top level (its
     manifest) and to each scenario folder (theirs).
 
     Returns

@@ -5,7 +5,7 @@
 is taken with the midpoint rule on a tensor grid in parameter space (log space for a
 log-uniform prior), node weights pi(theta_i) * cell volume, over a box that holds the
 posterior mass. Parameter space rather than the prior's probability space
-(`inversion.grid`) because a posterior pushed into the tail of a prior, as when a lid
+(`inversion.fitting.grid`) because a posterior pushed into the tail of a prior, as when a lid
 held at 100 km drives the solidus offset to its bound, fills a sliver of probability
 space that no regular grid there resolves, while it is smooth in parameter units.
 
@@ -27,8 +27,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import logsumexp
 
-from ..grid import MASS_CUT, Axis, Grid, evaluate
-from ..priors import LogUniform
+from ..fitting.grid import MASS_CUT, Axis, Grid, evaluate
+from ..study.priors import LogUniform
 
 __all__ = ["MAX_QUADRATURE_DIM", "QuadratureResult", "box_from_samples",
            "quadrature_evidence"]
@@ -73,7 +73,7 @@ def box_from_samples(priors: Sequence, points: np.ndarray, log_weights: np.ndarr
                      ) -> list[tuple[float, float]]:
     """Box around the weighted posterior points, in parameter units.
 
-    Points within `inversion.grid.MASS_CUT` (e^-25) of the heaviest are kept; their extent
+    Points within `inversion.fitting.grid.MASS_CUT` (e^-25) of the heaviest are kept; their extent
     (in log units for a log-uniform prior) is padded by a quarter of itself on each side
     and clipped to the prior's support.
 

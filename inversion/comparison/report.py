@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 
 from ...forward.quantities import quantity
-from ..report import CAUTION, interval_words
+from ..results.report import CAUTION, interval_words
 from .evidence import DISAGREEMENT_SIGMAS
 from .loo import PARETO_K_WARN
 from .nested import NETWORKS

@@ -33,7 +33,7 @@ class ScenarioResult:
 
     Attributes
     ----------
-    scenario : inversion.scenarios.Scenario
+    scenario : inversion.study.scenarios.Scenario
     evidence : EvidenceEstimate
     loo : LooEstimate
     fit : FitCheck
@@ -91,7 +91,7 @@ class Comparison:
 
     Parameters
     ----------
-    scenarios : inversion.scenarios.ScenarioSet
+    scenarios : inversion.study.scenarios.ScenarioSet
     results : sequence of ScenarioResult
         One per scenario, in the order of `scenarios`.
     seed : int
@@ -215,7 +215,7 @@ def _scenario_warnings(r: ScenarioResult) -> list[str]:
             "grid_points under [comparison] before trusting this evidence.")
     bad = r.loo.unreliable_rows
     if bad.size:
-        from ..model import LogPosterior
+        from ..fitting.log_posterior import LogPosterior
 
         labels = LogPosterior(r.scenario.study).rows
         rows = [f"{labels[i][0]} {labels[i][1]}" for i in bad]

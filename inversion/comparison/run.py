@@ -10,10 +10,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .._errors import InputError, NotConvergedWarning, PosteriorWarning
-from ..model import LogPosterior
-from ..scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
-from ..study import Study
+from ..errors import InputError, NotConvergedWarning, PosteriorWarning
+from ..fitting.log_posterior import LogPosterior
+from ..study.scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
+from ..study.file import Study
 from .checks import fit_check
 from .evidence import scenario_evidence
 from .loo import loo_fixed, loo_from_draws, posterior_draws
@@ -59,7 +59,7 @@ def compare(
         study file or its tables changed since).
     force : bool
         Replace a comparison folder (or checkpoint) lidmelt wrote before (the rule of
-        `inversion._safety`: never the working folder, a folder holding the inputs, or
+        `inversion.outputs.folder`: never the working folder, a folder holding the inputs, or
         anything lidmelt did not write).
     quiet : bool
         Hide the samplers' progress bars.
@@ -83,7 +83,7 @@ def compare(
                              key="out")
         comparison = _run(found, seed, None, quiet=quiet, progress=progress)
     else:
-        from .._safety import output_lock
+        from ..outputs.folder import output_lock
         from .outputs import Checkpoint
 
         out = Path(out).absolute()
@@ -101,7 +101,11 @@ def _run(found, seed: int, checkpoint, *, quiet: bool, progress) -> Comparison:
     seeds = scenario_seeds(seed, len(found.scenarios))
     results = []
     for scenario, nested_seed in zip(found.scenarios, seeds, strict=True):
-        done = None if checkpoint is None else checkpoint.load(scenario)
+        stored = None if checkpoint is None else checkpoint.load(scenario)
+        done = None
+        if stored is not None:
+            record, posterior = stored
+            done = ScenarioResult.from_dict(record, scenario, posterior)
         if done is None:
             done = evaluate_scenario(scenario, seed=seed, nested_seed=nested_seed,
                                      settings=found.settings, quiet=quiet,
@@ -113,7 +117,7 @@ def _run(found, seed: int, checkpoint, *, quiet: bool, progress) -> Comparison:
 
 
 def _check_seed(seed) -> int:
-    from ..posterior import _check_seed as check
+    from ..fitting.run import _check_seed as check
 
     return check(seed)
 
@@ -142,7 +146,7 @@ def evaluate_scenario(scenario: Scenario, *, seed: int, nested_seed: int,
     progress : callable, optional
         Receives a message as each part starts.
     """
-    from ..posterior import fit
+    from ..fitting.run import fit
 
     say = progress or (lambda message: None)
     logpost = LogPosterior(scenario.study)

@@ -43,8 +43,8 @@ from typing import ClassVar
 import numpy as np
 import pandas as pd
 
-from .._errors import InputError, suggest
-from ..priors import Prior
+from ..errors import InputError, suggest
+from ..study.priors import Prior
 from .model_error import combine_sigma, parse_error_setting
 from .tables import ColumnRule, read_table, validate_frame
 

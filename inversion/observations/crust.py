@@ -19,7 +19,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from .._errors import InputError, suggest
+from ..errors import InputError, suggest
 from .base import (
     NO_MELT_SLOPE,
     ObservationSet,

@@ -16,8 +16,8 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from .._errors import InputError
-from ..priors import Prior, prior_from_spec
+from ..errors import InputError
+from ..study.priors import Prior, prior_from_spec
 
 __all__ = ["ERROR_DOMAIN", "combine_sigma", "parse_error_setting"]
 

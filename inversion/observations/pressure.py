@@ -46,8 +46,8 @@ from collections.abc import Mapping
 import numpy as np
 from scipy.special import logsumexp
 
-from .._errors import InputError, suggest
-from ..priors import Prior
+from ..errors import InputError, suggest
+from ..study.priors import Prior
 from .base import (
     NO_MELT_SLOPE,
     ObservationSet,

@@ -21,7 +21,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from .._errors import InputError, suggest
+from ..errors import InputError, suggest
 
 __all__ = ["ColumnRule", "Table", "read_table", "validate_frame"]
 

@@ -3,7 +3,7 @@
 Every file is written to a temporary name beside its target and renamed into place, so
 a reader (or a resumed survey) sees either the old file or the complete new one, never
 half of one. ``force`` replaces only a folder that a survey wrote: it holds the survey
-manifest and nothing but files a survey writes, and `inversion._safety.check_not_protected`
+manifest and nothing but files a survey writes, and `inversion.outputs.folder.check_not_protected`
 allows it (not a file, not the working folder or a parent of it, not a folder holding the
 study or sites file). lidmelt never deletes a file it did not write.
 """
@@ -16,8 +16,8 @@ from collections.abc import Iterable
 from pathlib import Path
 
 from ..._atomic import temporary_target, write_bytes
-from .._errors import InputError
-from .._safety import check_not_protected
+from ..errors import InputError
+from ..outputs.folder import check_not_protected
 
 __all__ = ["MANIFEST", "OWN_FILES", "SITE_FILES", "check_replaceable", "remove_own",
            "write_atomic", "write_json"]

@@ -21,7 +21,7 @@ import os
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
-from .._errors import InputError
+from ..errors import InputError
 
 __all__ = ["DaskExecutor", "LocalExecutor", "make_executor"]
 

@@ -3,7 +3,7 @@
 Three kinds of task (`SiteTask.kind`):
 
 ``"posterior"`` (independent mode)
-    The site's own posterior: by grid quadrature (`inversion.grid`) when it has at most
+    The site's own posterior: by grid quadrature (`inversion.fitting.grid`) when it has at most
     `GRID_MAX_FREE` free parameters, otherwise by emcee (`inversion.fit`).
 ``"likelihood"`` (joint mode, first pass)
     The site's marginal likelihood of the potential temperature on the axis shared by
@@ -30,9 +30,9 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.special import logsumexp
 
-from .._errors import InputError, NotConvergedWarning
-from ..grid import MASS_CUT, Axis, Grid, evaluate, find_box, grid_posterior, prior_axis
-from ..model import UNITS, LogPosterior
+from ..errors import InputError, NotConvergedWarning
+from ..fitting.grid import MASS_CUT, Axis, Grid, evaluate, find_box, grid_posterior, prior_axis
+from ..fitting.log_posterior import UNITS, LogPosterior
 from ..observations import THICKNESS_OF
 from .settings import SurveySettings
 from .sites import Site, site_observations
@@ -154,7 +154,7 @@ def _grid_outcome(task, logpost, post, outcome: SiteOutcome, *, method: str) -> 
 
 
 def _mcmc_outcome(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
-    from ..posterior import fit
+    from ..fitting.run import fit
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", NotConvergedWarning)
@@ -207,7 +207,7 @@ def _likelihood(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> 
 
     For each Tp node the site's parameters are integrated by the midpoint rule over the
     box of their prior probability space that holds the mass at that Tp (found on a
-    coarse scan, as `inversion.grid.find_box` does for a whole grid); the rule is
+    coarse scan, as `inversion.fitting.grid.find_box` does for a whole grid); the rule is
     compared with the rule at half the resolution, and the nodes are doubled (at most
     `_REFINEMENTS` times) until the two agree within `LOG_TOLERANCE` wherever log L_i is
     within `MASS_CUT` of its largest value.

@@ -13,7 +13,7 @@ hierarchical (site temperatures t_i ~ N(mu, tau^2), truncated to the Tp axis)
 
 Each log L_i is tabulated on the same equally spaced axis and is smooth in t, so sums of
 them are interpolated by cubic splines between the nodes; the area posteriors are then
-grid posteriors (`inversion.grid`) in the priors' probability space. For the second pass
+grid posteriors (`inversion.fitting.grid`) in the priors' probability space. For the second pass
 every site gets a log-factor on t that carries what the other sites say:
 log prod_{j != i} L_j(t) (shared) or log E[N(t; mu, tau^2) / I_i(mu, tau)] - log pi(t)
 over the area posterior (hierarchical); multiplied into the site's own likelihood it
@@ -28,7 +28,7 @@ import numpy as np
 from scipy import special
 from scipy.interpolate import CubicSpline
 
-from ..grid import MASS_CUT, GridPosterior, grid_posterior
+from ..fitting.grid import MASS_CUT, GridPosterior, grid_posterior
 from .job import TP
 
 __all__ = ["AreaPosterior", "alone_quantiles", "combine_hierarchical", "combine_shared",
@@ -107,7 +107,7 @@ def combine_shared(axis: np.ndarray, profiles, prior) -> AreaPosterior:
         Shared Tp nodes, degC, shape ``(m,)`` (`tp_axis`).
     profiles : array_like
         log L_i at the nodes, shape ``(n_sites, m)``.
-    prior : inversion.priors.Prior
+    prior : inversion.study.priors.Prior
         The study's Tp prior.
     """
     profiles = _clean(profiles)

@@ -29,7 +29,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .._errors import InputError, OutputConflict
+from ..errors import InputError, OutputConflict
 from ._files import (
     MANIFEST,
     check_replaceable,
@@ -163,7 +163,7 @@ class SurveyFolder:
             np.savez_compressed(buffer, **arrays["grid"])
             write_atomic(folder / "grid.npz", buffer.getvalue())
         if "chain" in arrays:
-            from ..sampler import write_chain
+            from ..fitting.sampler import write_chain
 
             write_chain(folder / "chain.h5", arrays["chain"])  # atomic itself
 

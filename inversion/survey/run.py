@@ -19,8 +19,8 @@ import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
 
-from .._errors import InputError
-from ..model import UNITS
+from ..errors import InputError
+from ..fitting.log_posterior import UNITS
 from ..observations import THICKNESS_OF
 from . import joint
 from .executors import make_executor

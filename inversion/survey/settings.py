@@ -34,10 +34,10 @@ from numbers import Real
 from os import PathLike
 from pathlib import Path
 
-from .._errors import InputError, suggest
+from ..errors import InputError, suggest
 from ..observations import EQUILIBRATION, THICKNESS_OF
-from ..priors import Prior, prior_from_spec
-from ..study import Study, _key_line, _read_study_file
+from ..study.priors import Prior, prior_from_spec
+from ..study.file import Study, _key_line, _read_study_file
 
 __all__ = ["SPREAD", "SurveySettings", "load_survey_study"]
 

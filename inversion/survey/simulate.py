@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..model import LogPosterior
+from ..fitting.log_posterior import LogPosterior
 from .sites import Site, site_observations
 
 __all__ = ["simulate_sites"]

@@ -22,7 +22,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from .._errors import InputError
+from ..errors import InputError
 from ..observations import (
     PRESSURE_RANGE,
     TEMPERATURE_RANGE,

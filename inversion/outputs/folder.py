@@ -34,8 +34,8 @@ from collections.abc import Iterable, Iterator, Sequence
 from os import PathLike
 from pathlib import Path
 
-from .._atomic import temporary_target, write_text
-from ._errors import InputError, OutputConflict
+from ..._atomic import temporary_target, write_text
+from ..errors import InputError, OutputConflict
 
 __all__ = [
     "MANIFEST",

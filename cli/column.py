@@ -13,10 +13,10 @@ from pathlib import Path
 
 import numpy as np
 
-from ...forward.column import MELTING_REGIONS, melt_column
-from ...forward.parameterizations import PARAMETERIZATIONS, get_parameterization
-from ...forward.quantities import GROUPS, quantity
-from .._errors import InputError
+from ..forward.column import MELTING_REGIONS, melt_column
+from ..forward.parameterizations import PARAMETERIZATIONS, get_parameterization
+from ..forward.quantities import GROUPS, quantity
+from ..inversion.errors import InputError
 
 # option name (= melt_column argument) -> default
 _NUMERIC = {
@@ -226,7 +226,7 @@ def run(args) -> int:
                              "first", file=Path(args.plot).absolute().parent)
     rows = tabulate(args)
     if args.plot:
-        from ...forward._pt_figure import write_column_figure
+        from ..forward._pt_figure import write_column_figure
 
         write_column_figure(args.plot, rows, crust_density=args.crust_density,
                             mantle_density=args.mantle_density)

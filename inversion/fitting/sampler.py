@@ -19,7 +19,7 @@ re-estimated on the rest, and the run stops when
 
 Otherwise it stops at ``max_steps`` with a `NotConvergedWarning` and ``converged = False``.
 
-The chain is kept by emcee itself, in `inversion._checkpoint.CheckpointBackend` (passed
+The chain is kept by emcee itself, in `inversion.fitting.checkpoint.CheckpointBackend` (passed
 as ``backend=``), which writes a complete record to the checkpoint folder at every check.
 Ctrl-C and SIGTERM are held back while the sampler runs: the step in progress finishes,
 the steps since the last record are written, and the signal is then delivered, so emcee
@@ -42,11 +42,11 @@ import emcee
 import h5py
 import numpy as np
 
-from .._atomic import write_bytes
-from ._checkpoint import CheckpointBackend
-from ._diagnostics import MIN_ACCEPTANCE, converged_rhat, rhat_too_high, split_rhat
-from ._errors import NotConvergedWarning
-from ._progress import SamplingProgress
+from ..._atomic import write_bytes
+from .checkpoint import CheckpointBackend
+from .convergence import MIN_ACCEPTANCE, converged_rhat, rhat_too_high, split_rhat
+from ..errors import NotConvergedWarning
+from .progress import SamplingProgress
 
 __all__ = [
     "ChainResult", "assess_chain", "autocorrelation_time", "chain_file_bytes",

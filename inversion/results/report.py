@@ -7,10 +7,10 @@ import re
 
 import numpy as np
 
-from ..forward import get_parameterization
-from ..forward.quantities import quantity, unit_text
+from ...forward import get_parameterization
+from ...forward.quantities import quantity, unit_text
 from .checks import FLAG_LIMIT, posterior_checks
-from .model import UNITS
+from ..fitting.log_posterior import UNITS
 
 __all__ = ["CAUTION", "decimals", "estimate", "interval_words", "render"]
 

@@ -3,7 +3,7 @@
 The files are built in memory and written into a staging folder beside the target,
 which is renamed into place only when all of them are complete; an error on the way (a
 full disk included) removes the staging folder, so a crash never leaves half a result.
-The manifest (`inversion._safety.MANIFEST`) is written first, so even a staging folder
+The manifest (`inversion.outputs.folder.MANIFEST`) is written first, so even a staging folder
 left by a killed run is marked as lidmelt's and is tidied by the next run.
 """
 
@@ -12,10 +12,10 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from .._atomic import staged_folder, write_bytes
-from ._errors import WriteError
-from ._provenance import run_record, study_inputs
-from ._safety import (
+from ..._atomic import staged_folder, write_bytes
+from ..errors import WriteError
+from ..outputs.identity import run_record, study_inputs
+from ..outputs.folder import (
     MANIFEST,
     check_output_folder,
     output_lock,
@@ -23,8 +23,8 @@ from ._safety import (
     remove_stale_temporaries,
     write_manifest,
 )
-from .model import DERIVED
-from .sampler import chain_file_bytes
+from ..fitting.log_posterior import DERIVED
+from ..fitting.sampler import chain_file_bytes
 
 __all__ = ["OUTPUT_FILES", "save_posterior"]
 
@@ -63,7 +63,8 @@ def _written(shown: Path, write, *args, **kwargs) -> None:
 
 def _files(posterior) -> dict[str, bytes]:
     """Name -> bytes of every output file but the manifest, in writing order."""
-    from . import figures, report
+    from . import figures
+    from . import report
 
     return {
         "summary.csv": _csv(posterior.summary()),

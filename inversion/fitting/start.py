@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import optimize
 
-from ._errors import InputError
+from ..errors import InputError
 
 __all__ = ["find_map", "map_start", "prior_scale", "prior_start"]
 

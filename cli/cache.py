@@ -24,7 +24,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Print the cache folder and its tables, or clear them; 0 on success."""
-    from ...forward import _cache  # standard library only: keeps the command quick
+    from ..forward import _cache  # standard library only: keeps the command quick
 
     folder = _cache.cache_folder()
     if folder is None:

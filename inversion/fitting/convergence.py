@@ -6,10 +6,10 @@ import math
 
 import numpy as np
 
-from .. import forward
-from ..forward.quantities import quantity
-from .model import DERIVED
-from .observations.model_error import ERROR_DOMAIN
+from ... import forward
+from ...forward.quantities import quantity
+from .log_posterior import DERIVED
+from ..observations.model_error import ERROR_DOMAIN
 
 __all__ = ["MIN_ACCEPTANCE", "converged_rhat", "diagnostics_dict", "posterior_warnings",
            "rhat_too_high", "split_rhat"]

@@ -48,7 +48,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Compare the scenarios of the study named on the command line; 0 on success."""
-    from .._errors import WriteError
+    from ..inversion.errors import WriteError
     from .fit import _QuietInterrupts
 
     out = Path(args.out)
@@ -70,8 +70,8 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _compare(args, out: Path):
-    from ..comparison import compare
-    from ..scenarios import read_scenarios
+    from ..inversion.comparison import compare
+    from ..inversion.study.scenarios import read_scenarios
 
     found = read_scenarios(args.study)  # bad input stops here, before any folder exists
     _require_optional_packages()
@@ -107,8 +107,8 @@ def _say_interrupted(out: Path) -> None:
 
 def _print_warnings(caught) -> None:
     """The comparison's caveats one line each (the samplers' own are among them)."""
-    from .._errors import NotConvergedWarning, PosteriorWarning
-    from ..comparison import ComparisonWarning
+    from ..inversion.errors import NotConvergedWarning, PosteriorWarning
+    from ..inversion.comparison import ComparisonWarning
 
     for warning in caught:
         if issubclass(warning.category, ComparisonWarning):
@@ -119,7 +119,7 @@ def _print_warnings(caught) -> None:
 
 
 def _pct(p: float) -> str:
-    from ..comparison.report import _pct as words
+    from ..inversion.comparison.report import _pct as words
 
     return words(p).replace(" %", "%")
 

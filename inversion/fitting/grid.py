@@ -19,7 +19,7 @@ each node of an area-wide axis, see `Grid.log_integrate`).
 
 Examples
 --------
->>> from lidmelt.inversion.priors import Normal
+>>> from lidmelt.inversion.study.priors import Normal
 >>> axis = prior_axis("x", Normal(0.0, 1.0), (0.0, 1.0), 400)
 >>> grid = Grid((axis,))
 >>> # a unit-variance Gaussian likelihood against a N(0, 1) prior: Z = N(0.5; 0, 2)
@@ -92,7 +92,7 @@ def prior_axis(name: str, prior, box: tuple[float, float], nodes: int) -> Axis:
     Parameters
     ----------
     name : str
-    prior : inversion.priors.Prior
+    prior : inversion.study.priors.Prior
         Needs ``ppf``.
     box : (float, float)
         Part of [0, 1] to cover.

@@ -26,10 +26,10 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from .. import forward
-from ..forward import figure_style as style
-from ..forward import plotting
-from ..forward.quantities import quantity, unit_text
+from ... import forward
+from ...forward import figure_style as style
+from ...forward import plotting
+from ...forward.quantities import quantity, unit_text
 from .report import decimals, estimate
 
 __all__ = ["corner_figure", "figure_files", "fit_figure", "pt_figure"]

@@ -24,7 +24,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Fit the demo study; 0 on success."""
-    from ... import demo_data
+    from .. import demo_data
 
     path = demo_data.study_path()
     print(f"lidmelt demo: fitting {path}")

@@ -11,7 +11,7 @@ there whole or not at all. A write that fails (a full disk) leaves every earlier
 as it was, so the checkpoint up to the last complete record is always kept.
 
 The folder also holds ``checkpoint.json`` (shape and the run's fingerprint, written once)
-and the manifest of `inversion._safety`. `CheckpointBackend.open` reads the records back
+and the manifest of `inversion.outputs.folder`. `CheckpointBackend.open` reads the records back
 in order for a resume, after checking that the run is the same (`fingerprint`).
 """
 
@@ -29,9 +29,9 @@ from pathlib import Path
 import emcee
 import numpy as np
 
-from .._atomic import temporary_target, write_bytes, write_text
-from ._errors import OutputConflict, WriteError
-from ._safety import MANIFEST, check_replaceable, remove_listed, write_manifest
+from ..._atomic import temporary_target, write_bytes, write_text
+from ..errors import OutputConflict, WriteError
+from ..outputs.folder import MANIFEST, check_replaceable, remove_listed, write_manifest
 
 __all__ = ["HEADER", "CheckpointBackend", "ResumeWarning", "stored_steps"]
 

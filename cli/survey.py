@@ -59,7 +59,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run the survey; 0 when it completed (even if some sites failed)."""
-    from ..survey import survey
+    from ..inversion.survey import survey
 
     try:
         result = survey(args.study, args.sites, out=args.out, mode=args.mode,
@@ -75,7 +75,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _print_result(result) -> None:
-    from ...forward.quantities import unit_text
+    from ..forward.quantities import unit_text
 
     folder = Path(result.folder).resolve()
     n = len(result.records)

@@ -24,10 +24,10 @@ from numbers import Real
 from os import PathLike
 from pathlib import Path
 
-from .. import forward
+from ... import forward
 
-from ._errors import InputError, suggest
-from .observations import KINDS, ObservationSet
+from ..errors import InputError, suggest
+from ..observations import KINDS, ObservationSet
 from .priors import Prior, TruncatedNormal, prior_from_spec
 
 __all__ = [
@@ -55,7 +55,7 @@ DEFAULT_FIXED: dict[str, float] = {"water": 0.0, "active_upwelling": 1.0, "solid
 _REQUIRED = ("potential_temperature", "lithosphere_thickness")
 
 _TOP_KEYS = ("study", "model", "parameters", "observations", "sampler")
-# Read by inversion.scenarios (`lidmelt compare`); a plain fit ignores them.
+# Read by inversion.study.scenarios (`lidmelt compare`); a plain fit ignores them.
 _COMPARISON_KEYS = ("scenarios", "comparison")
 _STUDY_KEYS = ("name", "description")
 _START = ("prior", "map")
@@ -148,7 +148,7 @@ def _block_label(block: ObservationSet) -> str:
 
 @dataclass(frozen=True)
 class SamplerSettings:
-    """How the posterior is sampled (emcee ensemble; see `inversion.sampler`).
+    """How the posterior is sampled (emcee ensemble; see `inversion.fitting.sampler`).
 
     Parameters
     ----------
@@ -341,7 +341,7 @@ class Study:
         _check_keys(sampler_tbl, _SAMPLER_KEYS, "sampler")
         sampler = SamplerSettings(**sampler_tbl)
         priors, fixed = _parse_parameters(config.get("parameters"))
-        if not priors:  # a scenario may fix everything (inversion.scenarios), a study not
+        if not priors:  # a scenario may fix everything (inversion.study.scenarios), a study not
             raise InputError("every parameter is fixed; give at least one a prior to infer "
                              "it", key="parameters")
         observations = _parse_observations(config.get("observations"), Path(base_dir))

@@ -66,7 +66,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _study(path):
-    from ..study import Study  # imported here: its libraries take a while to load
+    from ..inversion.study.file import Study  # imported here: its libraries take a while to load
 
     return Study.from_file(path)
 
@@ -74,7 +74,7 @@ def _study(path):
 def run_fit(load_study, args: argparse.Namespace) -> int:
     """Shared by ``fit`` and ``demo``: read the study (``load_study()``), fit, report to
     stdout, handle interruption from the first moment on."""
-    from .._errors import WriteError
+    from ..inversion.errors import WriteError
 
     out = Path(args.out)
     with _QuietInterrupts() as interrupts, warnings.catch_warnings(record=True) as caught:
@@ -98,7 +98,7 @@ def run_fit(load_study, args: argparse.Namespace) -> int:
 
 
 def _fit(study, args, out: Path):
-    from ..posterior import fit
+    from ..inversion.fitting.run import fit
 
     return fit(study, seed=args.seed, out=out, resume=args.resume, quiet=args.quiet,
                force=args.force, provenance={"command_line": list(args.argv)})
@@ -106,8 +106,8 @@ def _fit(study, args, out: Path):
 
 def _print_warnings(caught, posterior=None) -> None:
     """lidmelt's warnings one line each; the posterior's own list replaces the sampler's."""
-    from .._checkpoint import ResumeWarning
-    from .._errors import NotConvergedWarning, PosteriorWarning
+    from ..inversion.fitting.checkpoint import ResumeWarning
+    from ..inversion.errors import NotConvergedWarning, PosteriorWarning
 
     for warning in caught:
         if issubclass(warning.category, (NotConvergedWarning, PosteriorWarning)):
@@ -122,7 +122,7 @@ def _print_warnings(caught, posterior=None) -> None:
 
 
 def _say_interrupted(out: Path) -> None:
-    from .._checkpoint import stored_steps
+    from ..inversion.fitting.checkpoint import stored_steps
 
     partial = out.with_name(out.name + ".partial")
     steps = stored_steps(partial)
@@ -138,7 +138,7 @@ class _QuietInterrupts:
     """Ctrl-C and SIGTERM (a scheduler's time limit): the first one raises
     KeyboardInterrupt, every later one is ignored, so the command prints one line and
     ends with exit code 130 however many times the keys are pressed. The sampler holds
-    signals back itself until its checkpoint is complete (see `inversion.sampler`)."""
+    signals back itself until its checkpoint is complete (see `inversion.fitting.sampler`)."""
 
     _SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
@@ -168,8 +168,8 @@ class _QuietInterrupts:
 
 def print_result(posterior, out: Path) -> None:
     """Headline numbers and where the results are, on stdout."""
-    from ...forward.quantities import quantity
-    from ..report import interval_words
+    from ..forward.quantities import quantity
+    from ..inversion.results.report import interval_words
 
     state = "converged" if posterior.converged else "NOT CONVERGED (see report.md)"
     print(f"{posterior.study.name}: {state}; {posterior.chain.shape[0]} steps x "

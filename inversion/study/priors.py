@@ -28,7 +28,7 @@ from typing import ClassVar
 import numpy as np
 from scipy import special
 
-from ._errors import InputError, suggest
+from ..errors import InputError, suggest
 
 __all__ = [
     "PRIOR_NAMES",

@@ -12,8 +12,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ...forward._validation import DomainError
-from .._errors import InputError, OutputConflict
+from ..forward._validation import DomainError
+from ..inversion.errors import InputError, OutputConflict
 from . import cache, column, compare, demo, fit, survey
 
 # name -> (module, one-line help)
@@ -38,7 +38,7 @@ class _VersionAction(argparse.Action):
                          help="show the installed version of lidmelt and exit")
 
     def __call__(self, parser, namespace, values, option_string=None):
-        from ... import __version__
+        from .. import __version__
 
         sys.stdout.write(f"lidmelt {__version__}\n")
         parser.exit()

@@ -30,8 +30,8 @@ from numbers import Real
 from os import PathLike
 from pathlib import Path
 
-from ._errors import InputError
-from .study import Study, _check_keys, _key_line, _read_study_file
+from ..errors import InputError
+from .file import Study, _check_keys, _key_line, _read_study_file
 
 __all__ = [
     "BASE_NAME",

@@ -17,9 +17,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from .. import forward
+from ... import forward
 
-from .study import PARAMETER_UNITS, PARAMETERS
+from ..study.file import PARAMETER_UNITS, PARAMETERS
 
 __all__ = ["DERIVED", "PARAMETERS", "UNITS", "LogPosterior"]
 

@@ -1,7 +1,0 @@
-"""``python -m lidmelt.inversion.cli``: the same as the ``lidmelt`` command."""
-
-import sys
-
-from . import main
-
-sys.exit(main())
