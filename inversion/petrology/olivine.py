@@ -257,7 +257,7 @@ def olivine_composition(fo: ArrayLike) -> NDArray[np.float64]:
     --------
     >>> ol = olivine_composition(0.9)
     >>> round(float(ol[6]), 2), round(float(ol[0]), 2)   # MgO, SiO2 of Fo90
-    (49.43, 40.88)
+    (49.35, 40.87)
     """
     fo = np.asarray(fo, dtype=float)
     grams = np.zeros(fo.shape + (len(MELT_OXIDES),))

@@ -28,7 +28,7 @@ Examples
 >>> melt = melt_from_analysis([49.5, 1.1, 14.4, 8.9, 0.16, 12.4, 11.0, 2.1, 0.1, 0.1],
 ...                           fe3_fraction=0.1)
 >>> round(float(t_eq13(melt)), 1)
-1320.5
+1321.0
 """
 
 from __future__ import annotations
