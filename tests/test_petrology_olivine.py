@@ -73,7 +73,8 @@ def test_melt_mg_number_for_olivine(fo, kd, mg):
 
 
 def test_equilibrium_fo_roeder_emslie():
-    # Thermobar unit tests (its liquid also has 0.11 Cr2O3, P2O5: no effect on Mg#): eq. Fo (Roeder & Emslie K_D 0.30, Fe3+/ΣFe 0.2) = 0.8631288
+    # Thermobar unit tests (its liquid also has 0.11 Cr2O3 and P2O5, no effect on Mg#):
+    # eq. Fo (Roeder & Emslie K_D 0.30, Fe3+/ΣFe 0.2) = 0.8631288
     melt = ox.split_iron(LIQ["FeOt"], fe3_fraction=0.2)
     arr = np.array([51.0, 0.48, 19.0, *melt, 0.1, 4.5, 9.0, 4.2, 0.1, 0.0])
     fo, kd = KdModel().equilibrium(arr)

@@ -65,7 +65,8 @@ def test_lee_components_conserve_oxygen():
     assert sum(comps.values()) == pytest.approx(100.0)
     moles = melt / np.array([ox.MOLAR_MASS[o] for o in ox.MELT_OXIDES])
     oxygen = moles @ np.array([ox.OXYGENS[o] for o in ox.MELT_OXIDES]) + 1.0 / 18.015
-    si = moles[0] - 0.5 * (moles[3] + moles[5] + moles[6] + moles[7]) - 2 * (moles[8] + moles[9])
+    si = (moles[0] - 0.5 * (moles[3] + moles[5] + moles[6] + moles[7])
+          - 2 * (moles[8] + moles[9]))
     assert comps["Si4O8"] / 100 * (oxygen / 8) == pytest.approx(si / 4)
     # Mg4Si2O8 holds 4 Mg: its mol% times the component total is Mg/4
     assert comps["Mg4Si2O8"] / 100 * (oxygen / 8) == pytest.approx(moles[6] / 4)

@@ -29,7 +29,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from .._errors import InputError
-from .oxides import FEO_PER_FE2O3, IDX, MELT_OXIDES, MOLAR_MASS, feo_total, normalise_melt
+from .oxides import IDX, MELT_OXIDES, MOLAR_MASS, feo_total, normalise_melt
 
 __all__ = [
     "KdModel", "PrimaryMelt", "REFUSALS", "add_olivine", "equilibrium_fo",
@@ -374,8 +374,8 @@ def add_olivine(melt: ArrayLike, *, h2o: ArrayLike = 0.0, co2: ArrayLike = 0.0,
     melt = np.asarray(melt, dtype=float)
     shape = np.broadcast_shapes(melt.shape[:-1], np.shape(h2o), np.shape(co2),
                                 np.shape(target_fo), np.shape(kd_shift))
-    flat = lambda a: np.broadcast_to(np.asarray(a, float), shape).reshape(-1).copy()  # noqa: E731
-    h2o, co2, target, shift = flat(h2o), flat(co2), flat(target_fo), flat(kd_shift)
+    h2o, co2, target, shift = (np.broadcast_to(np.asarray(a, float), shape).reshape(-1).copy()
+                               for a in (h2o, co2, target_fo, kd_shift))
     if np.any((target <= 0.0) | (target >= 1.0)):
         raise InputError("target Fo must be between 0 and 1", key="target_fo")
     state = normalise_melt(np.broadcast_to(melt, shape + (11,)).reshape(-1, 11),
