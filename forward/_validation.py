@@ -34,9 +34,11 @@ class DomainError(ValueError):
     def __init__(self, name: str, value: float, low: float, high: float):
         self.name, self.value, self.low, self.high = name, value, low, high
         unit = PARAMETER_UNITS.get(name, "").strip("-")
+        opening = "(" if name in EXCLUSIVE_LOWER_BOUND else "["  # interval notation
+        shown = "not a number" if np.isnan(value) else f"{value:g} {unit}"
         super().__init__(
-            f"{name} = {value:g} {unit} is outside the model domain "
-            f"[{low:g}, {high:g}] {unit}".replace("  ", " ")
+            f"{name} = {shown} is outside the model domain "
+            f"{opening}{low:g}, {high:g}] {unit}".replace("  ", " ").rstrip()
         )
 
 
@@ -59,10 +61,19 @@ def in_domain(**values) -> np.ndarray:
 
 
 def check_inputs(**values) -> dict[str, np.ndarray]:
-    """Convert inputs to float arrays and raise ``DomainError`` on the first bad one."""
+    """Convert inputs to float arrays and raise ``DomainError`` on the first bad one.
+
+    A missing value (None) or a masked entry of a masked array is refused by name rather
+    than computed with (numpy would turn None into NaN and drop the mask silently).
+    """
     arrays = {}
     for name, value in values.items():
-        arr = np.asarray(value, dtype=float)
+        if value is None:
+            raise ValueError(f"{name} is missing (None); give a number or an array")
+        if np.ma.is_masked(value):
+            raise ValueError(f"{name} has masked entries; remove or fill them first "
+                             "(lidmelt does not guess a value for a masked point)")
+        arr = np.asarray(np.ma.getdata(value), dtype=float)
         bad = _outside(name, arr)
         if np.any(bad):
             low, high = PARAMETER_DOMAIN[name]

@@ -186,7 +186,7 @@ def test_outputs_always_finite_and_bounded(tp, lid, water, shift, melting_region
     "kwargs, match",
     [(dict(potential_temperature=1900.0), r"potential_temperature = 1900 degC is outside"),
      (dict(lithosphere_thickness=-5.0), r"lithosphere_thickness = -5 km"),
-     (dict(water=np.nan), r"water = nan ppm"),
+     (dict(water=np.nan), r"water = not a number is outside"),
      (dict(active_upwelling=0.0), r"active_upwelling = 0 is outside"),
      (dict(solidus_offset=250.0), r"solidus_offset = 250 degC")],
 )
