@@ -56,7 +56,9 @@ def corner_states(param, table, corners, onset, pressure) -> CornerStates:
     onset = np.asarray(onset, float)
     inverse = np.where(onset > 0.0, 1.0 / np.where(onset > 0.0, onset, 1.0), 0.0)
     ratio = np.where(onset > 0.0, own * inverse, 1.0)
-    p_k = np.minimum(np.asarray(pressure, float) * ratio, own)
+    pressure = np.asarray(pressure, float)
+    # at the onset exactly the corner's own onset (no rounding melt where the lid is deeper)
+    p_k = np.where(pressure >= onset, own, np.minimum(pressure * ratio, own))
     flats, own = np.broadcast_to(flats, p_k.shape), np.broadcast_to(own, p_k.shape)
     values = corner_values(param, table, flats, own, p_k)
     back = onset * facts.inverse_onset[flats]
