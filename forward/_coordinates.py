@@ -41,7 +41,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cached_property, lru_cache
 
 import numpy as np
 
@@ -84,7 +84,11 @@ class Axis:
 
 @dataclass(frozen=True)
 class GradedAxis:
-    """An interpolation axis on given ascending nodes (a tuple, so it is hashable)."""
+    """An interpolation axis on given ascending nodes (a tuple, so it is hashable).
+
+    The nodes lie on a lattice (multiples of a common spacing from the first), so a
+    point finds its cell through a uniform array of lattice bins, with no search.
+    """
 
     points: tuple[float, ...]
 
@@ -96,12 +100,27 @@ class GradedAxis:
     def nodes(self):
         return np.asarray(self.points, float)
 
+    @cached_property
+    def _bins(self):
+        """``(bin width, cell index of each bin, 1 / cell width)``."""
+        nodes = self.nodes
+        width = float(np.min(np.diff(nodes)))
+        while not np.allclose((nodes - nodes[0]) / width, np.round((nodes - nodes[0]) / width),
+                              rtol=0.0, atol=1e-6):
+            width /= 2.0  # spacings 1 and 2.5 K share 0.5 K
+        count = int(round((nodes[-1] - nodes[0]) / width))
+        mids = nodes[0] + width * (np.arange(count) + 0.5)
+        cells = np.searchsorted(nodes, mids) - 1
+        return width, cells, 1.0 / np.diff(nodes)
+
     def locate(self, x):
         """Lower node index and fraction (0..1) of ``x`` on this axis (piecewise linear)."""
-        nodes = self.nodes
-        pos = np.interp(np.asarray(x, float), nodes, np.arange(nodes.size, dtype=float))
-        idx = np.minimum(pos.astype(np.intp), nodes.size - 2)
-        return idx, pos - idx
+        nodes = self.points
+        width, cells, inverse = self._bins
+        x = np.clip(np.asarray(x, float), nodes[0], nodes[-1])
+        idx = cells[np.minimum(((x - nodes[0]) / width).astype(np.intp), cells.size - 1)]
+        frac = np.clip((x - np.take(self.nodes, idx)) * inverse[idx], 0.0, 1.0)
+        return idx, frac
 
 
 def deep_depression(param, water):
@@ -129,13 +148,32 @@ def _reference_onsets(param):
     return (theta_ref, pressure) if np.all(np.diff(theta_ref) > 0.0) else None
 
 
+_FACTOR_STEP = 0.5  # K between the tabulated values of exp(-c P_ref)
+
+
+@lru_cache(maxsize=8)
+def _factor_table(param):
+    """exp(-c P_ref) against base-referenced theta, every 0.5 K from where dry mantle starts
+    to melt (1 below) to _FADE K above theta_cap (1 above); None where theta is Tp - b."""
+    reference = _reference_onsets(param)
+    if reference is None:
+        return None
+    cap = reference[0][-1]
+    below = int(math.ceil((cap - reference[0][0]) / _FACTOR_STEP)) + 1
+    above = int(round(_FADE / _FACTOR_STEP))
+    axis = Axis(cap - below * _FACTOR_STEP, _FACTOR_STEP, below + above + 1)
+    grid = axis.nodes
+    factor = np.exp(-param.thermo.adiabat_coefficient * np.interp(grid, *reference))
+    rising = np.clip((grid - cap) / _FADE, 0.0, 1.0)
+    return axis, factor + rising * (1.0 - factor)
+
+
 def _factor(param, base_theta):
     """exp(-c P_ref) (see the module docstring), back to 1 over _FADE K above theta_cap."""
-    reference = _reference_onsets(param)
-    onset = np.interp(base_theta, *reference)  # 0 below, the base above the range
-    factor = np.exp(-param.thermo.adiabat_coefficient * onset)
-    above = np.clip((np.asarray(base_theta, float) - reference[0][-1]) / _FADE, 0.0, 1.0)
-    return factor + above * (1.0 - factor)
+    axis, values = _factor_table(param)
+    idx, frac = axis.locate(base_theta)
+    low = values[idx]
+    return low + frac * (values[idx + 1] - low)
 
 
 def theta(param, potential_temperature, shift, water):
