@@ -153,8 +153,9 @@ _FACTOR_STEP = 0.5  # K between the tabulated values of exp(-c P_ref)
 
 @lru_cache(maxsize=8)
 def _factor_table(param):
-    """exp(-c P_ref) against base-referenced theta, every 0.5 K from where dry mantle starts
-    to melt (1 below) to _FADE K above theta_cap (1 above); None where theta is Tp - b."""
+    """``(axis, values, rise to the next value)`` of exp(-c P_ref) against base-referenced
+    theta, every 0.5 K from where dry mantle starts to melt (1 below) to _FADE K above
+    theta_cap (1 above); None where theta is Tp - b."""
     reference = _reference_onsets(param)
     if reference is None:
         return None
@@ -164,16 +165,15 @@ def _factor_table(param):
     axis = Axis(cap - below * _FACTOR_STEP, _FACTOR_STEP, below + above + 1)
     grid = axis.nodes
     factor = np.exp(-param.thermo.adiabat_coefficient * np.interp(grid, *reference))
-    rising = np.clip((grid - cap) / _FADE, 0.0, 1.0)
-    return axis, factor + rising * (1.0 - factor)
+    values = factor + np.clip((grid - cap) / _FADE, 0.0, 1.0) * (1.0 - factor)
+    return axis, values, np.append(np.diff(values), 0.0)
 
 
 def _factor(param, base_theta):
     """exp(-c P_ref) (see the module docstring), back to 1 over _FADE K above theta_cap."""
-    axis, values = _factor_table(param)
+    axis, values, rises = _factor_table(param)
     idx, frac = axis.locate(base_theta)
-    low = values[idx]
-    return low + frac * (values[idx + 1] - low)
+    return values[idx] + frac * rises[idx]
 
 
 def theta(param, potential_temperature, shift, water):

@@ -84,14 +84,14 @@ def refine_onset(param, pressure, potential_temperature, water, shift, margin,
     p = np.asarray(pressure, float)
     delta = 1e-4
     fade = np.clip(1.0 + np.asarray(margin, float) / _NEWTON_RAMP, 0.0, 1.0)
-    floor = _MIN_GAP_SLOPE + (1.0 - fade) * _NO_MELT_SLOPE
+    floor = (_MIN_GAP_SLOPE + (1.0 - fade) * _NO_MELT_SLOPE) ** 2
     for _ in range(iterations):
         gap = _tau_gap(param, potential_temperature, p, water, shift)
         slope = (_tau_gap(param, potential_temperature, p + delta, water, shift) - gap) / delta
         falling = np.maximum(-slope, 0.0)
-        newton = gap * falling / np.maximum(slope * slope, _MIN_GAP_SLOPE ** 2)
-        faded = gap * falling / np.maximum(slope * slope, floor * floor) * fade
-        step = np.where(gap >= 0.0, newton, faded)
+        rising = gap >= 0.0  # the full Newton step; else faded, with a higher slope floor
+        step = gap * falling * np.where(rising, 1.0, fade) / np.maximum(
+            slope * slope, np.where(rising, _MIN_GAP_SLOPE ** 2, floor))
         p = np.clip(p + np.clip(step, -_MAX_STEP, _MAX_STEP), 0.0, MAX_PRESSURE)
     return p
 
