@@ -56,7 +56,9 @@ def corner_states(param, table, corners, onset, pressure) -> CornerStates:
     onset = np.asarray(onset, float)
     inverse = np.where(onset > 0.0, 1.0 / np.where(onset > 0.0, onset, 1.0), 0.0)
     ratio = np.where(onset > 0.0, own * inverse, 1.0)
-    p_k = np.minimum(np.asarray(pressure, float) * ratio, own)
+    pressure = np.asarray(pressure, float)
+    # at the onset exactly the corner's own onset (no rounding melt where the lid is deeper)
+    p_k = np.where(pressure >= onset, own, np.minimum(pressure * ratio, own))
     flats, own = np.broadcast_to(flats, p_k.shape), np.broadcast_to(own, p_k.shape)
     values = corner_values(param, table, flats, own, p_k)
     back = onset * facts.inverse_onset[flats]
@@ -99,12 +101,14 @@ def corner_values(param, table, flats, own, p_k):
     index = flats * axis.size + idx
     lower = np.take(rows, index, axis=0)
     upper = np.take(rows, index + 1, axis=0)
+    blended = (lower + frac[..., None].astype(np.float32) * (upper - lower)).astype(float)
     edge = np.nonzero(facts.onset_cell[flats] == idx)
-    if edge[0].size:
+    if edge[0].size:  # in double precision, so that the onset state is exact (F = 0)
         u_low = axis.start + axis.step * idx[edge]
         span = np.sqrt(own[edge]) - u_low
-        frac[edge] = np.clip((u[edge] - u_low) / np.where(span > 0.0, span, 1.0), 0.0, 1.0)
-        upper[edge] = np.stack([param.solidus(own[edge]), np.zeros(span.shape),
-                                np.zeros(span.shape)], axis=-1)
-    blended = lower + frac[..., None].astype(np.float32) * (upper - lower)
-    return blended.astype(float)
+        at = np.clip((u[edge] - u_low) / np.where(span > 0.0, span, 1.0), 0.0, 1.0)
+        exact = np.stack([param.solidus(own[edge]), np.zeros(span.shape),
+                          np.zeros(span.shape)], axis=-1)
+        start = lower[edge].astype(float)
+        blended[edge] = start + at[..., None] * (exact - start)
+    return blended

@@ -1,8 +1,9 @@
 """Facts about each tabulated melting path, derived once per table from its stored states.
 
 They are computed when a table is built and kept in its cache file beside it (see
-``_table``); without a disk cache, on first use in a process (a few seconds for the table
-across water contents), and remembered.
+``_table``, which imports this module, never the reverse); without a disk cache, on
+first use in a process (a few seconds for the table across water contents), and
+remembered.
 
 ``turn``
     Pressure (GPa) of the path's largest melt fraction (the shallowest node holding it):
@@ -30,7 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._table import _WATER_EXPONENT, deep_depression
+from ._coordinates import WATER_EXPONENT, potential_temperature
 from .adiabat import MAX_PRESSURE, solidus_margin
 
 __all__ = ["PathFacts", "path_facts", "remember"]
@@ -101,6 +102,6 @@ def _margins(param, table):
     """Solidus margin (K) of every path's mantle."""
     theta, shift, water_q = np.meshgrid(table.theta.nodes, table.shift.nodes,
                                         table.water.nodes, indexing="ij")
-    water = water_q.ravel() ** (1.0 / _WATER_EXPONENT)
-    tp = theta.ravel() + shift.ravel() - deep_depression(param, water)
+    water = water_q.ravel() ** (1.0 / WATER_EXPONENT)
+    tp = potential_temperature(param, theta.ravel(), shift.ravel(), water)
     return solidus_margin(param, tp, water, shift.ravel())[0]

@@ -2,11 +2,11 @@
 
 A path depends on the potential temperature, the solidus offset and the water
 content; the lid only truncates it. Paths are integrated once on a grid of
-``theta = Tp - shift + dT0(water)`` (the potential temperature relative to the
-shifted wet solidus at depth, ``dT0`` the unsaturated water depression at F -> 0,
-so the onset moves smoothly along it), ``shift`` and water (uniform in
-``water^0.75``, to which that depression is proportional), each on a pressure grid
-uniform in ``sqrt(P)``. Queries interpolate multilinearly across paths and linearly in sqrt(P)
+``theta = Tp - (shift - dT0(water)) exp(-c P_base)`` (``dT0`` the unsaturated water
+depression at F -> 0; see ``_coordinates``: the onset moves smoothly along theta, and
+every path with theta above one value melts from the model base up, whatever its shift
+and water), ``shift`` and water (uniform in ``water^0.75``, to which that depression is
+proportional), each on a pressure grid uniform in ``sqrt(P)``. Queries interpolate multilinearly across paths and linearly in sqrt(P)
 along them. The melt fraction is never interpolated: it is recomputed exactly from
 the interpolated path state, so its kinks (onset, cpx exhaustion) stay sharp.
 
@@ -36,18 +36,23 @@ import numpy as np
 
 from .._atomic import replacing
 from . import _cache
+from ._coordinates import WATER_EXPONENT as _WATER_EXPONENT
+from ._coordinates import Axis as _Axis
+from ._coordinates import GradedAxis
+from ._coordinates import potential_temperature, theta_axis
+from ._coordinates import theta as theta_of
 from ._integrate import integrate_paths
+from ._path_facts import PathFacts, path_facts, remember
 from ._validation import PARAMETER_DOMAIN
 from .adiabat import MAX_PRESSURE, onset_state, solid_adiabat
 
 __all__ = ["PathTable", "path_table", "table_for"]
 
-_THETA_STEP = 5.0  # K
+_THETA_STEP = 5.0  # K, away from the model base (see _coordinates.theta_axis)
 _SHIFT_STEP = 100.0  # K; the shift acts only through T/c_p at fixed theta: near-linear
 _WATER_NODES = 65  # 0-1000 ppm: errors within 0.3 of a target of exact-water tables
-_WATER_EXPONENT = 0.75  # Katz et al. (2003): dT = K X^0.75
 _PRESSURE_NODES = 1001  # dry tables
-_PRESSURE_NODES_ACROSS_WATER = 401  # keeps the table across water near 235 MB
+_PRESSURE_NODES_ACROSS_WATER = 401  # keeps the table across water near 245 MB
 _RK_STEPS = 2000  # Runge-Kutta steps from the model base to the surface, whatever is stored
 _ONSET_GROUPS = 8  # paths integrated together, by onset depth, when building a table
 _LANES_PER_GROUP = 1000  # fewer paths than this per group: numpy's call overhead dominates
@@ -55,27 +60,6 @@ _LANES_PER_GROUP = 1000  # fewer paths than this per group: numpy's call overhea
 
 def _pressure_axis(nodes):
     return _Axis(0.0, np.sqrt(MAX_PRESSURE) / (nodes - 1), nodes)
-
-
-@dataclass(frozen=True)
-class _Axis:
-    """A uniform interpolation axis; a single node means "exact, no interpolation"."""
-
-    start: float
-    step: float
-    size: int
-
-    @property
-    def nodes(self):
-        return self.start + self.step * np.arange(self.size)
-
-    def locate(self, x):
-        """Lower node index and fraction (0..1) of ``x`` on this axis."""
-        if self.size == 1:
-            return np.zeros(np.shape(x), np.intp), np.zeros(np.shape(x))
-        pos = np.clip((np.asarray(x, float) - self.start) / self.step, 0.0, self.size - 1.0)
-        idx = np.minimum(pos.astype(np.intp), self.size - 2)
-        return idx, pos - idx
 
 
 @dataclass(frozen=True)
@@ -87,7 +71,7 @@ class PathTable:
     shape ``(n_theta, n_shift, n_water)`` in GPa.
     """
 
-    theta: _Axis
+    theta: _Axis | GradedAxis
     shift: _Axis
     water: _Axis  # in water**0.75 units
     sqrt_pressure: _Axis
@@ -136,17 +120,12 @@ class PathTable:
         return values[..., 0], values[..., 1], values[..., 2]
 
 
-def deep_depression(param, water):
-    """Water solidus depression (K) at F -> 0 where unsaturated (at the model base)."""
-    return param.water_depression(0.0, MAX_PRESSURE, water)[0]
-
-
 def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     theta, shift, water_q = np.meshgrid(theta_axis.nodes, shift_axis.nodes, water_axis.nodes,
                                         indexing="ij")
     theta, shift = theta.ravel(), shift.ravel()
     water = water_q.ravel() ** (1.0 / _WATER_EXPONENT)
-    tp = theta + shift - deep_depression(param, water)
+    tp = potential_temperature(param, theta, shift, water)
     onset, sigma0, melts = onset_state(param, tp, water, shift)
     u = u_axis.nodes
     paths = _integrate_by_onset(param, u, onset, sigma0, melts, water, shift,
@@ -186,20 +165,21 @@ def _integrate_by_onset(param, u, onset, sigma0, melts, water, shift, sub_steps)
 def _param_axes(param, water):
     tp_lo, tp_hi = PARAMETER_DOMAIN["potential_temperature"]
     s_lo, s_hi = PARAMETER_DOMAIN["solidus_offset"]
-    depressions = deep_depression(param, np.asarray(water, float))
-    lo, hi = tp_lo - s_hi + np.min(depressions), tp_hi - s_lo + np.max(depressions)
-    lo, hi = np.floor(lo / _THETA_STEP) * _THETA_STEP, np.ceil(hi / _THETA_STEP) * _THETA_STEP
-    theta = _Axis(lo, _THETA_STEP, int(round((hi - lo) / _THETA_STEP)) + 1)
+    # theta is monotonic in each input: its extremes lie at corners of the input box
+    box = [theta_of(param, tp, s, w) for tp in (tp_lo, tp_hi) for s in (s_lo, s_hi)
+           for w in (min(water), max(water))]
+    theta = theta_axis(param, float(np.min(box)), float(np.max(box)), _THETA_STEP)
     shift = _Axis(s_lo, _SHIFT_STEP, int(round((s_hi - s_lo) / _SHIFT_STEP)) + 1)
     return theta, shift
 
 
-_FORMAT = 4  # bump when the table layout, its file or the integration changes
+_FORMAT = 5  # bump when the table layout, its file or the integration changes
 _HEADER_ROOM = 4096  # bytes of .npy header allowed beyond an array's data in a cache file
 _FACT = "facts_"  # file members holding the path facts (see _path_facts)
 #: Modules whose code decides a table's numbers or its path facts: a lidmelt whose code
 #: differs there gets tables of its own, even if nobody bumped `_FORMAT`.
-_TABLE_CODE = ("._integrate", "._table", ".adiabat", "._path_facts", ".parameterizations.base")
+_TABLE_CODE = ("._integrate", "._table", "._coordinates", ".adiabat", "._path_facts",
+               ".parameterizations.base")
 
 
 @lru_cache(maxsize=8)
@@ -224,8 +204,6 @@ def _load_or_build(param, label, theta, shift, water_axis, u_axis) -> PathTable:
     Processes that need the same missing table (a survey's workers) build it once: the
     others wait for the builder and then load its file.
     """
-    from ._path_facts import path_facts, remember  # it imports this module
-
     axes = (theta, shift, water_axis, u_axis)
     key = _table_key(param, axes)
     folder = _cache.cache_folder()
@@ -282,8 +260,6 @@ def _read_cache(path, key, axes):
 
 def _members(shape) -> dict[str, int]:
     """Cache-file array name -> bytes of its data (besides the key)."""
-    from ._path_facts import PathFacts
-
     paths = math.prod(shape[:3])
     members = {"state": 4 * math.prod(shape), "onset": 8 * paths}
     members.update({_FACT + f.name: 8 * paths for f in dataclasses.fields(PathFacts)})
@@ -292,8 +268,6 @@ def _members(shape) -> dict[str, int]:
 
 def _checked_facts(arrays, paths):
     """The stored path facts, or None unless each is ``paths`` finite 8-byte numbers."""
-    from ._path_facts import PathFacts
-
     facts = {}
     for field in dataclasses.fields(PathFacts):
         value = arrays[_FACT + field.name]

@@ -48,6 +48,12 @@ _MARGIN_RAMP = (1.0, 5.0)
 _NEWTON_RAMP = 2.0  # K: Newton steps toward shallower pressure fade out over this margin
 _MIN_GAP_SLOPE = 5.0  # K/GPa; below this |d gap/dP| Newton steps are shortened, not lengthened
 _MAX_STEP = 0.2  # GPa per Newton step, so the iteration stays on the root it started near
+#: K/GPa added to the slope floor of the faded steps as the margin falls to -2 K. A wet
+#: point that does not melt has its closest approach on a kink of the gap (where the
+#: melt would become water-saturated), across which the slope flips within 1e-4 GPa; a
+#: floor of up to 205 K/GPa keeps the step there below ~0.004 GPa, so the onset stays
+#: within its continuity bound (tests/test_continuity.py)
+_NO_MELT_SLOPE = 200.0
 
 
 def margin_trust(margin):
@@ -71,19 +77,21 @@ def refine_onset(param, pressure, potential_temperature, water, shift, margin,
     crossing): the Newton step ``-gap / slope``, shortened where the slope is gentler
     than 5 K/GPa. Where the gap is negative (the guess lies too deep) the step toward
     lower pressure fades out as the solidus ``margin`` (K, interpolated) falls from 0 to
-    -2 K: a point that does not melt keeps its tabulated closest-approach pressure
-    instead of stepping past it. Every factor is continuous in the gap, its
+    -2 K, and its slope floor rises from 5 to 205 K/GPa: a point that does not melt keeps
+    its tabulated closest-approach pressure instead of stepping past it. Every factor is continuous in the gap, its
     (finite-difference) slope and the margin, so the onset is continuous in the inputs.
     """
     p = np.asarray(pressure, float)
     delta = 1e-4
     fade = np.clip(1.0 + np.asarray(margin, float) / _NEWTON_RAMP, 0.0, 1.0)
+    floor = (_MIN_GAP_SLOPE + (1.0 - fade) * _NO_MELT_SLOPE) ** 2
     for _ in range(iterations):
         gap = _tau_gap(param, potential_temperature, p, water, shift)
         slope = (_tau_gap(param, potential_temperature, p + delta, water, shift) - gap) / delta
         falling = np.maximum(-slope, 0.0)
-        newton = gap * falling / np.maximum(slope * slope, _MIN_GAP_SLOPE ** 2)
-        step = np.where(gap >= 0.0, newton, newton * fade)
+        rising = gap >= 0.0  # the full Newton step; else faded, with a higher slope floor
+        step = gap * falling * np.where(rising, 1.0, fade) / np.maximum(
+            slope * slope, np.where(rising, _MIN_GAP_SLOPE ** 2, floor))
         p = np.clip(p + np.clip(step, -_MAX_STEP, _MAX_STEP), 0.0, MAX_PRESSURE)
     return p
 

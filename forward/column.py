@@ -11,7 +11,8 @@ from ._aligned import blended_sigma, corner_states
 from ._integrate import column_temperature
 from ._path_facts import path_facts
 from ._pooling import pool
-from ._table import PathTable, deep_depression, table_for
+from ._coordinates import theta as table_theta
+from ._table import PathTable, table_for
 from ._validation import check_inputs
 from .adiabat import depth_per_pressure, margin_trust, refine_onset, solid_adiabat
 from .adiabat import solidus_margin as adiabat_margin
@@ -221,7 +222,7 @@ def melt_column(
     b = dict(zip(v, np.broadcast_arrays(*v.values()), strict=True))
     table = table_for(param, b["water"])
     km_per_gpa = depth_per_pressure(b["mantle_density"])
-    theta = b["potential_temperature"] - b["solidus_offset"] + deep_depression(param, b["water"])
+    theta = table_theta(param, b["potential_temperature"], b["solidus_offset"], b["water"])
     corners = _live(table.corners(theta, b["solidus_offset"], b["water"]))
     query = _Query(param, table, theta, b["solidus_offset"], b["water"], melting_region,
                    km_per_gpa, b["potential_temperature"], corners)

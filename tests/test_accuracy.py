@@ -108,3 +108,40 @@ def test_between_water_nodes_near_cpx_exhaustion(tp, lid, water, shift):
     ref = reference_column(tp, lid, water=water, solidus_offset=shift, rtol=1e-8)
     _check(_point(melt_column(tp, lid, water=water, solidus_offset=shift), 0), ref,
            "between water nodes")
+
+
+# Melting that starts within about 1.5 GPa of the 10 GPa model base (docs/model.md, "How
+# the fast route works"): the onset moves up to 0.25 GPa per K there, and whether a path
+# melts from the base up depends on Tp, offset and water together. Offsets off the table's
+# shift nodes (-30, +10, +34 degC), dry and wet, lids of 0 and 77 km, on both sides of the
+# base, and a Tp scan through the band, all against the reference route.
+NEAR_BASE = [(tp, lid, water, shift)
+             for tp, shift in ((1620.0, -30.0), (1620.0, 10.0), (1642.0, 34.0), (1600.0, -30.0),
+                               (1654.0, 0.0), (1632.0, -30.0), (1660.0, 34.0))
+             for lid in (0.0, 77.0) for water in (0.0, 133.0)]
+NEAR_BASE_SCAN = np.arange(1605.0, 1671.0, 3.0)  # Tp across the band, 133 ppm, +10 degC
+
+
+@pytest.fixture(scope="module")
+def near_base_references():
+    return [reference_column(*case[:2], water=case[2], solidus_offset=case[3], rtol=1e-8)
+            for case in NEAR_BASE]
+
+
+def test_onset_near_the_model_base(near_base_references):
+    tp, lid, water, shift = (np.array(v) for v in zip(*NEAR_BASE, strict=True))
+    for wet in (False, True):  # the dry table, and the one across water
+        pick = np.flatnonzero((water > 0.0) == wet)
+        res = melt_column(tp[pick], lid[pick], water=water[pick], solidus_offset=shift[pick])
+        for j, i in enumerate(pick):
+            _check(_point(res, j), near_base_references[i], NEAR_BASE[i])
+
+
+@pytest.mark.parametrize("region", ["column", "triangle"])
+def test_scan_through_the_base_band(region):
+    res = melt_column(NEAR_BASE_SCAN, 40.0, water=133.0, solidus_offset=10.0,
+                      melting_region=region)
+    for i, tp in enumerate(NEAR_BASE_SCAN):
+        ref = reference_column(tp, 40.0, water=133.0, solidus_offset=10.0,
+                               melting_region=region, rtol=1e-8)
+        _check(_point(res, i), ref, (tp, region))
