@@ -15,6 +15,7 @@ import sys
 from ..forward._validation import DomainError
 from ..inversion.errors import InputError, OutputConflict
 from . import cache, column, compare, demo, fit, survey
+from ._usage import UsageError
 
 # name -> (module, one-line help)
 _COMMANDS = {
@@ -42,10 +43,6 @@ class _VersionAction(argparse.Action):
 
         sys.stdout.write(f"lidmelt {__version__}\n")
         parser.exit()
-
-
-class UsageError(Exception):
-    """A user mistake on the command line or in an input file (exit code 2)."""
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -87,7 +87,7 @@ def _compare(args, out: Path):
 
 
 def _require_optional_packages() -> None:
-    from . import UsageError
+    from ._usage import UsageError
 
     missing = [pip for module, pip in (("nautilus", "nautilus-sampler"), ("arviz", "arviz"))
                if importlib.util.find_spec(module) is None]
