@@ -20,7 +20,7 @@ from lidmelt.inversion.survey import read_sites, survey
 
 from survey_helpers import truth_table, write_sites, write_study
 
-_SITES = "site,position_km,thickness_km,sigma_km,pressure_gpa,pressure_sigma_gpa\n"
+_SITES = "site,position_km,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma_gpa\n"
 
 
 @pytest.fixture(scope="session")
@@ -98,9 +98,9 @@ def test_a_site_with_bad_data_fails_alone(tmp_path, capsys):
     status = summary.groupby("site", sort=False)["status"].first()
     assert status["A"] == "ok" and status["C"] == "ok"
     assert status["B"].startswith("failed:")
-    assert "sites.csv, row 3, column 'sigma_km'" in status["B"]  # header is line 1
+    assert "sites.csv, line 3, column 'thickness_sigma_km'" in status["B"]  # header is line 1
     assert "must be > 0" in status["B"]
-    assert "row 5, column 'pressure_sigma_gpa'" in status["D"]  # half of a pair
+    assert "line 5, column 'pressure_sigma_gpa'" in status["D"]  # half of a pair
     assert summary[summary["site"] == "B"]["median"].isna().all()
     report = (tmp_path / "out" / "report.md").read_text(encoding="utf-8")
     assert "**B** (line 3)" in report and "no basis on their own" in report
@@ -115,7 +115,7 @@ def test_a_site_that_cannot_melt_fails_with_the_reason(tmp_path):
     cold.write_text(cold.read_text().replace("max = 1600.0", "max = 1270.0").replace(
         "min = 5.0", "min = 90.0"))
     sites = tmp_path / "sites.csv"
-    sites.write_text("site,thickness_km,sigma_km\ncold,6,0.5\nnone,0,0.5\n",
+    sites.write_text("site,thickness_km,thickness_sigma_km\ncold,6,0.5\nnone,0,0.5\n",
                      encoding="utf-8")
     result = survey(cold, sites, out=tmp_path / "cold", workers=1, quiet=True,
                     keep_chains=True)
@@ -129,10 +129,10 @@ def test_a_site_that_cannot_melt_fails_with_the_reason(tmp_path):
 
 
 @pytest.mark.parametrize("content, needle", [
-    ("site,thickness_km\nA,6\n", "missing column 'sigma_km'"),
-    ("site,thickness_km,sigma_km,pressure_gpa\nA,6,0.5,1\n",
+    ("site,thickness_km\nA,6\n", "missing column 'thickness_sigma_km'"),
+    ("site,thickness_km,thickness_sigma_km,pressure_gpa\nA,6,0.5,1\n",
      "missing column 'pressure_sigma_gpa', needed together with pressure_gpa"),
-    ("site,thickness_km,sigma_km\nA,6,0.5\nA,5,0.5\n", "row 3, column 'site': site 'A' "
+    ("site,thickness_km,thickness_sigma_km\nA,6,0.5\nA,5,0.5\n", "line 3, column 'site': site 'A' "
      "appears twice"),
 ])
 def test_a_broken_sites_file_stops_with_exit_2(tmp_path, capsys, content, needle):
@@ -160,7 +160,7 @@ def test_pressures_need_an_equilibration(tmp_path, capsys):
 def test_a_misspelt_survey_key_is_named_with_its_line(tmp_path, capsys):
     study = write_study(tmp_path, extra_survey="tp_sprad = 3")
     sites = tmp_path / "sites.csv"
-    sites.write_text("site,thickness_km,sigma_km\nA,6,0.5\n", encoding="utf-8")
+    sites.write_text("site,thickness_km,thickness_sigma_km\nA,6,0.5\n", encoding="utf-8")
     assert main(["survey", str(study), "--sites", str(sites), "--out",
                  str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err
@@ -225,7 +225,7 @@ def test_resume_refuses_changed_inputs_and_force_guards_foreign_folders(inputs, 
 
 def test_sites_table_reads_optional_columns(tmp_path):
     path = tmp_path / "s.csv"
-    path.write_text("# invented sites\nsite,thickness_km,sigma_km,extra\nA,6,0.5,x\n",
+    path.write_text("# invented sites\nsite,thickness_km,thickness_sigma_km,extra\nA,6,0.5,x\n",
                     encoding="utf-8")
     table = read_sites(path)
     assert not table.has_positions and not table.has_pressures
