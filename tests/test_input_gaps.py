@@ -92,13 +92,24 @@ def test_missing_parameter_message_has_single_braces(tmp_path):
     assert "}}" not in str(info.value)
 
 
-def test_missing_column_hint_does_not_offer_the_found_columns_as_choices(tmp_path):
+def test_an_unknown_column_names_the_columns_the_kind_reads(tmp_path):
     study = small_study(tmp_path / "study", crust="site,depth_km,notes\nA,6.5,x\n")
     with pytest.raises(inversion.InputError) as info:
         inversion.Study.from_file(study)
     message = str(info.value)
-    assert "missing column 'thickness_km' (found: site, depth_km, notes)" in message
+    # 'notes' is a remark (NOTE_PREFIX); 'depth_km' is refused, listing what is read
+    assert "crust.csv, line 1, column 'depth_km': unknown column 'depth_km'; this table " \
+        "reads site, thickness_km, thickness_sigma_km" in message
     assert "valid choices" not in message
+
+
+def test_missing_column_hint_does_not_offer_the_found_columns_as_choices(tmp_path):
+    study = small_study(tmp_path / "study", crust="site,thickness_km,notes\nA,6.5,x\n")
+    with pytest.raises(inversion.InputError) as info:
+        inversion.Study.from_file(study)
+    message = str(info.value)
+    assert message.endswith("missing column 'thickness_sigma_km' (found: site, "
+                            "thickness_km, notes)")
 
 
 def test_a_bug_is_a_traceback_not_an_input_error(tmp_path, monkeypatch):
