@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 
 from lidmelt.cli import main
+from lidmelt.inversion import InputError
 from lidmelt.inversion.survey import read_sites, survey
 
 from survey_helpers import truth_table, write_sites, write_study
@@ -225,11 +226,36 @@ def test_resume_refuses_changed_inputs_and_force_guards_foreign_folders(inputs, 
 
 def test_sites_table_reads_optional_columns(tmp_path):
     path = tmp_path / "s.csv"
-    path.write_text("# invented sites\nsite,thickness_km,thickness_sigma_km,extra\nA,6,0.5,x\n",
+    path.write_text("# invented sites\nsite,thickness_km,thickness_sigma_km,note\nA,6,0.5,x\n",
                     encoding="utf-8")
     table = read_sites(path)
     assert not table.has_positions and not table.has_pressures
     assert table.sites[0].line == 3 and table.sites[0].thickness_km == 6.0
+
+
+def test_sites_table_refuses_an_unknown_column_and_an_old_name(tmp_path):
+    path = tmp_path / "s.csv"
+    path.write_text("site,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma\n"
+                    "A,6,0.5,1,0.2\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"s.csv, line 1, column 'pressure_sigma': unknown "
+                       r"column 'pressure_sigma'; did you mean 'pressure_sigma_gpa'\?"):
+        read_sites(path)
+    path.write_text("site,thickness_km,sigma_km\nA,6,0.5\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"column 'sigma_km' is now called "
+                       r"'thickness_sigma_km'"):
+        read_sites(path)
+
+
+def test_sites_table_applies_the_crust_limit_of_the_crust_kind(tmp_path):
+    # The sites file takes the crust kind's rules: 75 km fails that site at read time,
+    # naming the file and line, instead of failing later in a worker without them.
+    path = tmp_path / "s.csv"
+    path.write_text("site,thickness_km,thickness_sigma_km\nA,6,0.5\nB,75,1\n",
+                    encoding="utf-8")
+    table = read_sites(path)
+    assert table.sites[0].error is None
+    assert table.sites[1].error.startswith(f"{path}, line 3, column 'thickness_km': value "
+                                           "75 must be between 0 and 60 km")
 
 
 def test_import_lidmelt_stays_light():

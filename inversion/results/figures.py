@@ -38,6 +38,7 @@ __all__ = ["corner_figure", "figure_files", "fit_figure", "pt_figure"]
 
 _DPI = 150
 _INCH_FOR_LABELS = 0.95  # room left and below the corner grid for tick and axis labels
+_INCH_FOR_CAPTION = 0.45  # below that: the caption naming each symbol
 
 
 def figure_files(posterior) -> dict[str, bytes]:
@@ -59,7 +60,7 @@ def corner_figure(posterior) -> Figure:
     ndim = len(names)
     kept = posterior.chain[posterior.discard:: posterior.thin].reshape(-1, ndim)
     size = max(5.0, 2.3 * ndim + _INCH_FOR_LABELS + 0.3)
-    fig = Figure(figsize=(size, size + 0.5))
+    fig = Figure(figsize=(size, size + 0.5 + _INCH_FOR_CAPTION))
     # A log-uniform prior spans decades: bin and draw that parameter on a log axis.
     scales = ["log" if isinstance(prior, LogUniform) else "linear"
               for prior in posterior.logpost.priors]
@@ -79,8 +80,9 @@ def corner_figure(posterior) -> Figure:
         for i in range(j + 1, ndim):
             axes[i, j].plot(point[j], point[i], "D", color=style.MAP, mec="white",
                             ms=6, mew=1.0, zorder=6)
-    height = size + 0.5
-    left, bottom, right, top = (_INCH_FOR_LABELS / size, _INCH_FOR_LABELS / height,
+    height = size + 0.5 + _INCH_FOR_CAPTION
+    left, bottom, right, top = (_INCH_FOR_LABELS / size,
+                                (_INCH_FOR_LABELS + _INCH_FOR_CAPTION) / height,
                                 1 - 0.25 / size, 1 - 0.9 / height)
     fig.subplots_adjust(left=left, bottom=bottom, right=right, top=top, wspace=0.06,
                         hspace=0.06)
@@ -93,25 +95,26 @@ def corner_figure(posterior) -> Figure:
                bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
     fig.suptitle(f"{posterior.study.name}\nposterior of the free parameters",
                  fontsize=10, x=0.02, ha="left", y=1 - 0.12 / height, va="top")
-    fig.text(0.02, 0.012, _symbol_note(names, scales), fontsize=7.5, color=style.INK,
-             ha="left", va="bottom", wrap=True)
+    fig.text(0.02, 0.08 / height, _symbol_note(names, scales, width=int(17 * size)),
+             fontsize=7.5, color=style.INK, ha="left", va="bottom")
     return fig
 
 
-def _symbol_note(names, scales) -> str:
+def _symbol_note(names, scales, *, width: int) -> str:
     """The caption: each axis symbol in words, and which axes are logarithmic."""
     words = []
     for name in names:
         q = quantity(name)
         words.append(f"{q.symbol} = {q.name}" + (
-            " (shift of the melting curves from the parameterization's dry solidus; "
-            "docs/model.md)" if name == "solidus_offset" else ""))
+            " (moves the solidus, lherzolite-out curve and liquidus up (> 0) or down "
+            "together: a more refractory or a more fertile source; docs/model.md)"
+            if name == "solidus_offset" else ""))
     note = "; ".join(words)
     logs = [quantity(n).symbol for n, scale in zip(names, scales, strict=True)
             if scale == "log"]
     if logs:
         note += "; log axis (log-uniform prior): " + ", ".join(logs)
-    return textwrap.fill(note, width=150)
+    return textwrap.fill(note, width=width)  # width: characters of 7.5 pt per line
 
 
 def _mark_marginal(ax, row, prior, map_value) -> None:
@@ -295,8 +298,9 @@ def _draw_joint_panel(ax, block, *, observed, p, t):
     ax.set_xlabel(quantity("temperature").axis_label())
     ax.set_ylabel(quantity("pressure").axis_label())
     ax.set_title(f"{block.name}: P and T of each sample together\n"
-                 "dots: where the model melts equilibrate (posterior draws); "
-                 "ellipses: observed ± 1σ", fontsize=8.5, loc="left")
+                 "dots: where the model melts equilibrate (posterior draws)\n"
+                 "ellipses: observed ± 1σ, tilted by correlated P-T errors",
+                 fontsize=8.5, loc="left")
     ax.grid(alpha=0.3, lw=0.5)
     labels = [ax.annotate(name, (tx, py), xytext=(4, 3), textcoords="offset points",
                           fontsize=6.5, color=style.INK)
