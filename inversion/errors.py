@@ -38,7 +38,7 @@ class InputError(ValueError):
     Examples
     --------
     >>> err = InputError("value -0.3 must be > 0", file="crust.csv", row=4,
-...                  column="thickness_sigma_km")
+    ...                  column="thickness_sigma_km")
     >>> str(err)
     "crust.csv, line 4, column 'thickness_sigma_km': value -0.3 must be > 0"
     >>> str(InputError("unknown key 'wter'; did you mean 'water'?", key="parameters.wter"))
