@@ -34,7 +34,7 @@ def _sites(folder: Path, n: int) -> Path:
                           "position_km": 5.0 * np.arange(n),
                           "potential_temperature": rng.normal(1380.0, 20.0, n),
                           "lithosphere_thickness": rng.uniform(15.0, 55.0, n),
-                          "sigma_km": 0.5, "pressure_sigma_gpa": pressure})
+                          "thickness_sigma_km": 0.5, "pressure_sigma_gpa": pressure})
     table = simulate_sites(study, settings, truth, rng)
     for column in ("pressure_gpa", "pressure_sigma_gpa"):
         table[column] = table[column].map(lambda v: "" if pd.isna(v) else repr(v))

@@ -17,6 +17,7 @@ from ..forward.column import MELTING_REGIONS, melt_column
 from ..forward.parameterizations import PARAMETERIZATIONS, get_parameterization
 from ..forward.quantities import GROUPS, quantity
 from ..inversion.errors import InputError
+from ..inversion.study.keys import parse_number
 
 # option name (= melt_column argument) -> default
 _NUMERIC = {
@@ -63,18 +64,22 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def parse_values(text: str, option: str) -> list[float]:
-    """A value, a comma list or an inclusive ``start:stop:step`` range."""
+    """A value, a comma list or an inclusive ``start:stop:step`` range.
+
+    Each number is a plain decimal, the rule of every table (`study.keys.parse_number`):
+    ``1350`` and ``1.35e3``, not ``1_350``.
+    """
     values: list[float] = []
     for part in text.split(","):
         part = part.strip()
         try:
             if ":" in part:
-                start, stop, step = (float(x) for x in part.split(":"))
+                start, stop, step = (parse_number(x) for x in part.split(":"))
                 if step <= 0 or stop < start:
                     raise ValueError("empty range")
                 values.extend(np.arange(start, stop + 0.5 * step, step).round(10).tolist())
             else:
-                values.append(float(part))
+                values.append(parse_number(part))
         except ValueError:
             raise InputError(f"--{option}: cannot read {part!r}; give a number, a comma list "
                              "or start:stop:step with step > 0 and stop >= start") from None

@@ -9,7 +9,7 @@ from pathlib import Path
 __all__ = ["add_arguments", "run"]
 
 _EPILOG = """\
-SITES.csv has one row per site: site, thickness_km, sigma_km; optional position_km;
+SITES.csv has one row per site: site, thickness_km, thickness_sigma_km; optional position_km;
 optional pressure_gpa with pressure_sigma_gpa; optional temperature_c with
 temperature_sigma_c. A row with a bad value fails only its own site (named with its line
 and column in the summary and the report). The study file gives model, priors and sampler

@@ -2,7 +2,7 @@
 
 `InputError` is the one exception for a mistake in a user's study file or observation
 table. Its string form is a single line that names where the mistake is (file, line,
-row, column, key), shows the bad value, states the rule and suggests a fix, so the
+line, column, key), shows the bad value, states the rule and suggests a fix, so the
 command line can print it as it is and exit with code 2.
 """
 
@@ -26,7 +26,8 @@ class InputError(ValueError):
     file : str or path-like, optional
         The file the mistake is in.
     row : int, optional
-        Line number in a table file as a user sees it in an editor (header = line 1).
+        Line number in a table file as a user sees it in an editor (header = line 1);
+        printed as ``line N``, so a user looks for it in an editor, not by counting rows.
     column : str, optional
         Column name in a table file.
     key : str, optional
@@ -36,9 +37,10 @@ class InputError(ValueError):
 
     Examples
     --------
-    >>> err = InputError("value -0.3 must be > 0", file="crust.csv", row=4, column="sigma_km")
+    >>> err = InputError("value -0.3 must be > 0", file="crust.csv", row=4,
+    ...                  column="thickness_sigma_km")
     >>> str(err)
-    "crust.csv, row 4, column 'sigma_km': value -0.3 must be > 0"
+    "crust.csv, line 4, column 'thickness_sigma_km': value -0.3 must be > 0"
     >>> str(InputError("unknown key 'wter'; did you mean 'water'?", key="parameters.wter"))
     "key 'parameters.wter': unknown key 'wter'; did you mean 'water'?"
     """
@@ -68,7 +70,7 @@ class InputError(ValueError):
         if self.line is not None:
             where.append(f"line {self.line}")
         if self.row is not None:
-            where.append(f"row {self.row}")
+            where.append(f"line {self.row}")
         if self.column is not None:
             where.append(f"column '{self.column}'")
         if self.key is not None:

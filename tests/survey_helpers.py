@@ -59,4 +59,4 @@ def truth_table(tp, lids, *, pressure_every: int = 2, sigma: float = 0.4) -> pd.
     return pd.DataFrame({"site": [f"S{k + 1:02d}" for k in range(lids.size)],
                          "position_km": 10.0 * np.arange(lids.size),
                          "potential_temperature": tp, "lithosphere_thickness": lids,
-                         "sigma_km": sigma, "pressure_sigma_gpa": pressure})
+                         "thickness_sigma_km": sigma, "pressure_sigma_gpa": pressure})

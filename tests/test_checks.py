@@ -11,7 +11,7 @@ from scipy import stats
 
 def _crust_block(values, sigma):
     frame = pd.DataFrame({"site": [f"s{i}" for i in range(len(values))],
-                          "thickness_km": values, "sigma_km": sigma})
+                          "thickness_km": values, "thickness_sigma_km": sigma})
     return CrustalThickness.from_frame(frame)
 
 
@@ -51,7 +51,7 @@ def test_path_equilibration_uses_the_spread_along_the_path():
     top, onset = float(column.top_pressure), float(column.onset_pressure)
     pressures = np.linspace(top + 0.1 * (onset - top), onset - 0.1 * (onset - top), 8)
     frame = pd.DataFrame({"sample": [f"b{i}" for i in range(8)],
-                          "pressure_gpa": pressures, "sigma_gpa": 0.15})
+                          "pressure_gpa": pressures, "pressure_sigma_gpa": 0.15})
     block = MeltingPressure.from_frame(frame, equilibration="path")
     check, = check_blocks([block], [column] * 1500, np.random.default_rng(11))
     assert check.flagged() == []

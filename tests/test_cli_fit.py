@@ -168,7 +168,7 @@ def test_existing_folder_is_refused_and_force_replaces_only_lidmelt_folders(tmp_
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out", "study"]  # nothing left
 
 
-BAD_BASALTS = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\nA,1.5,0.2,1380,30\n"
+BAD_BASALTS = "sample,pressure_gpa,pressure_sigma_gpa,temperature_c,temperature_sigma_c\nA,1.5,0.2,1380,30\n"
 LID_40 = "\nlithosphere_thickness = { value = 40.0 }"
 
 
@@ -176,12 +176,12 @@ LID_40 = "\nlithosphere_thickness = { value = 40.0 }"
     ("edit", "message"),
     [
         ({"basalts": BAD_BASALTS + "B,1.8,-0.1,1400,30\n"},
-         r"basalts.csv, row 3, column 'sigma_gpa'"),
+         r"basalts.csv, line 3, column 'pressure_sigma_gpa'"),
         ({"basalts": BAD_BASALTS + "B,12.0,0.2,1400,30\n"},
-         r"basalts.csv, row 3, column 'pressure_gpa'"),
-        ({"basalts": BAD_BASALTS + "B,abc,0.2,1400,30\n"}, r"row 3, column 'pressure_gpa'"),
-        ({"basalts": BAD_BASALTS + "B,nan,0.2,1400,30\n"}, r"row 3, column 'pressure_gpa'"),
-        ({"basalts": "sample,pressure_gpa\nA,1.5\n"}, r"sigma_gpa"),
+         r"basalts.csv, line 3, column 'pressure_gpa'"),
+        ({"basalts": BAD_BASALTS + "B,abc,0.2,1400,30\n"}, r"line 3, column 'pressure_gpa'"),
+        ({"basalts": BAD_BASALTS + "B,nan,0.2,1400,30\n"}, r"line 3, column 'pressure_gpa'"),
+        ({"basalts": "sample,pressure_gpa\nA,1.5\n"}, r"pressure_sigma_gpa"),
         ({"sampler": "walkrs = 16\nseed = 4\n"},
          r"key 'sampler.walkrs'.*did you mean 'walkers'"),
         ({"parameters": 'potential_temperature = { prior = "uniformm", min = 1.0, max = 2.0 }'

@@ -127,7 +127,7 @@ def test_no_free_parameter_evidence_is_the_likelihood():
     estimate = scenario_evidence(LogPosterior(study), seed=1, **SMALL)
     column = forward.melt_column(1380.0, 45.0, water=0.0)
     # independent route: scipy.stats.norm with sigma and model error added in quadrature
-    sigma = np.hypot(crust.data["sigma_km"].to_numpy(), 0.5)
+    sigma = np.hypot(crust.data["thickness_sigma_km"].to_numpy(), 0.5)
     expected = stats.norm.logpdf(crust.data["thickness_km"].to_numpy(),
                                  float(column.crustal_thickness), sigma).sum()
     assert estimate.log_evidence == pytest.approx(expected, rel=1e-12)

@@ -65,7 +65,7 @@ def test_corner_draws_each_prior_and_keeps_the_median_line_visible(two):
         expected = stats.uniform.pdf(x, loc=low, scale=high - low)
         np.testing.assert_allclose(prior.get_ydata(), expected, rtol=1e-12)
         median = [ln for ln in ax.get_lines() if ln.get_linestyle() == "-"
-                  and ln.get_color() == style.POSTERIOR and len(ln.get_xdata()) == 2]
+                  and ln.get_color() == style.INK and len(ln.get_xdata()) == 2]
         assert median and median[0].get_xdata()[0] == pytest.approx(summary.loc[name,
                                                                                 "median"])
         # the MAP is a marker on the top edge, not a second full-height line

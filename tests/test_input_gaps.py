@@ -12,7 +12,7 @@ from lidmelt import inversion
 from lidmelt.cli import fit as cli_fit
 from lidmelt.cli import main
 
-CRUST_HEAD = "site,thickness_km,sigma_km\n"
+CRUST_HEAD = "site,thickness_km,thickness_sigma_km\n"
 
 
 def _refused(capsys, *argv) -> str:
@@ -44,7 +44,7 @@ def test_an_unreadable_file_is_an_input_error_naming_it(tmp_path, capsys, monkey
 def test_an_impossible_crust_thickness_names_file_row_and_range(tmp_path, capsys):
     study = small_study(tmp_path / "study", crust=CRUST_HEAD + "A,6.5,0.6\nB,1e300,0.5\n")
     err = _refused(capsys, "fit", str(study), "--out", str(tmp_path / "out"))
-    assert "crust.csv, row 3, column 'thickness_km': value 1e+300 must be between 0 and " \
+    assert "crust.csv, line 3, column 'thickness_km': value 1e+300 must be between 0 and " \
            "60 km" in err
     assert "prior" not in err
 
@@ -53,7 +53,7 @@ def test_an_impossible_crust_thickness_names_file_row_and_range(tmp_path, capsys
 def test_numbers_python_reads_but_a_table_must_not(tmp_path, capsys, cell):
     study = small_study(tmp_path / "study", crust=CRUST_HEAD + f"A,{cell},0.6\n")
     err = _refused(capsys, "fit", str(study), "--out", str(tmp_path / "out"))
-    assert f"row 2, column 'thickness_km': '{cell}' is not a number" in err
+    assert f"line 2, column 'thickness_km': '{cell}' is not a number" in err
 
 
 @pytest.mark.parametrize("char", ["\x00", "\u2028", "\x0c", "\x85"])
@@ -61,7 +61,7 @@ def test_control_characters_in_a_cell_are_refused(tmp_path, capsys, char):
     crust = CRUST_HEAD + "A,6.5,0.6\n" + f"B line{char} two,5.8,0.5\n"
     study = small_study(tmp_path / "study", crust=crust)
     err = _refused(capsys, "fit", str(study), "--out", str(tmp_path / "out"))
-    assert f"row 3, column 'site': a cell holds the control character " \
+    assert f"line 3, column 'site': a cell holds the control character " \
            f"U+{ord(char):04X}" in err
 
 
@@ -92,13 +92,24 @@ def test_missing_parameter_message_has_single_braces(tmp_path):
     assert "}}" not in str(info.value)
 
 
-def test_missing_column_hint_does_not_offer_the_found_columns_as_choices(tmp_path):
+def test_an_unknown_column_names_the_columns_the_kind_reads(tmp_path):
     study = small_study(tmp_path / "study", crust="site,depth_km,notes\nA,6.5,x\n")
     with pytest.raises(inversion.InputError) as info:
         inversion.Study.from_file(study)
     message = str(info.value)
-    assert "missing column 'thickness_km' (found: site, depth_km, notes)" in message
+    # 'notes' is a remark (NOTE_PREFIX); 'depth_km' is refused, listing what is read
+    assert "crust.csv, line 1, column 'depth_km': unknown column 'depth_km'; this table " \
+        "reads site, thickness_km, thickness_sigma_km" in message
     assert "valid choices" not in message
+
+
+def test_missing_column_hint_does_not_offer_the_found_columns_as_choices(tmp_path):
+    study = small_study(tmp_path / "study", crust="site,thickness_km,notes\nA,6.5,x\n")
+    with pytest.raises(inversion.InputError) as info:
+        inversion.Study.from_file(study)
+    message = str(info.value)
+    assert message.endswith("missing column 'thickness_sigma_km' (found: site, "
+                            "thickness_km, notes)")
 
 
 def test_a_bug_is_a_traceback_not_an_input_error(tmp_path, monkeypatch):

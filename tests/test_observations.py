@@ -82,8 +82,8 @@ def _frame(**columns):
 
 
 PRESSURES = _frame(sample=["a", "b", "c"], pressure_gpa=[1.2, 1.9, 2.6],
-                   sigma_gpa=[0.2, 0.15, 0.3])
-PT = PRESSURES.assign(temperature_c=[1360.0, 1400.0, 1420.0], sigma_c=[25.0, 30.0, 20.0])
+                   pressure_sigma_gpa=[0.2, 0.15, 0.3])
+PT = PRESSURES.assign(temperature_c=[1360.0, 1400.0, 1420.0], temperature_sigma_c=[25.0, 30.0, 20.0])
 
 
 # ---- crustal thickness
@@ -91,7 +91,7 @@ PT = PRESSURES.assign(temperature_c=[1360.0, 1400.0, 1420.0], sigma_c=[25.0, 30.
 
 def test_crust_loglike_is_a_sum_of_gaussians_with_model_error():
     obs = CrustalThickness.from_frame(
-        _frame(site=["A", "B"], thickness_km=[7.0, 8.2], sigma_km=[0.8, 1.1]), model_error=0.5)
+        _frame(site=["A", "B"], thickness_km=[7.0, 8.2], thickness_sigma_km=[0.8, 1.1]), model_error=0.5)
     column = ConstantProductivityColumn([1.0, 1.2], [3.0, 3.1], crust=[6.5, 9.0],
                                         melt=[5.7, 7.9])
     sd = np.hypot([0.8, 1.1], 0.5)  # quadrature sum
@@ -108,7 +108,7 @@ def test_crust_against_the_real_forward_model():
     study_obs = CrustalThickness.from_spec({"file": "crust.csv", "kind": "crustal_thickness"},
                                            base_dir=DATA)
     column = forward.melt_column(np.array([1350.0, 1450.0]), np.array([20.0, 40.0]))
-    sd = study_obs.data["sigma_km"].to_numpy()
+    sd = study_obs.data["thickness_sigma_km"].to_numpy()
     expected = [stats.norm.logpdf(study_obs.values, loc=m, scale=sd).sum()
                 for m in column.crustal_thickness]
     assert_allclose(study_obs.log_likelihood(column), expected, rtol=1e-12)
@@ -121,12 +121,12 @@ def test_top_pressure_and_temperature_against_scipy():
     column = ConstantProductivityColumn([1.1, 1.5], [3.2, 2.9], t_top=1340.0)
     obs = MeltingPressure.from_frame(PT, equilibration="top", model_error=0.1,
                                      temperature_model_error=15.0)
-    sp, st = np.hypot(PT.sigma_gpa, 0.1), np.hypot(PT.sigma_c, 15.0)
+    sp, st = np.hypot(PT.pressure_sigma_gpa, 0.1), np.hypot(PT.temperature_sigma_c, 15.0)
     expected = [stats.norm.logpdf(PT.pressure_gpa, p, sp).sum()
                 + stats.norm.logpdf(PT.temperature_c, 1340.0, st).sum() for p in (1.1, 1.5)]
     assert_allclose(obs.log_likelihood(column), expected, rtol=1e-12)
     pressure_only = MeltingPressure.from_frame(PRESSURES, equilibration="top")
-    expected = [stats.norm.logpdf(PRESSURES.pressure_gpa, p, PRESSURES.sigma_gpa).sum()
+    expected = [stats.norm.logpdf(PRESSURES.pressure_gpa, p, PRESSURES.pressure_sigma_gpa).sum()
                 for p in (1.1, 1.5)]
     assert_allclose(pressure_only.log_likelihood(column), expected, rtol=1e-12)
 
@@ -136,8 +136,8 @@ def test_pooled_uses_mean_pressure_and_path_mean_temperature():
     obs = MeltingPressure.from_frame(PT, equilibration="pooled")
     # Constant productivity: pooled P = (P0 + Pf) / 2 = 2.0 GPa (docs/model.md, "Melting regions"), and
     # the melt-weighted mean of a linear T(P) is T at that pressure, 1330 + 50 * 1.0.
-    expected = (stats.norm.logpdf(PT.pressure_gpa, 2.0, PT.sigma_gpa).sum()
-                + stats.norm.logpdf(PT.temperature_c, 1380.0, PT.sigma_c).sum())
+    expected = (stats.norm.logpdf(PT.pressure_gpa, 2.0, PT.pressure_sigma_gpa).sum()
+                + stats.norm.logpdf(PT.temperature_c, 1380.0, PT.temperature_sigma_c).sum())
     assert_allclose(obs.log_likelihood(column), [expected], rtol=1e-10)
     pred = obs.predict(column)
     assert_allclose(pred["value"], [[2.0] * 3])
@@ -158,7 +158,7 @@ def _closed_form_path(obs, sd, top, onset):
 
 def test_path_marginal_against_closed_form():
     column = ConstantProductivityColumn([1.0, 0.6], [3.0, 2.2])
-    exact = [_closed_form_path(PRESSURES.pressure_gpa, PRESSURES.sigma_gpa, t, o).sum()
+    exact = [_closed_form_path(PRESSURES.pressure_gpa, PRESSURES.pressure_sigma_gpa, t, o).sum()
              for t, o in ((1.0, 3.0), (0.6, 2.2))]
     fine = MeltingPressure.from_frame(PRESSURES, equilibration="path", path_points=1024)
     assert_allclose(fine.log_likelihood(column), exact, rtol=1e-6)
@@ -173,7 +173,7 @@ PT_RHO = PT.assign(pt_correlation=[0.8, -0.6, 0.3])
 
 def _covariance(row, p_error=0.0, t_error=0.0):
     # The stated errors are correlated; model errors are added independently of them.
-    sp, st, rho = row.sigma_gpa, row.sigma_c, getattr(row, "pt_correlation", 0.0)
+    sp, st, rho = row.pressure_sigma_gpa, row.temperature_sigma_c, getattr(row, "pt_correlation", 0.0)
     return np.array([[sp**2 + p_error**2, rho * sp * st],
                      [rho * sp * st, st**2 + t_error**2]])
 
@@ -249,8 +249,8 @@ def test_correlated_path_with_free_model_errors_against_scipy_mixture():
 
 def test_simulated_pt_errors_have_the_stated_correlation():
     rows = 4000
-    table = _frame(sample=["s"] * rows, pressure_gpa=[2.0] * rows, sigma_gpa=[0.2] * rows,
-                   temperature_c=[1400.0] * rows, sigma_c=[25.0] * rows,
+    table = _frame(sample=["s"] * rows, pressure_gpa=[2.0] * rows, pressure_sigma_gpa=[0.2] * rows,
+                   temperature_c=[1400.0] * rows, temperature_sigma_c=[25.0] * rows,
                    pt_correlation=[0.8] * rows)
     obs = MeltingPressure.from_frame(table, equilibration="top", model_error=0.1,
                                      temperature_model_error=15.0)
@@ -272,7 +272,7 @@ def test_simulated_pt_errors_have_the_stated_correlation():
 def test_free_crust_model_error_against_scipy():
     prior = LogUniform(0.01, 2.0)
     obs = CrustalThickness.from_frame(
-        _frame(site=["A", "B"], thickness_km=[7.0, 8.2], sigma_km=[0.8, 1.1]),
+        _frame(site=["A", "B"], thickness_km=[7.0, 8.2], thickness_sigma_km=[0.8, 1.1]),
         model_error=prior)
     assert obs.free_errors == {"model_error": prior}
     column = ConstantProductivityColumn([1.0, 1.2], [3.0, 3.1], crust=[6.5, 9.0])
@@ -316,7 +316,7 @@ def test_model_error_priors_from_a_block(tmp_path):
     assert obs.model_error == TruncatedNormal(0.0, 0.2, 0.0, np.inf)
     assert obs.temperature_model_error == 10.0
     assert list(obs.free_errors) == ["model_error"]
-    (tmp_path / "t.csv").write_text("sample,pressure_gpa,sigma_gpa\nA,1.5,0.2\n")
+    (tmp_path / "t.csv").write_text("sample,pressure_gpa,pressure_sigma_gpa\nA,1.5,0.2\n")
     free_t = {**BASALT, "temperature_model_error": {"prior": "uniform", "min": 0, "max": 50}}
     with pytest.raises(InputError, match=r"key 'observations\[2\].temperature_model_error': "
                                          r"a free temperature_model_error needs temperatures"):
@@ -355,7 +355,7 @@ def test_path_marginal_real_forward_against_slow_quadrature(melting_region):
     norm = marginal(width, d_width)
     obs = MeltingPressure.from_frame(PRESSURES, equilibration="path", path_points=512)
     expected = 0.0
-    for y, s in zip(PRESSURES.pressure_gpa, PRESSURES.sigma_gpa, strict=True):
+    for y, s in zip(PRESSURES.pressure_gpa, PRESSURES.pressure_sigma_gpa, strict=True):
         def g(p, y=y, s=s):
             return stats.norm.pdf(y, p, s) * width(p)
 
@@ -498,13 +498,13 @@ def test_loglike_finite_across_the_whole_domain():
 def test_simulate_is_seeded_and_centred_on_the_model():
     column = ConstantProductivityColumn([1.0], [3.0], crust=[7.5])
     crust = CrustalThickness.from_frame(_frame(site=["A"] * 400, thickness_km=[7.0] * 400,
-                                               sigma_km=[0.8] * 400))
+                                               thickness_sigma_km=[0.8] * 400))
     a = crust.simulate(column, np.random.default_rng(4))
     b = crust.simulate(column, np.random.default_rng(4))
     assert_allclose(a.values, b.values)
     assert abs(a.values.mean() - 7.5) < 5 * 0.8 / np.sqrt(400)  # 5 standard errors
     path = MeltingPressure.from_frame(
-        _frame(sample=["s"] * 400, pressure_gpa=[2.0] * 400, sigma_gpa=[0.1] * 400),
+        _frame(sample=["s"] * 400, pressure_gpa=[2.0] * 400, pressure_sigma_gpa=[0.1] * 400),
         equilibration="path")
     sim = path.simulate(column, np.random.default_rng(5))
     # Uniform equilibration on [1, 3] GPa plus N(0, 0.1^2): mean 2, variance 1/3 + 0.01.
@@ -519,57 +519,82 @@ def test_simulate_is_seeded_and_centred_on_the_model():
 
 CRUST = {"kind": "crustal_thickness", "file": "t.csv"}
 BASALT = {"kind": "melting_pressure", "file": "t.csv", "equilibration": "top"}
-PT_HEADER = "sample,pressure_gpa,sigma_gpa,temperature_c,sigma_c\n"
+PT_HEADER = "sample,pressure_gpa,pressure_sigma_gpa,temperature_c,temperature_sigma_c\n"
 RHO_HEADER = PT_HEADER.replace("\n", ",pt_correlation\n")
 
 TABLE_CASES = {
-    "missing-column": (CRUST, "site,thickness,sigma_km\nA,7,1\n",
-        r"t.csv, row 1, column 'thickness_km': missing column 'thickness_km'"
-        r" \(found: site, thickness, sigma_km\); did you mean 'thickness'"),
-    "semicolons": (CRUST, "site;thickness_km;sigma_km\nA;7;1\n",
+    "misspelt-column": (CRUST, "site,thickness,thickness_sigma_km\nA,7,1\n",
+        r"t.csv, line 1, column 'thickness': unknown column 'thickness'; did you mean "
+        r"'thickness_km'\? \(a column starting with 'note' is kept as a remark\)"),
+    "missing-column": (CRUST, "site,thickness_sigma_km\nA,1\n",
+        r"t.csv, line 1, column 'thickness_km': missing column 'thickness_km'"
+        r" \(found: site, thickness_sigma_km\)$"),
+    # A misspelt optional column used to be kept as text: the fit then ignored it.
+    "misspelt-optional": (BASALT, RHO_HEADER.replace("pt_correlation", "pt_corr")
+                          + "A,1,0.2,1350,20,0.5\n",
+        r"t.csv, line 1, column 'pt_corr': unknown column 'pt_corr'; did you mean "
+        r"'pt_correlation'\?"),
+    "unknown-column-listed": (CRUST, "site,thickness_km,thickness_sigma_km,lat\nA,7,1,3\n",
+        r"unknown column 'lat'; this table reads site, thickness_km, thickness_sigma_km "),
+    # The nearest name comes from the kind's columns, not from the header.
+    "missing-sigma-of-temperature": (BASALT, PT_HEADER.replace(",temperature_sigma_c", "")
+                                     + "A,1,0.2,1350\n",
+        r"missing column 'temperature_sigma_c', needed together with temperature_c "
+        r"\(found: sample, pressure_gpa, pressure_sigma_gpa, temperature_c\)$"),
+    "old-sigma-name": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,1,0.2\n",
+        r"line 1, column 'sigma_gpa': column 'sigma_gpa' is now called "
+        r"'pressure_sigma_gpa' \(lidmelt 0.1.0"),
+    "old-crust-sigma-name": (CRUST, "site,thickness_km,sigma_km\nA,7,1\n",
+        r"column 'sigma_km' is now called 'thickness_sigma_km'"),
+    "old-temperature-sigma-name": (BASALT, PT_HEADER.replace("temperature_sigma_c", "sigma_c")
+                                   + "A,1,0.2,1350,20\n",
+        r"column 'sigma_c' is now called 'temperature_sigma_c'"),
+    "digit-separator": (CRUST, "site,thickness_km,thickness_sigma_km\nA,6_5,1\n",
+        r"line 2, column 'thickness_km': '6_5' is not a number"),
+    "semicolons": (CRUST, "site;thickness_km;thickness_sigma_km\nA;7;1\n",
                    r"missing column 'site'.*is the file comma-separated\?"),
-    "non-numeric": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,seven,1\n",
-                    r"t.csv, row 3, column 'thickness_km': 'seven' is not a number"),
-    "nan": (CRUST, "site,thickness_km,sigma_km\nA,NaN,1\n",
-            r"row 2, column 'thickness_km': value 'NaN' \(NaN\) is not allowed"),
-    "infinite": (CRUST, "site,thickness_km,sigma_km\nA,inf,1\n",
+    "non-numeric": (CRUST, "site,thickness_km,thickness_sigma_km\nA,7,1\nB,seven,1\n",
+                    r"t.csv, line 3, column 'thickness_km': 'seven' is not a number"),
+    "nan": (CRUST, "site,thickness_km,thickness_sigma_km\nA,NaN,1\n",
+            r"line 2, column 'thickness_km': value 'NaN' \(NaN\) is not allowed"),
+    "infinite": (CRUST, "site,thickness_km,thickness_sigma_km\nA,inf,1\n",
         r"value 'inf' is not a finite number"),
-    "empty-cell": (CRUST, "site,thickness_km,sigma_km\nA,,1\n",
-                   r"row 2, column 'thickness_km': empty cell"),
-    "empty-name": (CRUST, "site,thickness_km,sigma_km\n,7,1\n", r"column 'site': empty cell"),
-    "sigma-zero": (CRUST, "site,thickness_km,sigma_km\nA,7,0\n",
-                   r"row 2, column 'sigma_km': value 0 must be > 0 km"),
-    "sigma-negative": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,1.5,-0.2\n",
-                       r"column 'sigma_gpa': value -0.2 must be > 0 GPa"),
-    "negative-thickness": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,-2,1\n",
-        r"row 3, column 'thickness_km': value -2 must be between 0 and 60 km \(a "
+    "empty-cell": (CRUST, "site,thickness_km,thickness_sigma_km\nA,,1\n",
+                   r"line 2, column 'thickness_km': empty cell"),
+    "empty-name": (CRUST, "site,thickness_km,thickness_sigma_km\n,7,1\n", r"column 'site': empty cell"),
+    "sigma-zero": (CRUST, "site,thickness_km,thickness_sigma_km\nA,7,0\n",
+                   r"line 2, column 'thickness_sigma_km': value 0 must be > 0 km"),
+    "sigma-negative": (BASALT, "sample,pressure_gpa,pressure_sigma_gpa\nA,1.5,-0.2\n",
+                       r"column 'pressure_sigma_gpa': value -0.2 must be > 0 GPa"),
+    "negative-thickness": (CRUST, "site,thickness_km,thickness_sigma_km\nA,7,1\nB,-2,1\n",
+        r"line 3, column 'thickness_km': value -2 must be between 0 and 60 km \(a "
         r"thickness cannot be negative, and the thickest"),
-    "pressure-high": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,12.5,0.2\n",
+    "pressure-high": (BASALT, "sample,pressure_gpa,pressure_sigma_gpa\nA,12.5,0.2\n",
                       r"column 'pressure_gpa': value 12.5 must be between 0 and 10 GPa"),
-    "pressure-negative": (BASALT, "sample,pressure_gpa,sigma_gpa\nA,-0.1,0.2\n",
+    "pressure-negative": (BASALT, "sample,pressure_gpa,pressure_sigma_gpa\nA,-0.1,0.2\n",
                           r"value -0.1 must be between 0 and 10 GPa"),
     "temperature-kelvin": (BASALT, PT_HEADER + "A,1,0.2,2650,20\n",
         r"column 'temperature_c': value 2650 must be between 800 and 2000 degC"),
     "sigma-c-zero": (BASALT, PT_HEADER + "A,1,0.2,1350,0\n",
-                     r"column 'sigma_c': value 0 must be > 0 degC"),
-    "temperature-without-sigma": (BASALT, PT_HEADER.replace(",sigma_c", "") + "A,1,0.2,1350\n",
-        r"missing column 'sigma_c', needed together with temperature_c"),
+                     r"column 'temperature_sigma_c': value 0 must be > 0 degC"),
+    "temperature-without-sigma": (BASALT, PT_HEADER.replace(",temperature_sigma_c", "") + "A,1,0.2,1350\n",
+        r"missing column 'temperature_sigma_c', needed together with temperature_c"),
     "correlation-one": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,0.5\nB,1,0.2,1350,20,1\n",
-        r"t.csv, row 3, column 'pt_correlation': value 1 must be > -1 and < 1 \(a "
+        r"t.csv, line 3, column 'pt_correlation': value 1 must be > -1 and < 1 \(a "
         r"correlation coefficient lies strictly between -1 and 1\)"),
     "correlation-below-minus-one": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,-1.2\n",
-        r"row 2, column 'pt_correlation': value -1.2 must be > -1 and < 1"),
+        r"line 2, column 'pt_correlation': value -1.2 must be > -1 and < 1"),
     "correlation-empty": (BASALT, RHO_HEADER + "A,1,0.2,1350,20,\n",
-        r"row 2, column 'pt_correlation': empty cell"),
+        r"line 2, column 'pt_correlation': empty cell"),
     "correlation-without-temperature": (BASALT,
-        "sample,pressure_gpa,sigma_gpa,pt_correlation\nA,1,0.2,0.5\n",
-        r"t.csv, row 1, column 'pt_correlation': column 'pt_correlation' is allowed only "
-        r"together with temperature_c, sigma_c \(missing: temperature_c, sigma_c\)"),
-    "field-count": (CRUST, "site,thickness_km,sigma_km\nA,7,1\nB,7\n",
-                    r"row 3: has 2 fields but the header \(line 1\) has 3"),
+        "sample,pressure_gpa,pressure_sigma_gpa,pt_correlation\nA,1,0.2,0.5\n",
+        r"t.csv, line 1, column 'pt_correlation': column 'pt_correlation' is allowed only "
+        r"together with temperature_c, temperature_sigma_c \(missing: temperature_c, temperature_sigma_c\)"),
+    "field-count": (CRUST, "site,thickness_km,thickness_sigma_km\nA,7,1\nB,7\n",
+                    r"line 3: has 2 fields but the header \(line 1\) has 3"),
     "empty-file": (CRUST, "\n# nothing here\n", r"the file is empty"),
-    "header-only": (CRUST, "site,thickness_km,sigma_km\n", r"row 1: no data rows"),
-    "duplicate-column": (CRUST, "site,thickness_km,sigma_km,site\nA,7,1,B\n",
+    "header-only": (CRUST, "site,thickness_km,thickness_sigma_km\n", r"line 1: no data rows"),
+    "duplicate-column": (CRUST, "site,thickness_km,thickness_sigma_km,site\nA,7,1,B\n",
                          r"column 'site': column 'site' appears twice"),
 }
 
@@ -591,11 +616,11 @@ def test_missing_table_file(tmp_path):
 
 
 def test_comments_blank_lines_bom_and_extra_columns(tmp_path):
-    text = ("\ufeff# source: invented survey\n\nsite,thickness_km,sigma_km,note\n"
+    text = ("\ufeff# source: invented survey\n\nsite,thickness_km,thickness_sigma_km,note\n"
             "A,7.0,0.8,first\n# a comment between rows\n\nB,6.0,-1,second\n")
     (tmp_path / "t.csv").write_text(text, encoding="utf-8")
     # The bad row is on line 7 of the file as an editor shows it.
-    with pytest.raises(InputError, match=r"row 7, column 'sigma_km'"):
+    with pytest.raises(InputError, match=r"line 7, column 'thickness_sigma_km'"):
         CrustalThickness.from_spec(CRUST, base_dir=tmp_path)
     (tmp_path / "t.csv").write_text(text.replace("-1", "1.2"), encoding="utf-8")
     obs = CrustalThickness.from_spec(CRUST, base_dir=tmp_path)
@@ -623,7 +648,7 @@ def test_bad_pressure_options(options, match):
 
 def test_equilibration_is_required_and_its_choices_are_explained(tmp_path):
     # No silent default: each choice moves Tp and the lid, so the user must pick one.
-    (tmp_path / "t.csv").write_text("sample,pressure_gpa,sigma_gpa\nA,1.5,0.2\n")
+    (tmp_path / "t.csv").write_text("sample,pressure_gpa,pressure_sigma_gpa\nA,1.5,0.2\n")
     spec = {key: value for key, value in BASALT.items() if key != "equilibration"}
     with pytest.raises(InputError) as info:
         MeltingPressure.from_spec(spec, base_dir=tmp_path, where="observations[2]")
@@ -643,6 +668,6 @@ def test_observed_and_describe():
     obs = MeltingPressure.from_frame(PT, model_error=0.1, equilibration="path")
     seen = obs.observed()
     assert set(seen) == {"value", "sigma", "temperature", "temperature_sigma"}
-    assert_allclose(seen["sigma"], np.hypot(PT.sigma_gpa, 0.1))
+    assert_allclose(seen["sigma"], np.hypot(PT.pressure_sigma_gpa, 0.1))
     assert "3 melting pressure-temperature points" in obs.describe()
     assert "weighted by melt production" in obs.describe()

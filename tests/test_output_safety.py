@@ -127,7 +127,7 @@ def test_rule_refuses_links_and_a_forged_manifest(tmp_path):
 def test_rule_refuses_a_folder_holding_a_table_read_from_elsewhere(tmp_path):
     tables = tmp_path / "shared-tables"
     tables.mkdir()
-    (tables / "crust.csv").write_text("site,thickness_km,sigma_km\n")
+    (tables / "crust.csv").write_text("site,thickness_km,thickness_sigma_km\n")
     write_manifest(tables, ["crust.csv"], kind="fit result")
     with pytest.raises(InputError, match="holds the input file crust.csv"):
         check_replaceable(tables, inputs=[tables / "crust.csv"])

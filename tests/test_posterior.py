@@ -63,7 +63,7 @@ def test_crust_only_log_posterior_against_scipy_stats(study):
     theta = np.array([[1420.0, 40.0, 5.0]])
     column = forward.melt_column(1420.0, 40.0, water=150.0, solidus_offset=5.0)
     data = crust.data
-    sd = np.hypot(data["sigma_km"], crust.model_error)
+    sd = np.hypot(data["thickness_sigma_km"], crust.model_error)
     like = stats.norm.logpdf(data["thickness_km"], float(column.crustal_thickness), sd).sum()
     prior = (stats.uniform.logpdf(1420.0, 1250.0, 350.0)
              + stats.uniform.logpdf(40.0, 10.0, 100.0)
@@ -204,7 +204,7 @@ def test_pointwise_log_likelihood_sums_to_the_total(study):
     assert not column.produces_melt[0]
     crust = study.observations[0]
     distance = 120.0 - float(column.onset_depth[0])
-    sd = np.hypot(crust.data["sigma_km"], 0.3)  # model_error = 0.3 km in the study file
+    sd = np.hypot(crust.data["thickness_sigma_km"], 0.3)  # model_error = 0.3 km in the study file
     np.testing.assert_allclose(
         rows[2, :len(crust)],
         stats.norm.logpdf(crust.data["thickness_km"], 0.0, sd) - distance, rtol=1e-12)
@@ -241,7 +241,7 @@ def test_log_posterior_with_a_free_model_error_against_scipy(study):
     theta = np.array([[1420.0, 40.0, 5.0, 0.7], [1420.0, 40.0, 5.0, -0.1]])
     column = forward.melt_column(1420.0, 40.0, water=150.0, solidus_offset=5.0)
     data = crust.data
-    sd = np.sqrt(data["sigma_km"] ** 2 + 0.7**2)
+    sd = np.sqrt(data["thickness_sigma_km"] ** 2 + 0.7**2)
     like = stats.norm.logpdf(data["thickness_km"], float(column.crustal_thickness), sd).sum()
     prior = (stats.uniform.logpdf(1420.0, 1250.0, 350.0)
              + stats.uniform.logpdf(40.0, 10.0, 100.0)
@@ -286,7 +286,7 @@ def test_free_model_errors_are_summarised_reported_and_drawn(quick_errors):
     segments = bars.lines[2][0].get_segments()
     half = np.array([0.5 * (seg[1, 1] - seg[0, 1]) for seg in segments])
     median = quick_errors.samples["crust.model_error"].median()
-    sigma = quick_errors.study.observations[0].data["sigma_km"].to_numpy()
+    sigma = quick_errors.study.observations[0].data["thickness_sigma_km"].to_numpy()
     np.testing.assert_allclose(half, np.hypot(sigma, median), rtol=1e-9)
     assert crust_ax.get_ylabel() == "Igneous crust thickness (km)"
     assert "incl. model error" in bars.get_label() and "posterior median" in bars.get_label()

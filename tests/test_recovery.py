@@ -112,11 +112,11 @@ def test_free_model_errors_recover_extra_scatter():
              "crust.model_error": 0.8, "basalts.model_error": 0.25}
     crust = CrustalThickness.from_frame(
         pd.DataFrame({"site": [f"c{i}" for i in range(30)], "thickness_km": 7.0,
-                      "sigma_km": 0.3}), file="crust.csv",
+                      "thickness_sigma_km": 0.3}), file="crust.csv",
         model_error={"prior": "log-uniform", "min": 0.01, "max": 5.0})
     basalts = MeltingPressure.from_frame(
         pd.DataFrame({"sample": [f"b{i}" for i in range(20)], "pressure_gpa": 1.5,
-                      "sigma_gpa": 0.1}), file="basalts.csv", equilibration="top",
+                      "pressure_sigma_gpa": 0.1}), file="basalts.csv", equilibration="top",
         model_error={"prior": "log-uniform", "min": 0.01, "max": 2.0})
     study = inversion.Study(
         name="extra scatter", source=None, model=inversion.ModelSettings(),

@@ -344,10 +344,10 @@ def test_everything_fixed(make_study):
 
 def test_bad_table_row_is_named_through_the_study(make_study):
     path = make_study()
-    table = "site,thickness_km,sigma_km\nA,7.0,0.8\nB,6.5,-0.3\n"
+    table = "site,thickness_km,thickness_sigma_km\nA,7.0,0.8\nB,6.5,-0.3\n"
     (path.parent / "crust.csv").write_text(table)
     with pytest.raises(InputError,
-                       match=r"crust.csv, row 3, column 'sigma_km': "
+                       match=r"crust.csv, line 3, column 'thickness_sigma_km': "
                              r"value -0.3 must be > 0 km"):
         Study.from_file(path)
 

@@ -16,11 +16,12 @@ import pandas as pd
 import pytest
 
 from lidmelt.cli import main
+from lidmelt.inversion import InputError
 from lidmelt.inversion.survey import read_sites, survey
 
 from survey_helpers import truth_table, write_sites, write_study
 
-_SITES = "site,position_km,thickness_km,sigma_km,pressure_gpa,pressure_sigma_gpa\n"
+_SITES = "site,position_km,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma_gpa\n"
 
 
 @pytest.fixture(scope="session")
@@ -98,9 +99,9 @@ def test_a_site_with_bad_data_fails_alone(tmp_path, capsys):
     status = summary.groupby("site", sort=False)["status"].first()
     assert status["A"] == "ok" and status["C"] == "ok"
     assert status["B"].startswith("failed:")
-    assert "sites.csv, row 3, column 'sigma_km'" in status["B"]  # header is line 1
+    assert "sites.csv, line 3, column 'thickness_sigma_km'" in status["B"]  # header is line 1
     assert "must be > 0" in status["B"]
-    assert "row 5, column 'pressure_sigma_gpa'" in status["D"]  # half of a pair
+    assert "line 5, column 'pressure_sigma_gpa'" in status["D"]  # half of a pair
     assert summary[summary["site"] == "B"]["median"].isna().all()
     report = (tmp_path / "out" / "report.md").read_text(encoding="utf-8")
     assert "**B** (line 3)" in report and "no basis on their own" in report
@@ -115,7 +116,7 @@ def test_a_site_that_cannot_melt_fails_with_the_reason(tmp_path):
     cold.write_text(cold.read_text().replace("max = 1600.0", "max = 1270.0").replace(
         "min = 5.0", "min = 90.0"))
     sites = tmp_path / "sites.csv"
-    sites.write_text("site,thickness_km,sigma_km\ncold,6,0.5\nnone,0,0.5\n",
+    sites.write_text("site,thickness_km,thickness_sigma_km\ncold,6,0.5\nnone,0,0.5\n",
                      encoding="utf-8")
     result = survey(cold, sites, out=tmp_path / "cold", workers=1, quiet=True,
                     keep_chains=True)
@@ -129,10 +130,10 @@ def test_a_site_that_cannot_melt_fails_with_the_reason(tmp_path):
 
 
 @pytest.mark.parametrize("content, needle", [
-    ("site,thickness_km\nA,6\n", "missing column 'sigma_km'"),
-    ("site,thickness_km,sigma_km,pressure_gpa\nA,6,0.5,1\n",
+    ("site,thickness_km\nA,6\n", "missing column 'thickness_sigma_km'"),
+    ("site,thickness_km,thickness_sigma_km,pressure_gpa\nA,6,0.5,1\n",
      "missing column 'pressure_sigma_gpa', needed together with pressure_gpa"),
-    ("site,thickness_km,sigma_km\nA,6,0.5\nA,5,0.5\n", "row 3, column 'site': site 'A' "
+    ("site,thickness_km,thickness_sigma_km\nA,6,0.5\nA,5,0.5\n", "line 3, column 'site': site 'A' "
      "appears twice"),
 ])
 def test_a_broken_sites_file_stops_with_exit_2(tmp_path, capsys, content, needle):
@@ -160,7 +161,7 @@ def test_pressures_need_an_equilibration(tmp_path, capsys):
 def test_a_misspelt_survey_key_is_named_with_its_line(tmp_path, capsys):
     study = write_study(tmp_path, extra_survey="tp_sprad = 3")
     sites = tmp_path / "sites.csv"
-    sites.write_text("site,thickness_km,sigma_km\nA,6,0.5\n", encoding="utf-8")
+    sites.write_text("site,thickness_km,thickness_sigma_km\nA,6,0.5\n", encoding="utf-8")
     assert main(["survey", str(study), "--sites", str(sites), "--out",
                  str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err
@@ -225,11 +226,36 @@ def test_resume_refuses_changed_inputs_and_force_guards_foreign_folders(inputs, 
 
 def test_sites_table_reads_optional_columns(tmp_path):
     path = tmp_path / "s.csv"
-    path.write_text("# invented sites\nsite,thickness_km,sigma_km,extra\nA,6,0.5,x\n",
+    path.write_text("# invented sites\nsite,thickness_km,thickness_sigma_km,note\nA,6,0.5,x\n",
                     encoding="utf-8")
     table = read_sites(path)
     assert not table.has_positions and not table.has_pressures
     assert table.sites[0].line == 3 and table.sites[0].thickness_km == 6.0
+
+
+def test_sites_table_refuses_an_unknown_column_and_an_old_name(tmp_path):
+    path = tmp_path / "s.csv"
+    path.write_text("site,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma\n"
+                    "A,6,0.5,1,0.2\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"s.csv, line 1, column 'pressure_sigma': unknown "
+                       r"column 'pressure_sigma'; did you mean 'pressure_sigma_gpa'\?"):
+        read_sites(path)
+    path.write_text("site,thickness_km,sigma_km\nA,6,0.5\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"column 'sigma_km' is now called "
+                       r"'thickness_sigma_km'"):
+        read_sites(path)
+
+
+def test_sites_table_applies_the_crust_limit_of_the_crust_kind(tmp_path):
+    # The sites file takes the crust kind's rules: 75 km fails that site at read time,
+    # naming the file and line, instead of failing later in a worker without them.
+    path = tmp_path / "s.csv"
+    path.write_text("site,thickness_km,thickness_sigma_km\nA,6,0.5\nB,75,1\n",
+                    encoding="utf-8")
+    table = read_sites(path)
+    assert table.sites[0].error is None
+    assert table.sites[1].error.startswith(f"{path}, line 3, column 'thickness_km': value "
+                                           "75 must be between 0 and 60 km")
 
 
 def test_import_lidmelt_stays_light():

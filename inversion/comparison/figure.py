@@ -159,27 +159,15 @@ def _predictions(result, seed: int) -> list[dict]:
     panels = []
     for j, block in enumerate(study.observations):
         observed = block.observed()
-        for key, label in _quantities(block, observed):
-            simulated = (np.array([sets[j].observed()[key] for sets in replicas]) if replicas
-                         else np.full((1, len(block)), np.nan))
+        for panel in block.panels():  # each kind says what it shows (ObservationSet.panels)
+            simulated = (np.array([sets[j].observed()[panel.key] for sets in replicas])
+                         if replicas else np.full((1, len(block)), np.nan))
             panels.append({
-                "names": list(block.ids), "obs": observed[key],
-                "sigma": observed["sigma" if key == "value" else f"{key}_sigma"],
-                "simulated": simulated, "ylabel": label,
-                "title": f"{block.name}: {label.split(' (')[0].lower()}",
-                "invert": block.kind == "melting_pressure" and key == "value"})
+                "names": list(block.ids), "obs": observed[panel.key],
+                "sigma": observed[panel.sigma_key], "simulated": simulated,
+                "ylabel": panel.label, "title": f"{block.name}: {panel.title}",
+                "invert": panel.invert})
     return panels
-
-
-def _quantities(block, observed) -> list[tuple[str, str]]:
-    if block.kind == "crustal_thickness":
-        what = "Igneous crust thickness" if block.thickness_of == "crust" else \
-            "Melt thickness"
-        return [("value", f"{what} (km)")]
-    out = [("value", "Melting pressure (GPa)")]
-    if "temperature" in observed:
-        out.append(("temperature", "Melting temperature (°C)"))
-    return out
 
 
 def _draw_predictive(ax, results, panels, *, legend: bool) -> None:

@@ -1,10 +1,12 @@
 """Observation kinds: tables of measurements and their likelihoods.
 
 `KINDS` maps the study-file ``kind`` of an ``[[observations]]`` block to its class.
-Adding a kind: subclass `ObservationSet` in a new module, then register it here.
+Adding a kind: subclass `ObservationSet` in a new module, then register it here
+(DEVELOPERS.md, "Adding an observation kind"); tests/test_kind_contract.py then runs it
+through every part of the interface.
 """
 
-from .base import NO_MELT_SLOPE, ObservationSet, gaussian_logpdf, melting_distance
+from .base import NO_MELT_SLOPE, ObservationSet, Panel, gaussian_logpdf, melting_distance
 from .crust import THICKNESS_OF, CrustalThickness
 from .pressure import (
     EQUILIBRATION,
@@ -25,6 +27,7 @@ __all__ = [
     "CrustalThickness",
     "MeltingPressure",
     "ObservationSet",
+    "Panel",
     "Table",
     "gaussian_logpdf",
     "melting_distance",

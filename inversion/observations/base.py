@@ -36,6 +36,7 @@ from __future__ import annotations
 import math
 from abc import ABC, abstractmethod
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from os import PathLike
 from pathlib import Path
 from typing import ClassVar
@@ -46,11 +47,12 @@ import pandas as pd
 from ..errors import InputError, suggest
 from ..study.priors import Prior
 from .model_error import combine_sigma, parse_error_setting
-from .tables import ColumnRule, read_table, validate_frame
+from .tables import ColumnRule, check_column_names, read_table, validate_frame
 
 __all__ = [
     "NO_MELT_SLOPE",
     "ObservationSet",
+    "Panel",
     "bivariate_logpdf",
     "gaussian_logpdf",
     "melting_distance",
@@ -145,11 +147,60 @@ def _cold_distance(column, parameters: Mapping, shape) -> np.ndarray | None:
     return np.broadcast_to(np.maximum(_COLD_REFERENCE - theta, 0.0) / _COLD_GRADIENT, shape)
 
 
+@dataclass(frozen=True)
+class Panel:
+    """How the figures draw one per-row quantity of a block against the model.
+
+    The fit figure (``results.figures``) and the comparison figure
+    (``comparison.figure``) draw one panel per entry of `ObservationSet.panels`: the
+    observed ``observed()[key]`` ± ``observed()[sigma_key]`` of every row beside the
+    model's distribution of the same quantity (`ObservationSet.panel_draws`, or data
+    simulated by `ObservationSet.simulate`).
+
+    Attributes
+    ----------
+    key : str
+        Key of the quantity in `ObservationSet.observed` and `ObservationSet.predict`
+        (``"value"`` for the main column).
+    sigma_key : str
+        Key of its 1-sigma (model error included) in `ObservationSet.observed`.
+    label : str
+        Axis label with the unit, e.g. ``"Pressure P (GPa)"``.
+    title : str
+        What the panel compares, in words, e.g. ``"melting pressure, equilibrated at the
+        top of melting"``.
+    model : str
+        What the model side shows, for the legend, e.g. ``"model igneous crust
+        thickness"``.
+    unit : str
+        Unit of the quantity, as in the table (``"km"``, ``"GPa"``, ``"degC"``).
+    error_option : str
+        The block's model-error setting included in the error bars (``"model_error"``).
+    invert : bool
+        Draw the axis increasing downwards (pressure and depth, as in the earth).
+    """
+
+    key: str
+    sigma_key: str
+    label: str
+    title: str
+    model: str
+    unit: str
+    error_option: str = "model_error"
+    invert: bool = False
+
+
 class ObservationSet(ABC):
     """One block of observations of one kind, with its Gaussian likelihood.
 
-    Subclasses set the class attributes and implement `log_likelihood`, `predict`,
-    `simulate`, `column_rules` and (if they take options) `_parse_options`.
+    Subclasses set the class attributes and implement `pointwise_log_likelihood`,
+    `predict`, `simulate`, `describe`, `column_rules` and (if they take options)
+    `_parse_options`. The figure and survey parts have defaults that follow from those:
+    `panels` (one panel of the value column), `panel_draws` (from `predict`),
+    `site_columns` (from `column_rules`); `pt_observed` and `pt_draws` only for kinds
+    that observe melting pressures and temperatures. DEVELOPERS.md, "Adding an
+    observation kind", is the recipe; tests/test_kind_contract.py runs every registered
+    kind through all of it.
 
     Attributes
     ----------
@@ -169,6 +220,9 @@ class ObservationSet(ABC):
         Added to every sigma in quadrature (unit of the values); a `Prior` when free.
     error_options : tuple of str
         Names of the block's model-error settings (class attribute).
+    example_options : mapping
+        Kind options that make a valid block of a table built from `column_rules` (class
+        attribute; the contract tests use it, e.g. a required ``equilibration``).
     """
 
     kind: ClassVar[str]
@@ -179,6 +233,7 @@ class ObservationSet(ABC):
     sigma_column: ClassVar[str]
     option_keys: ClassVar[tuple[str, ...]] = ()
     error_options: ClassVar[tuple[str, ...]] = ("model_error",)
+    example_options: ClassVar[Mapping[str, object]] = {}
 
     def __init__(self, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
                  model_error: float | Prior = 0.0,
@@ -246,20 +301,51 @@ class ObservationSet(ABC):
 
     @classmethod
     def from_frame(cls, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
-                   model_error: float | Prior = 0.0, **options) -> ObservationSet:
+                   model_error: float | Prior = 0.0, lines: Sequence[int] | None = None,
+                   **options) -> ObservationSet:
         """Build from a table in memory, checked by the same rules as a file.
 
         `model_error` (and kind options such as ``temperature_model_error``) may be a
-        number or a `Prior` (free).
+        number or a `Prior` (free). `lines` are the file lines of the rows, named in
+        messages (default 2, 3, ...). An unknown column is refused as in a file.
         """
         model_error = parse_error_setting(model_error, "model_error")
         options = cls._parse_options(options, "observations")
         required, optional = cls.column_rules(**options)
+        check_column_names(data.columns, [r.name for r in required]
+                           + [r.name for group in optional for r in group], file=file)
         rules = list(required) + [r for group in optional if any(
             rule.name in data.columns for rule in group) for r in group]
-        table = validate_frame(data, rules, file=file)
+        table = validate_frame(data, rules, file=file, lines=lines)
         return cls(table.data, file=file, model_error=model_error, lines=table.lines,
                    **options)
+
+    @classmethod
+    def site_columns(cls) -> tuple[tuple[ColumnRule, ...], ...]:
+        """The kind's columns in a survey sites file, as groups filled together.
+
+        The first group is the kind's main measurement (value and 1-sigma); each later
+        group is an optional extra that a row may give only beside the first (and beside
+        any column its rules `ColumnRule.requires`). The rules, ranges and messages are
+        those of the kind's own table (`column_rules` without the row-label column), so
+        a sites file and an observation table accept the same values.
+        """
+        required, optional = cls.column_rules(**cls.example_options)
+        main = tuple(rule for rule in required if rule.name != cls.id_column)
+        return (main,) + tuple(tuple(group) for group in optional)
+
+    @classmethod
+    def from_site(cls, name: str, values: Mapping[str, float], *,
+                  file: str | PathLike[str] | None = None, line: int | None = None,
+                  model_error: float | Prior = 0.0, **options) -> ObservationSet:
+        """A one-row block from a site of a survey sites file.
+
+        `values` maps the `site_columns` a row filled to their numbers; `file` and `line`
+        are named in any message (the row is checked again by the kind's rules).
+        """
+        data = pd.DataFrame({cls.id_column: [name]} | {k: [v] for k, v in values.items()})
+        return cls.from_frame(data, file=file, model_error=model_error,
+                              lines=None if line is None else [line], **options)
 
     # ---- data views -------------------------------------------------------------------
 
@@ -316,6 +402,60 @@ class ObservationSet(ABC):
     def name(self) -> str:
         """Short label: the file name, or the kind when built in code."""
         return self.file.name if self.file is not None else self.kind
+
+    # ---- figures ----------------------------------------------------------------------
+
+    def panels(self) -> tuple[Panel, ...]:
+        """The per-row quantities the figures draw against the model, one `Panel` each.
+
+        Default: the value column, labelled from `quantity` and `unit`.
+        """
+        return (Panel("value", "sigma", label=f"{self.quantity.capitalize()} ({self.unit})",
+                      title=self.quantity, model=f"model {self.quantity}", unit=self.unit),)
+
+    def panel_draws(self, column, key: str) -> tuple[np.ndarray, np.ndarray]:
+        """The model's distribution of a panel's quantity, per draw and row.
+
+        Parameters
+        ----------
+        column : forward.MeltColumn
+            Melting columns of n posterior draws.
+        key : str
+            `Panel.key`.
+
+        Returns
+        -------
+        points, weights : numpy.ndarray, shape (n, rows, k)
+            k candidate values per draw and row (k = 1 for a single prediction) and their
+            probabilities (summing to 1 over the last axis). Default: ``predict(column)
+            [key]`` with weight 1.
+        """
+        values = np.asarray(self.predict(column)[key], float)[..., None]
+        return values, np.ones_like(values)
+
+    def pt_observed(self, errors: Mapping | None = None) -> dict[str, np.ndarray] | None:
+        """Observed melting pressures and temperatures, for P-T diagrams; None if none.
+
+        Returns
+        -------
+        dict or None
+            ``"pressure"``, ``"pressure_sigma"`` (GPa, shape (rows,)) and, where the
+            table has temperatures, ``"temperature"``, ``"temperature_sigma"`` (degC) and
+            ``"correlation"`` (of the total errors, -1 < rho < 1). Sigmas include the
+            model errors (free ones at the values in `errors`). Default: None.
+        """
+        return None
+
+    def pt_draws(self, column) -> tuple[np.ndarray, np.ndarray | None, np.ndarray] | None:
+        """Where the model puts the observed melts in P-T, per draw; None if not a P-T kind.
+
+        Returns
+        -------
+        tuple or None
+            pressure (GPa), temperature (degC, or None) and weight, each shape (n, k),
+            weights summing to 1 over the last axis. Default: None.
+        """
+        return None
 
     # ---- model comparison --------------------------------------------------------------
 

@@ -1,6 +1,7 @@
 """Kind ``crustal_thickness``: seismic thickness of igneous crust at sites.
 
-Table columns: ``site`` (name), ``thickness_km`` (>= 0) and ``sigma_km`` (> 0, 1 sigma).
+Table columns: ``site`` (name), ``thickness_km`` (0-60 km) and ``thickness_sigma_km``
+(> 0, 1 sigma); remarks in columns starting with ``note``.
 Each row is compared with the model's igneous crustal thickness (mass balance,
 h_c = h rho_mantle / rho_crust; docs/model.md, "Observables"; common practice) or, with
 ``thickness_of = "melt"``, with the melt thickness h itself (as many papers do).
@@ -19,10 +20,12 @@ from collections.abc import Mapping
 
 import numpy as np
 
+from ...forward.quantities import quantity
 from ..errors import InputError, suggest
 from .base import (
     NO_MELT_SLOPE,
     ObservationSet,
+    Panel,
     describe_errors,
     gaussian_logpdf,
     melting_distance,
@@ -46,7 +49,7 @@ class CrustalThickness(ObservationSet):
     Parameters
     ----------
     data : pandas.DataFrame
-        Columns ``site``, ``thickness_km``, ``sigma_km`` (validated).
+        Columns ``site``, ``thickness_km``, ``thickness_sigma_km`` (validated).
     file : path-like, optional
     model_error : float or Prior
         km, added to sigma in quadrature (a `Prior`: free, sampled with the parameters).
@@ -60,7 +63,7 @@ class CrustalThickness(ObservationSet):
     unit = "km"
     id_column = "site"
     value_column = "thickness_km"
-    sigma_column = "sigma_km"
+    sigma_column = "thickness_sigma_km"
     option_keys = ("thickness_of",)
 
     def __init__(self, data, *, file=None, model_error=0.0, lines=None,
@@ -78,7 +81,7 @@ class CrustalThickness(ObservationSet):
             ColumnRule("thickness_km", low=0.0, high=MAX_THICKNESS, unit="km",
                        why="a thickness cannot be negative, and the thickest igneous "
                        "crust, beneath Iceland and oceanic plateaus, is about 40 km"),
-            ColumnRule("sigma_km", low=0.0, low_open=True, unit="km",
+            ColumnRule("thickness_sigma_km", low=0.0, low_open=True, unit="km",
                        why="a 1-sigma uncertainty must be positive"),
         ], []
 
@@ -112,6 +115,14 @@ class CrustalThickness(ObservationSet):
         sigma = np.reshape(self.total_sigma(errors), len(self))  # errors: scalar or (1,)
         draws = model + sigma * rng.standard_normal(len(self))
         return self._replace_values({self.value_column: draws}, thickness_of=self.thickness_of)
+
+    def panels(self) -> tuple[Panel, ...]:
+        """One panel: the observed thickness against the model quantity it is compared
+        with (`thickness_of`)."""
+        model = quantity(THICKNESS_OF[self.thickness_of])
+        return (Panel("value", "sigma", label=model.axis_label(),
+                      title=f"thickness against the model {model.name}",
+                      model=f"model {model.name}", unit=self.unit),)
 
     def describe(self) -> str:
         rows = "1 crustal thickness" if len(self) == 1 else f"{len(self)} crustal thicknesses"

@@ -1,7 +1,8 @@
 """Kind ``melting_pressure``: thermobarometric pressures (and temperatures) of basalts.
 
-Table columns: ``sample`` (name), ``pressure_gpa`` (0-10 GPa) and ``sigma_gpa`` (> 0),
-optionally ``temperature_c`` (800-2000 degC, a sanity range) with ``sigma_c`` (> 0); the
+Table columns: ``sample`` (name), ``pressure_gpa`` (0-10 GPa) and ``pressure_sigma_gpa``
+(> 0), optionally ``temperature_c`` (800-2000 degC, a sanity range) with
+``temperature_sigma_c`` (> 0); the
 two temperature columns come together, and then every row needs both. With temperatures,
 an optional ``pt_correlation`` (-1 < rho < 1) gives the correlation of each row's
 pressure and temperature errors (a thermobarometer's pressure depends on its
@@ -24,8 +25,8 @@ Where in the melting interval a primary melt last equilibrated is a modelling ch
     for all walkers and rows at once with log-sum-exp.
 
 N2 is the bivariate normal with covariance C_i = [[s_P^2, rho_i sigma_P sigma_T],
-[rho_i sigma_P sigma_T, s_T^2]], where s_P^2 = sigma_gpa^2 + model_error^2 and
-s_T^2 = sigma_c^2 + temperature_model_error^2: the correlation belongs to the stated
+[rho_i sigma_P sigma_T, s_T^2]], where s_P^2 = pressure_sigma_gpa^2 + model_error^2
+and s_T^2 = temperature_sigma_c^2 + temperature_model_error^2: the correlation belongs to the stated
 (analytical) errors, and the model errors are added independently, so the correlation of
 the total errors is rho_i sigma_P sigma_T / (s_P s_T). Without temperatures L_i is the
 normal N(P_i; P, s_P^2); without ``pt_correlation`` rho_i = 0 (two independent normals).
@@ -48,9 +49,11 @@ from scipy.special import logsumexp
 
 from ..errors import InputError, suggest
 from ..study.priors import Prior
+from ...forward.quantities import quantity
 from .base import (
     NO_MELT_SLOPE,
     ObservationSet,
+    Panel,
     _fixed,
     _frozen,
     bivariate_logpdf,
@@ -76,7 +79,7 @@ PRESSURE_RANGE = (0.0, 10.0)
 TEMPERATURE_RANGE = (800.0, 2000.0)
 _PATH_POINTS = (8, 1024)
 _EQUILIBRATION_CHOICES = ", ".join(f'"{k}" ({v})' for k, v in EQUILIBRATION.items())
-_TEMPERATURE_COLUMNS = ("temperature_c", "sigma_c")
+_TEMPERATURE_COLUMNS = ("temperature_c", "temperature_sigma_c")
 
 
 class MeltingPressure(ObservationSet):
@@ -85,18 +88,18 @@ class MeltingPressure(ObservationSet):
     Parameters
     ----------
     data : pandas.DataFrame
-        Columns ``sample``, ``pressure_gpa``, ``sigma_gpa`` [, ``temperature_c``,
-        ``sigma_c`` [, ``pt_correlation``]] (validated).
+        Columns ``sample``, ``pressure_gpa``, ``pressure_sigma_gpa`` [,
+        ``temperature_c``, ``temperature_sigma_c`` [, ``pt_correlation``]] (validated).
     equilibration : {"top", "pooled", "path"}
         Required: where the melts last equilibrated (see the module docstring).
     file : path-like, optional
     model_error : float or Prior
-        GPa, added to sigma_gpa in quadrature (a `Prior`: free).
+        GPa, added to pressure_sigma_gpa in quadrature (a `Prior`: free).
     lines : sequence of int, optional
     path_points : int
         Number of path intervals for "pooled" temperatures and "path" (8-1024, default 64).
     temperature_model_error : float or Prior
-        degC, added to sigma_c in quadrature (a `Prior`: free; needs temperatures).
+        degC, added to temperature_sigma_c in quadrature (a `Prior`: free; needs temperatures).
     """
 
     kind = "melting_pressure"
@@ -104,9 +107,10 @@ class MeltingPressure(ObservationSet):
     unit = "GPa"
     id_column = "sample"
     value_column = "pressure_gpa"
-    sigma_column = "sigma_gpa"
+    sigma_column = "pressure_sigma_gpa"
     option_keys = ("equilibration", "path_points", "temperature_model_error")
     error_options = ("model_error", "temperature_model_error")
+    example_options = {"equilibration": "path"}
 
     def __init__(self, data, *, equilibration: str, file=None, model_error=0.0,
                  lines=None, path_points: int = 64,
@@ -122,10 +126,10 @@ class MeltingPressure(ObservationSet):
         rows = len(data)
         if self.has_temperature:
             self._temperature = _frozen(data["temperature_c"])
-            self._stated_t_sigma = _frozen(data["sigma_c"])
+            self._stated_t_sigma = _frozen(data["temperature_sigma_c"])
         elif isinstance(self.temperature_model_error, Prior):
             raise InputError("a free temperature_model_error needs temperatures "
-                             "(columns temperature_c and sigma_c) in the table",
+                             "(columns temperature_c and temperature_sigma_c) in the table",
                              key="temperature_model_error")
         else:
             self._temperature = self._stated_t_sigma = _frozen(np.full(rows, np.nan))
@@ -141,13 +145,13 @@ class MeltingPressure(ObservationSet):
         required = [
             ColumnRule("sample", numeric=False),
             ColumnRule("pressure_gpa", low=low, high=high, unit="GPa"),
-            ColumnRule("sigma_gpa", low=0.0, low_open=True, unit="GPa",
+            ColumnRule("pressure_sigma_gpa", low=0.0, low_open=True, unit="GPa",
                        why="a 1-sigma uncertainty must be positive"),
         ]
         temperature = [
             ColumnRule("temperature_c", low=t_low, high=t_high, unit="degC",
                        why="outside this range the unit is probably not degC"),
-            ColumnRule("sigma_c", low=0.0, low_open=True, unit="degC",
+            ColumnRule("temperature_sigma_c", low=0.0, low_open=True, unit="degC",
                        why="a 1-sigma uncertainty must be positive"),
         ]
         correlation = [
@@ -188,7 +192,7 @@ class MeltingPressure(ObservationSet):
 
     @property
     def has_temperature(self) -> bool:
-        """Whether the table has temperatures (``temperature_c``, ``sigma_c``)."""
+        """Whether the table has temperatures (``temperature_c``, ``temperature_sigma_c``)."""
         return "temperature_c" in self.data.columns
 
     @property
@@ -224,6 +228,50 @@ class MeltingPressure(ObservationSet):
                 if errors is None or "temperature_model_error" not in self.free_errors \
                 else self.total_temperature_sigma(errors)
         return out
+
+    # ---- figures ----------------------------------------------------------------------
+
+    def panels(self) -> tuple[Panel, ...]:
+        """Pressure (axis downwards) and, with temperatures, temperature, row by row."""
+        how = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
+               "path": "anywhere on the melting path, weighted by melt production"}
+        model = ("model, where the melts equilibrate along the path"
+                 if self.equilibration == "path" else "model equilibration pressure")
+        out = [Panel("value", "sigma", label=quantity("pressure").axis_label(),
+                     title=f"melting pressure, equilibrated {how[self.equilibration]}",
+                     model=model, unit="GPa", invert=True)]
+        if self.has_temperature:
+            out.append(Panel("temperature", "temperature_sigma",
+                             label=quantity("temperature").axis_label(),
+                             title=f"melting temperature, equilibrated "
+                                   f"{how[self.equilibration]}",
+                             model=model.replace("pressure", "temperature"), unit="degC",
+                             error_option="temperature_model_error"))
+        return tuple(out)
+
+    def panel_draws(self, column, key: str) -> tuple[np.ndarray, np.ndarray]:
+        """The equilibration points the likelihood uses (the path spread for "path")."""
+        pressure, temperature, weight = self.equilibration_points(column)
+        points = pressure if key == "value" else temperature
+        if points is None:
+            raise KeyError(f"{key!r}: this block has no temperatures")
+        rows = len(self)
+        return (np.repeat(points[:, None, :], rows, axis=1),
+                np.repeat(weight[:, None, :], rows, axis=1))
+
+    def pt_observed(self, errors: Mapping | None = None) -> dict[str, np.ndarray]:
+        obs = self.observed(errors)
+        out = {"pressure": obs["value"], "pressure_sigma": obs["sigma"]}
+        if self.has_temperature:
+            s_p, s_t = obs["sigma"], obs["temperature_sigma"]
+            # The stated errors are correlated; the model errors are added independently.
+            out |= {"temperature": obs["temperature"], "temperature_sigma": s_t,
+                    "correlation": self._rho * self._stated_sigma * self._stated_t_sigma
+                    / (s_p * s_t)}
+        return out
+
+    def pt_draws(self, column):
+        return self.equilibration_points(column)
 
     # ---- model side --------------------------------------------------------------------
 

@@ -2,11 +2,25 @@
 
 Format: UTF-8 text, comma-separated, one header line naming the columns, one row per
 observation. Blank lines and lines starting with ``#`` (comments, e.g. data sources) are
-skipped. Extra columns are kept as text (e.g. coordinates or references). Quoted fields
-may contain commas but not line breaks.
+skipped. Quoted fields may contain commas but not line breaks.
 
-Every check raises an `InputError` naming the file, the row (the line number a user sees
-in an editor; header = line 1 unless comments precede it), the column and the rule.
+Column names
+------------
+* Every column must be one the table's kind reads, or a remark: a column whose name
+  starts with ``note`` (``note``, ``notes``, ``note_source``, ``note_lat``...) is kept as
+  text and never read. Any other column is refused with the nearest valid name, so a
+  misspelt optional column (``pt_corr`` for ``pt_correlation``) cannot be dropped
+  silently.
+* A measured value is named ``<quantity>_<unit>`` and its 1-sigma uncertainty
+  ``<quantity>_sigma_<unit>`` (`sigma_column`): ``thickness_km`` and
+  ``thickness_sigma_km``, ``pressure_gpa`` and ``pressure_sigma_gpa``, ``temperature_c``
+  and ``temperature_sigma_c``, in observation tables and survey sites files alike. The
+  old names (`RENAMED_COLUMNS`) are refused with the new name.
+* Numbers are plain decimals (`inversion.study.keys.parse_number`): ``1.5``, ``-2``,
+  ``1e3``; not ``6_5``, ``nan`` or ``inf``.
+
+Every check raises an `InputError` naming the file, the line (as a user sees it in an
+editor; header = line 1 unless comments precede it), the column and the rule.
 """
 
 from __future__ import annotations
@@ -22,13 +36,33 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import InputError, suggest
+from ..study.keys import is_plain_number
 
-__all__ = ["ColumnRule", "Table", "read_table", "validate_frame"]
+__all__ = ["NOTE_PREFIX", "RENAMED_COLUMNS", "ColumnRule", "Table", "check_column_names",
+           "check_row", "header_rules", "read_rows", "read_table", "sigma_column", "validate_frame"]
 
 _LINE_END = re.compile(r"\r\n|\r|\n")
 _CONTROL = re.compile("[\x00-\x08\x0b-\x1f\x7f\x85\u2028\u2029]")  # tab is allowed
-_DECIMAL = re.compile(r"[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?")
-_NAMED = ("nan", "inf", "infinity")  # refused below with their own messages
+
+#: A column whose name starts with this is a remark: kept as text, never read.
+NOTE_PREFIX = "note"
+#: Old column name -> new name (renamed in 0.1.0: one scheme for every uncertainty).
+RENAMED_COLUMNS = {"sigma_km": "thickness_sigma_km", "sigma_gpa": "pressure_sigma_gpa",
+                   "sigma_c": "temperature_sigma_c"}
+
+
+def sigma_column(value_column: str) -> str:
+    """The name of the 1-sigma column of a value column: ``<quantity>_sigma_<unit>``.
+
+    Examples
+    --------
+    >>> sigma_column("pressure_gpa"), sigma_column("thickness_km")
+    ('pressure_sigma_gpa', 'thickness_sigma_km')
+    """
+    quantity, _, unit = value_column.rpartition("_")
+    if not quantity:
+        raise ValueError(f"{value_column!r} is not named <quantity>_<unit>")
+    return f"{quantity}_sigma_{unit}"
 
 
 @dataclass(frozen=True)
@@ -140,8 +174,8 @@ def read_table(
                              "file", file=path, key=key)
     except OSError as err:  # e.g. no permission to look into its folder
         raise _unreadable(path, err, key) from None
-    header, header_line, rows, lines = _read_rows(path, key=key)
-    rules = _rules_for(header, header_line, required, optional, path)
+    header, header_line, rows, lines = read_rows(path, key=key)
+    rules = header_rules(header, header_line, required, optional, path)
     return validate_frame(pd.DataFrame(rows, columns=header, dtype=object), rules,
                           file=path, lines=lines)
 
@@ -151,8 +185,13 @@ def _unreadable(path: Path, err: OSError, key: str | None) -> InputError:
                       file=path, key=key)
 
 
-def _read_rows(path: Path, *, key: str | None = None,
-               ) -> tuple[list[str], int, list[list[str]], list[int]]:
+def read_rows(path: Path, *, key: str | None = None,
+              ) -> tuple[list[str], int, list[list[str]], list[int]]:
+    """The header, its line, the data rows (lists of stripped cells) and their lines.
+
+    Checks the structure only (encoding, control characters, an empty or repeated
+    column name, field counts), not the column names or the cells.
+    """
     try:
         data = path.read_bytes()
     except OSError as err:  # e.g. no read permission
@@ -209,15 +248,45 @@ def _check_header(header: list[str], path: Path, line: int) -> None:
         seen.add(name)
 
 
-def _rules_for(header, header_line, required, optional, path) -> list[ColumnRule]:
+def check_column_names(columns, valid, *, file=None, line: int | None = None) -> None:
+    """Refuse a column that is neither one of `valid` nor a remark (`NOTE_PREFIX`).
+
+    An old name (`RENAMED_COLUMNS`) is refused with its new name; any other unknown
+    column with the nearest valid name, or the list of valid names.
+    """
+    valid = list(valid)
+    for name in columns:
+        name = str(name)
+        if name in valid or name.lower().startswith(NOTE_PREFIX):
+            continue
+        if RENAMED_COLUMNS.get(name) in valid:
+            raise InputError(f"column '{name}' is now called '{RENAMED_COLUMNS[name]}' "
+                             "(lidmelt 0.1.0 names every uncertainty <quantity>_sigma_<unit>"
+                             "); rename it in the header", file=file, row=line, column=name)
+        hint = suggest(name, valid, list_choices=False) or \
+            "; this table reads " + ", ".join(valid)
+        raise InputError(f"unknown column '{name}'{hint} (a column starting with "
+                         f"'{NOTE_PREFIX}' is kept as a remark)", file=file, row=line,
+                         column=name)
+
+
+def header_rules(header, header_line, required, optional, path) -> list[ColumnRule]:
+    """The rules of the columns present in `header`, after checking the header.
+
+    Refuses an unknown column (`check_column_names`), a missing required column, half of
+    an all-or-none `optional` group and a column whose `ColumnRule.requires` are absent.
+    """
     def missing(rule: ColumnRule, extra: str = "") -> InputError:
-        hint = suggest(rule.name, header, list_choices=False)
+        hint = ""
         if len(header) == 1 and any(sep in header[0] for sep in ";\t|"):
             hint = "; the header has one column only: is the file comma-separated?"
         return InputError(f"missing column '{rule.name}'{extra} (found: "
                           + ", ".join(header) + ")" + hint, file=path, row=header_line,
                           column=rule.name)
 
+    if not (len(header) == 1 and any(sep in header[0] for sep in ";\t|")):
+        valid = [r.name for r in required] + [r.name for g in optional for r in g]
+        check_column_names(header, valid, file=path, line=header_line)
     rules = []
     for rule in required:
         if rule.name not in header:
@@ -266,9 +335,7 @@ def validate_frame(
     out = frame.copy()
     for rule in rules:
         if rule.name not in out.columns:
-            raise InputError(f"missing column '{rule.name}'"
-                             + suggest(rule.name, out.columns, list_choices=False),
-                             file=file, column=rule.name)
+            raise InputError(f"missing column '{rule.name}'", file=file, column=rule.name)
         if (problem := rule.unmet(out.columns)) is not None:
             raise InputError(problem, file=file, column=rule.name)
         values = [_cell(v, rule, file, line) for v, line in zip(out[rule.name], lines,
@@ -289,13 +356,9 @@ def _cell(value, rule: ColumnRule, file, line: int):
         return text
     if not text:
         raise fail("empty cell; every row needs a number here")
-    try:
-        number = float(text)
-    except ValueError:
-        number = None
-    plain = _DECIMAL.fullmatch(text) or text.lower().lstrip("+-") in _NAMED
-    if number is None or not plain:  # float() also reads 6_5 as 65, and other digits
+    if not is_plain_number(text):  # float() also reads 6_5 as 65, and other digits
         raise fail(f"'{text}' is not a number; write a plain decimal such as 1.5")
+    number = float(text)
     if math.isnan(number):
         raise fail(f"value '{text}' (NaN) is not allowed; remove the row or give a number")
     if math.isinf(number):
@@ -304,3 +367,60 @@ def _cell(value, rule: ColumnRule, file, line: int):
         why = f" ({rule.why})" if rule.why else ""
         raise fail(f"value {number:g} {rule.rule_text()}{why}")
     return number
+
+
+def check_row(row, groups: Sequence[Sequence[ColumnRule]], *, file=None, line: int,
+              required: bool = False) -> dict[str, float]:
+    """The numbers one row of a survey sites file gives for one kind's column groups.
+
+    Parameters
+    ----------
+    row : mapping of str to str
+        Column -> cell text of the row (columns absent from the file are absent here).
+    groups : sequence of sequences of ColumnRule
+        The kind's `ObservationSet.site_columns`: the main measurement first, then
+        optional extras.
+    file : path-like, optional
+    line : int
+        The row's line in the file; both are named in every message.
+    required : bool
+        Every row must fill the first group (else a row may leave a whole group empty:
+        that site has no such measurement).
+
+    Returns
+    -------
+    dict of str to float
+        The filled columns and their values (empty if the row gives none).
+
+    Raises
+    ------
+    InputError
+        Half of a group filled, an extra without the first group (or without a column
+        its rules require), or a value breaking its rule.
+    """
+    chosen: list[ColumnRule] = []
+    for k, group in enumerate(groups):
+        if not all(rule.name in row for rule in group):
+            continue
+        blank = [rule for rule in group if not str(row[rule.name] or "").strip()]
+        if len(blank) == len(group) and not (required and k == 0):
+            continue  # this site has no such measurement
+        if blank and len(blank) < len(group):
+            given = ", ".join(r.name for r in group if r not in blank)
+            raise InputError(f"empty cell beside {given}; give both or leave both empty",
+                             file=file, row=line, column=blank[0].name)
+        chosen.extend(group)
+    names = {rule.name for rule in chosen}
+    main = [rule.name for rule in groups[0]]
+    for rule in chosen:
+        needs = [n for n in (main if rule.name not in main else []) + list(rule.requires)
+                 if n not in names]
+        if needs:
+            raise InputError(f"'{rule.name}' needs the measurement it goes with; give "
+                             + " and ".join(needs) + " too", file=file, row=line,
+                             column=rule.name)
+    if not chosen:
+        return {}
+    frame = pd.DataFrame({rule.name: [row[rule.name]] for rule in chosen})
+    data = validate_frame(frame, chosen, file=file, lines=[line]).data
+    return {rule.name: float(data[rule.name].iloc[0]) for rule in chosen if rule.numeric}

@@ -22,6 +22,7 @@ import textwrap
 
 import corner
 import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
@@ -30,12 +31,14 @@ from ... import forward
 from ...forward import figure_style as style
 from ...forward import plotting
 from ...forward.quantities import quantity, unit_text
+from ..study.priors import LogUniform
 from .report import decimals, estimate
 
 __all__ = ["corner_figure", "figure_files", "fit_figure", "pt_figure"]
 
 _DPI = 150
 _INCH_FOR_LABELS = 0.95  # room left and below the corner grid for tick and axis labels
+_INCH_FOR_CAPTION = 0.45  # below that: the caption naming each symbol
 
 
 def figure_files(posterior) -> dict[str, bytes]:
@@ -57,10 +60,13 @@ def corner_figure(posterior) -> Figure:
     ndim = len(names)
     kept = posterior.chain[posterior.discard:: posterior.thin].reshape(-1, ndim)
     size = max(5.0, 2.3 * ndim + _INCH_FOR_LABELS + 0.3)
-    fig = Figure(figsize=(size, size + 0.5))
+    fig = Figure(figsize=(size, size + 0.5 + _INCH_FOR_CAPTION))
+    # A log-uniform prior spans decades: bin and draw that parameter on a log axis.
+    scales = ["log" if isinstance(prior, LogUniform) else "linear"
+              for prior in posterior.logpost.priors]
     corner.corner(
-        kept, fig=fig, labels=[quantity(n, unit=units[n]).axis_label(short=True)
-                               for n in names],
+        kept, fig=fig, axes_scale=scales,
+        labels=[quantity(n, unit=units[n]).axis_label(short=True) for n in names],
         show_titles=False, label_kwargs={"fontsize": 10}, levels=(0.393, 0.865),
         plot_datapoints=False, fill_contours=True, color=style.POSTERIOR, smooth=1.0,
         bins=30, max_n_ticks=4, labelpad=0.08,
@@ -74,8 +80,9 @@ def corner_figure(posterior) -> Figure:
         for i in range(j + 1, ndim):
             axes[i, j].plot(point[j], point[i], "D", color=style.MAP, mec="white",
                             ms=6, mew=1.0, zorder=6)
-    height = size + 0.5
-    left, bottom, right, top = (_INCH_FOR_LABELS / size, _INCH_FOR_LABELS / height,
+    height = size + 0.5 + _INCH_FOR_CAPTION
+    left, bottom, right, top = (_INCH_FOR_LABELS / size,
+                                (_INCH_FOR_LABELS + _INCH_FOR_CAPTION) / height,
                                 1 - 0.25 / size, 1 - 0.9 / height)
     fig.subplots_adjust(left=left, bottom=bottom, right=right, top=top, wspace=0.06,
                         hspace=0.06)
@@ -88,32 +95,60 @@ def corner_figure(posterior) -> Figure:
                bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
     fig.suptitle(f"{posterior.study.name}\nposterior of the free parameters",
                  fontsize=10, x=0.02, ha="left", y=1 - 0.12 / height, va="top")
+    fig.text(0.02, 0.08 / height, _symbol_note(names, scales, width=int(17 * size)),
+             fontsize=7.5, color=style.INK, ha="left", va="bottom")
     return fig
+
+
+def _symbol_note(names, scales, *, width: int) -> str:
+    """The caption: each axis symbol in words, and which axes are logarithmic."""
+    words = []
+    for name in names:
+        q = quantity(name)
+        words.append(f"{q.symbol} = {q.name}" + (
+            " (moves the solidus, lherzolite-out curve and liquidus up (> 0) or down "
+            "together: a more refractory or a more fertile source; docs/model.md)"
+            if name == "solidus_offset" else ""))
+    note = "; ".join(words)
+    logs = [quantity(n).symbol for n, scale in zip(names, scales, strict=True)
+            if scale == "log"]
+    if logs:
+        note += "; log axis (log-uniform prior): " + ", ".join(logs)
+    return textwrap.fill(note, width=width)  # width: characters of 7.5 pt per line
 
 
 def _mark_marginal(ax, row, prior, map_value) -> None:
     """Prior density, median (solid), 16/84 % (dashed), MAP tick and the estimate."""
-    x = np.linspace(*ax.get_xlim(), 400)
+    spacing = np.geomspace if ax.get_xscale() == "log" else np.linspace
+    x = spacing(*ax.get_xlim(), 400)
     density = np.exp(prior.logpdf(x))
     ax.plot(x, density, color=style.PRIOR, lw=1.4, ls=(0, (4, 2)), zorder=4)
     ax.set_ylim(0, max(ax.get_ylim()[1], 1.1 * float(np.max(density))))
-    ax.axvline(row["median"], color=style.POSTERIOR, lw=1.4, zorder=5)
+    ax.axvline(row["median"], **_MEDIAN, zorder=5)
     for q in ("q16", "q84"):
-        ax.axvline(row[q], color=style.POSTERIOR, lw=1.0, ls=(0, (3, 2)), zorder=5)
+        ax.axvline(row[q], **_QUANTILE, zorder=5)
     # The MAP as a marker on the top edge, so the median line stays visible.
     ax.plot(map_value, 1.0, "v", color=style.MAP, ms=8, mec="white", mew=0.8, zorder=7,
             transform=ax.get_xaxis_transform(), clip_on=False)
     ax.set_title(estimate(row), fontsize=9, pad=9)
 
 
+#: The posterior median and 16/84 % lines: ink, so they stand apart from the steel-blue
+#: posterior histogram they are drawn on (docs/figures.md).
+_MEDIAN = dict(color=style.INK, lw=1.3)
+_QUANTILE = dict(color=style.INK, lw=0.9, ls=(0, (3, 2)))
+
+
 def _corner_legend(ndim: int):
     handles = [
-        Line2D([], [], color=style.POSTERIOR, lw=1.3, label="posterior (density)"),
+        Patch(facecolor="none", edgecolor=style.POSTERIOR, lw=1.3,
+              label="posterior (histogram of the samples)"),
         Line2D([], [], color=style.PRIOR, lw=1.4, ls=(0, (4, 2)),
                label="prior (same density scale)"),
-        Line2D([], [], color=style.POSTERIOR, lw=1.4, label="median"),
-        Line2D([], [], color=style.POSTERIOR, lw=1.0, ls=(0, (3, 2)),
-               label="16 and 84 % quantiles"),
+        Line2D([], [], marker="|", ls="", ms=11, mew=1.3, color=_MEDIAN["color"],
+               label="posterior median (vertical line)"),
+        Line2D([], [], marker="|", ls="", ms=11, mew=0.9, color=_QUANTILE["color"],
+               label="16 and 84 % quantiles (dashed vertical lines)"),
         Line2D([], [], color=style.MAP, marker="v", ls="", ms=7, label="MAP (top edge)"),
     ]
     if ndim > 1:
@@ -129,22 +164,38 @@ def _corner_legend(ndim: int):
 # ---- fit --------------------------------------------------------------------------------
 
 def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
-    """Observations against the posterior predictive distribution of `ndraws` draws."""
+    """Observations against the posterior predictive distribution of `ndraws` draws.
+
+    One row per `Panel` of each block (`ObservationSet.panels`); a block that observes
+    pressures with temperatures (`ObservationSet.pt_observed`) also gets a P-T panel
+    beside its rows, with each sample's 1-sigma error ellipse.
+    """
     column = posterior.logpost.column(posterior.predictive_draws(ndraws))
     blocks = list(posterior.study.observations)
-    joint = [b.kind == "melting_pressure" and b.has_temperature for b in blocks]
-    fig = Figure(figsize=(13.0 if any(joint) else 10.0, 0.9 + 3.3 * len(blocks)),
-                 layout="constrained")
-    grid = fig.add_gridspec(len(blocks), 5 if any(joint) else 1)
     errors = _median_errors(posterior)
-    for row, (block, both) in enumerate(zip(blocks, joint, strict=True)):
-        ax = fig.add_subplot(grid[row, :3] if both else grid[row, :])
-        _draw_fit_panel(ax, **_fit_panel(block, column, errors[row]),
-                        legend_columns=2 if any(joint) else 4)
-        if both:
-            _draw_joint_panel(fig.add_subplot(grid[row, 3:]), block, column, errors[row])
+    panels = [block.panels() for block in blocks]
+    joint = [_joint_data(block, column, e) for block, e in zip(blocks, errors, strict=True)]
+    rows = sum(len(p) for p in panels)
+    wide = any(j is not None for j in joint)
+    fig = Figure(figsize=(13.0 if wide else 10.0, 0.9 + 3.3 * rows), layout="constrained")
+    grid = fig.add_gridspec(rows, 5 if wide else 1)
+    first, placers = 0, []
+    for block, block_panels, pt, block_errors in zip(blocks, panels, joint, errors,
+                                                     strict=True):
+        for k, panel in enumerate(block_panels):
+            ax = fig.add_subplot(grid[first + k, :3] if pt is not None else grid[first + k, :])
+            _draw_fit_panel(ax, **_fit_panel(block, panel, column, block_errors),
+                            legend_columns=2 if wide else 4)
+        if pt is not None:
+            span = slice(first, first + len(block_panels))
+            placers.append(_draw_joint_panel(fig.add_subplot(grid[span, 3:]), block, **pt))
+        first += len(block_panels)
     fig.suptitle(f"{posterior.study.name}: observations against the posterior predictive "
                  f"distribution ({column.melt_thickness.shape[0]} draws)", fontsize=11)
+    if placers:  # sample labels are placed once the layout is fixed (one extra render)
+        FigureCanvasAgg(fig).draw()
+        for place in placers:
+            place(fig.canvas.get_renderer())
     return fig
 
 
@@ -157,42 +208,29 @@ def _median_errors(posterior) -> list[dict[str, float]]:
     return out
 
 
-def _bar_label(block, errors: dict[str, float]) -> str:
-    unit = unit_text(block.unit)
-    if "model_error" in errors:
-        return (f"observed ± 1σ, incl. model error {errors['model_error']:.2g} {unit} "
+def _bar_label(block, panel, errors: dict[str, float]) -> str:
+    unit = unit_text(panel.unit)
+    option = panel.error_option
+    if option in errors:
+        return (f"observed ± 1σ, incl. model error {errors[option]:.2g} {unit} "
                 "(free; posterior median)")
-    if block.model_error > 0:
-        return f"observed ± 1σ, incl. model error {block.model_error:g} {unit}"
+    if getattr(block, option, 0.0):
+        return f"observed ± 1σ, incl. model error {getattr(block, option):g} {unit}"
     return "observed ± 1σ (measurement only; no model error)"
 
 
-def _fit_panel(block, column, errors: dict[str, float]) -> dict:
+def _fit_panel(block, panel, column, errors: dict[str, float]) -> dict:
     """What one per-row panel shows: labels, observations and the predicted points.
 
     The error bars include the model error; a free one at its posterior median.
     """
     observed = block.observed(errors)
-    common = dict(names=list(block.ids), obs=observed["value"], sigma=observed["sigma"])
-    if block.kind == "crustal_thickness":
-        key = "crustal_thickness" if block.thickness_of == "crust" else "melt_thickness"
-        values = np.asarray(block.predict(column)["value"], float)
-        return common | dict(
-            points=values[..., None], weights=np.ones(values.shape + (1,)),
-            ylabel=quantity(key).axis_label(), bar_label=_bar_label(block, errors),
-            model_label=f"model {quantity(key).name}",
-            title=f"{block.name}: thickness against the model {quantity(key).name}")
-    pressure, _, weight = block.equilibration_points(column)
-    how = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
-           "path": "anywhere on the melting path, weighted by melt production"}
-    model = ("model, where the melts equilibrate along the path" if
-             block.equilibration == "path" else "model equilibration pressure")
-    return common | dict(
-        points=np.repeat(pressure[:, None, :], len(block), axis=1),
-        weights=np.repeat(weight[:, None, :], len(block), axis=1),
-        ylabel=quantity("pressure").axis_label(), bar_label=_bar_label(block, errors),
-        model_label=model, invert=True,
-        title=f"{block.name}: melting pressure, equilibrated {how[block.equilibration]}")
+    points, weights = block.panel_draws(column, panel.key)
+    return dict(names=list(block.ids), obs=observed[panel.key],
+                sigma=observed[panel.sigma_key], points=points, weights=weights,
+                ylabel=panel.label, bar_label=_bar_label(block, panel, errors),
+                model_label=panel.model, invert=panel.invert,
+                title=f"{block.name}: {panel.title}")
 
 
 def _weighted_quantiles(points, weights, qs) -> np.ndarray:
@@ -234,27 +272,112 @@ def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, ba
               frameon=False)
 
 
-def _draw_joint_panel(ax, block, column, errors, *, per_draw: int = 40) -> None:
-    """Each sample's P and T together against the predicted P-T distribution."""
-    pressure, temperature, weight = block.equilibration_points(column)
+def _joint_data(block, column, errors, *, per_draw: int = 40) -> dict | None:
+    """Observed P-T with their ellipses and sampled model points, or None."""
+    observed = block.pt_observed(errors)
+    draws = block.pt_draws(column)
+    if observed is None or "temperature" not in observed or draws is None \
+            or draws[1] is None:
+        return None
+    pressure, temperature, weight = draws
     rng = np.random.default_rng(0)  # only picks plotted points; the figure is reproducible
     picks = [rng.choice(weight.shape[1], size=per_draw, p=w / w.sum()) for w in weight]
-    p = np.concatenate([pressure[i, k] for i, k in enumerate(picks)])
-    t = np.concatenate([temperature[i, k] for i, k in enumerate(picks)])
+    return dict(observed=observed,
+                p=np.concatenate([pressure[i, k] for i, k in enumerate(picks)]),
+                t=np.concatenate([temperature[i, k] for i, k in enumerate(picks)]))
+
+
+def _draw_joint_panel(ax, block, *, observed, p, t):
+    """Each sample's P and T together against the predicted P-T distribution.
+
+    Returns the function that places the sample labels once the layout is fixed.
+    """
     ax.plot(t, p, ".", color=style.POSTERIOR, ms=2, alpha=0.12, zorder=1)
-    obs = block.observed(errors)
-    ax.errorbar(obs["temperature"], obs["value"], xerr=obs["temperature_sigma"],
-                yerr=obs["sigma"], zorder=5, **style.OBSERVED)
-    for name, tx, py in zip(block.ids, obs["temperature"], obs["value"], strict=True):
-        ax.annotate(name, (tx, py), xytext=(4, 3), textcoords="offset points", fontsize=6.5,
-                    color=style.INK)
+    _draw_pt_ellipses(ax, observed, label=None)
     ax.invert_yaxis()
     ax.set_xlabel(quantity("temperature").axis_label())
     ax.set_ylabel(quantity("pressure").axis_label())
     ax.set_title(f"{block.name}: P and T of each sample together\n"
-                 "dots: where the model melts equilibrate (posterior draws)",
+                 "dots: where the model melts equilibrate (posterior draws)\n"
+                 "ellipses: observed ± 1σ, tilted by correlated P-T errors",
                  fontsize=8.5, loc="left")
     ax.grid(alpha=0.3, lw=0.5)
+    labels = [ax.annotate(name, (tx, py), xytext=(4, 3), textcoords="offset points",
+                          fontsize=6.5, color=style.INK)
+              for name, tx, py in zip(block.ids, observed["temperature"],
+                                      observed["pressure"], strict=True)]
+    return lambda renderer: _place_labels(ax, labels, renderer)
+
+
+#: Offsets (points) and alignments tried for a sample label, nearest first.
+_LABEL_SPOTS = [((4, 3), "left", "bottom"), ((4, -3), "left", "top"),
+                ((-4, 3), "right", "bottom"), ((-4, -3), "right", "top"),
+                ((0, 7), "center", "bottom"), ((0, -7), "center", "top"),
+                ((10, 0), "left", "center"), ((-10, 0), "right", "center"),
+                ((12, 12), "left", "bottom"), ((-12, -12), "right", "top"),
+                ((12, -12), "left", "top"), ((-12, 12), "right", "bottom")]
+
+
+def _place_labels(ax, labels, renderer) -> None:
+    """Move each label to the first spot where it overlaps no placed label (greedy).
+
+    Labels are placed from the top of the axes down; a label with no free spot keeps
+    the spot of least overlap, so every sample stays named.
+    """
+    placed = []
+    inside = ax.get_window_extent(renderer)
+    order = sorted(labels, key=lambda a: -ax.transData.transform(a.xy)[1])
+    for label in order:
+        best, best_cost = None, np.inf
+        for offset, ha, va in _LABEL_SPOTS:
+            label.set_position(offset)
+            label.set_ha(ha)
+            label.set_va(va)
+            box = label.get_window_extent(renderer).expanded(1.08, 1.15)
+            cost = sum(_overlap(box, other) for other in placed)
+            cost += 4 * (box.width * box.height - _overlap(box, inside))  # outside the axes
+            if cost < best_cost:
+                best, best_cost = (offset, ha, va, box), cost
+            if cost == 0:
+                break
+        offset, ha, va, box = best
+        label.set_position(offset)
+        label.set_ha(ha)
+        label.set_va(va)
+        placed.append(box)
+
+
+def _overlap(a, b) -> float:
+    """Area (display units) shared by two bounding boxes."""
+    w = min(a.x1, b.x1) - max(a.x0, b.x0)
+    h = min(a.y1, b.y1) - max(a.y0, b.y0)
+    return max(w, 0.0) * max(h, 0.0)
+
+
+def _ellipse_xy(x, y, sx, sy, rho, num: int = 64) -> tuple[np.ndarray, np.ndarray]:
+    """The 1-sigma ellipse of a bivariate normal, as a closed polygon (data units).
+
+    Points c + L (cos t, sin t) with L the Cholesky factor of the covariance
+    [[sx^2, rho sx sy], [rho sx sy, sy^2]]: the set where the Mahalanobis distance is 1.
+    Its extent along each axis is exactly ± the marginal sigma (common practice).
+    """
+    t = np.linspace(0.0, 2.0 * np.pi, num)
+    u, v = np.cos(t), np.sin(t)
+    return x + sx * u, y + sy * (rho * u + np.sqrt(1.0 - rho * rho) * v)
+
+
+def _draw_pt_ellipses(ax, observed, *, label: str | None) -> None:
+    """Each observed P-T point with its 1-sigma error ellipse (correlation included)."""
+    rho = observed.get("correlation", np.zeros_like(observed["pressure"]))
+    for k, (t, p, st, sp, r) in enumerate(zip(
+            observed["temperature"], observed["pressure"], observed["temperature_sigma"],
+            observed["pressure_sigma"], rho, strict=True)):
+        ex, ey = _ellipse_xy(t, p, st, sp, r)
+        ax.fill(ex, ey, color=style.INK, alpha=0.07, lw=0, zorder=5)
+        ax.plot(ex, ey, color=style.INK, lw=0.9, zorder=5,
+                label=label if k == 0 else None)
+    ax.plot(observed["temperature"], observed["pressure"], ls="", marker="D", ms=4.5,
+            mfc="white", mec=style.INK, mew=1.0, zorder=6)
 
 
 # ---- P-T --------------------------------------------------------------------------------
@@ -336,17 +459,15 @@ def _draw_lid_band(ax, posterior, mantle_density) -> None:
 def _draw_observed_pt(ax, blocks, errors) -> None:
     labelled = {"points": False, "bands": False}
     for block, block_errors in zip(blocks, errors, strict=True):
-        if block.kind != "melting_pressure":
+        obs = block.pt_observed(block_errors)
+        if obs is None:
             continue
-        obs = block.observed(block_errors)
         if "temperature" in obs:
-            ax.errorbar(obs["temperature"], obs["value"], xerr=obs["temperature_sigma"],
-                        yerr=obs["sigma"], zorder=6, **style.OBSERVED,
-                        label=None if labelled["points"] else
-                        "observed P ± 1σ (GPa) and T ± 1σ (°C)")
+            _draw_pt_ellipses(ax, obs, label=None if labelled["points"] else
+                              "observed P and T, 1σ ellipse (correlated errors tilt it)")
             labelled["points"] = True
             continue
-        for value, sigma in zip(obs["value"], obs["sigma"], strict=True):
+        for value, sigma in zip(obs["pressure"], obs["pressure_sigma"], strict=True):
             ax.axhspan(value - sigma, value + sigma, color=style.INK, alpha=0.07, lw=0,
                        zorder=1, label=None if labelled["bands"] else
                        "observed pressure ± 1σ (GPa), no temperature measured")
@@ -357,9 +478,9 @@ def _draw_observed_pt(ax, blocks, errors) -> None:
 def _max_pressure(column, blocks) -> float:
     deepest = float(np.nanquantile(column.onset_pressure, 0.975))
     for block in blocks:
-        if block.kind == "melting_pressure":
-            obs = block.observed()
-            deepest = max(deepest, float(np.max(obs["value"] + 2 * obs["sigma"])))
+        obs = block.pt_observed()
+        if obs is not None:
+            deepest = max(deepest, float(np.max(obs["pressure"] + 2 * obs["pressure_sigma"])))
     return float(np.clip(np.ceil(deepest * 1.15 * 2) / 2, 1.0, float(forward.MAX_PRESSURE)))
 
 
@@ -368,8 +489,8 @@ def _temperature_range(path, blocks) -> tuple[float, float]:
     low = float(np.nanmin(temps)) if temps.size else 1200.0
     high = float(np.nanmax(temps)) if temps.size else 1500.0
     for block in blocks:
-        obs = block.observed()
-        if "temperature" in obs:
+        obs = block.pt_observed()
+        if obs is not None and "temperature" in obs:
             t, s = obs["temperature"], obs["temperature_sigma"]
             low, high = min(low, float(np.min(t - 2 * s))), max(high, float(np.max(t + 2 * s)))
     return (np.floor((low - 120.0) / 50) * 50, np.ceil((high + 80.0) / 50) * 50)

@@ -17,7 +17,6 @@ import dataclasses
 import hashlib
 import math
 import re
-import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from numbers import Real
@@ -28,6 +27,7 @@ from ... import forward
 
 from ..errors import InputError, suggest
 from ..observations import KINDS, ObservationSet
+from .keys import check_keys, key_line, read_study_file
 from .priors import Prior, TruncatedNormal, prior_from_spec
 
 __all__ = [
@@ -292,7 +292,7 @@ class Study:
             of the schema (the message names the key and the line where it is).
         """
         path = Path(path)
-        raw, text, config = _read_study_file(path)
+        raw, text, config = read_study_file(path)
         try:
             return cls.from_mapping(config, base_dir=path.parent, source=path,
                                     file_hash=hashlib.sha256(raw).hexdigest())
@@ -300,7 +300,7 @@ class Study:
             if err.file is not None and err.file != str(path):
                 raise  # a mistake inside an observation table names its own file
             raise InputError(err.message, file=path, key=err.key,
-                             line=err.line or _key_line(text, err.key)) from None
+                             line=err.line or key_line(text, err.key)) from None
 
     @classmethod
     def from_mapping(
@@ -324,9 +324,9 @@ class Study:
         file_hash : str, optional
             Recorded in `Study.file_hash`.
         """
-        _check_keys(config, _TOP_KEYS + _COMPARISON_KEYS, "", what="section")
+        check_keys(config, _TOP_KEYS + _COMPARISON_KEYS, "", what="section")
         study_tbl = _table(config, "study")
-        _check_keys(study_tbl, _STUDY_KEYS, "study")
+        check_keys(study_tbl, _STUDY_KEYS, "study")
         source = None if source is None else Path(source)
         name = study_tbl.get("name", source.stem if source is not None else "study")
         description = study_tbl.get("description", "")
@@ -335,10 +335,10 @@ class Study:
                 raise InputError(f"{value!r} must be a non-empty text in quotes",
                                  key=f"study.{key}")
         model_tbl = _table(config, "model")
-        _check_keys(model_tbl, _MODEL_KEYS, "model")
+        check_keys(model_tbl, _MODEL_KEYS, "model")
         model = ModelSettings(**model_tbl)
         sampler_tbl = _table(config, "sampler")
-        _check_keys(sampler_tbl, _SAMPLER_KEYS, "sampler")
+        check_keys(sampler_tbl, _SAMPLER_KEYS, "sampler")
         sampler = SamplerSettings(**sampler_tbl)
         priors, fixed = _parse_parameters(config.get("parameters"))
         if not priors:  # a scenario may fix everything (inversion.study.scenarios), a study not
@@ -403,7 +403,7 @@ class Study:
         >>> dry.model.parameterization, dry.fixed["water"]
         ('mckenzie-bickle1988', 0.0)
         """
-        _check_keys(model_settings, _MODEL_KEYS, "model")
+        check_keys(model_settings, _MODEL_KEYS, "model")
         model = dataclasses.replace(self.model, **model_settings)
         priors, fixed = dict(self.priors), dict(self.fixed)
         for name, spec in dict(parameters or {}).items():
@@ -419,7 +419,7 @@ class Study:
 
     def with_sampler(self, **settings) -> Study:
         """A copy with some `SamplerSettings` fields replaced (validated)."""
-        _check_keys(settings, _SAMPLER_KEYS, "sampler")
+        check_keys(settings, _SAMPLER_KEYS, "sampler")
         return dataclasses.replace(self, sampler=dataclasses.replace(self.sampler, **settings))
 
     def describe(self) -> str:
@@ -441,85 +441,6 @@ class Study:
 
 
 # ---- parsing helpers -------------------------------------------------------------------
-
-_TOML_POS = re.compile(r"\(at line (\d+), column (\d+)\)")
-
-
-def _read_study_file(path: Path) -> tuple[bytes, str, dict]:
-    """The bytes, text and parsed TOML of a study file (`InputError` if unreadable)."""
-    try:
-        if not path.is_file():
-            why = "is a folder, not a study file" if path.is_dir() else "not found"
-            raise InputError(f"study file {why}; check the path", file=path)
-        raw = path.read_bytes()
-    except OSError as err:  # e.g. no read permission on the file or its folder
-        raise InputError(f"the study file cannot be read ({err.strerror}); check its "
-                         "permissions", file=path) from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise InputError(f"not UTF-8 text (byte {err.start}); save the study file as "
-                         "UTF-8", file=path) from None
-    return raw, text, _parse_toml(text, path)
-
-
-def _parse_toml(text: str, path: Path) -> dict:
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        message = str(err)
-        match = _TOML_POS.search(message)
-        line = int(match.group(1)) if match else None
-        detail = _TOML_POS.sub("", message).strip().rstrip(".")
-        column = f" (column {match.group(2)})" if match else ""
-        raise InputError(
-            f"malformed TOML{column}: {detail}; check quotes, brackets and 'key = value' "
-            "syntax (https://toml.io)", file=path, line=line) from None
-
-
-_HEADER = re.compile(r"^\[(\[?)\s*([^\[\]]+?)\s*\]\]?$")
-_ASSIGN = re.compile(r"""^\s*("[^"]*"|'[^']*'|[A-Za-z0-9_\-.]+)\s*=""")
-
-
-def _key_line(text: str, dotted: str | None) -> int | None:
-    """Line number of the TOML line that best matches a dotted key (None if no match).
-
-    Keys of array-of-tables blocks are written ``observations[2].file`` (1-based). The
-    line whose table header plus key is the longest prefix of `dotted` wins.
-    """
-    if not dotted:
-        return None
-    header, counts, best, best_len = "", {}, None, 0
-    for number, raw in enumerate(text.splitlines(), start=1):
-        line = raw.strip()
-        head = _HEADER.match(line)
-        if head:
-            name = head.group(2)
-            first, _, rest = name.partition(".")
-            if head.group(1):  # [[array]] block
-                counts[name] = counts.get(name, 0) + 1
-                name = f"{name}[{counts[name]}]"
-            elif rest and first in counts:  # [scenarios.parameters]: of the last block
-                name = f"{first}[{counts[first]}].{rest}"
-            header = candidate = name
-        else:
-            assign = _ASSIGN.match(line)
-            if not assign:
-                continue
-            key = assign.group(1).strip("\"'")
-            candidate = f"{header}.{key}" if header else key
-        if (dotted == candidate or dotted.startswith(candidate + ".")) and \
-                len(candidate) > best_len:
-            best, best_len = number, len(candidate)
-    return best
-
-
-def _check_keys(table: Mapping, valid: tuple[str, ...], where: str, *, what: str = "key"):
-    for key in table:
-        if key not in valid:
-            dotted = f"{where}.{key}" if where else str(key)
-            raise InputError(f"unknown {what} '{key}'" + suggest(str(key), valid), key=dotted)
-
 
 def _table(config: Mapping, name: str) -> dict:
     value = config.get(name, {})
@@ -553,7 +474,7 @@ def _parse_parameters(table) -> tuple[dict[str, Prior], dict[str, float]]:
                          "and lithosphere_thickness", key="parameters")
     if not isinstance(table, dict):
         raise InputError(f"'parameters' must be a table, got {table!r}", key="parameters")
-    _check_keys(table, PARAMETERS, "parameters", what="parameter")
+    check_keys(table, PARAMETERS, "parameters", what="parameter")
     priors, fixed = {}, {}
     for name in PARAMETERS:
         if name in table:

@@ -31,7 +31,8 @@ from os import PathLike
 from pathlib import Path
 
 from ..errors import InputError
-from .file import Study, _check_keys, _key_line, _read_study_file
+from .file import Study
+from .keys import check_keys, key_line, read_study_file
 
 __all__ = [
     "BASE_NAME",
@@ -179,7 +180,7 @@ def read_scenarios(path: str | PathLike[str], base: Study | None = None) -> Scen
     """
     path = Path(path)
     base = Study.from_file(path) if base is None else base
-    raw, text, config = _read_study_file(path)
+    raw, text, config = read_study_file(path)
     if hashlib.sha256(raw).hexdigest() != base.file_hash:
         raise InputError("the study file changed after its study was read; read it again",
                          file=path)
@@ -187,7 +188,7 @@ def read_scenarios(path: str | PathLike[str], base: Study | None = None) -> Scen
         return scenarios_from_mapping(config, base)
     except InputError as err:
         raise InputError(err.message, file=path, key=err.key,
-                         line=err.line or _key_line(text, err.key)) from None
+                         line=err.line or key_line(text, err.key)) from None
 
 
 def scenarios_from_mapping(config: Mapping, base: Study) -> ScenarioSet:
@@ -205,7 +206,7 @@ def scenarios_from_mapping(config: Mapping, base: Study) -> ScenarioSet:
     if not isinstance(settings_tbl, dict):
         raise InputError(f"'comparison' must be a table written [comparison], got "
                          f"{settings_tbl!r}", key="comparison")
-    _check_keys(settings_tbl, tuple(f.name for f in dataclasses.fields(ComparisonSettings)),
+    check_keys(settings_tbl, tuple(f.name for f in dataclasses.fields(ComparisonSettings)),
                 "comparison")
     settings = ComparisonSettings(**settings_tbl)
     blocks = config.get("scenarios")
@@ -248,7 +249,7 @@ def _base_scenario(study: Study) -> Scenario:
 
 
 def _parse_scenario(spec: Mapping, where: str, base: Study) -> Scenario:
-    _check_keys(spec, _SCENARIO_KEYS, where)
+    check_keys(spec, _SCENARIO_KEYS, where)
     name = _scenario_name(spec.get("name"), f"{where}.name")
     description = spec.get("description")
     if not isinstance(description, str) or not description.strip():

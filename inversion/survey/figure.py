@@ -122,7 +122,7 @@ def profile_figure(result, plan):
     _bands(axes[2], x, _column(result.summary, plan.predicted, n), _BLUE, "model")
     observed = np.array([np.nan if s.thickness_km is None else s.thickness_km
                          for s in table.sites])
-    sigma = np.array([np.nan if s.sigma_km is None else s.sigma_km for s in table.sites])
+    sigma = np.array([np.nan if s.thickness_sigma_km is None else s.thickness_sigma_km for s in table.sites])
     axes[2].errorbar(x, observed, yerr=sigma, fmt="s", ms=3.5, color="black", capsize=2,
                      lw=0.9, label="observed ± 1σ")
     what = "igneous crust" if plan.settings.thickness_of == "crust" else "melt"

@@ -37,7 +37,8 @@ from pathlib import Path
 from ..errors import InputError, suggest
 from ..observations import EQUILIBRATION, THICKNESS_OF
 from ..study.priors import Prior, prior_from_spec
-from ..study.file import Study, _key_line, _read_study_file
+from ..study.file import Study
+from ..study.keys import key_line, read_study_file
 
 __all__ = ["SPREAD", "SurveySettings", "load_survey_study"]
 
@@ -84,7 +85,7 @@ def load_survey_study(path: str | PathLike[str]) -> tuple[Study, SurveySettings]
         As `Study.from_file` does (file, key, line), and for a bad ``[survey]`` key.
     """
     path = Path(path)
-    raw, text, config = _read_study_file(path)
+    raw, text, config = read_study_file(path)
     table = config.pop("survey", {})
     config["observations"] = []  # every site brings its own data
     try:
@@ -93,7 +94,7 @@ def load_survey_study(path: str | PathLike[str]) -> tuple[Study, SurveySettings]
                                    file_hash=hashlib.sha256(raw).hexdigest())
     except InputError as err:
         raise InputError(err.message, file=path, key=err.key,
-                         line=err.line or _key_line(text, err.key)) from None
+                         line=err.line or key_line(text, err.key)) from None
     return study, settings
 
 

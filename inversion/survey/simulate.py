@@ -22,7 +22,7 @@ def simulate_sites(study, settings, truth: pd.DataFrame,
     settings : SurveySettings
         Comparison choices (thickness_of, equilibration, model errors).
     truth : pandas.DataFrame
-        One row per site: ``site``, ``sigma_km`` and every free parameter of `study`
+        One row per site: ``site``, ``thickness_sigma_km`` and every free parameter of `study`
         (e.g. ``potential_temperature`` degC, ``lithosphere_thickness`` km); optional
         ``position_km``; optional ``pressure_sigma_gpa`` (the site then has a pressure).
     rng : numpy.random.Generator
@@ -36,7 +36,7 @@ def simulate_sites(study, settings, truth: pd.DataFrame,
     for k, spec in enumerate(truth.to_dict("records")):
         has_p = "pressure_sigma_gpa" in spec and np.isfinite(spec["pressure_sigma_gpa"])
         template = Site(k, str(spec["site"]), k + 2, thickness_km=1.0,
-                        sigma_km=float(spec["sigma_km"]),
+                        thickness_sigma_km=float(spec["thickness_sigma_km"]),
                         pressure_gpa=1.0 if has_p else None,
                         pressure_sigma_gpa=(float(spec["pressure_sigma_gpa"]) if has_p
                                             else None))
@@ -48,7 +48,7 @@ def simulate_sites(study, settings, truth: pd.DataFrame,
         if "position_km" in spec:
             row["position_km"] = spec["position_km"]
         row.update(thickness_km=round(max(float(drawn[0].values[0]), 0.0), 2),
-                   sigma_km=spec["sigma_km"])
+                   thickness_sigma_km=spec["thickness_sigma_km"])
         if has_p:
             row.update(pressure_gpa=round(float(drawn[1].values[0]), 3),
                        pressure_sigma_gpa=spec["pressure_sigma_gpa"])

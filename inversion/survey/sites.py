@@ -1,15 +1,18 @@
 """The sites table of a survey (SITES.csv): one row per site.
 
-Columns: ``site`` (name), ``thickness_km`` (>= 0) and ``sigma_km`` (> 0, 1 sigma);
-optional ``position_km`` (distance along the study area, for the profile figure);
-optional ``pressure_gpa`` with ``pressure_sigma_gpa``; optional ``temperature_c`` with
-``temperature_sigma_c`` (only beside a pressure). Other columns are kept as text.
+Columns: ``site`` (name), then the columns of each observation kind a survey reads
+(`SURVEY_KINDS`), with the rules of that kind's own table
+(`ObservationSet.site_columns`): ``thickness_km`` (0-60 km) and ``thickness_sigma_km``
+(> 0), required; optional ``pressure_gpa`` with ``pressure_sigma_gpa``, ``temperature_c``
+with ``temperature_sigma_c`` (only beside a pressure) and ``pt_correlation`` (only beside
+a temperature); optional ``position_km`` (distance along the study area, for the profile
+figure). Columns starting with ``note`` are remarks; any other column is refused.
 
 The file's structure (header, field counts, names) is checked first: a mistake there
 stops the survey with an `InputError`. Each row's values are then checked on their own
 with the same rules as the observation tables, so a bad value fails only its site, with a
-message naming the file, the line and the column. In the optional column pairs a row may
-leave both cells empty (that site has no such measurement), not one of them.
+message naming the file, the line and the column. In the optional column groups a row
+may leave a whole group empty (that site has no such measurement), not part of it.
 """
 
 from __future__ import annotations
@@ -23,35 +26,25 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import InputError
-from ..observations import (
-    PRESSURE_RANGE,
-    TEMPERATURE_RANGE,
-    CrustalThickness,
-    MeltingPressure,
+from ..observations import CrustalThickness, MeltingPressure
+from ..observations.tables import (
+    ColumnRule,
+    check_row,
+    header_rules,
+    read_rows,
+    validate_frame,
 )
-from ..observations.tables import ColumnRule, _read_rows, _rules_for, validate_frame
 
-__all__ = ["Site", "SiteTable", "read_sites", "site_observations"]
+__all__ = ["SURVEY_KINDS", "Site", "SiteTable", "read_sites", "site_observations"]
 
-_REQUIRED = (
-    ColumnRule("site", numeric=False),
-    ColumnRule("thickness_km", low=0.0, unit="km", why="a thickness cannot be negative"),
-    ColumnRule("sigma_km", low=0.0, low_open=True, unit="km",
-               why="a 1-sigma uncertainty must be positive"),
-)
+#: The observation kinds a sites file holds, in column order; every site needs the first.
+SURVEY_KINDS = (CrustalThickness, MeltingPressure)
+_NAME = ColumnRule("site", numeric=False)
 _POSITION = (ColumnRule("position_km", unit="km"),)
-_PRESSURE = (
-    ColumnRule("pressure_gpa", low=PRESSURE_RANGE[0], high=PRESSURE_RANGE[1], unit="GPa"),
-    ColumnRule("pressure_sigma_gpa", low=0.0, low_open=True, unit="GPa",
-               why="a 1-sigma uncertainty must be positive"),
-)
-_TEMPERATURE = (
-    ColumnRule("temperature_c", low=TEMPERATURE_RANGE[0], high=TEMPERATURE_RANGE[1],
-               unit="degC", why="outside this range the unit is probably not degC"),
-    ColumnRule("temperature_sigma_c", low=0.0, low_open=True, unit="degC",
-               why="a 1-sigma uncertainty must be positive"),
-)
-_GROUPS = (_POSITION, _PRESSURE, _TEMPERATURE)
+_KIND_GROUPS = tuple(kind.site_columns() for kind in SURVEY_KINDS)
+_REQUIRED = (_NAME, *_KIND_GROUPS[0][0])
+_GROUPS = (_POSITION, *_KIND_GROUPS[0][1:], *(g for groups in _KIND_GROUPS[1:]
+                                                for g in groups))
 
 
 @dataclass(frozen=True)
@@ -67,19 +60,23 @@ class Site:
         Line of the row in the file.
     error : str or None
         Why the row's values cannot be used (the site then fails alone).
+    file : pathlib.Path or None
+        The sites file, named with `line` in messages about the site's values.
     """
 
     index: int
     name: str
     line: int
     thickness_km: float | None = None
-    sigma_km: float | None = None
+    thickness_sigma_km: float | None = None
     position_km: float | None = None
     pressure_gpa: float | None = None
     pressure_sigma_gpa: float | None = None
     temperature_c: float | None = None
     temperature_sigma_c: float | None = None
+    pt_correlation: float | None = None
     error: str | None = None
+    file: Path | None = None
 
     @property
     def has_pressure(self) -> bool:
@@ -118,8 +115,8 @@ def read_sites(path: str | PathLike[str]) -> SiteTable:
     if not path.is_file():
         why = "is a folder, not a table" if path.is_dir() else "not found"
         raise InputError(f"sites file {why}; check the path", file=path)
-    header, header_line, rows, lines = _read_rows(path)
-    rules = _rules_for(header, header_line, _REQUIRED, _GROUPS, path)
+    header, header_line, rows, lines = read_rows(path)
+    rules = header_rules(header, header_line, _REQUIRED, _GROUPS, path)
     present = [group for group in _GROUPS if group[0] in rules]
     names = validate_frame(pd.DataFrame({"site": [r[header.index("site")] for r in rows]}),
                            _REQUIRED[:1], file=path, lines=lines).data["site"]
@@ -127,7 +124,8 @@ def read_sites(path: str | PathLike[str]) -> SiteTable:
     sites = tuple(_site(k, dict(zip(header, row, strict=True)), line, present, path)
                   for k, (row, line) in enumerate(zip(rows, lines, strict=True)))
     return SiteTable(path, sites, hashlib.sha256(path.read_bytes()).hexdigest(),
-                     has_positions=_POSITION in present, has_pressures=_PRESSURE in present)
+                     has_positions=_POSITION in present,
+                     has_pressures=_KIND_GROUPS[1][0] in present)
 
 
 def _check_unique(names: list[str], lines, path: Path) -> None:
@@ -146,8 +144,8 @@ def _site(index: int, row: dict, line: int, groups, path: Path) -> Site:
         values = _row_values(row, line, groups, path)
     except InputError as err:  # keep the position, if it is readable, for the figure
         return Site(index, name, line, position_km=_number_or_none(row.get("position_km")),
-                    error=str(err))
-    return Site(index, name, line, **values)
+                    error=str(err), file=path)
+    return Site(index, name, line, **values, file=path)
 
 
 def _number_or_none(text) -> float | None:
@@ -159,29 +157,15 @@ def _number_or_none(text) -> float | None:
 
 
 def _row_values(row: dict, line: int, groups, path: Path) -> dict:
-    """The numbers of one row, checked by the table rules (raises `InputError`)."""
-    rules = list(_REQUIRED[1:])
-    for group in groups:
-        blank = [rule for rule in group if not row[rule.name].strip()]
-        if len(blank) == len(group):
-            continue  # this site has no such measurement
-        if blank:
-            given = ", ".join(r.name for r in group if r not in blank)
-            raise InputError(f"empty cell beside {given}; give both or leave both empty",
-                             file=path, row=line, column=blank[0].name)
-        rules.extend(group)
-    names = {rule.name for rule in rules}
-    if "temperature_c" in names and "pressure_gpa" not in names:
-        raise InputError("a temperature needs the melting pressure it goes with; give "
-                         "pressure_gpa and pressure_sigma_gpa too", file=path, row=line,
-                         column="temperature_c")
-    frame = pd.DataFrame({rule.name: [row[rule.name]] for rule in rules})
-    data = validate_frame(frame, rules, file=path, lines=[line]).data
-    return {rule.name: float(data[rule.name].iloc[0]) for rule in rules}
+    """The numbers of one row, checked by each kind's rules (raises `InputError`)."""
+    values = check_row(row, (_POSITION,), file=path, line=line)
+    for k, kind_groups in enumerate(_KIND_GROUPS):
+        values |= check_row(row, kind_groups, file=path, line=line, required=k == 0)
+    return values
 
 
 def site_observations(site: Site, settings) -> list:
-    """The observation sets of one site (crust, and melting pressure if measured).
+    """The observation sets of one site: one per kind of `SURVEY_KINDS` it measured.
 
     Parameters
     ----------
@@ -190,18 +174,17 @@ def site_observations(site: Site, settings) -> list:
     settings : SurveySettings
         Comparison choices and model errors.
     """
-    crust = CrustalThickness.from_frame(
-        pd.DataFrame({"site": [site.name], "thickness_km": [site.thickness_km],
-                      "sigma_km": [site.sigma_km]}),
-        model_error=settings.crust_model_error, thickness_of=settings.thickness_of)
-    if not site.has_pressure:
-        return [crust]
-    table = {"sample": [site.name], "pressure_gpa": [site.pressure_gpa],
-             "sigma_gpa": [site.pressure_sigma_gpa]}
-    if site.temperature_c is not None:
-        table.update(temperature_c=[site.temperature_c], sigma_c=[site.temperature_sigma_c])
-    pressure = MeltingPressure.from_frame(
-        pd.DataFrame(table), model_error=settings.pressure_model_error,
-        equilibration=settings.equilibration, path_points=settings.path_points,
-        temperature_model_error=settings.temperature_model_error)
-    return [crust, pressure]
+    options = {CrustalThickness: dict(model_error=settings.crust_model_error,
+                                      thickness_of=settings.thickness_of),
+               MeltingPressure: dict(model_error=settings.pressure_model_error,
+                                     equilibration=settings.equilibration,
+                                     path_points=settings.path_points,
+                                     temperature_model_error=settings.temperature_model_error)}
+    sets = []
+    for kind, groups in zip(SURVEY_KINDS, _KIND_GROUPS, strict=True):
+        values = {rule.name: getattr(site, rule.name) for group in groups for rule in group
+                  if getattr(site, rule.name) is not None}
+        if values:
+            sets.append(kind.from_site(site.name, values, file=site.file, line=site.line,
+                                       **options[kind]))
+    return sets
