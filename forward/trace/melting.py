@@ -207,32 +207,33 @@ def _bulk(segs, d, x):
     return out
 
 
-def _shaw_log(x_start, x_end, w, d, segs):
+def _shaw_log(x_start, x_end, w_a, w_b, d, segs):
     """One Shaw (1970) step from ``x_start`` to ``x_end``: ``(log ratio, integral, D0)``.
 
-    ``log ratio`` is log(C_s after / C_s before); ``integral`` is the integral over the
-    step of the residue's element mass, dX, per unit of that mass at the start:
-    (1 - X_s) D0 [1 - (1 - P f / D0)^((1 + P)/P)] / (1 + P) with f the share of the
-    residue melted. The residue's bulk D0 and Shaw's P are those at ``x_start``, kept over
-    the step: exact while no mineral runs out within it and the garnet share
-    ``w = (w_a, w_b)`` (at the step's deep and shallow ends) is constant. Where it
-    changes, D0 is the logarithmic mean of its values at the two ends, the exact mean of
-    1/D for D linear across the step. Arrays (..., e).
+    Flat inputs (N,), outputs (N, e). ``log ratio`` is log(C_s after / C_s before);
+    ``integral`` is the integral over the step of the residue's element mass, dX, per
+    unit of that mass at the start: (1 - X_s) D0 [1 - (1 - P f / D0)^((1 + P)/P)] / (1 + P)
+    with f the share of the residue melted. The residue's bulk D0 and Shaw's P are those
+    at ``x_start``, kept over the step: exact while no mineral runs out within it and the
+    garnet share (``w_a``, ``w_b`` at the step's deep and shallow ends) is constant. Where
+    it changes, D0 is the logarithmic mean of its values at the two ends, the exact mean
+    of 1/D for D linear across the step.
     """
-    remaining = np.maximum(1.0 - x_start, 1e-300)[..., None]
-    f = np.clip((x_end - x_start)[..., None] / remaining, 0.0, _LAST)
+    remaining = np.maximum(1.0 - x_start, 1e-300)[:, None]
+    f = np.clip((x_end - x_start)[:, None] / remaining, 0.0, _LAST)
     (m_sp, q_sp), (m_gt, q_gt) = _bulk(segs, d, np.minimum(x_start, 1.0))
-    w_a, w_b = w
-    d_a = ((1.0 - w_a) * m_sp + w_a * m_gt) / remaining
-    d_b = ((1.0 - w_b) * m_sp + w_b * m_gt) / remaining
-    # garnet share linear across the step: 1/D integrates to the logarithmic mean of D
-    ratio = d_b / d_a
-    even = np.abs(ratio - 1.0) < 1e-6
-    d0 = np.where(even, 0.5 * (d_a + d_b),
-                  (d_b - d_a) / np.where(even, 1.0, np.log(np.where(even, 1.0, ratio))))
-    w_mid = 0.5 * (w_a + w_b)
-    big_p = (1.0 - w_mid) * q_sp + w_mid * q_gt
-    big_p = np.where(np.abs(big_p) < 1e-12, 1e-12, big_p)
+    d0 = (m_sp + w_a[:, None] * (m_gt - m_sp)) / remaining
+    varies = np.nonzero(np.abs(w_b - w_a) > 1e-9)[0]
+    if varies.size:  # garnet share linear across the step: log-mean of D
+        d_a = d0[varies]
+        d_b = (m_sp[varies] + w_b[varies, None] * (m_gt[varies] - m_sp[varies])) \
+            / remaining[varies]
+        ratio = d_b / d_a
+        even = np.abs(ratio - 1.0) < 1e-6
+        d0[varies] = np.where(even, 0.5 * (d_a + d_b), (d_b - d_a) / np.log(
+            np.where(even, 2.0, ratio)))
+    big_p = q_sp + (0.5 * (w_a + w_b))[:, None] * (q_gt - q_sp)
+    big_p[np.abs(big_p) < 1e-12] = 1e-12
     log_base = np.log1p(-np.minimum(big_p * f / d0, _LAST)) / big_p
     integral = remaining * d0 * -np.expm1(log_base * (1.0 + big_p)) / (1.0 + big_p)
     return log_base - np.log1p(-f), integral, d0
@@ -244,28 +245,41 @@ def _steps(made, garnet, d, segs):
 
     A step that passes a break of the mineralogy (a mineral running out in either facies)
     is taken as up to ``_PIECES`` Shaw steps, from break to break; so each is exact for a
-    path whose intervals hold fewer breaks than that.
+    path whose intervals hold fewer breaks than that. Arrays (..., n, e).
     """
-    x = np.cumsum(made, axis=-1) - made  # extracted before each step
-    x_end = x + made
+    shape = made.shape
+    x = (np.cumsum(made, axis=-1) - made).ravel()  # extracted before each step
+    x_end = x + made.ravel()
+    w_a, w_b = garnet[..., :-1].ravel(), garnet[..., 1:].ravel()
     breaks = np.unique(np.concatenate([s.start[1:] for s in segs.values()] + [[np.inf]]))
-    w = (garnet[..., :-1, None], garnet[..., 1:, None])
-    log_residue, integral, at, d0 = 0.0, 0.0, x, None
-    for piece_no in range(_PIECES):  # to the next break, or the end
-        nxt = breaks[np.minimum(np.searchsorted(breaks, at, side="right"), breaks.size - 1)]
-        end = x_end if piece_no == _PIECES - 1 else np.minimum(nxt, x_end)
-        piece, piece_integral, piece_d0 = _shaw_log(at, end, w, d, segs)
-        d0 = piece_d0 if d0 is None else d0
+    nxt = breaks[np.searchsorted(breaks, x, side="right")]
+    at = np.minimum(nxt, x_end)
+    log_residue, integral, d0 = _shaw_log(x, at, w_a, w_b, d, segs)
+    for piece_no in range(1, _PIECES):  # the rest, from break to break, where any
+        go = np.nonzero(at < x_end)[0]
+        if not go.size:
+            break
+        start = at[go]
+        last = piece_no == _PIECES - 1
+        end = x_end[go] if last else np.minimum(
+            breaks[np.searchsorted(breaks, start, side="right")], x_end[go])
+        piece, piece_integral, _ = _shaw_log(start, end, w_a[go], w_b[go], d, segs)
         # residue element mass at the piece's start, per unit at the step's start
-        start_mass = np.exp(log_residue) * ((1.0 - at) / np.maximum(1.0 - x, 1e-300))[..., None]
-        integral = integral + start_mass * piece_integral
-        log_residue = log_residue + piece
-        at = end
+        start_mass = np.exp(log_residue[go]) * ((1.0 - start)
+                                                / np.maximum(1.0 - x[go], 1e-300))[:, None]
+        integral[go] += start_mass * piece_integral
+        log_residue[go] += piece
+        at[go] = end
     # step melt from the step's mass balance; C0/D0 where (almost) nothing melts
-    enough = (made > 1e-9 * (1.0 - x))[..., None]
-    left = (1.0 - x)[..., None] - np.exp(log_residue) * (1.0 - x_end)[..., None]
-    gain = np.where(enough, left / np.where(enough, made[..., None], 1.0), 1.0 / d0)
-    return log_residue, gain, integral
+    made_flat = x_end - x
+    enough = made_flat > 1e-9 * (1.0 - x)
+    gain = 1.0 / d0
+    left = (1.0 - x[enough])[:, None] - np.exp(log_residue[enough]) \
+        * (1.0 - x_end[enough])[:, None]
+    gain[enough] = left / made_flat[enough, None]
+    e = d.shape[-1]
+    return (log_residue.reshape(*shape, e), gain.reshape(*shape, e),
+            integral.reshape(*shape, e))
 
 
 def _first_melt(onset, lo, hi, d, segs):
