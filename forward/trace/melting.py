@@ -61,10 +61,12 @@ class TraceElements:
 
     def _column(self, name: str) -> int:
         if name not in self.elements:
-            raise ValueError(f"unknown element {name!r}; choose one of {', '.join(self.elements)}")
+            raise ValueError(f"unknown element {name!r}; "
+                             f"choose one of {', '.join(self.elements)}")
         return self.elements.index(name)
 
-    def ratio(self, numerator: str, denominator: str, *, normalised: bool = False) -> np.ndarray:
+    def ratio(self, numerator: str, denominator: str, *,
+              normalised: bool = False) -> np.ndarray:
         """Mass ratio of two elements in the melt, shape (...); ``normalised``: of the
         chondrite-normalised concentrations (Sun & McDonough 1989)."""
         c = self.normalised if normalised else self.melt
@@ -157,7 +159,8 @@ def melt_along_path(
         default the packaged mineralogy.
     """
     if melting_region not in MELTING_REGIONS:
-        raise ValueError(f"unknown melting_region {melting_region!r}; choose 'column' or 'triangle'")
+        raise ValueError(f"unknown melting_region {melting_region!r}; "
+                         "choose 'column' or 'triangle'")
     lo, hi = _transition(transition)
     d = partition_coefficients() if coefficients is None else np.asarray(coefficients, float)
     segs = facies_segments() if segments is None else segments
