@@ -24,6 +24,7 @@ from .parameterizations import (
     ThermoConstants,
     get_parameterization,
 )
+from .trace import TraceElements, pooled_trace_elements
 
 __all__ = [
     "EXCLUSIVE_LOWER_BOUND",
@@ -44,10 +45,12 @@ __all__ = [
     "Parameterization",
     "Quantity",
     "ThermoConstants",
+    "TraceElements",
     "depth_per_pressure",
     "get_parameterization",
     "in_domain",
     "melt_column",
+    "pooled_trace_elements",
     "quantity",
     "solid_adiabat",
 ]
