@@ -180,3 +180,75 @@ def test_a_good_fit_has_no_warnings(reference):
     diagnostics = _strict_json(reference[1] / "diagnostics.json")
     assert diagnostics["converged"] is True and diagnostics["warnings"] == []
     assert "## Warnings" not in (reference[1] / "report.md").read_text()
+
+
+# ---- burn-in: walkers out of the bulk (stragglers) ---------------------------------------
+
+def _with_stragglers(ndim: int, seed: int, *, strays=(3, 11), until: int = 68):
+    """AR(1) walkers of a standard normal posterior in `ndim` dimensions (tau about 12),
+    with walkers `strays` far from the mode until step `until`: their log-posterior falls
+    from 40 to 15 below the maximum over steps 0-68, as in a MAP-started run whose ball
+    straddled a ridge. Returns (chain, log_prob); log p = -|x|^2 / 2."""
+    chain = np.concatenate([_ar1(240, 32, 0.85, seed + j) for j in range(ndim)], axis=2)
+    deficit = np.linspace(40.0, 15.0, until + 1)  # nats below the maximum, steps 0..until
+    for w in strays:
+        # put the excess along the first axis: x0 = sqrt(2 * deficit) (with its noise)
+        chain[: until + 1, w, 0] = np.sqrt(2.0 * deficit) + 0.3 * chain[: until + 1, w, 0]
+    return chain, -0.5 * np.sum(chain**2, axis=2)
+
+
+@pytest.mark.parametrize("ndim", [1, 3])
+def test_burn_in_drops_walkers_out_of_the_bulk(ndim):
+    chain, log_prob = _with_stragglers(ndim, seed=10)
+    old = assess_chain(chain)  # the 2 tau rule alone (the rule before) keeps the strays
+    assert old["discard"] < 68
+    new = assess_chain(chain, log_prob=log_prob)
+    assert new["discard"] >= 69  # every step with a walker far out is dropped
+    kept = log_prob[new["discard"]:]
+    # chi^2_d / 2 below the maximum for a Gaussian: nothing kept beyond X of the median
+    assert np.median(log_prob[120:]) - kept.min() < new["straggler_threshold"]
+    assert new["stranded_walkers"] == []
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_the_straggler_rule_leaves_converged_chains_alone(seed):
+    chain = _ar1(400, 32, 0.85, seed=100 + seed)
+    chain = np.concatenate([chain, _ar1(400, 32, 0.85, seed=200 + seed)], axis=2)
+    log_prob = -0.5 * np.sum(chain**2, axis=2)
+    with_rule = assess_chain(chain, log_prob=log_prob)
+    assert with_rule["discard"] == assess_chain(chain)["discard"]  # no false alarm
+
+
+def test_a_walker_stranded_in_a_minor_mode_is_never_converged():
+    chain = _ar1(2000, 16, 0.5, seed=3)
+    chain[:, 5, 0] = 6.0 + 0.1 * chain[:, 5, 0]  # a minor mode 18 nats down, all along
+    log_prob = -0.5 * chain[..., 0] ** 2
+    a = assess_chain(chain, tau_multiple=50, ess_target=1000, log_prob=log_prob,
+                     accepted=np.full(16, 600.0))
+    assert not a["converged"]
+    assert a["stranded_walkers"] == [5]
+    assert any("out of the bulk" in s for s in a["shortfalls"])
+
+
+def test_loo_after_the_burn_in_rule_has_no_straggler_artefact():
+    # The straggler draws wreck the importance weights of PSIS-LOO (Vehtari et al. 2017:
+    # k > 0.7 unreliable); after the rule every row is reliable again.
+    from types import SimpleNamespace
+
+    from lidmelt.inversion.comparison.loo import loo_from_draws, posterior_draws
+    from lidmelt.inversion.study.priors import Uniform
+    from toys import GaussianToy
+
+    y = np.array([0.8, 1.4, 0.3, 1.1, 0.9, 1.6, -0.2])
+    toy = GaussianToy(y, 0.5, Uniform(-10.0, 10.0))
+    sd = 0.5 / math.sqrt(y.size)  # posterior of mu under a flat prior
+    unit, log_prob = _with_stragglers(1, seed=10)
+    chain = y.mean() + sd * unit
+
+    def k_max(discard, tau):
+        draws = posterior_draws(SimpleNamespace(chain=chain, discard=discard, tau=tau))
+        return loo_from_draws(toy, draws).pareto_k_max
+
+    old, new = assess_chain(chain), assess_chain(chain, log_prob=log_prob)
+    assert k_max(old["discard"], old["tau"]) > 0.7
+    assert k_max(new["discard"], new["tau"]) < 0.5

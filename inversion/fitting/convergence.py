@@ -94,11 +94,22 @@ def diagnostics_dict(posterior) -> dict:
         "converged": posterior.converged,
         "warnings": posterior.warnings,
         "stopping_rule": (
-            f"kept chain >= {settings.tau_multiple:g} x max tau, every effective sample "
-            f"size >= {settings.ess_target:g}, split R-hat near its converged value and "
+            f"kept chain >= {settings.tau_multiple:g} x max tau, no walker out of the "
+            f"bulk after burn-in, every effective sample size >= {settings.ess_target:g}, "
+            "split R-hat near its converged value and "
             f"mean acceptance >= {MIN_ACCEPTANCE:g}, checked every "
             f"{settings.check_interval} steps; cap {settings.max_steps} steps"
         ),
+        "burn_in_rule": (
+            "burn-in = the longer of 2 x max tau and the end of the last block (max tau "
+            "steps) in which a walker's median log-posterior lies more than "
+            f"{_round(assessment.get('straggler_threshold', math.nan), 3)} nats below the "
+            "ensemble's median over the second half of the chain (a walker out of the "
+            "bulk), at most half the chain; summaries, figures, samples.csv and PSIS-LOO "
+            "use the steps after it"
+        ),
+        "walkers_out_of_bulk_after_burn_in": [
+            int(w) for w in assessment.get("stranded_walkers", [])],
         "steps": int(posterior.chain.shape[0]),
         "walkers": int(posterior.chain.shape[1]),
         "burn_in_steps": posterior.discard,
