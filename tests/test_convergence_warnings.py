@@ -252,3 +252,41 @@ def test_loo_after_the_burn_in_rule_has_no_straggler_artefact():
     old, new = assess_chain(chain), assess_chain(chain, log_prob=log_prob)
     assert k_max(old["discard"], old["tau"]) > 0.7
     assert k_max(new["discard"], new["tau"]) < 0.5
+
+
+def test_a_model_or_physical_limit_is_told_apart_from_a_prior_bound_the_user_can_widen():
+    from lidmelt.inversion.fitting.convergence import _bound_warnings
+    from lidmelt.inversion.study.priors import Normal, Uniform
+
+    rng = np.random.default_rng(2)
+    piled = np.abs(rng.normal(0.0, 1.0, 4000))  # a half-normal: cut off at its mode
+    offset = _bound_warnings("solidus_offset", -100.0 + 8.0 * piled, Normal(0.0, 20.0),
+                             forward.PARAMETER_DOMAIN["solidus_offset"], "°C")
+    upwelling = _bound_warnings("active_upwelling", 1.0 + 0.3 * piled, Uniform(1.0, 5.0),
+                                forward.PARAMETER_DOMAIN["active_upwelling"], "")
+    tp = _bound_warnings("potential_temperature", 1150.0 - 10.0 * piled,
+                         Uniform(1000.0, 1150.0),
+                         forward.PARAMETER_DOMAIN["potential_temperature"], "°C")
+    assert len(offset) == len(upwelling) == len(tp) == 1
+    # the solidus offset's -100 degC is where the model ends (forward/_validation.py)
+    assert "a limit of the model" in offset[0] and "-100 °C" in offset[0]
+    assert "widening the prior cannot move it" in offset[0]
+    assert "a physical limit (active upwelling 1 is passive flow)" in upwelling[0]
+    assert "widening the prior cannot move it" in upwelling[0]
+    assert "the upper bound of its prior" in tp[0] and "widen the prior if" in tp[0]
+    assert "cannot move it" not in tp[0]
+
+
+def test_the_advice_names_what_helps():
+    from lidmelt.inversion.fitting.convergence import not_converged_advice
+
+    chain, log_prob = _with_stragglers(3, seed=10)
+    stranded = assess_chain(chain[:100], log_prob=log_prob[:100])  # strays in the 2nd half
+    assert stranded["stranded_walkers"]
+    assert 'start = "map"' in not_converged_advice(stranded, "prior")
+    assert "more than one mode" in not_converged_advice(stranded, "map")
+    short = assess_chain(_ar1(300, 16, 0.9, seed=2), tau_multiple=50, ess_target=4000)
+    assert not short["converged"] and not short["stranded_walkers"]
+    advice = not_converged_advice(short, "map")
+    assert "raise `max_steps`" in advice and "start" not in advice
+    assert not_converged_advice({"converged": True}, "prior") == ""

@@ -218,8 +218,8 @@ def _convergence_section(posterior) -> str:
         f"ensemble of this length (approximate, since walkers are not independent chains)."
     )
     if not diag["converged"]:
-        text += (" Run longer (raise `max_steps` under `[sampler]`) before relying on "
-                 "these numbers; the warnings above say what fell short.")
+        text += (" Do not rely on these numbers yet; the warnings above say what fell "
+                 f"short. {diag['advice']}")
     return "## Convergence\n\n" + text + "\n"
 
 
