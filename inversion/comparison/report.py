@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 from ...forward.quantities import quantity
+from ..observations.crust import thickness_reading
 from ..results.report import CAUTION, interval_words
 from .evidence import DISAGREEMENT_SIGMAS
 from .loo import PARETO_K_WARN
@@ -111,6 +112,20 @@ def _bayes_words(comparison, first: str, second: str) -> str:
             "scale)")
 
 
+def _thickness_lines(comparison) -> list[str]:
+    """What the crust data of each scenario were fitted with (one line per reading)."""
+    seen = []
+    for r in comparison.results:
+        model = r.scenario.study.model
+        for block in r.scenario.study.observations:
+            if block.kind == "crustal_thickness":
+                line = thickness_reading(block.thickness_of, model.crust_density,
+                                         model.mantle_density)
+                if line not in seen:
+                    seen.append(line)
+    return seen
+
+
 def _scenario_section(comparison) -> str:
     rows = ["## Scenarios\n",
             "| scenario | description | free parameters | prior odds | differs from the "
@@ -120,6 +135,7 @@ def _scenario_section(comparison) -> str:
             or "none"
         rows.append(f"| {r.name} | {r.scenario.description} | {free} | "
                     f"{r.scenario.prior_odds:g} | {_override_words(r.scenario)} |")
+    rows += [""] + _thickness_lines(comparison)
     return "\n".join(rows) + "\n"
 
 

@@ -139,7 +139,8 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     errors = _median_errors(posterior)
     for row, (block, both) in enumerate(zip(blocks, joint, strict=True)):
         ax = fig.add_subplot(grid[row, :3] if both else grid[row, :])
-        _draw_fit_panel(ax, **_fit_panel(block, column, errors[row]),
+        _draw_fit_panel(ax, **_fit_panel(block, column, errors[row],
+                                         model=posterior.study.model),
                         legend_columns=2 if any(joint) else 4)
         if both:
             _draw_joint_panel(fig.add_subplot(grid[row, 3:]), block, column, errors[row])
@@ -167,10 +168,12 @@ def _bar_label(block, errors: dict[str, float]) -> str:
     return "observed ± 1σ (measurement only; no model error)"
 
 
-def _fit_panel(block, column, errors: dict[str, float]) -> dict:
+def _fit_panel(block, column, errors: dict[str, float], *, model=None) -> dict:
     """What one per-row panel shows: labels, observations and the predicted points.
 
-    The error bars include the model error; a free one at its posterior median.
+    The error bars include the model error; a free one at its posterior median. A crust
+    panel's title says what was fitted: the crust made from the melt (with the density
+    ratio of `model`, the study's ModelSettings) or the melt thickness itself.
     """
     observed = block.observed(errors)
     common = dict(names=list(block.ids), obs=observed["value"], sigma=observed["sigma"])
@@ -181,7 +184,8 @@ def _fit_panel(block, column, errors: dict[str, float]) -> dict:
             points=values[..., None], weights=np.ones(values.shape + (1,)),
             ylabel=quantity(key).axis_label(), bar_label=_bar_label(block, errors),
             model_label=f"model {quantity(key).name}",
-            title=f"{block.name}: thickness against the model {quantity(key).name}")
+            title=f"{block.name}: thickness against the model {quantity(key).name}"
+            + _reading_note(block.thickness_of, model))
     pressure, _, weight = block.equilibration_points(column)
     how = {"top": "at the top of melting", "pooled": "at the mean melting pressure",
            "path": "anywhere on the melting path, weighted by melt production"}
@@ -193,6 +197,16 @@ def _fit_panel(block, column, errors: dict[str, float]) -> dict:
         ylabel=quantity("pressure").axis_label(), bar_label=_bar_label(block, errors),
         model_label=model, invert=True,
         title=f"{block.name}: melting pressure, equilibrated {how[block.equilibration]}")
+
+
+def _reading_note(thickness_of: str, model) -> str:
+    if model is None:
+        return ""
+    if thickness_of == "melt":
+        return " (melt itself, no density conversion)"
+    ratio = model.mantle_density / model.crust_density
+    return (f" (crust = melt × ρ_mantle/ρ_crust = melt × {ratio:.3f}, "
+            f"{model.mantle_density:g}/{model.crust_density:g} kg/m³)")
 
 
 def _weighted_quantiles(points, weights, qs) -> np.ndarray:

@@ -9,6 +9,7 @@ import numpy as np
 
 from ...forward import get_parameterization
 from ...forward.quantities import quantity, unit_text
+from ..observations.crust import thickness_reading
 from .checks import FLAG_LIMIT, posterior_checks
 from ..fitting.log_posterior import UNITS
 
@@ -138,6 +139,9 @@ def _model_section(posterior) -> str:
                      f"{_g(value)} {unit_text(UNITS[name])}".rstrip() + ".")
     for block in study.observations:
         lines.append(f"- Data: {block.describe()}.")
+        if block.kind == "crustal_thickness":
+            lines.append("- " + thickness_reading(block.thickness_of, model.crust_density,
+                                                  model.mantle_density))
     return "\n".join(lines) + "\n"
 
 
