@@ -290,3 +290,26 @@ def test_the_advice_names_what_helps():
     advice = not_converged_advice(short, "map")
     assert "raise `max_steps`" in advice and "start" not in advice
     assert not_converged_advice({"converged": True}, "prior") == ""
+
+
+def test_the_share_of_melt_made_deeper_than_5_gpa():
+    from lidmelt import demo_data
+    from lidmelt.inversion.fitting.convergence import DEEP_PRESSURE, deep_melt_share
+
+    logpost = inversion.LogPosterior(inversion.Study.from_file(demo_data.study_path()))
+    assert logpost.names[:2] == ("potential_temperature", "lithosphere_thickness")
+    draws = np.zeros((3, logpost.ndim))
+    draws[:, 0], draws[:, 1] = [1400.0, 1600.0, 1650.0], 10.0
+    share = deep_melt_share(logpost, draws)
+    # The same share summed on a 30 times finer pressure grid of the column's F profile:
+    # checks the weights and the 5 GPa cut (not the melting law, tested elsewhere).
+    column = logpost.column(draws)
+    top, onset = column.top_pressure[:, None], column.onset_pressure[:, None]
+    edges = top + (onset - top) * np.linspace(0.0, 1.0, 3841)
+    _, frac = column.profile(edges)
+    frac[:, -1] = 0.0
+    made = np.maximum(frac[:, :-1] - frac[:, 1:], 0.0)
+    mids = 0.5 * (edges[:, 1:] + edges[:, :-1])
+    deep = np.sum(np.where(mids > DEEP_PRESSURE, made, 0.0), axis=1) / made.sum(axis=1)
+    np.testing.assert_allclose(share, deep, atol=0.01)  # 128 intervals vs 3840
+    assert share[0] == 0.0 and share[1] > 0.15 and share[2] > share[1]

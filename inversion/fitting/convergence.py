@@ -11,7 +11,8 @@ from ...forward.quantities import quantity
 from .log_posterior import DERIVED
 from ..observations.model_error import ERROR_DOMAIN
 
-__all__ = ["MIN_ACCEPTANCE", "PHYSICAL_LIMITS", "converged_rhat",
+__all__ = ["DEEP_PRESSURE", "DEEP_SHARE", "MIN_ACCEPTANCE", "PHYSICAL_LIMITS",
+           "converged_rhat", "deep_melt_share",
            "not_converged_advice", "diagnostics_dict", "posterior_warnings",
            "rhat_too_high", "split_rhat"]
 
@@ -206,6 +207,7 @@ def posterior_warnings(posterior) -> list[str]:
         unit = quantity(name, unit=logpost.units[name]).unit_text
         lines.extend(_bound_warnings(name, kept[:, j], prior, domain, unit))
     lines.extend(_base_warning(posterior, derived))
+    lines.extend(_deep_melt_warning(posterior))
     lines.extend(_melt_warning(posterior, derived))
     return lines
 
@@ -260,6 +262,51 @@ def _base_warning(posterior, derived: np.ndarray) -> list[str]:
             f"base ({forward.MAX_PRESSURE:g} GPa, {base:.0f} km): the mantle would cross "
             "its solidus deeper than the model reaches, so those columns are extrapolated "
             "beyond the parameterization's calibration"]
+
+
+#: Melt made deeper than this (GPa) is beyond the calibration of the melting models
+#: (docs/model.md, "Known limits"); a share above `DEEP_SHARE` of it earns a warning.
+DEEP_PRESSURE = 5.0
+#: A tenth of the melt resting on extrapolated melting behaviour is where we start to
+#: warn: a choice, not a derived limit (Tp 1550 degC, dry, no lid, makes 10 %).
+DEEP_SHARE = 0.10
+
+
+def deep_melt_share(logpost, draws: np.ndarray, *, num: int = 128) -> np.ndarray:
+    """Share of the melt made at pressures above `DEEP_PRESSURE`, per draw.
+
+    The share is the sum of `MeltColumn.path` weights (melt made in each pressure
+    interval of the path, normalised) over intervals whose midpoint lies deeper than
+    `DEEP_PRESSURE`; 0 for a column that does not melt.
+
+    Parameters
+    ----------
+    logpost : LogPosterior
+    draws : ndarray, shape (n, ndim)
+    num : int
+        Path intervals (128: at 10 GPa of path, 0.08 GPa each).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+    """
+    path = logpost.column(draws).path(num)
+    return np.sum(np.where(path.pressure > DEEP_PRESSURE, path.weight, 0.0), axis=-1)
+
+
+def _deep_melt_warning(posterior) -> list[str]:
+    share = deep_melt_share(posterior.logpost, posterior.predictive_draws())
+    median = float(np.median(share))
+    if not median > DEEP_SHARE:
+        return []
+    low, high = np.quantile(share, [0.025, 0.975])
+    return [f"{100 * median:.0f} % of the melt (posterior median; 95 %: "
+            f"{100 * low:.0f} to {100 * high:.0f} %) is made deeper than "
+            f"{DEEP_PRESSURE:g} GPa, where the melting parameterization is extrapolated "
+            "beyond its experiments (for Katz et al. 2003 the lherzolite-out and solidus "
+            "curves there close to about 50 K apart); the estimates lean on that "
+            f"extrapolation (reported above {100 * DEEP_SHARE:.0f} %; docs/model.md, "
+            "Known limits)"]
 
 
 def _melt_warning(posterior, derived: np.ndarray) -> list[str]:
