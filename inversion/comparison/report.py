@@ -72,9 +72,11 @@ def _headline(comparison) -> str:
     text = (f"- Best predictive accuracy (PSIS-LOO): **{loo.index[0]}**; "
             + _agreement_words(comparison))
     if caveats:
+        stuck = any(not r.converged for r in comparison.results)
         text += ("; **this LOO reading is not reliable**: " + "; ".join(caveats)
                  + ". Rank by the evidence; do not rely on the LOO numbers of those "
-                 "scenarios (nor on the estimates of one that did not converge)")
+                 "scenarios" + (" nor on the estimates of one that did not converge"
+                                if stuck else ""))
     lines.append(text + ".")
     return "In short:\n\n" + "\n".join(lines) + "\n"
 
