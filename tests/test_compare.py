@@ -228,3 +228,45 @@ def test_scenarios_with_a_free_model_error(tmp_path):
         "crust.model_error", "q97.5"] <= 3.0
     assert 0.0 <= result.results[0].fit.p_value <= 1.0
     assert table["probability"].sum() == pytest.approx(1.0)
+
+
+def test_the_headline_carries_an_unreliable_loo_and_a_posterior_not_converged(simulated):
+    # PSIS-LOO rows with Pareto k > 0.7 are unreliable (Vehtari et al. 2017), and draws
+    # of a chain that did not converge are not the posterior: a ranking resting on them
+    # must say so where it is stated, not only under Warnings.
+    import copy
+    import dataclasses
+
+    from lidmelt.inversion.comparison import Comparison
+    from lidmelt.inversion.comparison.report import render
+
+    result, _ = simulated
+    thinned, unthinned = result.results
+    assert thinned.name == "thinned"
+    # 'unthinned' cannot fit the data, and its LOO has rows with k > 0.7 already
+    assert unthinned.loo.unreliable_rows.size
+    headline = render(result).split("## Scenarios")[0]
+    assert "**this LOO reading is not reliable**" in headline
+    assert "PSIS-LOO of unthinned is unreliable" in headline
+    fine = dataclasses.replace(unthinned, loo=dataclasses.replace(
+        unthinned.loo, pareto_k=np.full(unthinned.loo.pareto_k.size, 0.3)))
+    thinned = dataclasses.replace(thinned, loo=dataclasses.replace(
+        thinned.loo, pareto_k=np.full(thinned.loo.pareto_k.size, 0.3)))
+    control = render(Comparison(result.scenarios, [thinned, fine], seed=result.seed))
+    assert "the evidence and LOO agree" in control and "not reliable" not in control
+    stuck = copy.copy(thinned.posterior)
+    stuck.converged = False
+    k = np.full(thinned.loo.pareto_k.size, 0.3)
+    k[:6] = 1.79
+    loo = dataclasses.replace(thinned.loo, pareto_k=k, pareto_k_max=1.79, p_loo=8.2)
+    bad = Comparison(result.scenarios, [dataclasses.replace(thinned, posterior=stuck,
+                                                            loo=loo), fine],
+                     seed=result.seed)
+    text = render(bad)
+    headline = text.split("## Scenarios")[0]
+    assert "the evidence and LOO agree" not in text
+    assert "**this LOO reading is not reliable**" in headline
+    assert "the posterior of thinned did NOT converge" in headline
+    assert f"Pareto k up to 1.79 on 6 of {k.size} rows; p_loo 8.2 for 2 free" in headline
+    loo_section = text.split("## Leave-one-out")[1].split("##")[0]
+    assert "**This ranking is not reliable**" in loo_section

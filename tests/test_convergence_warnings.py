@@ -180,3 +180,136 @@ def test_a_good_fit_has_no_warnings(reference):
     diagnostics = _strict_json(reference[1] / "diagnostics.json")
     assert diagnostics["converged"] is True and diagnostics["warnings"] == []
     assert "## Warnings" not in (reference[1] / "report.md").read_text()
+
+
+# ---- burn-in: walkers out of the bulk (stragglers) ---------------------------------------
+
+def _with_stragglers(ndim: int, seed: int, *, strays=(3, 11), until: int = 68):
+    """AR(1) walkers of a standard normal posterior in `ndim` dimensions (tau about 12),
+    with walkers `strays` far from the mode until step `until`: their log-posterior falls
+    from 40 to 15 below the maximum over steps 0-68, as in a MAP-started run whose ball
+    straddled a ridge. Returns (chain, log_prob); log p = -|x|^2 / 2."""
+    chain = np.concatenate([_ar1(240, 32, 0.85, seed + j) for j in range(ndim)], axis=2)
+    deficit = np.linspace(40.0, 15.0, until + 1)  # nats below the maximum, steps 0..until
+    for w in strays:
+        # put the excess along the first axis: x0 = sqrt(2 * deficit) (with its noise)
+        chain[: until + 1, w, 0] = np.sqrt(2.0 * deficit) + 0.3 * chain[: until + 1, w, 0]
+    return chain, -0.5 * np.sum(chain**2, axis=2)
+
+
+@pytest.mark.parametrize("ndim", [1, 3])
+def test_burn_in_drops_walkers_out_of_the_bulk(ndim):
+    chain, log_prob = _with_stragglers(ndim, seed=10)
+    old = assess_chain(chain)  # the 2 tau rule alone (the rule before) keeps the strays
+    assert old["discard"] < 68
+    new = assess_chain(chain, log_prob=log_prob)
+    assert new["discard"] >= 69  # every step with a walker far out is dropped
+    kept = log_prob[new["discard"]:]
+    # chi^2_d / 2 below the maximum for a Gaussian: nothing kept beyond X of the median
+    assert np.median(log_prob[120:]) - kept.min() < new["straggler_threshold"]
+    assert new["stranded_walkers"] == []
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_the_straggler_rule_leaves_converged_chains_alone(seed):
+    chain = _ar1(400, 32, 0.85, seed=100 + seed)
+    chain = np.concatenate([chain, _ar1(400, 32, 0.85, seed=200 + seed)], axis=2)
+    log_prob = -0.5 * np.sum(chain**2, axis=2)
+    with_rule = assess_chain(chain, log_prob=log_prob)
+    assert with_rule["discard"] == assess_chain(chain)["discard"]  # no false alarm
+
+
+def test_a_walker_stranded_in_a_minor_mode_is_never_converged():
+    chain = _ar1(2000, 16, 0.5, seed=3)
+    chain[:, 5, 0] = 6.0 + 0.1 * chain[:, 5, 0]  # a minor mode 18 nats down, all along
+    log_prob = -0.5 * chain[..., 0] ** 2
+    a = assess_chain(chain, tau_multiple=50, ess_target=1000, log_prob=log_prob,
+                     accepted=np.full(16, 600.0))
+    assert not a["converged"]
+    assert a["stranded_walkers"] == [5]
+    assert any("out of the bulk" in s for s in a["shortfalls"])
+
+
+def test_loo_after_the_burn_in_rule_has_no_straggler_artefact():
+    # The straggler draws wreck the importance weights of PSIS-LOO (Vehtari et al. 2017:
+    # k > 0.7 unreliable); after the rule every row is reliable again.
+    from types import SimpleNamespace
+
+    from lidmelt.inversion.comparison.loo import loo_from_draws, posterior_draws
+    from lidmelt.inversion.study.priors import Uniform
+    from toys import GaussianToy
+
+    y = np.array([0.8, 1.4, 0.3, 1.1, 0.9, 1.6, -0.2])
+    toy = GaussianToy(y, 0.5, Uniform(-10.0, 10.0))
+    sd = 0.5 / math.sqrt(y.size)  # posterior of mu under a flat prior
+    unit, log_prob = _with_stragglers(1, seed=10)
+    chain = y.mean() + sd * unit
+
+    def k_max(discard, tau):
+        draws = posterior_draws(SimpleNamespace(chain=chain, discard=discard, tau=tau))
+        return loo_from_draws(toy, draws).pareto_k_max
+
+    old, new = assess_chain(chain), assess_chain(chain, log_prob=log_prob)
+    assert k_max(old["discard"], old["tau"]) > 0.7
+    assert k_max(new["discard"], new["tau"]) < 0.5
+
+
+def test_a_model_or_physical_limit_is_told_apart_from_a_prior_bound_the_user_can_widen():
+    from lidmelt.inversion.fitting.convergence import _bound_warnings
+    from lidmelt.inversion.study.priors import Normal, Uniform
+
+    rng = np.random.default_rng(2)
+    piled = np.abs(rng.normal(0.0, 1.0, 4000))  # a half-normal: cut off at its mode
+    offset = _bound_warnings("solidus_offset", -100.0 + 8.0 * piled, Normal(0.0, 20.0),
+                             forward.PARAMETER_DOMAIN["solidus_offset"], "°C")
+    upwelling = _bound_warnings("active_upwelling", 1.0 + 0.3 * piled, Uniform(1.0, 5.0),
+                                forward.PARAMETER_DOMAIN["active_upwelling"], "")
+    tp = _bound_warnings("potential_temperature", 1150.0 - 10.0 * piled,
+                         Uniform(1000.0, 1150.0),
+                         forward.PARAMETER_DOMAIN["potential_temperature"], "°C")
+    assert len(offset) == len(upwelling) == len(tp) == 1
+    # the solidus offset's -100 degC is where the model ends (forward/_validation.py)
+    assert "a limit of the model" in offset[0] and "-100 °C" in offset[0]
+    assert "widening the prior cannot move it" in offset[0]
+    assert "a physical limit (active upwelling 1 is passive flow)" in upwelling[0]
+    assert "widening the prior cannot move it" in upwelling[0]
+    assert "the upper bound of its prior" in tp[0] and "widen the prior if" in tp[0]
+    assert "cannot move it" not in tp[0]
+
+
+def test_the_advice_names_what_helps():
+    from lidmelt.inversion.fitting.convergence import not_converged_advice
+
+    chain, log_prob = _with_stragglers(3, seed=10)
+    stranded = assess_chain(chain[:100], log_prob=log_prob[:100])  # strays in the 2nd half
+    assert stranded["stranded_walkers"]
+    assert 'start = "map"' in not_converged_advice(stranded, "prior")
+    assert "more than one mode" in not_converged_advice(stranded, "map")
+    short = assess_chain(_ar1(300, 16, 0.9, seed=2), tau_multiple=50, ess_target=4000)
+    assert not short["converged"] and not short["stranded_walkers"]
+    advice = not_converged_advice(short, "map")
+    assert "raise `max_steps`" in advice and "start" not in advice
+    assert not_converged_advice({"converged": True}, "prior") == ""
+
+
+def test_the_share_of_melt_made_deeper_than_5_gpa():
+    from lidmelt import demo_data
+    from lidmelt.inversion.fitting.convergence import DEEP_PRESSURE, deep_melt_share
+
+    logpost = inversion.LogPosterior(inversion.Study.from_file(demo_data.study_path()))
+    assert logpost.names[:2] == ("potential_temperature", "lithosphere_thickness")
+    draws = np.zeros((3, logpost.ndim))
+    draws[:, 0], draws[:, 1] = [1400.0, 1600.0, 1650.0], 10.0
+    share = deep_melt_share(logpost, draws)
+    # The same share summed on a 30 times finer pressure grid of the column's F profile:
+    # checks the weights and the 5 GPa cut (not the melting law, tested elsewhere).
+    column = logpost.column(draws)
+    top, onset = column.top_pressure[:, None], column.onset_pressure[:, None]
+    edges = top + (onset - top) * np.linspace(0.0, 1.0, 3841)
+    _, frac = column.profile(edges)
+    frac[:, -1] = 0.0
+    made = np.maximum(frac[:, :-1] - frac[:, 1:], 0.0)
+    mids = 0.5 * (edges[:, 1:] + edges[:, :-1])
+    deep = np.sum(np.where(mids > DEEP_PRESSURE, made, 0.0), axis=1) / made.sum(axis=1)
+    np.testing.assert_allclose(share, deep, atol=0.01)  # 128 intervals vs 3840
+    assert share[0] == 0.0 and share[1] > 0.15 and share[2] > share[1]

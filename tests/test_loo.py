@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from pathlib import Path
 from types import SimpleNamespace
 
 import numpy as np
@@ -105,3 +106,49 @@ def test_pointwise_terms_sum_to_the_sampler_likelihood_on_the_demo():
     np.testing.assert_allclose(rows.sum(axis=1), logpost.log_likelihood(theta), rtol=1e-12)
     prior = logpost.log_prior(theta)
     np.testing.assert_allclose(rows.sum(axis=1) + prior, logpost(theta)[:, 0], rtol=1e-12)
+
+
+def _pressure_only_scenarios(tmp_path):
+    """The test scenarios with pressures only (no temperatures), equilibrated at the top
+    of melting: under the fixed lid of 'unthinned' every basalt row's likelihood is the
+    same at every draw that melts."""
+    import shutil
+
+    from lidmelt.inversion import read_scenarios
+
+    data = Path(__file__).parent / "data"
+    shutil.copy(data / "crust.csv", tmp_path / "crust.csv")
+    rows = (data / "basalts.csv").read_text().splitlines()
+    (tmp_path / "basalts.csv").write_text(
+        "\n".join(",".join(r.split(",")[:3]) for r in rows) + "\n")
+    (tmp_path / "scenarios.toml").write_text((data / "scenarios.toml").read_text())
+    return read_scenarios(tmp_path / "scenarios.toml")
+
+
+def test_rows_with_a_constant_likelihood_are_exact_and_write_as_json(tmp_path):
+    import json
+
+    found = _pressure_only_scenarios(tmp_path)
+    logpost = LogPosterior(next(s for s in found.scenarios if s.name == "unthinned").study)
+    draws = np.random.default_rng(4).normal(1500.0, 10.0, size=(4, 300, 1))  # all melt
+    pointwise = logpost.pointwise_log_likelihood(draws.reshape(-1, 1))
+    basalt = np.array([block == "basalts.csv" for block, _ in logpost.rows])
+    assert np.ptp(pointwise[:, basalt], axis=0).max() == 0.0  # guards the test itself
+    # PSIS on identical weights: ArviZ returns k = inf (the crash of the JSON writer)
+    az = _arviz()
+    with pytest.warns(UserWarning):  # ArviZ's own k warning
+        raw = az.loo(az.from_dict(posterior={"t": draws[..., 0]}, log_likelihood={
+            "rows": pointwise.reshape(4, 300, -1)}), pointwise=True)
+    assert not np.all(np.isfinite(np.asarray(raw.pareto_k)[basalt]))
+    loo = loo_from_draws(logpost, draws)
+    # p(y_i | y_-i) = p(y_i | theta) for every theta: the term is log L_i exactly
+    np.testing.assert_allclose(loo.pointwise[basalt], pointwise[0, basalt], rtol=1e-12)
+    assert np.all(np.isnan(loo.pareto_k[basalt]))
+    assert np.all(np.isfinite(loo.pareto_k[~basalt]))
+    np.testing.assert_allclose(loo.pointwise[~basalt], np.asarray(raw.loo_i)[~basalt])
+    assert loo.pareto_k_max == np.max(loo.pareto_k[~basalt])
+    assert not np.any(basalt[loo.unreliable_rows])  # a NaN k is not unreliable
+    text = json.dumps(loo.to_dict(), allow_nan=False)  # the documented rule: null
+    again = type(loo).from_dict(json.loads(text))
+    np.testing.assert_array_equal(np.isnan(again.pareto_k), basalt)
+    assert again.elpd_loo == pytest.approx(loo.elpd_loo)

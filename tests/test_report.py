@@ -49,3 +49,26 @@ def test_every_observation_block_gets_a_goodness_of_fit_line(text):
     assert "posterior predictive p-value" in section and "−2 log L" in section
     for name in ("crust.csv", "basalts.csv"):
         assert re.search(rf"- {re.escape(name)} \(\d+ rows\): p = [\d.<]", section)
+
+
+def test_the_report_says_crust_or_melt_and_the_density_ratio(text):
+    # mass balance: crust = melt x rho_mantle / rho_crust = 3300 / 2900 (demo densities)
+    assert "crust = melt × ρ_mantle/ρ_crust = melt × 1.138 (3300/2900 kg/m³" in text
+    assert 'thickness_of = "melt"' in text and "13 to 28 °C for 7 to 35 km" in text
+
+
+def test_both_readings_are_worded_and_shift_tp_as_stated():
+    from lidmelt import forward
+    from lidmelt.inversion.observations.crust import READING_SHIFT, thickness_reading
+    from scipy import optimize
+
+    melt = thickness_reading("melt", 2900.0, 3300.0)
+    assert "melt thickness itself" in melt and "cooler mantle" in melt
+    # READING_SHIFT against a fresh root search (scipy brentq) on the forward model:
+    # Tp giving 7 and 35 km of crust read as crust and read as melt (dry, column, no lid)
+    for thickness, shift in zip((7.0, 35.0), READING_SHIFT, strict=True):
+        tp = {key: optimize.brentq(lambda t, key=key: float(getattr(forward.melt_column(
+            t, 0.0), key)) - thickness, 1250.0, 1750.0, xtol=0.01)
+            for key in ("crustal_thickness", "melt_thickness")}
+        assert tp["melt_thickness"] - tp["crustal_thickness"] == pytest.approx(shift,
+                                                                              abs=0.5)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import signal
+import warnings
 
 import emcee
 import h5py
@@ -250,3 +251,57 @@ def test_converged_rhat_baseline_matches_iid_chains_of_that_length():
         x[t] = rho * x[t - 1] + noise[t]
     # 0.005: the R-hat of 800 half-chains scatters by about 0.002 around its expectation.
     np.testing.assert_allclose(split_rhat(x), converged_rhat(300, np.array([tau])), atol=0.005)
+
+
+class MinorMode:
+    """A 4-parameter posterior with a minor mode: a narrow main mode at 0 and, 20 nats
+    lower, a second one at 0.6 on every axis, under uniform priors on [-1, 1]^4. Walkers
+    drawn from the prior fall into both basins; the ensemble moves (difference and
+    stretch) cannot carry one across, as in the stranded 4-parameter study."""
+
+    def __init__(self):
+        from lidmelt.inversion.study.priors import Uniform
+
+        self.priors = [Uniform(-1.0, 1.0) for _ in range(4)]
+        self.names = ("a", "b", "c", "d")
+
+    def __call__(self, theta):
+        theta = np.atleast_2d(theta)
+        main = -0.5 * np.sum((theta / 0.05) ** 2, axis=1)
+        minor = -20.0 - 0.5 * np.sum(((theta - 0.6) / 0.05) ** 2, axis=1)
+        inside = np.all(np.abs(theta) <= 1.0, axis=1)
+        return np.where(inside, np.logaddexp(main, minor), -np.inf)
+
+
+def test_prior_start_strands_walkers_in_a_minor_mode_and_the_map_start_does_not():
+    from lidmelt.inversion.fitting import start as _start
+
+    model = MinorMode()
+    options = dict(seed=3, ess_target=800, tau_multiple=30, max_steps=1500,
+                   check_interval=250, quiet=True)
+    rng = np.random.default_rng(11)
+    initial = _start.prior_start(model, 32, rng)
+    minor = np.sum((initial - 0.6) ** 2, axis=1) < np.sum(initial**2, axis=1)
+    assert minor.sum() >= 3  # guards the test: several walkers start in the minor basin
+    with pytest.warns(NotConvergedWarning):
+        stranded = run_chain(model, initial, **options)
+    a = stranded.assessment
+    assert not a["converged"] and len(a["stranded_walkers"]) >= 1
+    assert any("out of the bulk" in s for s in a["shortfalls"])
+    initial, best = _start.map_start(model, 32, np.random.default_rng(11))
+    np.testing.assert_allclose(best, 0.0, atol=1e-3)  # the main mode, not the minor one
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", NotConvergedWarning)
+        fine = run_chain(model, initial, **options)
+    assert fine.assessment["converged"]
+    kept = fine.chain[fine.assessment["discard"]:].reshape(-1, 4)
+    np.testing.assert_allclose(kept.std(axis=0), 0.05, rtol=0.15)  # the main mode's sd
+
+
+def test_map_search_starts_from_separate_basins():
+    from lidmelt.inversion.fitting.start import starting_draws
+
+    candidates = np.array([[0.0, 0.0], [0.1, 0.0], [2.0, 0.0], [0.0, 0.2], [3.5, 1.0]])
+    values = np.array([5.0, 4.0, 3.0, 2.0, 1.0])
+    chosen = starting_draws(candidates, values, np.array([1.0, 1.0]), 3)
+    np.testing.assert_array_equal(chosen, candidates[[0, 2, 4]])

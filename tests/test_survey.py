@@ -105,6 +105,7 @@ def test_a_site_with_bad_data_fails_alone(tmp_path, capsys):
     assert summary[summary["site"] == "B"]["median"].isna().all()
     report = (tmp_path / "out" / "report.md").read_text(encoding="utf-8")
     assert "**B** (line 3)" in report and "no basis on their own" in report
+    assert "fitted with the igneous crust made from the melt" in report
     assert "site 'B'" in capsys.readouterr().err
 
 

@@ -8,8 +8,13 @@ parameters) is the sum of log p(y_i | y) - elpd_i. A Pareto shape k above 0.7 fo
 means the estimate for that row is unreliable (Vehtari et al. 2017).
 Unlike the evidence, LOO hardly depends on the prior width once the data dominate.
 
-The draws are the emcee chain after burn-in, each walker treated as a chain and thinned
-by the longest autocorrelation time, so that the draws are roughly independent.
+The draws are the emcee chain after burn-in (the one burn-in of `Posterior.discard`, so
+LOO sees the draws the summaries and figures see), each walker treated as a chain and
+thinned by the longest autocorrelation time, so that the draws are roughly independent.
+
+A row whose log-likelihood is the same at every draw (`constant_rows`; e.g. a pressure
+equilibrated at the top of melting under a fixed lid) has an exact LOO term, log L_i,
+and no Pareto k (NaN). Numbers that are not finite are written to JSON as null.
 """
 
 from __future__ import annotations
@@ -22,11 +27,14 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-__all__ = ["MAX_DRAWS", "PARETO_K_WARN", "LooEstimate", "elpd_differences", "loo_fixed",
-           "loo_from_draws", "posterior_draws"]
+__all__ = ["CONSTANT_SPREAD", "MAX_DRAWS", "PARETO_K_WARN", "LooEstimate", "constant_rows", "elpd_differences",
+           "loo_fixed", "loo_from_draws", "posterior_draws"]
 
 #: Rows with a Pareto shape above this have an unreliable LOO term.
 PARETO_K_WARN = 0.7
+#: A row whose log-likelihood spreads over at most this many nats across the draws is
+#: constant (`constant_rows`): its LOO term is exact.
+CONSTANT_SPREAD = 1e-6
 #: At most this many posterior draws enter LOO (more adds little to its precision).
 MAX_DRAWS = 4000
 
@@ -41,12 +49,14 @@ class LooEstimate:
         Expected log pointwise predictive density, its standard error and the effective
         number of parameters.
     pareto_k_max : float
-        Largest Pareto shape over the rows (NaN with no free parameter: the leave-one-out
-        predictive is then the likelihood itself, exactly).
+        Largest Pareto shape over the rows that have one (NaN when no row has: with no
+        free parameter, or when every row's log-likelihood is the same at every draw,
+        the leave-one-out predictive is the likelihood itself, exactly).
     pointwise : numpy.ndarray
         elpd_i of every observation row, shape ``(rows,)``.
     pareto_k : numpy.ndarray
-        Pareto shape of every row, shape ``(rows,)`` (NaN with no free parameter).
+        Pareto shape of every row, shape ``(rows,)``; NaN for an exact row (no free
+        parameter, or a constant log-likelihood: `constant_rows`).
     n_draws : int
         Posterior draws used.
     seconds : float
@@ -68,9 +78,12 @@ class LooEstimate:
         return np.flatnonzero(np.asarray(self.pareto_k) > PARETO_K_WARN)
 
     def to_dict(self) -> dict:
-        return {"elpd_loo": self.elpd_loo, "se": self.se, "p_loo": self.p_loo,
-                "pareto_k_max": self.pareto_k_max, "pointwise": list(map(float,
-                self.pointwise)), "pareto_k": list(map(float, self.pareto_k)),
+        """JSON-ready numbers; a number that is not finite (NaN: exact or not
+        estimated; inf) is written as None (JSON null), as JSON has neither."""
+        return {"elpd_loo": _finite(self.elpd_loo), "se": _finite(self.se),
+                "p_loo": _finite(self.p_loo), "pareto_k_max": _finite(self.pareto_k_max),
+                "pointwise": [_finite(v) for v in self.pointwise],
+                "pareto_k": [_finite(k) for k in self.pareto_k],
                 "n_draws": self.n_draws, "seconds": self.seconds}
 
     @classmethod
@@ -80,9 +93,15 @@ class LooEstimate:
             return math.nan if value is None else float(value)
 
         return cls(number(data["elpd_loo"]), number(data["se"]), number(data["p_loo"]),
-                   number(data["pareto_k_max"]), np.asarray(data["pointwise"], float),
+                   number(data["pareto_k_max"]),
+                   np.array([number(v) for v in data["pointwise"]]),
                    np.array([number(k) for k in data["pareto_k"]]), int(data["n_draws"]),
                    number(data.get("seconds", 0.0)))
+
+
+def _finite(value) -> float | None:
+    value = float(value)
+    return value if math.isfinite(value) else None
 
 
 def posterior_draws(posterior, max_draws: int = MAX_DRAWS) -> np.ndarray:
@@ -110,19 +129,51 @@ def loo_from_draws(logpost, draws: np.ndarray) -> LooEstimate:
         Shape ``(chains, draws, ndim)``.
     """
     started = time.perf_counter()
-    az = _arviz()
     chains, n, ndim = draws.shape
     pointwise = logpost.pointwise_log_likelihood(draws.reshape(-1, ndim))
-    pointwise = pointwise.reshape(chains, n, -1)
-    posterior = {f"theta_{j}": draws[..., j] for j in range(ndim)}
-    data = az.from_dict(posterior=posterior, log_likelihood={"rows": pointwise})
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", UserWarning)  # k > 0.7 is reported by lidmelt
-        result = az.loo(data, pointwise=True)
-    k = np.asarray(result.pareto_k, float)
-    return LooEstimate(float(result.elpd_loo), float(result.se), float(result.p_loo),
-                       float(np.max(k)), np.asarray(result.loo_i, float), k,
-                       chains * n, time.perf_counter() - started)
+    pointwise = np.asarray(pointwise, float).reshape(chains, n, -1)
+    exact = constant_rows(pointwise.reshape(chains * n, -1))
+    loo_i = pointwise.mean(axis=(0, 1))  # a constant row: elpd_i = log L_i exactly
+    k = np.full(loo_i.size, np.nan)  # and no importance weights, so no Pareto k
+    p_loo = 0.0
+    if not exact.all():
+        az = _arviz()
+        posterior = {f"theta_{j}": draws[..., j] for j in range(ndim)}
+        with warnings.catch_warnings():
+            # k > 0.7 is reported by lidmelt; "more chains than draws" is how walkers are
+            warnings.simplefilter("ignore", UserWarning)
+            data = az.from_dict(posterior=posterior,
+                                log_likelihood={"rows": pointwise[..., ~exact]})
+            result = az.loo(data, pointwise=True)
+        loo_i[~exact] = np.asarray(result.loo_i, float)
+        k[~exact] = np.asarray(result.pareto_k, float)
+        p_loo = float(result.p_loo)  # constant rows add lppd_i - elpd_i = 0
+    se = float(np.sqrt(loo_i.size * np.var(loo_i)))  # as arviz.loo
+    k_max = float(np.max(k[~exact])) if not exact.all() else math.nan
+    return LooEstimate(float(loo_i.sum()), se, p_loo, k_max, loo_i, k, chains * n,
+                       time.perf_counter() - started)
+
+
+def constant_rows(pointwise: np.ndarray) -> np.ndarray:
+    """Rows whose log-likelihood is the same at every draw, shape ``(rows,)`` of bool.
+
+    Such a row (a pressure that equilibrates at the top of melting under a fixed lid,
+    say) has p(y_i | y_-i) = p(y_i | theta) for every theta, so its LOO term is exactly
+    log L_i and has no importance weights to smooth: PSIS would fit a Pareto tail to
+    identical weights and return k = inf. "The same" is a spread of at most
+    `CONSTANT_SPREAD` nats: the LOO term, which lies between the row's smallest and
+    largest log-likelihood, is then its mean to within that, far below any difference
+    that matters in elpd.
+
+    Parameters
+    ----------
+    pointwise : numpy.ndarray
+        Shape ``(draws, rows)``.
+    """
+    pointwise = np.asarray(pointwise, float)
+    finite = np.all(np.isfinite(pointwise), axis=0)
+    spread = np.ptp(np.where(np.isfinite(pointwise), pointwise, 0.0), axis=0)
+    return finite & (spread <= CONSTANT_SPREAD)
 
 
 def loo_fixed(logpost) -> LooEstimate:

@@ -175,7 +175,8 @@ def load_scenario(folder: Path, scenario) -> tuple[dict, object]:
         sampler = scenario.study.sampler
         assessment = assess_chain(chain.chain, tau_multiple=sampler.tau_multiple,
                                   ess_target=sampler.ess_target, accepted=chain.accepted,
-                                  names=scenario.study.sampled_parameters)
+                                  names=scenario.study.sampled_parameters,
+                                  log_prob=chain.log_prob)
         posterior = Posterior(scenario.study,
                               dataclasses.replace(chain, assessment=assessment),
                               seed=int(run["seed"]),
@@ -338,14 +339,15 @@ def _json_bytes(data: dict) -> bytes:
 
 
 def _plain(value):
-    """JSON-ready copy: numpy values as Python ones, NaN as null."""
+    """JSON-ready copy: numpy values as Python ones, every non-finite number (NaN, inf,
+    -inf) as null (JSON has none of them; null reads back as NaN)."""
     if isinstance(value, dict):
         return {str(k): _plain(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
         return [_plain(v) for v in value]
     if hasattr(value, "tolist"):
         return _plain(value.tolist())
-    if isinstance(value, float) and math.isnan(value):
+    if isinstance(value, float) and not math.isfinite(value):
         return None
     return value
 

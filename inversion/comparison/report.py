@@ -5,13 +5,14 @@ from __future__ import annotations
 import math
 
 from ...forward.quantities import quantity
+from ..observations.crust import thickness_reading
 from ..results.report import CAUTION, interval_words
 from .evidence import DISAGREEMENT_SIGMAS
 from .loo import PARETO_K_WARN
 from .nested import NETWORKS
 from .ranking import evidence_words
 
-__all__ = ["COMPARISON_CAUTION", "LOO_SIGMAS", "render"]
+__all__ = ["COMPARISON_CAUTION", "LOO_SIGMAS", "loo_caveats", "render"]
 
 #: A LOO difference within this many standard errors does not separate two scenarios.
 LOO_SIGMAS = 2.0
@@ -62,10 +63,45 @@ def _headline(comparison) -> str:
              f"posterior probability {_probability_words(comparison, best.name)}."]
     for name in order[1:]:
         lines.append(f"- Against **{name}**: {_bayes_words(comparison, best.name, name)}.")
+    for r in comparison.results:
+        if r.evidence.disagrees:
+            lines.append(f"- The evidence of **{r.name}** is uncertain: nested sampling and "
+                         "quadrature disagree (see Warnings).")
     loo = comparison.loo_table()
-    lines.append(f"- Best predictive accuracy (PSIS-LOO): **{loo.index[0]}**; "
-                 + _agreement_words(comparison) + ".")
+    caveats = loo_caveats(comparison)
+    text = (f"- Best predictive accuracy (PSIS-LOO): **{loo.index[0]}**; "
+            + _agreement_words(comparison))
+    if caveats:
+        stuck = any(not r.converged for r in comparison.results)
+        text += ("; **this LOO reading is not reliable**: " + "; ".join(caveats)
+                 + ". Rank by the evidence; do not rely on the LOO numbers of those "
+                 "scenarios" + (" nor on the estimates of one that did not converge"
+                                if stuck else ""))
+    lines.append(text + ".")
     return "In short:\n\n" + "\n".join(lines) + "\n"
+
+
+def loo_caveats(comparison) -> list[str]:
+    """Why the LOO ranking (and the estimates) of a scenario cannot be trusted, if so.
+
+    A posterior that did not converge (its draws are not the posterior), and PSIS-LOO
+    with rows of Pareto k above `PARETO_K_WARN` (Vehtari et al. 2017: the importance
+    weights of those rows have too heavy a tail). p_loo is quoted beside k: well above
+    the number of free parameters it is a further sign of trouble (Vehtari et al. 2017,
+    sec. 2.3).
+    """
+    out = []
+    for r in comparison.results:
+        if not r.converged:
+            out.append(f"the posterior of {r.name} did NOT converge")
+        bad = r.loo.unreliable_rows
+        if bad.size:
+            out.append(
+                f"PSIS-LOO of {r.name} is unreliable (Pareto k up to "
+                f"{r.loo.pareto_k_max:.2f} on {bad.size} of {r.loo.pointwise.size} rows; "
+                f"p_loo {r.loo.p_loo:.1f} for {r.scenario.n_free} free parameter"
+                f"{'s' if r.scenario.n_free != 1 else ''})")
+    return out
 
 
 def _bayes_words(comparison, first: str, second: str) -> str:
@@ -78,6 +114,20 @@ def _bayes_words(comparison, first: str, second: str) -> str:
             "scale)")
 
 
+def _thickness_lines(comparison) -> list[str]:
+    """What the crust data of each scenario were fitted with (one line per reading)."""
+    seen = []
+    for r in comparison.results:
+        model = r.scenario.study.model
+        for block in r.scenario.study.observations:
+            if block.kind == "crustal_thickness":
+                line = thickness_reading(block.thickness_of, model.crust_density,
+                                         model.mantle_density)
+                if line not in seen:
+                    seen.append(line)
+    return seen
+
+
 def _scenario_section(comparison) -> str:
     rows = ["## Scenarios\n",
             "| scenario | description | free parameters | prior odds | differs from the "
@@ -87,6 +137,7 @@ def _scenario_section(comparison) -> str:
             or "none"
         rows.append(f"| {r.name} | {r.scenario.description} | {free} | "
                     f"{r.scenario.prior_odds:g} | {_override_words(r.scenario)} |")
+    rows += [""] + _thickness_lines(comparison)
     return "\n".join(rows) + "\n"
 
 
@@ -150,6 +201,9 @@ def _loo_section(comparison) -> str:
             f"−{diff['elpd_diff']:.1f} ± {diff['dse']:.1f}"
         rows.append(f"| {r.name} | {_num(r.loo.elpd_loo, 1)} ± {r.loo.se:.1f} | "
                     f"{r.loo.p_loo:.1f} | {k} | {diff_text} |")
+    caveats = loo_caveats(comparison)
+    if caveats:
+        rows.append("\n**This ranking is not reliable**: " + "; ".join(caveats) + ".")
     return "\n".join(rows) + "\n"
 
 
@@ -169,6 +223,8 @@ def _agreement(comparison) -> tuple[str, str, str]:
 
 def _agreement_words(comparison) -> str:
     case, best_z, best_loo = _agreement(comparison)
+    if case == "agree" and loo_caveats(comparison):
+        return "the evidence and LOO point to the same scenario"
     if case == "agree":
         return "the evidence and LOO agree"
     if case == "unresolved":
@@ -189,6 +245,7 @@ _PRIOR_WIDTH = (
 
 def _agreement_section(comparison) -> str:
     case, best_z, best_loo = _agreement(comparison)
+    caveats = loo_caveats(comparison)
     if case == "agree":
         text = "The evidence and the leave-one-out comparison favour the same scenario."
     elif case == "unresolved":
@@ -203,6 +260,11 @@ def _agreement_section(comparison) -> str:
                 f"{_PRIOR_WIDTH} A prior that is wide where the data are weak can thus "
                 "cost a scenario evidence while it predicts best; check how the priors of "
                 "the two scenarios differ before choosing.")
+    if caveats:
+        text += (" **The leave-one-out reading is not reliable here**: "
+                 + "; ".join(caveats) + ". Whether the two readings agree cannot be "
+                 "judged until these are fixed (each scenario's report.md says, under "
+                 "Convergence, what to change; see also the Warnings).")
     return "## Do the two readings agree?\n\n" + text + "\n"
 
 

@@ -11,7 +11,9 @@ from ...forward.quantities import quantity
 from .log_posterior import DERIVED
 from ..observations.model_error import ERROR_DOMAIN
 
-__all__ = ["MIN_ACCEPTANCE", "converged_rhat", "diagnostics_dict", "posterior_warnings",
+__all__ = ["DEEP_PRESSURE", "DEEP_SHARE", "MIN_ACCEPTANCE", "PHYSICAL_LIMITS",
+           "converged_rhat", "deep_melt_share",
+           "not_converged_advice", "diagnostics_dict", "posterior_warnings",
            "rhat_too_high", "split_rhat"]
 
 
@@ -75,6 +77,42 @@ def rhat_too_high(rhat, expected) -> np.ndarray:
     return np.isfinite(rhat) & (rhat - 1.0 > 2.0 * (expected - 1.0) + 0.02)
 
 
+def not_converged_advice(assessment: dict, start: str) -> str:
+    """What helps a run that did not converge, from what fell short ("" if it converged).
+
+    Walkers that disagree (split R-hat) or are stranded out of the bulk are not fixed by
+    a longer run: the ensemble moves rarely carry a walker between modes. A start around
+    the optimum fixes a start from the prior (a 4-parameter study drawn from the prior
+    ran 20 000 steps with split R-hat 4.3; around the optimum it converged in under a
+    minute); after such a start, several modes are likely. Only a short chain (too few
+    autocorrelation times or too small an ESS) needs more steps.
+    """
+    if assessment.get("converged", False):
+        return ""
+    text = " ".join(assessment.get("shortfalls", []))
+    advice = []
+    if assessment.get("stranded_walkers") or "R-hat" in text:
+        if start == "prior":
+            advice.append('the walkers disagree or some are stranded away from the main '
+                          'mode, which running longer rarely mends: start them around the '
+                          'optimum (`start = "map"` under `[sampler]`, the default)')
+        else:
+            advice.append("the walkers disagree or some are stranded although they "
+                          "started around the optimum: the posterior may have more than "
+                          "one mode; look at corner.png, fit again with other seeds, and "
+                          "use more walkers (`walkers`) so the ensemble can cross "
+                          "between modes")
+    if "autocorrelation times long" in text or "effective sample size" in text:
+        advice.append("the chain is too short for its autocorrelation time: raise "
+                      "`max_steps` under `[sampler]`")
+    if "acceptance" in text:
+        advice.append("the walkers rarely move: check the units of the data and their "
+                      "uncertainties, and priors far narrower than the posterior")
+    if "does not vary" in text:
+        advice.append("a parameter never moves: check that its prior has a width")
+    return "What helps: " + "; ".join(advice) + "." if advice else ""
+
+
 def diagnostics_dict(posterior) -> dict:
     """Sampler diagnostics of `posterior` as a JSON-ready dict.
 
@@ -94,11 +132,22 @@ def diagnostics_dict(posterior) -> dict:
         "converged": posterior.converged,
         "warnings": posterior.warnings,
         "stopping_rule": (
-            f"kept chain >= {settings.tau_multiple:g} x max tau, every effective sample "
-            f"size >= {settings.ess_target:g}, split R-hat near its converged value and "
+            f"kept chain >= {settings.tau_multiple:g} x max tau, no walker out of the "
+            f"bulk after burn-in, every effective sample size >= {settings.ess_target:g}, "
+            "split R-hat near its converged value and "
             f"mean acceptance >= {MIN_ACCEPTANCE:g}, checked every "
             f"{settings.check_interval} steps; cap {settings.max_steps} steps"
         ),
+        "burn_in_rule": (
+            "burn-in = the longer of 2 x max tau and the end of the last block (max tau "
+            "steps) in which a walker's median log-posterior lies more than "
+            f"{_round(assessment.get('straggler_threshold', math.nan), 3)} nats below the "
+            "ensemble's median over the second half of the chain (a walker out of the "
+            "bulk), at most half the chain; summaries, figures, samples.csv and PSIS-LOO "
+            "use the steps after it"
+        ),
+        "walkers_out_of_bulk_after_burn_in": [
+            int(w) for w in assessment.get("stranded_walkers", [])],
         "steps": int(posterior.chain.shape[0]),
         "walkers": int(posterior.chain.shape[1]),
         "burn_in_steps": posterior.discard,
@@ -120,6 +169,7 @@ def diagnostics_dict(posterior) -> dict:
             "sqrt(1 - 1/n + tau/n) (n = half the kept steps; split_rhat_if_converged); "
             "values well above that suggest running longer"
         ),
+        "advice": not_converged_advice(assessment, settings.start),
         "start": settings.start,
         "map_log_posterior": _round(posterior.map["log_posterior"]),
     }
@@ -157,8 +207,15 @@ def posterior_warnings(posterior) -> list[str]:
         unit = quantity(name, unit=logpost.units[name]).unit_text
         lines.extend(_bound_warnings(name, kept[:, j], prior, domain, unit))
     lines.extend(_base_warning(posterior, derived))
+    lines.extend(_deep_melt_warning(posterior))
     lines.extend(_melt_warning(posterior, derived))
     return lines
+
+
+#: Values of a parameter that are physical limits rather than choices: a prior bound
+#: there cannot sensibly be widened. Active upwelling 1 is passive flow (the upwelling
+#: rate of plate separation alone; docs/model.md, "Melting regions").
+PHYSICAL_LIMITS = {"active_upwelling": {1.0: "active upwelling 1 is passive flow"}}
 
 
 def _bound_warnings(name: str, x: np.ndarray, prior, domain, unit: str) -> list[str]:
@@ -172,14 +229,26 @@ def _bound_warnings(name: str, x: np.ndarray, prior, domain, unit: str) -> list[
                                                                   high)):
         share = float(np.mean(np.abs(x - bound) <= _EDGE_ZONE * spread))
         if share > _EDGE_SHARE:
-            what = ("the edge of the model's valid range" if bound == edge else
-                    f"the {side} bound of its prior")
-            lines.append(
-                f"the posterior of {name} piles against {what}, {bound:g} "
-                f"{unit} ({100 * share:.0f} % of the samples lie within "
-                f"{_EDGE_ZONE:g} posterior sd of it): the bound, not the data, sets the "
-                "estimate there; widen the prior or check the data")
+            what, advice = _bound_kind(name, bound, edge, side)
+            lines.append(f"the posterior of {name} piles against {what}, {bound:g} "
+                         f"{unit}".rstrip() + f" ({100 * share:.0f} % of the samples lie "
+                         f"within {_EDGE_ZONE:g} posterior sd of it): {advice}")
     return lines
+
+
+def _bound_kind(name: str, bound: float, edge: float, side: str) -> tuple[str, str]:
+    """The bound in words and what the user can do about it (two different cases)."""
+    physical = PHYSICAL_LIMITS.get(name, {}).get(bound)
+    if physical is not None or bound == edge:
+        what = (f"a physical limit ({physical})" if physical is not None else
+                "a limit of the model (the edge of its valid range)")
+        return what, ("widening the prior cannot move it; the data ask for a value at or "
+                      "beyond what the model allows, so read the estimate as 'at the "
+                      "limit' and check the data, the values held fixed and the "
+                      "parameterization")
+    return (f"the {side} bound of its prior", "the bound, not the data, sets the estimate "
+            "there; widen the prior if that range is physically possible, or check the "
+            "data")
 
 
 def _base_warning(posterior, derived: np.ndarray) -> list[str]:
@@ -193,6 +262,51 @@ def _base_warning(posterior, derived: np.ndarray) -> list[str]:
             f"base ({forward.MAX_PRESSURE:g} GPa, {base:.0f} km): the mantle would cross "
             "its solidus deeper than the model reaches, so those columns are extrapolated "
             "beyond the parameterization's calibration"]
+
+
+#: Melt made deeper than this (GPa) is beyond the calibration of the melting models
+#: (docs/model.md, "Known limits"); a share above `DEEP_SHARE` of it earns a warning.
+DEEP_PRESSURE = 5.0
+#: A tenth of the melt resting on extrapolated melting behaviour is where we start to
+#: warn: a choice, not a derived limit (Tp 1550 degC, dry, no lid, makes 10 %).
+DEEP_SHARE = 0.10
+
+
+def deep_melt_share(logpost, draws: np.ndarray, *, num: int = 128) -> np.ndarray:
+    """Share of the melt made at pressures above `DEEP_PRESSURE`, per draw.
+
+    The share is the sum of `MeltColumn.path` weights (melt made in each pressure
+    interval of the path, normalised) over intervals whose midpoint lies deeper than
+    `DEEP_PRESSURE`; 0 for a column that does not melt.
+
+    Parameters
+    ----------
+    logpost : LogPosterior
+    draws : ndarray, shape (n, ndim)
+    num : int
+        Path intervals (128: at 10 GPa of path, 0.08 GPa each).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+    """
+    path = logpost.column(draws).path(num)
+    return np.sum(np.where(path.pressure > DEEP_PRESSURE, path.weight, 0.0), axis=-1)
+
+
+def _deep_melt_warning(posterior) -> list[str]:
+    share = deep_melt_share(posterior.logpost, posterior.predictive_draws())
+    median = float(np.median(share))
+    if not median > DEEP_SHARE:
+        return []
+    low, high = np.quantile(share, [0.025, 0.975])
+    return [f"{100 * median:.0f} % of the melt (posterior median; 95 %: "
+            f"{100 * low:.0f} to {100 * high:.0f} %) is made deeper than "
+            f"{DEEP_PRESSURE:g} GPa, where the melting parameterization is extrapolated "
+            "beyond its experiments (for Katz et al. 2003 the lherzolite-out and solidus "
+            "curves there close to about 50 K apart); the estimates lean on that "
+            f"extrapolation (reported above {100 * DEEP_SHARE:.0f} %; docs/model.md, "
+            "Known limits)"]
 
 
 def _melt_warning(posterior, derived: np.ndarray) -> list[str]:

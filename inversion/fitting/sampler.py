@@ -7,10 +7,12 @@ a half-ensemble at once as an array of shape ``(n, ndim)`` and returns ``(n,)`` 
 
 Run length is set by the integrated autocorrelation time tau (Sokal 1997; emcee's
 estimator with automatic windowing, c = 5). Every ``check_interval`` steps (counted from
-the start of the chain) the chain is assessed (`assess_chain`): the first ``2 * max(tau)``
-steps are discarded as burn-in (common practice, emcee documentation), tau is
-re-estimated on the rest, and the run stops when
+the start of the chain) the chain is assessed (`assess_chain`). Burn-in is the longer of
+``2 * max(tau)`` steps (common practice, emcee documentation) and the end of the last
+block in which a walker is out of the bulk (`stragglers`), at most half the chain; tau
+is re-estimated on the rest, and the run stops when
 
+- no walker is out of the bulk in the kept chain,
 - the kept chain is at least ``tau_multiple * max(tau)`` steps long,
 - the effective sample size ``kept_steps * nwalkers / tau`` reaches ``ess_target`` for
   every parameter,
@@ -49,8 +51,9 @@ from ..errors import NotConvergedWarning
 from .progress import SamplingProgress
 
 __all__ = [
-    "ChainResult", "assess_chain", "autocorrelation_time", "chain_file_bytes",
-    "default_moves", "read_chain", "run_chain", "write_chain",
+    "STRAGGLER_FALSE_ALARM", "ChainResult", "assess_chain", "autocorrelation_time",
+    "chain_file_bytes", "default_moves", "read_chain", "run_chain", "stragglers",
+    "write_chain",
 ]
 
 _GROUP = "mcmc"
@@ -114,6 +117,7 @@ def default_moves() -> list:
 def assess_chain(
     chain: np.ndarray, *, tau_multiple: float = 50.0, ess_target: float = 2000.0,
     accepted: np.ndarray | None = None, names: Sequence[str] | None = None,
+    log_prob: np.ndarray | None = None,
 ) -> dict:
     """Estimate autocorrelation times, burn-in, effective sample size and R-hat of a chain.
 
@@ -129,6 +133,9 @@ def assess_chain(
         Accepted proposals per walker; without it acceptance is not checked.
     names : sequence of str, optional
         Parameter names used in `shortfalls`.
+    log_prob : ndarray, shape (nsteps, nwalkers), optional
+        Log-posterior of every position; it sets the burn-in by `stragglers`. Every
+        caller in lidmelt passes it; without it only the 2 tau rule applies.
 
     Returns
     -------
@@ -136,11 +143,17 @@ def assess_chain(
         ``tau`` (ndim,) in steps (NaN where it cannot be estimated), ``discard``
         (burn-in steps), ``ess`` (ndim,), ``kept_steps``, ``tau_multiple_reached`` (kept
         steps / max tau), ``split_rhat`` and ``rhat_if_converged`` (ndim,),
-        ``acceptance`` (mean fraction or NaN), ``shortfalls`` (one line per unmet part
-        of the stopping rule) and ``converged`` (no shortfall).
+        ``acceptance`` (mean fraction or NaN), ``stranded_walkers`` (walkers still out
+        of the bulk after the burn-in), ``straggler_threshold`` (nats, `stragglers`),
+        ``shortfalls`` (one line per unmet part of the stopping rule) and ``converged``
+        (no shortfall).
 
     Notes
     -----
+    Burn-in = max(ceil(2 max tau), end of the last block with a walker out of the bulk),
+    capped at half the chain (a walker still out of the bulk after that is a shortfall,
+    so a chain with stragglers is never called converged). Summaries, figures and
+    PSIS-LOO all use the steps after this one burn-in (`Posterior.discard`).
     ESS = kept_steps * nwalkers / tau (Sokal 1997; emcee documentation). Walkers of an
     ensemble are not independent chains, so this is the standard emcee estimate, not an
     exact count. A parameter whose chain does not vary has no tau (NaN) and no ESS.
@@ -150,7 +163,11 @@ def assess_chain(
     tau_all = autocorrelation_time(chain)
     finite = np.isfinite(tau_all)
     longest = math.ceil(2.0 * np.max(tau_all[finite])) if finite.any() else nsteps
-    discard = int(min(longest, nsteps // 2))
+    block = math.ceil(np.max(tau_all[finite])) if finite.any() else 1
+    strays = (stragglers(log_prob, block=block, ndim=ndim) if log_prob is not None
+              else {"last_step": -1, "walkers": [], "threshold": np.nan})
+    discard = int(min(max(longest, strays["last_step"] + 1), nsteps // 2))
+    stranded = [w for w, last in strays["walkers"] if last >= discard]
     kept = chain[discard:]
     tau = np.maximum(autocorrelation_time(kept), 1.0)  # tau < 1 would overstate the ESS
     kept_steps = nsteps - discard
@@ -162,12 +179,87 @@ def assess_chain(
     assessment = {
         "tau": tau, "discard": discard, "ess": ess, "kept_steps": kept_steps,
         "tau_multiple_reached": reached, "split_rhat": rhat, "rhat_if_converged": expected,
-        "acceptance": acceptance,
+        "acceptance": acceptance, "stranded_walkers": stranded,
+        "straggler_threshold": strays["threshold"],
     }
     assessment["shortfalls"] = _shortfalls(assessment, names, nsteps, tau_multiple,
                                            ess_target)
     assessment["converged"] = not assessment["shortfalls"]
     return assessment
+
+
+#: Chance that `stragglers` flags any block of a chain that has converged to a posterior
+#: of Gaussian shape (a bound through Markov's inequality, see `stragglers`).
+STRAGGLER_FALSE_ALARM = 0.01
+
+
+def stragglers(log_prob: np.ndarray, *, block: int, ndim: int) -> dict:
+    """Walkers whose log-posterior is out of the bulk of the ensemble, and until when.
+
+    Each walker's chain is cut into consecutive blocks of `block` steps (the longest
+    autocorrelation time, so a block holds about one independent draw). A draw lies
+    *out of the bulk* when its log-posterior is more than ``X`` below the median
+    log-posterior of all walkers over the second half of the chain; a block is out of
+    the bulk when at least half its draws are (its median is). A walker's straggling
+    ends one block after its last such block: its last straggling draws can share a
+    block with draws back in the bulk.
+
+    ``X`` follows from the shape of a converged posterior: near a Gaussian mode in d
+    dimensions, log p_max - log p(theta) of a draw is chi^2_d / 2 (e.g. Gelman et al.
+    2013, BDA3 sec. 4.1), so the ensemble median lies chi^2_d(0.5) / 2 below the
+    maximum, and
+
+        X = [F^-1_chi2_d(1 - p) - F^-1_chi2_d(0.5)] / 2,
+        p = STRAGGLER_FALSE_ALARM / (2 * blocks of all walkers).
+
+    Half a block beyond a level has at most twice the single-draw chance p (Markov's
+    inequality), so over all blocks the rule fires on a converged chain with chance
+    below STRAGGLER_FALSE_ALARM. Examples: X = 11.8 nats for d = 3 and 512 blocks (32
+    walkers x 16), 14.0 for d = 4 and 2000 blocks. A walker tens of nats down (far from
+    the mode, or stranded in a minor mode) is flagged; a walker in a minor mode within X
+    of the bulk is left to split R-hat.
+
+    Parameters
+    ----------
+    log_prob : ndarray, shape (nsteps, nwalkers)
+        Log-posterior of every position.
+    block : int
+        Block length in steps (>= 1).
+    ndim : int
+        Number of free parameters (d).
+
+    Returns
+    -------
+    dict
+        ``last_step``: the last step of the straggling of any walker (-1: none);
+        ``walkers``: (walker, last step) of each walker that straggles;
+        ``threshold``: X in nats.
+    """
+    from scipy import stats
+
+    log_prob = np.asarray(log_prob, float)
+    nsteps, nwalkers = log_prob.shape
+    block = max(int(block), 1)
+    nblocks = -(-nsteps // block)
+    chi2 = stats.chi2(max(int(ndim), 1))
+    p = STRAGGLER_FALSE_ALARM / (2.0 * nblocks * nwalkers)
+    threshold = 0.5 * float(chi2.isf(p) - chi2.median())
+    none = {"last_step": -1, "walkers": [], "threshold": threshold}
+    if nsteps < 4:
+        return none
+    finite = np.where(np.isfinite(log_prob), log_prob, -np.inf)
+    low = finite < float(np.median(finite[nsteps // 2:])) - threshold
+    padded = np.zeros((nblocks * block, nwalkers), bool)
+    padded[:nsteps] = low
+    size = np.full(nblocks, block)
+    size[-1] = nsteps - (nblocks - 1) * block  # the last block may be short
+    out = 2 * padded.reshape(nblocks, block, nwalkers).sum(axis=1) >= size[:, None]
+    if not out.any():
+        return none
+    walkers = [(int(w), int(min((np.flatnonzero(out[:, w])[-1] + 2) * block, nsteps) - 1))
+               for w in np.flatnonzero(out.any(axis=0))]
+    return {"last_step": max(last for _, last in walkers), "walkers": walkers,
+            "threshold": threshold}
 
 
 def autocorrelation_time(chain: np.ndarray) -> np.ndarray:
@@ -201,6 +293,11 @@ def _shortfalls(a: dict, names, nsteps, tau_multiple, ess_target) -> list[str]:
         out.append(f"split R-hat of {names[j]} is {a['split_rhat'][j]:.3f}, well above the "
                    f"{a['rhat_if_converged'][j]:.3f} a converged ensemble of this length "
                    "gives: the walkers disagree")
+    if a["stranded_walkers"]:
+        out.append(f"{len(a['stranded_walkers'])} of the walkers are still out of the bulk "
+                   "after half the chain (log-posterior more than "
+                   f"{a['straggler_threshold']:.1f} below the ensemble's median): they are "
+                   "stranded away from the main mode")
     if a["acceptance"] < MIN_ACCEPTANCE:
         out.append(f"the mean acceptance fraction is {a['acceptance']:.3f}, below "
                    f"{MIN_ACCEPTANCE:g}: the walkers rarely move")
@@ -314,7 +411,7 @@ class _Rule:
     def assess(self, backend) -> dict:
         return assess_chain(backend.get_chain(), tau_multiple=self.tau_multiple,
                             ess_target=self.ess_target, accepted=backend.accepted,
-                            names=self.names)
+                            names=self.names, log_prob=backend.get_log_prob())
 
     def done(self, assessment, steps: int) -> bool:
         return assessment is not None and (assessment["converged"] or steps >= self.max_steps)

@@ -33,7 +33,8 @@ from .base import (
 )
 from .tables import ColumnRule
 
-__all__ = ["MAX_THICKNESS", "THICKNESS_OF", "CrustalThickness"]
+__all__ = ["MAX_THICKNESS", "READING_SHIFT", "THICKNESS_OF", "CrustalThickness",
+           "thickness_reading"]
 
 #: km; largest observed thickness a table may hold. Igneous crust reaches about 40 km
 #: beneath Iceland and the Ontong Java plateau (common practice, value from memory).
@@ -41,6 +42,46 @@ MAX_THICKNESS = 60.0
 
 #: ``thickness_of`` choice -> the model quantity a crustal thickness is compared with.
 THICKNESS_OF = {"crust": "crustal_thickness", "melt": "melt_thickness"}
+
+#: Tp of the "melt" reading minus that of the "crust" reading (density ratio 3300/2900)
+#: for observed thicknesses of 7 and 35 km, degC (Katz et al. 2003 dry, 1-D column, no
+#: lid; computed with lidmelt, docs/model.md "Observables").
+READING_SHIFT = (13, 28)
+
+
+def thickness_reading(thickness_of: str, crust_density: float,
+                      mantle_density: float) -> str:
+    """One sentence: what the crustal thickness data were compared with, and the other
+    reading.
+
+    Igneous crust h_c = h * rho_mantle / rho_crust (mass balance, docs/model.md); much
+    of the literature compares the melt thickness h itself with seismic crust. The two
+    readings differ in Tp by about `READING_SHIFT`.
+
+    Parameters
+    ----------
+    thickness_of : {"crust", "melt"}
+    crust_density, mantle_density : float
+        kg/m^3.
+    """
+    ratio = mantle_density / crust_density
+    if thickness_of == "crust":
+        head = (f"Crustal thickness data were fitted with the igneous crust made from the "
+                f"melt, crust = melt × ρ_mantle/ρ_crust = melt × {ratio:.3f} "
+                f"({mantle_density:g}/{crust_density:g} kg/m³; "
+                f"{100 * (ratio - 1):.0f} % thicker than the melt).")
+        other = ('Comparing the melt thickness itself with the crust '
+                 '(`thickness_of = "melt"`, as much of the literature does) needs more '
+                 'melt, so a hotter mantle')
+    else:
+        head = ("Crustal thickness data were fitted with the melt thickness itself "
+                '(`thickness_of = "melt"`), not converted by density.')
+        other = (f"Fitting the igneous crust, melt × {ratio:.3f} "
+                 f"({mantle_density:g}/{crust_density:g} kg/m³; "
+                 '`thickness_of = "crust"`), needs less melt, so a cooler mantle')
+    low, high = READING_SHIFT
+    return (f"{head} {other}: Tp differs by about {low} to {high} °C for 7 to 35 km of "
+            "crust (docs/model.md, Observables).")
 
 
 class CrustalThickness(ObservationSet):

@@ -184,7 +184,8 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
                                                      strict=True):
         for k, panel in enumerate(block_panels):
             ax = fig.add_subplot(grid[first + k, :3] if pt is not None else grid[first + k, :])
-            _draw_fit_panel(ax, **_fit_panel(block, panel, column, block_errors),
+            _draw_fit_panel(ax, **_fit_panel(block, panel, column, block_errors,
+                                             model=posterior.study.model),
                             legend_columns=2 if wide else 4)
         if pt is not None:
             span = slice(first, first + len(block_panels))
@@ -219,10 +220,12 @@ def _bar_label(block, panel, errors: dict[str, float]) -> str:
     return "observed ± 1σ (measurement only; no model error)"
 
 
-def _fit_panel(block, panel, column, errors: dict[str, float]) -> dict:
+def _fit_panel(block, panel, column, errors: dict[str, float], *, model=None) -> dict:
     """What one per-row panel shows: labels, observations and the predicted points.
 
-    The error bars include the model error; a free one at its posterior median.
+    The error bars include the model error; a free one at its posterior median. A crust
+    panel's title says what was fitted: the crust made from the melt (with the density
+    ratio of `model`, the study's ModelSettings) or the melt thickness itself.
     """
     observed = block.observed(errors)
     points, weights = block.panel_draws(column, panel.key)
@@ -230,7 +233,19 @@ def _fit_panel(block, panel, column, errors: dict[str, float]) -> dict:
                 sigma=observed[panel.sigma_key], points=points, weights=weights,
                 ylabel=panel.label, bar_label=_bar_label(block, panel, errors),
                 model_label=panel.model, invert=panel.invert,
-                title=f"{block.name}: {panel.title}")
+                title=f"{block.name}: {panel.title}"
+                + _reading_note(getattr(block, "thickness_of", None), model))
+
+
+def _reading_note(thickness_of: str | None, model) -> str:
+    """What a thickness panel compares with (no note for other quantities)."""
+    if model is None or thickness_of is None:
+        return ""
+    if thickness_of == "melt":
+        return " (melt itself, no density conversion)"
+    ratio = model.mantle_density / model.crust_density
+    return (f" (crust = melt × ρ_mantle/ρ_crust = melt × {ratio:.3f}, "
+            f"{model.mantle_density:g}/{model.crust_density:g} kg/m³)")
 
 
 def _weighted_quantiles(points, weights, qs) -> np.ndarray:

@@ -9,6 +9,7 @@ import numpy as np
 
 from ...forward import get_parameterization
 from ...forward.quantities import quantity, unit_text
+from ..observations.crust import thickness_reading
 from .checks import FLAG_LIMIT, posterior_checks
 from ..fitting.log_posterior import UNITS
 
@@ -138,6 +139,9 @@ def _model_section(posterior) -> str:
                      f"{_g(value)} {unit_text(UNITS[name])}".rstrip() + ".")
     for block in study.observations:
         lines.append(f"- Data: {block.describe()}.")
+        if block.kind == "crustal_thickness":
+            lines.append("- " + thickness_reading(block.thickness_of, model.crust_density,
+                                                  model.mantle_density))
     return "\n".join(lines) + "\n"
 
 
@@ -218,8 +222,8 @@ def _convergence_section(posterior) -> str:
         f"ensemble of this length (approximate, since walkers are not independent chains)."
     )
     if not diag["converged"]:
-        text += (" Run longer (raise `max_steps` under `[sampler]`) before relying on "
-                 "these numbers; the warnings above say what fell short.")
+        text += (" Do not rely on these numbers yet; the warnings above say what fell "
+                 f"short. {diag['advice']}")
     return "## Convergence\n\n" + text + "\n"
 
 

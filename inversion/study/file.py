@@ -165,8 +165,11 @@ class SamplerSettings:
     check_interval : int
         Steps between convergence checks and chain writes. Default 250.
     start : str
-        ``"prior"`` (walkers drawn from the prior, default) or ``"map"`` (a small ball
-        around the scipy-optimised maximum a posteriori point).
+        ``"map"`` (default: a small ball around the maximum a posteriori point, found by
+        several Nelder-Mead searches from separate good prior draws;
+        `inversion.fitting.start.map_start`) or ``"prior"`` (walkers drawn from the
+        prior; they can be stranded in a minor mode, which the stopping rule then
+        reports).
     """
 
     walkers: int = 32
@@ -175,7 +178,7 @@ class SamplerSettings:
     tau_multiple: float = 50.0
     max_steps: int = 20000
     check_interval: int = 250
-    start: str = "prior"
+    start: str = "map"
 
     def __post_init__(self) -> None:
         for name, low in (("walkers", 2), ("ess_target", 1), ("max_steps", 1),

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..observations.crust import thickness_reading
 from .job import TP
 
 __all__ = ["render", "write_report"]
@@ -99,6 +100,8 @@ def render(result, plan, *, executor_name: str) -> str:
         f"{free}. Methods used: {', '.join(methods) or 'none'} (grid = quadrature "
         "on a grid in the priors' probability space for at most 3 free parameters, "
         "mcmc = emcee); each site's method is in sites_summary.csv.", "",
+        thickness_reading(plan.settings.thickness_of, plan.study.model.crust_density,
+                          plan.study.model.mantle_density), "",
         "## Area-wide answer", "", *_area_section(result, plan), "",
         "## Sites", "", *_site_table(result), "",
         "## Failed sites", "", *_failed(result), "",
