@@ -25,7 +25,8 @@ from collections.abc import Iterator
 from os import PathLike
 from pathlib import Path
 
-__all__ = ["append_bytes", "replacing", "staged_folder", "temporary_target", "write_bytes", "write_text"]
+__all__ = ["append_bytes", "replacing", "staged_folder", "temporary_target", "write_bytes",
+           "write_text"]
 
 _TEMPORARY = re.compile(r"^\.(?P<target>.+)\.[A-Za-z0-9_]{6,}\.tmp[^/]*$")
 
