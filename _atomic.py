@@ -7,6 +7,11 @@ removes the temporary file and leaves the target as it was.
 
 Temporary names are ``.<target name>.<random>.tmp<suffix>``; `temporary_target` recognises
 them, so a tidy-up can tell a lidmelt leftover from a user's file.
+
+`append_bytes` is the one other way bytes reach a file: it adds a block to the end of an
+append-only file (a checkpoint's records), cutting the file back to where the block
+began if the write fails. Readers of such a file must recognise a torn last block (a
+kill can still leave one) by its own length and checksum.
 """
 
 from __future__ import annotations
@@ -20,7 +25,8 @@ from collections.abc import Iterator
 from os import PathLike
 from pathlib import Path
 
-__all__ = ["replacing", "staged_folder", "temporary_target", "write_bytes", "write_text"]
+__all__ = ["append_bytes", "replacing", "staged_folder", "temporary_target", "write_bytes",
+           "write_text"]
 
 _TEMPORARY = re.compile(r"^\.(?P<target>.+)\.[A-Za-z0-9_]{6,}\.tmp[^/]*$")
 
@@ -75,6 +81,56 @@ def write_bytes(path: str | PathLike[str], data: bytes, *, sync: bool = False) -
 def write_text(path: str | PathLike[str], text: str) -> None:
     """Write UTF-8 `text` to `path` atomically."""
     write_bytes(path, text.encode("utf-8"))
+
+
+def append_bytes(path: str | PathLike[str], data: bytes, *, at: int) -> int:
+    """Append `data` to `path` at byte offset `at` and flush it to the disk (fsync).
+
+    Parameters
+    ----------
+    path : str or path-like
+        The append-only file; created if missing (its folder must exist).
+    data : bytes
+        One whole block (a record with its length and checksum).
+    at : int
+        Where the block goes: the end of the last complete block. Anything beyond it (a
+        torn block left by a killed run) is cut off first.
+
+    Returns
+    -------
+    int
+        The new end of the file, ``at + len(data)``.
+
+    Notes
+    -----
+    Any error, a full disk included, cuts the file back to `at`, so it again ends with a
+    complete block; the exception is re-raised.
+    """
+    target = Path(path)
+    created = not target.exists()
+    with open(target, "ab") as handle:
+        try:
+            if handle.tell() != at:  # opened in append mode: at the current end
+                handle.truncate(at)
+            _write_all(handle, data)
+            handle.flush()
+            os.fsync(handle.fileno())
+        except BaseException:
+            with contextlib.suppress(OSError):
+                handle.truncate(at)
+            raise
+    if created:
+        _fsync_folder(target.parent)  # the new name itself survives a power cut
+    return at + len(data)
+
+
+def _fsync_folder(folder: Path) -> None:
+    with contextlib.suppress(OSError):  # not every file system lets a folder be synced
+        fd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
 
 
 def _write_all(handle, data: bytes) -> None:

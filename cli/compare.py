@@ -118,22 +118,18 @@ def _print_warnings(caught) -> None:
                                  warning.lineno)
 
 
-def _pct(p: float) -> str:
-    from ..inversion.comparison.report import _pct as words
-
-    return words(p).replace(" %", "%")
-
-
 def _print_result(result, out: Path) -> None:
+    from ..forward.quantities import format_percent, format_signed
+
     table = result.table().set_index("scenario")
     n = len(result.results)
     print(f"{result.scenarios.base.name}: {n} scenario{'s' if n != 1 else ''} compared")
     print(f"  {'scenario':<16} {'probability':>12} {'ln Z':>17} {'elpd_loo':>15}")
     for name in table.index:
         row = table.loc[name]
-        print(f"  {name:<16} {_pct(row['probability']):>12} "
-              f"{row['log_evidence']:>9.2f} ± {row['log_evidence_sd']:<5.2f} "
-              f"{row['elpd_loo']:>7.1f} ± {row['elpd_loo_se']:<5.1f}")
+        print(f"  {name:<16} {format_percent(row['probability']):>12} "
+              f"{format_signed(row['log_evidence'], 2):>9} ± {row['log_evidence_sd']:<5.2f} "
+              f"{format_signed(row['elpd_loo'], 1):>7} ± {row['elpd_loo_se']:<5.1f}")
     where = out.resolve()
     print(f"Most probable: {result.ranking()[0]}. Results written to {where}/ (start with "
           f"{where / 'report.md'})")

@@ -50,14 +50,16 @@ def _add_common(parser: argparse.ArgumentParser) -> None:
 
 
 def _seed(text: str) -> int:
+    """``--seed``: digits only (no sign, point or exponent), then the one seed rule."""
+    from ..inversion.errors import InputError
+    from ..inversion.study.seeds import SEED_LIMIT, check_seed
+
+    digits = text.strip()
     try:
-        value = int(text)
-    except ValueError:
-        value = -1
-    if not 0 <= value < 2**32 or not text.strip().lstrip("+").isdigit():
+        return check_seed(int(digits) if digits.isascii() and digits.isdigit() else text)
+    except InputError:
         raise argparse.ArgumentTypeError(
-            f"{text!r} must be a whole number from 0 to {2**32 - 1}")
-    return value
+            f"{text!r} must be a whole number from 0 to {SEED_LIMIT - 1}") from None
 
 
 def run(args: argparse.Namespace) -> int:

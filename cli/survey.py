@@ -29,6 +29,7 @@ melting parameterization.
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Options of ``lidmelt survey``."""
+    from .fit import _seed
     parser.formatter_class = argparse.RawDescriptionHelpFormatter
     parser.epilog = _EPILOG
     parser.add_argument("study", metavar="STUDY", help="study file (TOML) with [survey]")
@@ -44,7 +45,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     where.add_argument("--scheduler", metavar="ADDRESS", default=None,
                        help="run on an existing Dask cluster, e.g. tcp://host:8786 "
                        "(needs pip install 'lidmelt[cluster]')")
-    parser.add_argument("--seed", metavar="N", type=int, default=None,
+    parser.add_argument("--seed", metavar="N", type=_seed, default=None,
                         help="master seed (default: [sampler] seed); site k gets the k-th "
                         "child seed, so results do not depend on the workers")
     parser.add_argument("--resume", action="store_true",
@@ -75,7 +76,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _print_result(result) -> None:
-    from ..forward.quantities import unit_text
+    from ..forward.quantities import format_signed, unit_text
 
     folder = Path(result.folder).resolve()
     n = len(result.records)
@@ -83,8 +84,8 @@ def _print_result(result) -> None:
     if result.area is not None:
         for _, row in result.area.iterrows():
             unit = unit_text(row["unit"])
-            low, high = (f"{row[q]:.1f}".replace("-", "\u2212") for q in ("q2.5", "q97.5"))
-            print(f"  {row['parameter']} ({row['meaning']}): median {row['median']:.1f} "
+            median, low, high = (format_signed(row[q], 1) for q in ("median", "q2.5", "q97.5"))
+            print(f"  {row['parameter']} ({row['meaning']}): median {median} "
                   f"{unit}, 95 % interval {low} to {high} {unit}")
     for record in result.failed:
         print(f"lidmelt survey: site '{record['site']}': {record['status']}",

@@ -19,16 +19,70 @@ Examples
 'Mantle potential temperature (°C)'
 >>> quantity("crust.model_error", unit="km").name
 'model error of crust'
+
+Numbers for people (report, figures, terminal) are signed and given as percentages by
+`format_signed` and `format_percent` only, so the three never differ.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 
-__all__ = ["GROUPS", "QUANTITIES", "Quantity", "quantity", "unit_text"]
+__all__ = ["GROUPS", "MINUS", "QUANTITIES", "Quantity", "format_percent", "format_signed",
+           "quantity", "unit_text"]
+
+#: The minus sign of every number shown to people (U+2212, as wide as "+").
+MINUS = "\N{MINUS SIGN}"
 
 #: Plain units (as in files and messages) -> how people write them.
 _UNIT_TEXT = {"degC": "°C", "kg/m^3": "kg/m³", "-": ""}
+
+
+def format_signed(value: float | None, decimals: int | None = None, *, plus: bool = False,
+                  missing: str = "\N{EN DASH}") -> str:
+    """A number for people: fixed `decimals` (None: shortest, ``:g``) and a true minus.
+
+    A value that rounds to zero has no sign ("0.0", never "−0.0"); `plus` writes "+"
+    before positive values (residuals, differences); None or NaN gives `missing`.
+
+    Examples
+    --------
+    >>> format_signed(-1.25, 1), format_signed(-0.04, 1), format_signed(2.0, 1, plus=True)
+    ('−1.2', '0.0', '+2.0')
+    >>> format_signed(-2.5e-05), format_signed(float("nan"))
+    ('−2.5e−05', '–')
+    """
+    if value is None or math.isnan(value):
+        return missing
+    text = f"{float(value):g}" if decimals is None else f"{float(value):.{decimals}f}"
+    if text.startswith("-") and float(text) == 0.0:
+        text = text[1:]
+    if plus and not text.startswith("-") and float(text) != 0.0:
+        text = "+" + text
+    return text.replace("-", MINUS)
+
+
+def format_percent(share: float, decimals: int = 1) -> str:
+    """A share in 0-1 as a percentage for people, with a space before "%".
+
+    A share that would show as 0 or 100 at `decimals` is given as a bound ("< 0.1 %",
+    "> 99.9 %"), so a probability is never shown as certain.
+
+    Examples
+    --------
+    >>> format_percent(0.25), format_percent(0.9996), format_percent(0.0004)
+    ('25.0 %', '> 99.9 %', '< 0.1 %')
+    >>> format_percent(0.9994), format_percent(0.05, 0)
+    ('99.9 %', '5 %')
+    """
+    step = 10.0 ** -decimals
+    value = round(100.0 * float(share), decimals)
+    if value <= 0.0:
+        return f"< {step:.{decimals}f} %"
+    if value >= 100.0:
+        return f"> {100.0 - step:.{decimals}f} %"
+    return f"{value:.{decimals}f} %"
 
 
 def unit_text(unit: str) -> str:
@@ -84,11 +138,7 @@ class Quantity:
 
     def format(self, value: float, decimals: int | None = None) -> str:
         """`value` with this quantity's decimals (U+2212 minus sign for negatives)."""
-        places = self.decimals if decimals is None else decimals
-        text = f"{float(value):.{places}f}"
-        if text.startswith("-") and float(text) == 0.0:
-            text = text[1:]  # no "-0.0"
-        return text.replace("-", "\N{MINUS SIGN}")
+        return format_signed(value, self.decimals if decimals is None else decimals)
 
     def axis_label(self, *, short: bool = False) -> str:
         """Axis label with the unit in parentheses (dimensionless: no parentheses)."""

@@ -56,7 +56,8 @@ class DiskFull:
         self.prefix, self.nth, self.seen = prefix, nth, 0
 
     def __call__(self, handle, data: bytes) -> None:
-        target = _atomic.temporary_target(Path(handle.name).name) or ""
+        name = Path(handle.name).name  # an append goes to the file itself
+        target = _atomic.temporary_target(name) or name
         if target.startswith(self.prefix):
             self.seen += 1
             if self.seen == self.nth:

@@ -271,7 +271,7 @@ def test_sigterm_keeps_a_resumable_checkpoint(tmp_path, capsys):
 def _wait_for_record(folder: Path, process, timeout: float) -> None:
     """Wait until the checkpoint holds its first record (the run is past its first check)."""
     deadline = time.monotonic() + timeout
-    while not list(folder.glob("step-*.npz")):
+    while not stored_steps(folder):
         if time.monotonic() > deadline or process.poll() is not None:
             raise AssertionError(f"no checkpoint record in {folder}")
         time.sleep(0.05)

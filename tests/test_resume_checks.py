@@ -8,7 +8,7 @@ import pytest
 from helpers import DiskFull, assert_same_outputs
 from lidmelt import _atomic, inversion
 from lidmelt.inversion.outputs import identity as _provenance
-from lidmelt.inversion.fitting.checkpoint import stored_steps
+from lidmelt.inversion.fitting.checkpoint import RECORDS, stored_steps
 from lidmelt.cli import main
 
 
@@ -21,7 +21,7 @@ def stopped(reference, tmp_path, monkeypatch):
 
     def stop(nth: int):
         with monkeypatch.context() as patch:
-            patch.setattr(_atomic, "_write_all", DiskFull("step-", nth=nth))
+            patch.setattr(_atomic, "_write_all", DiskFull(RECORDS, nth=nth))
             assert main(["fit", str(study), "--out", str(out), "--quiet"]) == 1
         return study, out
 
@@ -76,15 +76,27 @@ def test_resume_refuses_a_scenario_built_from_the_same_file(stopped, capsys):
         inversion.fit(hotter, out=out, resume=True, quiet=True)
 
 
+def _flip_byte_of_record(partial, index: int) -> None:
+    """Flip one payload byte of the `index`-th record of the checkpoint file."""
+    path = partial / RECORDS
+    data, at = bytearray(path.read_bytes()), 0
+    for _ in range(index):
+        at += 60 + int.from_bytes(data[at + 20:at + 28], "little")
+    data[at + 100] ^= 0xFF  # inside the payload (the frame is 60 bytes)
+    path.write_bytes(bytes(data))
+
+
 def test_a_damaged_record_is_discarded_with_a_warning(stopped, capsys, reference):
     study, out = stopped(nth=3)
     capsys.readouterr()
     partial = out.with_name("run.partial")
-    (partial / "step-000000100.npz").write_bytes(b"\x00garbage")
+    size = (partial / RECORDS).stat().st_size
+    _flip_byte_of_record(partial, 1)
+    first = 60 + int.from_bytes((partial / RECORDS).read_bytes()[20:28], "little")
     code, err = _resume(capsys, study, out)
     assert code == 0, err
-    assert ("lidmelt: warning: checkpoint record step-000000100.npz is damaged; it and the "
-            "0 after it are discarded (continuing from step 50)") in err
+    assert (f"lidmelt: warning: checkpoint file {RECORDS} ends in a damaged or incomplete "
+            f"record ({size - first} bytes); it is discarded (continuing from step 50)") in err
     assert_same_outputs(out, reference[1])  # the chain is the same, only redone
 
 
@@ -92,8 +104,9 @@ def test_a_checkpoint_without_any_usable_record_is_refused_not_restarted(stopped
     study, out = stopped(nth=2)
     capsys.readouterr()
     partial = out.with_name("run.partial")
-    (partial / "step-000000050.npz").write_bytes(b"PK\x03\x04 truncated")
+    _flip_byte_of_record(partial, 0)
+    damaged = (partial / RECORDS).read_bytes()
     code, err = _resume(capsys, study, out)
     assert code == 2
     assert "holds no complete step" in err and "pass --force to start over" in err
-    assert (partial / "step-000000050.npz").exists()  # refusing deletes nothing
+    assert (partial / RECORDS).read_bytes() == damaged  # refusing changes nothing

@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import signal
+import subprocess
+import sys
 import warnings
+from pathlib import Path
 
 import emcee
 import h5py
@@ -12,9 +15,26 @@ import pytest
 from scipy import stats
 
 from lidmelt.inversion import InputError, NotConvergedWarning
-from lidmelt.inversion.fitting.checkpoint import CheckpointBackend, stored_steps
+from lidmelt.inversion.fitting.checkpoint import (
+    RECORDS,
+    CheckpointBackend,
+    ResumeWarning,
+    stored_steps,
+)
 from lidmelt.inversion.fitting.convergence import converged_rhat, split_rhat
 from lidmelt.inversion.fitting.sampler import assess_chain, read_chain, run_chain, write_chain
+
+
+@pytest.fixture(autouse=True)
+def own_signal_handlers():
+    """Python's own Ctrl-C handler for each test, whatever the process inherited (a
+    background or ``nohup`` pytest ignores SIGINT; an xdist worker may have its own)."""
+    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
+    signal.signal(signal.SIGINT, signal.default_int_handler)
+    signal.signal(signal.SIGTERM, signal.default_int_handler)
+    yield
+    for number, handler in previous.items():
+        signal.signal(number, handler)
 
 
 class LinearGaussian:
@@ -305,3 +325,87 @@ def test_map_search_starts_from_separate_basins():
     values = np.array([5.0, 4.0, 3.0, 2.0, 1.0])
     chosen = starting_draws(candidates, values, np.array([1.0, 1.0]), 3)
     np.testing.assert_array_equal(chosen, candidates[[0, 2, 4]])
+def test_a_handler_that_does_not_raise_still_stops_the_run_whole(tmp_path):
+    # Before: the run returned with no assessment and run_chain failed with a TypeError.
+    seen = []
+    signal.signal(signal.SIGINT, lambda number, frame: seen.append(number))
+    with pytest.raises(KeyboardInterrupt):
+        _run(Interrupting(stop_at=2 * 30 + 1), path=tmp_path / "ck")
+    assert seen == [signal.SIGINT]  # the previous handler had its say first
+    assert stored_steps(tmp_path / "ck") == 31  # the step in progress, stored
+
+
+def test_an_ignored_sigint_stays_ignored_and_the_chain_is_unchanged():
+    reference = _run(LinearGaussian(), ess_target=300, max_steps=600)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # a background job of a script
+    result = _run(Interrupting(stop_at=41), ess_target=300, max_steps=600)
+    np.testing.assert_array_equal(result.chain, reference.chain)
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="POSIX signal dispositions")
+def test_the_interrupt_tests_pass_with_sigint_ignored_by_the_parent():
+    # What ``nohup pytest`` or ``pytest &`` in a script does to the tests below.
+    tests = Path(__file__)
+    code = ("import signal, subprocess, sys; signal.signal(signal.SIGINT, signal.SIG_IGN); "
+            "sys.exit(subprocess.run([sys.executable, '-m', 'pytest', '-q', '-p', "
+            "'no:cacheprovider', '-n', '0', sys.argv[1] + '::test_resume_after_interruption"
+            "_equals_uninterrupted_run', sys.argv[1] + '::test_many_interrupts_give_one_"
+            "keyboard_interrupt_and_a_whole_checkpoint']).returncode)")
+    done = subprocess.run([sys.executable, "-c", code, str(tests)], capture_output=True,
+                          cwd=tests.parent, timeout=300)
+    assert done.returncode == 0, done.stdout.decode()[-2000:]
+
+
+def test_a_long_run_keeps_one_checkpoint_file(tmp_path):
+    path = tmp_path / "ck"
+    result = _run(LinearGaussian(), path=path, ess_target=10**6, max_steps=2000,
+                  check_interval=20)  # 100 records
+    assert result.nsteps == 2000
+    assert sorted(p.name for p in path.iterdir()) == sorted(
+        [RECORDS, "checkpoint.json", "lidmelt-files.json"])
+    again = CheckpointBackend.open(path, meta={"fingerprint": {}}, shape=(32, 3))
+    np.testing.assert_array_equal(again.get_chain(), result.chain)
+    np.testing.assert_array_equal(again.accepted, result.accepted)
+
+
+def _records_at(path: Path) -> list[int]:
+    """Byte offsets where each record of the checkpoint file begins (from its frames)."""
+    data, offsets, at = (path / RECORDS).read_bytes(), [], 0
+    while at < len(data):
+        offsets.append(at)
+        at += 60 + int.from_bytes(data[at + 20:at + 28], "little")
+    return offsets
+
+
+@pytest.mark.parametrize("damage", ["torn", "flipped", "garbage"])
+def test_a_damaged_tail_is_ignored_and_the_resume_is_identical(tmp_path, damage):
+    reference = _run(LinearGaussian(), path=tmp_path / "whole")
+    path = tmp_path / "broken"
+    with pytest.raises(KeyboardInterrupt):
+        _run(Interrupting(stop_at=2 * 350 + 7), path=path)
+    file = path / RECORDS
+    data = file.read_bytes()
+    last = _records_at(path)[-1]
+    if damage == "torn":  # killed in the middle of writing the last record
+        file.write_bytes(data[: last + (len(data) - last) // 2])
+        left = (len(data) - last) // 2
+    elif damage == "flipped":  # one bit of the last record's payload
+        middle = (last + len(data)) // 2
+        file.write_bytes(data[:middle] + bytes([data[middle] ^ 1]) + data[middle + 1:])
+        left = len(data) - last
+    else:  # something after the last record that only looks like one
+        file.write_bytes(data + b"LMst" + bytes(100))
+        left = 104
+    kept = 354 if damage == "garbage" else 300
+    assert stored_steps(path) == kept
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ResumeWarning)
+        resumed = _run(LinearGaussian(), path=path, resume=True)
+    assert [str(w.message) for w in caught if w.category is ResumeWarning] == [
+        f"checkpoint file {RECORDS} ends in a damaged or incomplete record ({left} bytes); "
+        f"it is discarded (continuing from step {kept})"]
+    assert resumed.resumed_from == kept
+    np.testing.assert_array_equal(resumed.chain, reference.chain)
+    np.testing.assert_array_equal(resumed.accepted, reference.accepted)
+    # The resumed run appended after the last good record: the file reads back whole.
+    assert stored_steps(path) == reference.nsteps

@@ -286,7 +286,7 @@ CASES = {
     "too-few-walkers": (("walkers = 32", "walkers = 4"),
         r"key 'sampler.walkers': walkers = 4 is too few for 3 free parameters.*at least 6"),
     "negative-seed": (("seed = 1", "seed = -1"),
-        r"key 'sampler.seed': -1 must be a whole number >= 0"),
+        r"key 'sampler.seed': seed -1 must be a whole number from 0 to 4294967295"),
     "fractional-walkers": (("walkers = 32", "walkers = 32.5"), r"32.5 must be a whole number"),
     "unknown-start": (("seed = 1", 'seed = 1\nstart = "maximum"'),
         r"key 'sampler.start': unknown value 'maximum'; valid choices: 'prior', 'map'"),

@@ -14,8 +14,9 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from ...forward import figure_style as style
-from ...forward.quantities import quantity
+from ...forward.quantities import format_percent, format_signed, quantity
 from .checks import replicate_data
+from ..study.seeds import generator
 
 __all__ = ["comparison_figure"]
 
@@ -124,7 +125,7 @@ def _draw_loo(ax, comparison) -> None:
     ax.errorbar(diff, y, xerr=dse, fmt="none", ecolor="black", capsize=4, lw=1.2)
     for k, (yk, dk, sk) in enumerate(zip(y, diff, dse, strict=True)):
         ax.plot(dk, yk, "o", color=_colour(k), ms=8, zorder=3)
-        ax.annotate("best" if dk == 0 else f"{dk:.1f} ± {sk:.1f}".replace("-", "−"),
+        ax.annotate("best" if dk == 0 else f"{format_signed(dk, 1)} ± {sk:.1f}",
                     (dk, yk), xytext=(0, 9), textcoords="offset points", ha="center",
                     fontsize=8)
     ax.axvline(0.0, color="0.5", lw=0.8)
@@ -132,7 +133,7 @@ def _draw_loo(ax, comparison) -> None:
     if span > 20:  # a scenario far behind would squeeze the others onto zero
         ax.set_xscale("symlog", linthresh=2.0)
         ax.set_xlim(-span * 1.5, 1.0)
-        ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}".replace("-", "−")))
+        ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: format_signed(v)))
     else:
         ax.set_xlim(-max(1.0, span) * 1.2, max(1.0, span) * 0.25)
     ax.set_yticks(y, names)
@@ -153,7 +154,7 @@ def _predictions(result, seed: int) -> list[dict]:
         logpost, draws = result.posterior.logpost, result.posterior.predictive_draws(_DRAWS)
     else:
         logpost, draws = LogPosterior(study), np.zeros((1, 0))
-    rng = np.random.default_rng(np.random.SeedSequence(seed).spawn(1)[0])
+    rng = generator(seed, "scenario_figure")
     replicas = [sets for _, sets in replicate_data(logpost, draws, rng, _DRAWS)
                 if sets is not None]
     panels = []
@@ -198,8 +199,4 @@ def _draw_predictive(ax, results, panels, *, legend: bool) -> None:
 
 
 def _percent(p: float) -> str:
-    if p >= 0.995:
-        return f"{100 * p:.1f} %" if p < 0.9995 else "> 99.9 %"
-    if p < 0.001:
-        return "< 0.1 %"
-    return f"{100 * p:.1f} %"
+    return format_percent(p)

@@ -13,7 +13,7 @@ shell, the variance of the importance-sampling mean and the Monte Carlo error of
 shell volume (both from the sampler's own counts, see `_log_evidence_sd`). How each prior
 is laid over the cube is set by `_SamplingAxis`. nautilus is MIT-licensed and calls the
 likelihood with whole batches of points, which the vectorised forward model needs (see
-README, "Comparing scenarios").
+README, "Comparing scenarios"). Signals are held during the run (`fitting.interrupts`).
 """
 
 from __future__ import annotations
@@ -24,6 +24,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import logsumexp
+
+from ..fitting.interrupts import signals_held
 
 __all__ = ["NETWORKS", "NestedResult", "nested_evidence"]
 
@@ -84,6 +86,13 @@ def nested_evidence(logpost, *, live_points: int = 500, effective_samples: int =
     Returns
     -------
     NestedResult
+
+    Raises
+    ------
+    KeyboardInterrupt
+        After Ctrl-C or SIGTERM: the signal is held until the next likelihood call (or the
+        end of the run) and then delivered, so no library sees it and no half-run result
+        is ever returned.
     """
     from nautilus import Sampler
 
@@ -100,6 +109,7 @@ def nested_evidence(logpost, *, live_points: int = 500, effective_samples: int =
                                + [u[:, len(axes):]])
 
     def log_like(theta):
+        held.stop_if_caught()  # a signal: stop here, not inside a network's training
         theta = theta[:, :len(axes)]
         out = np.empty(theta.shape[0])
         for start in range(0, theta.shape[0], _BATCH):
@@ -109,12 +119,14 @@ def nested_evidence(logpost, *, live_points: int = 500, effective_samples: int =
         return np.where(np.isnan(out), -np.inf, out)
 
     started = time.perf_counter()
-    with warnings.catch_warnings():
+    # Ctrl-C or SIGTERM is held: scikit-learn would catch KeyboardInterrupt while it
+    # trains a network, warn and go on with a different network (and a different ln Z).
+    with signals_held() as held, warnings.catch_warnings():
         warnings.filterwarnings("ignore", module="sklearn")  # network training chatter
         sampler = Sampler(transform, log_like, n_dim=n_dim, n_live=live_points,
                           n_networks=NETWORKS, vectorized=True, pass_dict=False, seed=seed)
         sampler.run(n_eff=effective_samples, discard_exploration=True, verbose=False)
-    points, log_w, _ = sampler.posterior()
+        points, log_w, _ = sampler.posterior()
     points = np.asarray(points)[:, :len(axes)]
     return NestedResult(float(sampler.log_z), _log_evidence_sd(sampler), points,
                         np.asarray(log_w), int(sampler.n_like), float(sampler.n_eff),

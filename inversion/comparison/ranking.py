@@ -17,6 +17,8 @@ from collections.abc import Sequence
 import numpy as np
 from scipy.special import logsumexp
 
+from ..study.seeds import generator
+
 __all__ = ["KASS_RAFTERY", "evidence_words", "scenario_probabilities"]
 
 #: (upper limit of 2 ln B, words), Kass & Raftery (1995), sect. 3.2.
@@ -26,7 +28,10 @@ KASS_RAFTERY = (
     (10.0, "strong"),
     (np.inf, "very strong"),
 )
-_DRAWS = 4000
+# Draws of the ln Z errors behind the 68 % range of each probability. 20 000 puts the
+# Monte Carlo error of a 16 or 84 % quantile near 0.002 in probability (4000 gave about
+# 0.004, as large as the rounding of the reported percentages); it costs milliseconds.
+_DRAWS = 20_000
 
 
 def scenario_probabilities(log_evidence: Sequence[float], sd: Sequence[float],
@@ -60,7 +65,7 @@ def scenario_probabilities(log_evidence: Sequence[float], sd: Sequence[float],
     log_odds = np.log(np.asarray(prior_odds, float))
     weight = log_z + log_odds
     probability = np.exp(weight - logsumexp(weight))
-    rng = np.random.default_rng(seed)
+    rng = generator(seed, "ranking_spread")
     sampled = weight + sd * rng.standard_normal((_DRAWS, log_z.size))
     spread = np.exp(sampled - logsumexp(sampled, axis=1, keepdims=True))
     low, high = np.quantile(spread, [0.16, 0.84], axis=0)

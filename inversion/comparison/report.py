@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from ...forward.quantities import quantity
+from ...forward.quantities import MINUS, format_percent, format_signed, quantity
 from ..observations.crust import thickness_reading
 from ..results.report import CAUTION, interval_words
 from .evidence import DISAGREEMENT_SIGMAS
@@ -198,7 +198,7 @@ def _loo_section(comparison) -> str:
         k = "– (exact)" if math.isnan(r.loo.pareto_k_max) else f"{r.loo.pareto_k_max:.2f}"
         diff = loo.loc[r.name]
         diff_text = "best" if diff["elpd_diff"] == 0 else \
-            f"−{diff['elpd_diff']:.1f} ± {diff['dse']:.1f}"
+            f"{MINUS}{diff['elpd_diff']:.1f} ± {diff['dse']:.1f}"
         rows.append(f"| {r.name} | {_num(r.loo.elpd_loo, 1)} ± {r.loo.se:.1f} | "
                     f"{r.loo.p_loo:.1f} | {k} | {diff_text} |")
     caveats = loo_caveats(comparison)
@@ -307,13 +307,9 @@ def _files_section(comparison) -> str:
 
 
 def _pct(p: float) -> str:
-    if p > 0.999:
-        return "> 99.9 %"
-    if p < 0.001:
-        return "< 0.1 %"
-    return f"{100 * p:.1f} %"
+    return format_percent(p)
 
 
 def _num(value: float, decimals: int) -> str:
     """A number with a true minus sign."""
-    return f"{value:.{decimals}f}".replace("-", "−")
+    return format_signed(value, decimals)

@@ -14,6 +14,7 @@ from ..errors import InputError, NotConvergedWarning, PosteriorWarning
 from ..fitting.log_posterior import LogPosterior
 from ..study.scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
 from ..study.file import Study
+from ..study.seeds import check_seed, generator, integer_seed
 from .checks import fit_check
 from .evidence import scenario_evidence
 from .loo import loo_fixed, loo_from_draws, posterior_draws
@@ -76,7 +77,7 @@ def compare(
         For every caveat in `Comparison.warnings`.
     """
     found = _scenario_set(study, settings)
-    seed = _check_seed(found.base.sampler.seed if seed is None else seed)
+    seed = check_seed(found.base.sampler.seed if seed is None else seed)
     if out is None:
         if resume:
             raise InputError("resuming needs the result folder of the interrupted run",
@@ -116,16 +117,9 @@ def _run(found, seed: int, checkpoint, *, quiet: bool, progress) -> Comparison:
     return Comparison(found, results, seed=seed)
 
 
-def _check_seed(seed) -> int:
-    from ..fitting.run import _check_seed as check
-
-    return check(seed)
-
-
 def scenario_seeds(seed: int, count: int) -> list[int]:
-    """Nested-sampling seed of each scenario, spawned from the master seed."""
-    return [int(child.generate_state(1)[0])
-            for child in np.random.SeedSequence(seed).spawn(count)]
+    """Nested-sampling seed of each scenario (stream ``scenario_nested`` of `seeds`)."""
+    return [integer_seed(seed, "scenario_nested", i) for i in range(count)]
 
 
 def evaluate_scenario(scenario: Scenario, *, seed: int, nested_seed: int,
@@ -175,7 +169,7 @@ def evaluate_scenario(scenario: Scenario, *, seed: int, nested_seed: int,
         loo, flat = loo_fixed(logpost), np.zeros((1, 0))
     seconds["loo"] = loo.seconds
     started = time.perf_counter()
-    check = fit_check(logpost, flat, np.random.default_rng(np.random.SeedSequence(seed)))
+    check = fit_check(logpost, flat, generator(seed, "scenario_check"))
     seconds["checks"] = time.perf_counter() - started
     return ScenarioResult(scenario, evidence, loo, check, posterior, caveats,
                           {k: round(float(v), 3) for k, v in seconds.items()})

@@ -3,12 +3,27 @@
 `CheckpointBackend` is emcee's in-memory `emcee.backends.Backend` (so emcee itself keeps
 the chain, the log-probabilities, the blobs, the acceptance counts and the generator
 state, and supplies ``get_chain``, ``get_last_sample`` and the rest), with one addition:
-`CheckpointBackend.write_record` writes the steps taken since the last record to the
-checkpoint folder as one file, ``step-<N>.npz`` (N = steps stored after it). A record
-holds its rows, the acceptance counts and the generator state after step N, and is
-written under a temporary name and renamed into place (`lidmelt._atomic`): a record is
-there whole or not at all. A write that fails (a full disk) leaves every earlier record
-as it was, so the checkpoint up to the last complete record is always kept.
+`CheckpointBackend.write_record` appends the steps taken since the last record to one
+append-only file, ``steps.ckpt``, as one record, and flushes it to the disk.
+
+A record is a frame of 60 bytes followed by its payload (integers little-endian)::
+
+    offset  size  field
+         0     4  magic b"LMst"
+         4     8  start: steps stored before this record (uint64)
+        12     8  stop: steps stored after it (uint64)
+        20     8  length of the payload in bytes (uint64)
+        28    32  SHA-256 of bytes 0-27 and of the payload
+        60     -  payload: an uncompressed numpy ``.npz`` archive with the rows
+                  ``start:stop`` of the chain, log-probabilities and blobs, and the
+                  acceptance counts and generator state after step `stop`
+
+Records follow each other with no gap, the first starting at step 0. A record is there
+whole or not at all: a reader (`_read_frames`) stops at the first frame that is short, has
+the wrong magic, does not continue the previous one or fails its checksum, and keeps
+everything before it. The next record is written at the end of the last complete one
+(`lidmelt._atomic.append_bytes` cuts a torn tail off first), and a write that fails (a
+full disk) cuts the file back, so the checkpoint up to the last complete record is kept.
 
 The folder also holds ``checkpoint.json`` (shape and the run's fingerprint, written once)
 and the manifest of `inversion.outputs.folder`. `CheckpointBackend.open` reads the records back
@@ -18,9 +33,10 @@ in order for a resume, after checking that the run is the same (`fingerprint`).
 from __future__ import annotations
 
 import contextlib
+import hashlib
 import io
 import json
-import re
+import struct
 import warnings
 import zipfile
 from os import PathLike
@@ -29,16 +45,19 @@ from pathlib import Path
 import emcee
 import numpy as np
 
-from ..._atomic import temporary_target, write_bytes, write_text
+from ..._atomic import append_bytes, temporary_target, write_text
 from ..errors import OutputConflict, WriteError
 from ..outputs.folder import MANIFEST, check_replaceable, remove_listed, write_manifest
 
-__all__ = ["HEADER", "CheckpointBackend", "ResumeWarning", "stored_steps"]
+__all__ = ["HEADER", "RECORDS", "CheckpointBackend", "ResumeWarning", "stored_steps"]
 
 #: The file of a checkpoint folder that describes the run (written once, at the start).
 HEADER = "checkpoint.json"
-_RECORD = "step-{:09d}.npz"
-_RECORD_GLOB = "step-*.npz"
+#: The append-only file of a checkpoint folder holding every record.
+RECORDS = "steps.ckpt"
+_MAGIC = b"LMst"
+_FRAME = struct.Struct("<4sQQQ")  # magic, start, stop, payload length; then the digest
+_DIGEST = 32
 _BLOCK = 256  # storage grows in blocks of this many steps, then by doubling
 
 
@@ -64,6 +83,7 @@ class CheckpointBackend(emcee.backends.Backend):
         super().__init__()
         self.folder = None if folder is None else Path(folder)
         self.stored = 0
+        self._end = 0  # byte offset of the end of the last complete record
 
     # ---- storage: emcee asks for all of max_steps at once; grow as steps arrive -------
 
@@ -97,18 +117,19 @@ class CheckpointBackend(emcee.backends.Backend):
             return
         header = {"nwalkers": self.nwalkers, "ndim": self.ndim, "meta": meta}
         try:
-            write_manifest(self.folder, [HEADER], kind="checkpoint", patterns=[_RECORD_GLOB])
+            write_manifest(self.folder, [HEADER, RECORDS], kind="checkpoint")
             write_text(self.folder / HEADER, json.dumps(header, indent=2) + "\n")
         except OSError as err:
             raise WriteError(self.folder, err) from err
 
     def write_record(self) -> None:
-        """Write the steps taken since the last record as one complete record."""
+        """Append the steps taken since the last record as one complete record."""
         if self.folder is None or self.iteration == self.stored:
             return
-        path = self.folder / _RECORD.format(self.iteration)
+        path = self.folder / RECORDS
         try:
-            write_bytes(path, self._record_bytes(), sync=True)
+            self._end = append_bytes(path, _frame(self.stored, self.iteration,
+                                                  self._record_bytes()), at=self._end)
         except OSError as err:
             raise WriteError(path, err, kept_steps=self.stored,
                              checkpoint=self.folder) from err
@@ -155,12 +176,18 @@ class CheckpointBackend(emcee.backends.Backend):
         _check_same_run(header, meta, tuple(shape), folder)
         backend = cls(folder)
         backend.reset(*shape)
-        records = _read_records(folder, tuple(shape))
+        _remove_temporaries(folder)
+        records, end, damage = _read_records(folder / RECORDS, tuple(shape))
         if not records:
             raise OutputConflict("the stored checkpoint holds no complete step yet (the run "
                                  "stopped before its first check)", reason="changed",
                                  file=folder)
+        if damage:
+            warnings.warn(ResumeWarning(
+                f"checkpoint file {RECORDS} ends in {damage}; it is discarded (continuing "
+                f"from step {int(records[-1]['stop'])})"), stacklevel=3)
         backend._load(records)
+        backend._end = end  # the next record cuts the damaged tail off
         return backend
 
     def _load(self, records: list[dict]) -> None:
@@ -221,57 +248,87 @@ def _and(items: list[str]) -> str:
     return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
 
 
-def _read_records(folder: Path, shape: tuple) -> list[dict]:
-    """Complete records in step order; a damaged one and all after it are discarded."""
-    _remove_temporaries(folder)
-    paths = sorted(folder.glob(_RECORD_GLOB))
-    records, expected = [], 0
-    for index, path in enumerate(paths):
-        record = _read_record(path, expected, shape)
-        if record is None:
-            kept = f"continuing from step {expected}" if expected else "nothing is usable"
-            warnings.warn(ResumeWarning(
-                f"checkpoint record {path.name} is damaged; it and the "
-                f"{len(paths) - index - 1} after it are discarded ({kept})"), stacklevel=4)
-            if records:
-                for later in paths[index:]:
-                    later.unlink()
+def _frame(start: int, stop: int, payload: bytes) -> bytes:
+    """One record: its frame (see the module docstring) followed by `payload`."""
+    head = _FRAME.pack(_MAGIC, start, stop, len(payload))
+    return head + hashlib.sha256(head + payload).digest() + payload
+
+
+def _read_frames(path: Path) -> tuple[list[tuple[int, int, bytes]], int, int]:
+    """The complete records of `path` as (start, stop, payload), in order.
+
+    Returns
+    -------
+    frames : list of tuple
+    end : int
+        Byte offset where the complete records end.
+    left : int
+        Bytes after `end` that do not form a complete record (0 for an intact file).
+    """
+    try:
+        data = path.read_bytes()
+    except FileNotFoundError:
+        return [], 0, 0
+    frames, end, expected = [], 0, 0
+    size = _FRAME.size + _DIGEST
+    while len(data) - end >= size:
+        magic, start, stop, length = _FRAME.unpack_from(data, end)
+        body = end + size
+        if (magic != _MAGIC or start != expected or stop <= start
+                or length > len(data) - body):
+            break
+        payload = data[body:body + length]
+        digest = hashlib.sha256(data[end:end + _FRAME.size] + payload).digest()
+        if digest != data[end + _FRAME.size:body]:
+            break
+        frames.append((start, stop, payload))
+        end, expected = body + length, stop
+    return frames, end, len(data) - end
+
+
+def _read_records(path: Path, shape: tuple) -> tuple[list[dict], int, str]:
+    """Complete records in step order, where they end, and what follows them in words.
+
+    A damaged or torn record and everything after it are left out (and described in the
+    third value, empty when the file is intact).
+    """
+    frames, end, left = _read_frames(path)
+    records = []
+    for index, (start, stop, payload) in enumerate(frames):
+        record = _read_record(payload, start, stop, shape)
+        if record is None:  # passed its checksum but does not fit this run
+            left += sum(len(p) + _FRAME.size + _DIGEST for *_, p in frames[index:])
+            end -= sum(len(p) + _FRAME.size + _DIGEST for *_, p in frames[index:])
             break
         records.append(record)
-        expected = int(record["stop"])
-    return records
+    damage = f"a damaged or incomplete record ({left} bytes)" if left else ""
+    return records, end, damage
 
 
-def _read_record(path: Path, start: int, shape: tuple) -> dict | None:
-    """One record, or None if it is unreadable or does not continue at step `start`."""
+def _read_record(payload: bytes, start: int, stop: int, shape: tuple) -> dict | None:
+    """The arrays of one record, or None if they do not continue at step `start`."""
     try:
-        with np.load(io.BytesIO(path.read_bytes()), allow_pickle=False) as data:
+        with np.load(io.BytesIO(payload), allow_pickle=False) as data:
             record = {name: data[name] for name in data.files}
-        rows = int(record["stop"]) - int(record["start"])
-        ok = (int(record["start"]) == start and rows > 0
+        rows = stop - start
+        ok = (int(record["start"]) == start and int(record["stop"]) == stop
               and record["chain"].shape == (rows, *shape)
               and record["log_prob"].shape == (rows, shape[0])
-              and record["accepted"].shape == (shape[0],)
-              and path.name == _RECORD.format(int(record["stop"])))
+              and record["accepted"].shape == (shape[0],))
     except (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile):
         return None
     return record if ok else None
 
 
 def _remove_temporaries(folder: Path) -> None:
-    """Remove half-written records of a killed run (never renamed into place)."""
+    """Remove half-written header or manifest files of a killed run."""
     for path in folder.iterdir():
-        target = temporary_target(path.name)
-        if target is not None and (target.startswith("step-") or target in (HEADER, MANIFEST)):
+        if temporary_target(path.name) in (HEADER, MANIFEST):
             with contextlib.suppress(OSError):
                 path.unlink()
 
 
 def stored_steps(folder: str | PathLike[str]) -> int:
-    """Steps stored in the checkpoint `folder`, from its record names (0 if none)."""
-    folder = Path(folder)
-    if not folder.is_dir():
-        return 0
-    steps = [int(m.group(1)) for p in folder.glob(_RECORD_GLOB)
-             if (m := re.fullmatch(r"step-(\d{9})\.npz", p.name))]
-    return max(steps, default=0)
+    """Steps stored in the checkpoint `folder`: the end of its last complete record."""
+    frames, _, _ = _read_frames(Path(folder) / RECORDS)
+    return frames[-1][1] if frames else 0

@@ -10,6 +10,7 @@ from ... import forward
 from ...forward.quantities import quantity
 from .log_posterior import DERIVED
 from ..observations.model_error import ERROR_DOMAIN
+from ..study.seeds import generator
 
 __all__ = ["DEEP_PRESSURE", "DEEP_SHARE", "MIN_ACCEPTANCE", "PHYSICAL_LIMITS",
            "converged_rhat", "deep_melt_share",
@@ -314,7 +315,7 @@ def _melt_warning(posterior, derived: np.ndarray) -> list[str]:
     if np.any(crust > 0):
         return []
     logpost = posterior.logpost
-    rng = np.random.default_rng(np.random.SeedSequence(posterior.seed).spawn(4)[3])
+    rng = generator(posterior.seed, "no_melt_draws")
     draws = np.column_stack([p.sample(rng, _PRIOR_DRAWS) for p in logpost.priors])
     if np.any(logpost.column(draws).produces_melt):
         return ["no posterior sample makes melt although parts of the prior do: the data "

@@ -13,7 +13,6 @@ from __future__ import annotations
 import time
 import warnings
 from collections.abc import Mapping
-from numbers import Integral
 from os import PathLike
 from pathlib import Path
 
@@ -28,6 +27,7 @@ from ..outputs.folder import (
     remove_stale_temporaries,
 )
 from ..outputs.identity import run_fingerprint, study_inputs
+from ..study.seeds import check_seed, generator, integer_seed
 from ..results.posterior import Posterior
 from . import start as _start
 from .checkpoint import CheckpointBackend, stored_steps
@@ -93,7 +93,7 @@ def fit(
     PosteriorWarning
         One per entry of `Posterior.warnings` about the posterior itself.
     """
-    seed = _check_seed(study.sampler.seed if seed is None else seed)
+    seed = check_seed(study.sampler.seed if seed is None else seed)
     if not study.priors:  # a scenario may fix everything (inversion.study.scenarios)
         raise InputError("every parameter is fixed, so there is nothing to sample; give "
                          "at least one a prior", key="parameters")
@@ -124,19 +124,11 @@ def fit(
     return posterior
 
 
-def _check_seed(seed) -> int:
-    if isinstance(seed, bool) or not isinstance(seed, Integral) or not 0 <= seed < 2**32:
-        raise InputError(f"seed {seed!r} must be a whole number from 0 to {2**32 - 1}",
-                         key="seed")
-    return int(seed)
-
-
 def _sample(study, seed: int, checkpoint, *, resume: bool, quiet: bool) -> ChainResult:
     """Start the walkers (unless resuming) and run the sampler to its stopping rule."""
     settings = study.sampler
     logpost = LogPosterior(study)
-    s_emcee, s_start = np.random.SeedSequence(seed).spawn(2)
-    rng = np.random.default_rng(s_start)
+    rng = generator(seed, "walker_start")
     if resume:  # positions come from the checkpoint
         initial = np.zeros((settings.walkers, logpost.ndim))
     elif settings.start == "map":
@@ -144,7 +136,7 @@ def _sample(study, seed: int, checkpoint, *, resume: bool, quiet: bool) -> Chain
     else:
         initial = _start.prior_start(logpost, settings.walkers, rng)
     return run_chain(
-        logpost, initial, seed=int(s_emcee.generate_state(1)[0]),
+        logpost, initial, seed=integer_seed(seed, "sampler_moves"),
         ess_target=settings.ess_target, tau_multiple=settings.tau_multiple,
         max_steps=settings.max_steps, check_interval=settings.check_interval,
         checkpoint=checkpoint, resume=resume, quiet=quiet, names=logpost.names,

@@ -31,10 +31,7 @@ uninterrupted run would have.
 
 from __future__ import annotations
 
-import contextlib
 import math
-import signal
-import threading
 import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -46,6 +43,7 @@ import numpy as np
 
 from ..._atomic import write_bytes
 from .checkpoint import CheckpointBackend
+from .interrupts import signals_held
 from .convergence import MIN_ACCEPTANCE, converged_rhat, rhat_too_high, split_rhat
 from ..errors import NotConvergedWarning
 from .progress import SamplingProgress
@@ -433,7 +431,7 @@ def _sample(sampler, start, rule: _Rule, *, quiet: bool) -> dict:
         return assessment
     progress = SamplingProgress(rule, sampler.nwalkers, done, quiet=quiet)
     try:
-        with _signals_held() as caught:
+        with signals_held() as caught:
             steps = sampler.sample(start, iterations=rule.max_steps - done,
                                    skip_initial_state_check=done > 0)
             for _ in steps:
@@ -452,37 +450,6 @@ def _sample(sampler, start, rule: _Rule, *, quiet: bool) -> dict:
     finally:
         progress.close()
     return assessment
-
-
-@contextlib.contextmanager
-def _signals_held():
-    """Hold back Ctrl-C (SIGINT) and SIGTERM during the block, then deliver them.
-
-    The block sees a list that is non-empty once a signal arrived, and stops at its next
-    step. On leaving, the previous handlers are restored and the first signal caught is
-    raised again, so it has its usual effect (KeyboardInterrupt, or the command line's
-    handler) only after the checkpoint is complete. Signals can only be caught in the
-    main thread; elsewhere the block runs as it is.
-    """
-    if threading.current_thread() is not threading.main_thread():
-        yield []
-        return
-    caught: list[int] = []
-    held = (signal.SIGINT, signal.SIGTERM)
-    previous = {s: signal.signal(s, lambda signum, frame: caught.append(signum)) for s in held}
-    try:
-        yield caught
-    except BaseException:
-        _restore(previous)
-        raise
-    _restore(previous)
-    if caught:
-        signal.raise_signal(caught[0])
-
-
-def _restore(previous: dict) -> None:
-    for s, handler in previous.items():
-        signal.signal(s, handler)
 
 
 def _not_converged_message(assessment, steps) -> str:

@@ -29,6 +29,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..study.seeds import generator
+
 __all__ = ["FLAG_LIMIT", "BlockCheck", "check_blocks", "posterior_checks"]
 
 #: Standardized residuals beyond this magnitude are flagged.
@@ -131,5 +133,5 @@ def posterior_checks(posterior, ndraws: int = _DRAWS) -> list[BlockCheck]:
     theta = posterior.predictive_draws(ndraws)
     columns = [posterior.logpost.column(theta[i:i + 1]) for i in range(theta.shape[0])]
     errors = [posterior.logpost.block_errors(theta[i:i + 1]) for i in range(theta.shape[0])]
-    rng = np.random.default_rng(np.random.SeedSequence(posterior.seed).spawn(4)[3])
+    rng = generator(posterior.seed, "predictive_check")
     return check_blocks(posterior.study.observations, columns, rng, errors)

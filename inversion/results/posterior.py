@@ -16,6 +16,7 @@ import pandas as pd
 from ..fitting import start as _start
 from ..fitting.log_posterior import DERIVED, UNITS, LogPosterior
 from ..fitting.sampler import ChainResult, autocorrelation_time
+from ..study.seeds import generator
 
 __all__ = ["SUMMARY_COLUMNS", "Posterior"]
 
@@ -188,7 +189,7 @@ class Posterior:
     def predictive_draws(self, n: int = 200) -> np.ndarray:
         """A reproducible subset of `n` kept positions, shape (n, ndim), for plots."""
         flat = self._kept(self.chain).reshape(-1, len(self.names))
-        rng = np.random.default_rng(np.random.SeedSequence(self.seed).spawn(3)[2])
+        rng = generator(self.seed, "predictive_draws")
         index = rng.choice(flat.shape[0], size=min(n, flat.shape[0]), replace=False)
         return flat[np.sort(index)]
 

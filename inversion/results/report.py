@@ -8,7 +8,7 @@ import re
 import numpy as np
 
 from ...forward import get_parameterization
-from ...forward.quantities import quantity, unit_text
+from ...forward.quantities import MINUS, format_signed, quantity, unit_text
 from ..observations.crust import thickness_reading
 from .checks import FLAG_LIMIT, posterior_checks
 from ..fitting.log_posterior import UNITS
@@ -26,7 +26,6 @@ CAUTION = (
     "hazard or resource decisions."
 )
 
-_MINUS = "\N{MINUS SIGN}"
 # A hyphen-minus that starts a number (not one inside a word, date or file name).
 _NEGATIVE = re.compile(r"(?<![\w.])-(?=\d)")
 
@@ -52,7 +51,7 @@ def render(posterior) -> str:
         CAUTION + "\n",
         _files_section(),
     ]
-    return _NEGATIVE.sub(_MINUS, "\n".join(parts))
+    return _NEGATIVE.sub(MINUS, "\n".join(parts))
 
 
 def _headline(posterior) -> str:
@@ -98,7 +97,7 @@ def estimate(row) -> str:
     d = decimals(row["sd"])
     med = row["median"]
     plus, minus = _f(row["q84"] - med, d), _f(med - row["q16"], d)
-    spread = f" ± {plus}" if plus == minus else f" +{plus}/{_MINUS}{minus}"
+    spread = f" ± {plus}" if plus == minus else f" +{plus}/{MINUS}{minus}"
     return f"{_f(med, d)}{spread}" + (f" {unit}" if unit else "")
 
 
@@ -175,8 +174,8 @@ def _fit_section(checks) -> str:
                      f"{largest:.1f}.")
         for row, column, value in check.flagged():
             what = "temperature" if column == "temperature" else "value"
-            lines.append(f"  - **{row}**: {what} residual {value:+.1f} (beyond "
-                         f"{FLAG_LIMIT:g})")
+            residual = format_signed(value, 1, plus=True)
+            lines.append(f"  - **{row}**: {what} residual {residual} (beyond {FLAG_LIMIT:g})")
     return "\n".join(lines) + "\n"
 
 
@@ -254,11 +253,8 @@ def _f(value: float | None, places: int) -> str:
     """Fixed decimals, one minus sign; "–" for a value not estimated (None or NaN)."""
     if value is None or not np.isfinite(value):
         return "–"
-    text = f"{value:.{places}f}"
-    if text.startswith("-") and float(text) == 0.0:
-        text = text[1:]  # no "−0.0"
-    return text.replace("-", _MINUS)
+    return format_signed(value, places)
 
 
 def _g(value: float) -> str:
-    return f"{value:g}".replace("-", _MINUS)
+    return format_signed(value)

@@ -29,6 +29,7 @@ from ..errors import InputError, suggest
 from ..observations import KINDS, ObservationSet
 from .keys import check_keys, key_line, read_study_file
 from .priors import Prior, TruncatedNormal, prior_from_spec
+from .seeds import check_seed
 
 __all__ = [
     "DEFAULT_FIXED",
@@ -182,13 +183,12 @@ class SamplerSettings:
 
     def __post_init__(self) -> None:
         for name, low in (("walkers", 2), ("ess_target", 1), ("max_steps", 1),
-                          ("check_interval", 1), ("seed", 0)):
+                          ("check_interval", 1)):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int) or value < low:
                 raise InputError(f"{value!r} must be a whole number >= {low}",
                                  key=f"sampler.{name}")
-        if self.seed >= 2**32:
-            raise InputError(f"seed {self.seed} must be < 2**32 = {2**32}", key="sampler.seed")
+        object.__setattr__(self, "seed", check_seed(self.seed, where="sampler.seed"))
         tau = _number(self.tau_multiple, "sampler.tau_multiple", None)
         if tau <= 0:
             raise InputError(f"{tau:g} must be > 0", key="sampler.tau_multiple")

@@ -34,6 +34,7 @@ from ..errors import InputError, NotConvergedWarning
 from ..fitting.grid import MASS_CUT, Axis, Grid, evaluate, find_box, grid_posterior, prior_axis
 from ..fitting.log_posterior import UNITS, LogPosterior
 from ..observations import THICKNESS_OF
+from ..study.seeds import generator
 from .settings import SurveySettings
 from .sites import Site, site_observations
 
@@ -138,7 +139,7 @@ def _grid_outcome(task, logpost, post, outcome: SiteOutcome, *, method: str) -> 
     error = float(post.log_evidence_error)
     rows = [_row(name, post.quantile(name, list(QUANTILES.values())))
             for name in logpost.names]
-    draws = post.sample(np.random.default_rng(task.seed), _DRAWS)
+    draws = post.sample(generator(task.seed, "site_grid_draws"), _DRAWS)
     outcome.record.update(method=method, converged=bool(error <= LOG_TOLERANCE),
                           diagnostics={"grid_shape": list(post.grid.shape),
                                        "log_evidence": float(post.log_evidence),

@@ -22,6 +22,7 @@ from tqdm.auto import tqdm
 from ..errors import InputError
 from ..fitting.log_posterior import UNITS
 from ..observations import THICKNESS_OF
+from ..study.seeds import check_seed, integer_seed
 from . import joint
 from .executors import make_executor
 from .job import GRID_MAX_FREE, QUANTILES, TP, SiteTask, run_site
@@ -84,8 +85,8 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     scheduler : str, optional
         Address of an existing Dask scheduler; the sites then run on its workers.
     seed : int, optional
-        Master seed (default: ``[sampler] seed``); site k gets the k-th child of
-        ``numpy.random.SeedSequence(seed).spawn``.
+        Master seed (default: ``[sampler] seed``); site k gets its own seed from the
+        stream ``survey_site`` (`inversion.study.seeds`), by site order.
     resume, force, quiet, keep_chains : bool
         Continue the survey in `out`; replace a survey folder; no progress bar; keep each
         site's chain or grid.
@@ -141,11 +142,8 @@ class _Plan:
         study, settings = load_survey_study(study_path)
         table = read_sites(sites_path)
         _check_combination(study, settings, table, mode, Path(study_path))
-        seed = int(study.sampler.seed if seed is None else seed)
-        if not 0 <= seed < 2**32:
-            raise InputError(f"seed {seed} must be from 0 to 2**32 - 1", key="seed")
-        children = np.random.SeedSequence(seed).spawn(len(table))
-        seeds = tuple(int(c.generate_state(1)[0]) for c in children)
+        seed = check_seed(study.sampler.seed if seed is None else seed)
+        seeds = tuple(integer_seed(seed, "survey_site", k) for k in range(len(table)))
         run = {"mode": mode, "seed": seed, "keep_chains": keep_chains,
                "survey": settings.record()}
         manifest = identity(study.file_hash, table.sha256, run)
