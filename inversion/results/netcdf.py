@@ -39,7 +39,6 @@ __all__ = ["NETCDF_FILE", "PRIOR_DRAWS", "inference_data_bytes"]
 NETCDF_FILE = "posterior.nc"
 #: Draws from the prior written to the ``prior`` group.
 PRIOR_DRAWS = 2000
-_PRIOR_STREAM = 0x70726E63  # tags the prior-draw stream of posterior.nc
 _CHUNK = 4096  # draws per pointwise log-likelihood evaluation (bounded memory)
 
 
@@ -155,8 +154,9 @@ def _observed_group(nc, posterior) -> None:
 
 
 def _prior_group(nc, posterior) -> None:
-    # a stream of its own: the prior draws never share numbers with the sampler's
-    rng = np.random.default_rng(np.random.SeedSequence([posterior.seed, _PRIOR_STREAM]))
+    from ..study.seeds import generator  # noqa: PLC0415
+
+    rng = generator(posterior.seed, "netcdf_prior_draws")  # a stream of its own
     group = _group(nc, "prior", {"chain": 1, "draw": PRIOR_DRAWS})
     units = posterior.logpost.units
     for name, prior in zip(posterior.names, posterior.logpost.priors, strict=True):

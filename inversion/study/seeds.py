@@ -24,6 +24,7 @@ scenario_figure      7    data replicated for the comparison figure (`comparison
 ranking_spread       8    the spread of scenario probabilities (`comparison.ranking`)
 survey_site          9, k the seed of site k of a survey (`survey.run`)
 site_grid_draws      10   draws from a site's grid posterior (`survey.job`; the site's seed)
+netcdf_prior_draws   11   the prior group of posterior.nc (`results.netcdf`)
 ==================== ==== ===============================================================
 
 A new use gets a new name at the end of the table; never reuse or renumber a key, or
@@ -55,6 +56,7 @@ STREAMS = {
     "ranking_spread": 8,
     "survey_site": 9,
     "site_grid_draws": 10,
+    "netcdf_prior_draws": 11,
 }
 
 
