@@ -74,14 +74,6 @@ def test_normal_oceanic_crust_needs_ordinary_mantle(name):
     assert needed[0] < needed[1] < needed[2]  # found: Katz 1314 degC, McKenzie-Bickle 1297 degC
 
 
-def test_mckenzie_bickle_normal_mantle_melt():
-    # McKenzie & Bickle (1988): Tp ~ 1280 degC gives ~ 7 km of melt (value from memory).
-    # Loose: our isentropic path uses the Katz thermodynamic constants, not theirs.
-    tp = brentq(lambda t: float(melt_column(t, 0.0, parameterization="mckenzie-bickle1988")
-                                .melt_thickness) - 7.0, 1150.0, 1500.0)
-    assert tp == pytest.approx(1280.0, abs=30.0)
-
-
 def test_plank_rule_of_thumb():
     # Plank et al. (1995): about 10 % mean melting of a 60 km column gives about 6 km of crust.
     tp = brentq(lambda t: float(melt_column(t, 0.0, melting_region="triangle").onset_depth) - 60.0,
