@@ -4,6 +4,7 @@
 Adding a kind: subclass `ObservationSet` in a new module, then register it here.
 """
 
+from .basalt_analyses import BasaltAnalyses
 from .base import NO_MELT_SLOPE, ObservationSet, gaussian_logpdf, melting_distance
 from .crust import THICKNESS_OF, CrustalThickness
 from .pressure import (
@@ -15,6 +16,7 @@ from .pressure import (
 from .tables import ColumnRule, Table, read_table, validate_frame
 
 __all__ = [
+    "BasaltAnalyses",
     "THICKNESS_OF",
     "EQUILIBRATION",
     "KINDS",
@@ -36,4 +38,5 @@ __all__ = [
 KINDS: dict[str, type[ObservationSet]] = {
     CrustalThickness.kind: CrustalThickness,
     MeltingPressure.kind: MeltingPressure,
+    BasaltAnalyses.kind: BasaltAnalyses,
 }
