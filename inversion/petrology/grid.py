@@ -166,12 +166,13 @@ def build_pt_grid(analysis: ArrayLike, *, fo_nodes: ArrayLike, fe3_nodes: ArrayL
     cov_fo = nodes(fo[0], fo[-1], covariance_nodes)
     cov_fe3 = nodes(fe3[0], fe3[-1], covariance_nodes)
     m = cov_fo.size * cov_fe3.size
-    estimate = estimate_linearised(
-        np.tile(analysis, (m, 1)), h2o=np.tile(h2o, m),
-        fe3_fraction=np.tile(np.repeat(cov_fe3, n), cov_fo.size),
-        target_fo=np.repeat(cov_fo, cov_fe3.size * n), kd_model=kd_model, method=method,
-        uncertainties=_tiled(uncertainties, m), calibration=False,
-        co2=np.tile(co2, m)[:, None])
+    with np.errstate(invalid="ignore"):  # no analytical error: correlation 0/0, set to 0
+        estimate = estimate_linearised(
+            np.tile(analysis, (m, 1)), h2o=np.tile(h2o, m),
+            fe3_fraction=np.tile(np.repeat(cov_fe3, n), cov_fo.size),
+            target_fo=np.repeat(cov_fo, cov_fe3.size * n), kd_model=kd_model,
+            method=method, uncertainties=_tiled(uncertainties, m), calibration=False,
+            co2=np.tile(co2, m)[:, None])
     var_p = estimate.sigma_p_gpa ** 2
     var_t = estimate.sigma_t_c ** 2
     with np.errstate(invalid="ignore"):
