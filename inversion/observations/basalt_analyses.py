@@ -55,8 +55,8 @@ from .base import _frozen, describe_errors
 from .pressure import MeltingPressure
 from .tables import ColumnRule
 
-__all__ = ["CORRECTION_RANGE", "KD_MODELS", "OXIDE_COLUMNS", "TOTAL_RANGE",
-           "BasaltAnalyses"]
+__all__ = ["CORRECTION_RANGE", "KD_MODELS", "OXIDE_COLUMNS", "PRIMARY_COLUMNS",
+           "TOTAL_RANGE", "BasaltAnalyses", "primary_melt_table"]
 
 #: Table column of each oxide of `petrology.oxides.ANALYSIS_OXIDES` (iron: ``feot``).
 OXIDE_COLUMNS = ("sio2", "tio2", "al2o3", "feot", "mno", "mgo", "cao", "na2o", "k2o",
@@ -364,3 +364,79 @@ def _refuse(grid, data, file, lines) -> None:
                      " olivine addition alone cannot give its primary melt there (remove "
                      "the row, or narrow olivine_fo / fe3_fraction)", file=file,
                      row=lines[i])
+
+
+# ---- looking at analyses before a fit ----------------------------------------------------
+
+#: Columns of `primary_melt_table`, in order (P-T columns named as in ``melting_pressure``).
+PRIMARY_COLUMNS = ("sample", "olivine_fo", "fe3_fraction", "olivine_fraction", "sio2",
+                   "tio2", "al2o3", "feo", "fe2o3", "mno", "mgo", "cao", "na2o", "k2o",
+                   "p2o5", "h2o", "co2", "pressure_gpa", "sigma_gpa", "temperature_c",
+                   "sigma_c", "pt_correlation", "flag", "refused")
+
+
+def primary_melt_table(path, *, thermobarometer: str, fe3_fraction: float,
+                       olivine_fo: float = 0.90, kd_model: str = "roeder_emslie_1970",
+                       relative_error: float = 0.0):
+    """Primary melts and P-T of every sample of a ``basalt_analyses`` table, no refusals.
+
+    The same chain as the kind at fixed corrections: olivine added to `olivine_fo`
+    (`add_olivine`), the thermobarometer applied, analytical errors propagated by
+    linearisation, calibration errors added. Refused samples keep their row with empty
+    results and the one-line reason in ``refused``; ``flag`` says where P-T lies outside
+    the method's calibration range.
+
+    Parameters
+    ----------
+    path : path-like
+        The table (rules of `BasaltAnalyses`; a broken rule raises `InputError`).
+    thermobarometer, fe3_fraction, olivine_fo, kd_model, relative_error
+        As the block keys of the kind (numbers only).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns `PRIMARY_COLUMNS`; compositions in wt% of the primary melt.
+    """
+    import pandas as pd
+
+    from ..petrology.olivine import add_olivine
+    from ..petrology.oxides import melt_from_analysis
+    from ..petrology.propagation import estimate_linearised
+    from .tables import read_table
+
+    chem = _parse_chemistry({"thermobarometer": thermobarometer, "fe3_fraction": fe3_fraction,
+                             "olivine_fo": olivine_fo, "kd_model": kd_model,
+                             "relative_error": relative_error}, "observations")
+    required, optional = BasaltAnalyses.column_rules()
+    table = read_table(path, required, optional=optional)
+    analysis, h2o, co2, sigma = _analyses(table.data, path, table.lines)
+    fe3, fo, kd = chem["fe3_fraction"], chem["olivine_fo"], KdModel(chem["kd_model"])
+    melt = melt_from_analysis(analysis, fe3_fraction=fe3, h2o=h2o, co2=co2)
+    primary = add_olivine(melt, h2o=h2o, co2=co2, kd_model=kd, target_fo=fo)
+    with np.errstate(invalid="ignore"):
+        est = estimate_linearised(analysis, h2o=h2o, fe3_fraction=fe3, target_fo=fo,
+                                  kd_model=kd, method=chem["thermobarometer"],
+                                  uncertainties=Uncertainties(
+                                      oxide_sigma=sigma,
+                                      relative_sigma=chem["relative_error"]),
+                                  co2=co2[:, None])
+    out = pd.DataFrame({"sample": table.data["sample"], "olivine_fo": fo,
+                        "fe3_fraction": fe3, "olivine_fraction": primary.olivine_fraction})
+    for k, name in enumerate(PRIMARY_COLUMNS[4:15]):
+        out[name] = primary.melt[:, k]
+    out["h2o"], out["co2"] = primary.h2o, primary.co2
+    out["pressure_gpa"], out["sigma_gpa"] = est.pressure_gpa, est.sigma_p_gpa
+    out["temperature_c"], out["sigma_c"] = est.temperature_c, est.sigma_t_c
+    out["pt_correlation"] = est.correlation
+    method = METHODS[chem["thermobarometer"]]
+    with np.errstate(invalid="ignore"):
+        outside = method.outside_calibration(est.pressure_gpa, est.temperature_c)
+    refused = [str(r) or ("" if np.isfinite(p) else "the thermobarometer gives no value")
+               for r, p in zip(primary.reason, est.pressure_gpa, strict=True)]
+    out["flag"] = ["outside calibration range" if o and not r else ""
+                   for o, r in zip(outside, refused, strict=True)]
+    out["refused"] = refused
+    bad = np.array([bool(r) for r in refused])
+    out.loc[bad, list(PRIMARY_COLUMNS[3:22])] = np.nan
+    return out
