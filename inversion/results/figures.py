@@ -128,11 +128,14 @@ def _corner_legend(ndim: int):
 
 # ---- fit --------------------------------------------------------------------------------
 
+#: Kinds whose rows are pressures and temperatures, drawn alike (basalt_analyses: derived).
+_PT_KINDS = ("melting_pressure", "basalt_analyses")
+
 def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     """Observations against the posterior predictive distribution of `ndraws` draws."""
     column = posterior.logpost.column(posterior.predictive_draws(ndraws))
     blocks = list(posterior.study.observations)
-    joint = [b.kind == "melting_pressure" and b.has_temperature for b in blocks]
+    joint = [b.kind in _PT_KINDS and b.has_temperature for b in blocks]
     fig = Figure(figsize=(13.0 if any(joint) else 10.0, 0.9 + 3.3 * len(blocks)),
                  layout="constrained")
     grid = fig.add_gridspec(len(blocks), 5 if any(joint) else 1)
@@ -336,7 +339,7 @@ def _draw_lid_band(ax, posterior, mantle_density) -> None:
 def _draw_observed_pt(ax, blocks, errors) -> None:
     labelled = {"points": False, "bands": False}
     for block, block_errors in zip(blocks, errors, strict=True):
-        if block.kind != "melting_pressure":
+        if block.kind not in _PT_KINDS:
             continue
         obs = block.observed(block_errors)
         if "temperature" in obs:
@@ -357,7 +360,7 @@ def _draw_observed_pt(ax, blocks, errors) -> None:
 def _max_pressure(column, blocks) -> float:
     deepest = float(np.nanquantile(column.onset_pressure, 0.975))
     for block in blocks:
-        if block.kind == "melting_pressure":
+        if block.kind in _PT_KINDS:
             obs = block.observed()
             deepest = max(deepest, float(np.max(obs["value"] + 2 * obs["sigma"])))
     return float(np.clip(np.ceil(deepest * 1.15 * 2) / 2, 1.0, float(forward.MAX_PRESSURE)))
