@@ -14,7 +14,7 @@ import sys
 
 from ..forward._validation import DomainError
 from ..inversion.errors import InputError, OutputConflict
-from . import cache, column, compare, demo, fit, survey
+from . import cache, column, compare, demo, fit, primary_melts, survey
 from ._usage import UsageError
 
 # name -> (module, one-line help)
@@ -27,6 +27,8 @@ _COMMANDS = {
                 "leave-one-out prediction"),
     "survey": (survey, "many sites of a study area: each site's posterior and an "
                "area-wide potential temperature, on local cores or a Dask cluster"),
+    "primary-melts": (primary_melts, "primary melts and their pressure and temperature "
+                      "from basalt analyses (look before fitting them)"),
     "cache": (cache, "show or clear the folder of tabulated melting paths"),
 }
 

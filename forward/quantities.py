@@ -208,6 +208,11 @@ _ALL = (
     _q("model_error", "", "σ_model", "model error", 2, "error", r"$\sigma_{model}$"),
     _q("temperature_model_error", "degC", "σ_model,T", "temperature model error", 0,
        "error", r"$\sigma_{model,T}$"),
+    # correction choices of basalt chemistry blocks (`<block>.olivine_fo`, ...)
+    _q("olivine_fo", "-", "Fo", "Fo of the mantle olivine of the primary melts", 3,
+       "error", "Fo"),
+    _q("fe3_fraction", "-", "Fe3+/ΣFe", "Fe3+/ΣFe of the analysed melts", 3, "error",
+       r"Fe$^{3+}$/$\Sigma$Fe"),
 )
 
 #: Every known quantity by key.

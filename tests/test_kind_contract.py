@@ -50,6 +50,9 @@ def _outside(rule: ColumnRule) -> float | None:
 
 
 def _frame(kind: type[ObservationSet]) -> pd.DataFrame:
+    table = kind.example_table(ROWS)  # a kind whose columns must agree gives its own
+    if table is not None:
+        return table
     required, optional = kind.column_rules(**kind.example_options)
     rules = list(required) + [rule for group in optional for rule in group]
     return pd.DataFrame({rule.name: [_inside(rule) if rule.numeric else f"r{k}"
@@ -141,14 +144,20 @@ def test_kind_comparison_panels_read_simulated_data(kind, parameterization):
 
 @pytest.mark.parametrize("kind", list(KINDS.values()), ids=list(KINDS))
 def test_kind_refuses_an_unknown_column(kind):
-    frame = _frame(kind).assign(**{kind.value_column + "x": 1.0})
-    with pytest.raises(InputError, match=rf"contract.csv, column '{kind.value_column}x': "
-                       rf"unknown column .*did you mean '{kind.value_column}'\?"):
+    first = next(rule.name for rule in kind.column_rules(**kind.example_options)[0]
+                 if rule.numeric)
+    frame = _frame(kind).assign(**{first + "x": 1.0})
+    with pytest.raises(InputError, match=rf"contract.csv, column '{first}x': "
+                       rf"unknown column .*did you mean '{first}'\?"):
         kind.from_frame(frame, file="contract.csv", **kind.example_options)
     kind.from_frame(_frame(kind).assign(note="a remark"), **kind.example_options)
 
 
-def _site_row(groups) -> dict[str, str]:
+def _site_row(groups, kind=None) -> dict[str, str]:
+    table = None if kind is None else kind.example_table(1)
+    if table is not None:
+        return {rule.name: repr(float(table[rule.name].iloc[0])) if rule.name in table else ""
+                for group in groups for rule in group}
     return {rule.name: repr(_inside(rule)) for group in groups for rule in group}
 
 
@@ -157,15 +166,18 @@ def test_kind_site_rules(kind, tmp_path):
     groups = kind.site_columns()
     assert groups and groups[0], "the first group is the kind's main measurement"
     path = tmp_path / "sites.csv"
-    values = check_row(_site_row(groups), groups, file=path, line=7, required=True)
+    values = check_row(_site_row(groups, kind), groups, file=path, line=7, required=True)
     block = kind.from_site("A", values, file=path, line=7, **kind.example_options)
     assert len(block) == 1 and block.lines == (7,)
     assert check_row({r.name: "" for g in groups for r in g}, groups, file=path,
                      line=7) == {}  # a site without this measurement
     ranged = [rule for group in groups for rule in group if _outside(rule) is not None]
     assert ranged, "every kind has at least one range rule (e.g. a sigma > 0)"
+    base = _site_row(groups, kind)
     for rule in ranged:
-        row = _site_row(groups) | {rule.name: repr(_outside(rule))}
+        if any(not base.get(name) for name in rule.requires):
+            continue  # a column allowed only beside another this row leaves empty
+        row = base | {rule.name: repr(_outside(rule))}
         with pytest.raises(InputError) as info:
             check_row(row, groups, file=path, line=7, required=True)
         assert str(info.value).startswith(f"{path}, line 7, column '{rule.name}': value ")

@@ -1,11 +1,12 @@
 """The vectorised log-posterior of a study, as emcee calls it.
 
 A point in parameter space is a row of free-parameter values: the physical parameters
-in the order of `Study.free_parameters`, then the free model errors of the observation
-blocks (`Study.error_parameters`); the fixed parameters of the study are filled in, the
+in the order of `Study.free_parameters`, then the sampled settings of the observation
+blocks (`Study.block_parameters`: free model errors, a kind's correction choices); the
+fixed parameters of the study are filled in, the
 prior and the forward model's valid domain are checked (``-inf`` outside either), the
 melting column is computed once for all valid rows, and the log-likelihoods of every
-observation set are summed (each block given its model errors):
+observation set are summed (each block given the values of its sampled settings):
 
     log p(theta | d) = sum_j log pi_j(theta_j) + sum_blocks log L_block(column(theta)) + const
 
@@ -41,11 +42,14 @@ class LogPosterior:
     ----------
     names : tuple of str
         Free parameters, in the column order of `theta`: the physical ones
-        (`physical`), then the free model errors (`errors`).
+        (`physical`), then the sampled block settings (`block_parameters`).
     physical : tuple of str
         The free melt_column inputs, in the order of `Study.free_parameters`.
-    errors : tuple of ErrorParameter
-        The free model errors, in the order of `Study.error_parameters`.
+    block_parameters : tuple of BlockParameter
+        The sampled settings of the observation blocks (free model errors, correction
+        choices), in the order of `Study.block_parameters`.
+    errors : tuple of BlockParameter
+        The earlier name of `block_parameters`.
     units : dict of str to str
         Unit of every free parameter and derived quantity.
     ndim : int
@@ -64,14 +68,15 @@ class LogPosterior:
     def __init__(self, study) -> None:
         self.study = study
         self.physical = tuple(study.free_parameters)
-        self.errors = tuple(study.error_parameters)
+        self.block_parameters = tuple(study.block_parameters)
+        self.errors = self.block_parameters
         self.names = tuple(study.sampled_parameters)
         self.ndim = len(self.names)
         self.nblobs = len(DERIVED)
         self.units = {**{name: UNITS[name] for name in (*self.physical, *DERIVED)},
-                      **{error.name: error.unit for error in self.errors}}
+                      **{p.name: p.unit for p in self.block_parameters}}
         self._priors = [study.priors[name] for name in self.physical] + [
-            error.prior for error in self.errors]
+            p.prior for p in self.block_parameters]
 
     @property
     def priors(self) -> list:
@@ -127,7 +132,7 @@ class LogPosterior:
         if np.any(ok):
             values = self.parameters(theta[ok])
             column = self._column(values)
-            errors = self.block_errors(theta[ok])
+            errors = self.block_values(theta[ok])
             out[ok] = np.concatenate(
                 [block.pointwise_log_likelihood(column, parameters=values, errors=e)
                  for block, e in zip(self.study.observations, errors, strict=True)],
@@ -137,7 +142,8 @@ class LogPosterior:
     def in_domain(self, theta: np.ndarray) -> np.ndarray:
         """True where every free value is valid, shape ``(n,)``.
 
-        Physical parameters must lie in forward.PARAMETER_DOMAIN, model errors be >= 0.
+        Physical parameters must lie in forward.PARAMETER_DOMAIN, block settings be >= 0
+        (their priors keep them inside their own ranges).
         """
         theta = np.atleast_2d(theta)
         ok = np.all(np.isfinite(theta), axis=1)
@@ -155,17 +161,21 @@ class LogPosterior:
             values[name] = theta[:, j]
         return values
 
-    def block_errors(self, theta: np.ndarray) -> list[dict[str, np.ndarray]]:
-        """The free model errors of each observation block for each row of `theta`.
+    def block_values(self, theta: np.ndarray) -> list[dict[str, np.ndarray]]:
+        """The sampled settings of each observation block for each row of `theta`.
 
         One dict per block (in study order), option name -> shape ``(n,)``; empty for a
-        block whose model errors are fixed.
+        block whose settings are all fixed. Passed as ``errors=`` to the block.
         """
         theta = np.atleast_2d(theta)
         out = [{} for _ in self.study.observations]
-        for j, error in enumerate(self.errors, start=len(self.physical)):
-            out[error.block][error.option] = theta[:, j]
+        for j, setting in enumerate(self.block_parameters, start=len(self.physical)):
+            out[setting.block][setting.option] = theta[:, j]
         return out
+
+    def block_errors(self, theta: np.ndarray) -> list[dict[str, np.ndarray]]:
+        """The earlier name of `block_values`."""
+        return self.block_values(theta)
 
     def column(self, theta: np.ndarray):
         """The melting columns (forward.melt_column result) for each row of `theta`."""
@@ -189,7 +199,7 @@ class LogPosterior:
                         theta: np.ndarray) -> np.ndarray:
         # `parameters` lets the no-melt penalty slope toward melting (lid vs onset depth).
         total = np.zeros(np.shape(column.melt_thickness))
-        for block, errors in zip(self.study.observations, self.block_errors(theta),
+        for block, errors in zip(self.study.observations, self.block_values(theta),
                                  strict=True):
             total = total + block.log_likelihood(column, parameters=values, errors=errors)
         return total

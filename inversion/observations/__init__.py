@@ -6,6 +6,7 @@ Adding a kind: subclass `ObservationSet` in a new module, then register it here
 through every part of the interface.
 """
 
+from .basalt_analyses import BasaltAnalyses
 from .base import NO_MELT_SLOPE, ObservationSet, Panel, gaussian_logpdf, melting_distance
 from .crust import THICKNESS_OF, CrustalThickness
 from .pressure import (
@@ -17,6 +18,7 @@ from .pressure import (
 from .tables import ColumnRule, Table, read_table, validate_frame
 
 __all__ = [
+    "BasaltAnalyses",
     "THICKNESS_OF",
     "EQUILIBRATION",
     "KINDS",
@@ -39,4 +41,5 @@ __all__ = [
 KINDS: dict[str, type[ObservationSet]] = {
     CrustalThickness.kind: CrustalThickness,
     MeltingPressure.kind: MeltingPressure,
+    BasaltAnalyses.kind: BasaltAnalyses,
 }

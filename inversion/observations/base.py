@@ -223,6 +223,10 @@ class ObservationSet(ABC):
     example_options : mapping
         Kind options that make a valid block of a table built from `column_rules` (class
         attribute; the contract tests use it, e.g. a required ``equilibration``).
+    parameter_options : tuple of str
+        Names of every block setting that may be a prior and then be sampled with the
+        physical parameters (class attribute; the model errors, plus a kind's own, such
+        as the correction choices of ``basalt_analyses``). See `free_options`.
     """
 
     kind: ClassVar[str]
@@ -234,6 +238,8 @@ class ObservationSet(ABC):
     option_keys: ClassVar[tuple[str, ...]] = ()
     error_options: ClassVar[tuple[str, ...]] = ("model_error",)
     example_options: ClassVar[Mapping[str, object]] = {}
+    parameter_options: ClassVar[tuple[str, ...]] = ("model_error",)
+    option_units: ClassVar[dict[str, str]] = {}
 
     def __init__(self, data: pd.DataFrame, *, file: str | PathLike[str] | None = None,
                  model_error: float | Prior = 0.0,
@@ -321,6 +327,16 @@ class ObservationSet(ABC):
                    **options)
 
     @classmethod
+    def example_table(cls, rows: int) -> pd.DataFrame | None:
+        """A valid table of `rows` rows for the contract tests, or None.
+
+        None (the default) lets the tests build one from `column_rules`, a value inside
+        each rule's range; a kind whose rows must also agree with each other (the oxides
+        of a basalt analysis) gives one here.
+        """
+        return None
+
+    @classmethod
     def site_columns(cls) -> tuple[tuple[ColumnRule, ...], ...]:
         """The kind's columns in a survey sites file, as groups filled together.
 
@@ -375,6 +391,23 @@ class ObservationSet(ABC):
         """The block's free model errors: option name -> prior, in `error_options` order."""
         return {option: getattr(self, option) for option in self.error_options
                 if isinstance(getattr(self, option), Prior)}
+
+    @property
+    def free_options(self) -> dict[str, Prior]:
+        """Every sampled setting of the block: option name -> prior.
+
+        In `parameter_options` order; the model errors among them are `free_errors`.
+        Each becomes a parameter ``<block label>.<option>`` of the study
+        (`inversion.study.BlockParameter`), and every likelihood call gets its values
+        per parameter vector in ``errors={option: (n,)}``.
+        """
+        return {option: getattr(self, option) for option in self.parameter_options
+                if isinstance(getattr(self, option), Prior)}
+
+    def option_unit(self, option: str) -> str:
+        """Unit of a sampled setting (a model error has the unit of its data)."""
+        units = {"model_error": self.unit, "temperature_model_error": "degC"}
+        return {**units, **self.option_units}[option]
 
     def total_sigma(self, errors: Mapping | None = None) -> np.ndarray:
         """Stated sigma and model error in quadrature: (rows,), or (n, rows) for (n,) errors.

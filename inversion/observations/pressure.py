@@ -111,12 +111,14 @@ class MeltingPressure(ObservationSet):
     option_keys = ("equilibration", "path_points", "temperature_model_error")
     error_options = ("model_error", "temperature_model_error")
     example_options = {"equilibration": "path"}
+    parameter_options = error_options
 
     def __init__(self, data, *, equilibration: str, file=None, model_error=0.0,
                  lines=None, path_points: int = 64,
                  temperature_model_error: float | Prior = 0.0) -> None:
         super().__init__(data, file=file, model_error=model_error, lines=lines)
-        options = self._parse_options({"equilibration": equilibration,
+        # MeltingPressure's own keys (a subclass parses more keys of its own).
+        options = MeltingPressure._parse_options({"equilibration": equilibration,
                                        "path_points": path_points,
                                        "temperature_model_error": temperature_model_error},
                                       "observations")
@@ -330,37 +332,48 @@ class MeltingPressure(ObservationSet):
         temperature = None if temperature is None else temperature[..., None]
         return pressure[..., None], temperature, np.ones(pressure.shape + (1,))
 
-    def _row_logpdf(self, dp, dt, errors: Mapping | None, *, axis: bool) -> np.ndarray:
-        """Log density of residuals dp (GPa) and dt (degC or None) of every row.
+    def _observed_rows(self, errors: Mapping | None):
+        """Observed P, T and the total errors of every row, as the likelihood uses them.
 
-        The residuals have shape (n, rows) or, with ``axis=True``, (n, rows, k) for k
-        path points; the sigmas and correlation of each row broadcast against them.
+        Returns
+        -------
+        p, t : ndarray, shape (rows,) or (n, rows)
+            Observed pressures (GPa) and temperatures (degC; None without them).
+        s_p, s_t : ndarray, shape (rows,) or (n, rows)
+            Total 1-sigma (stated and model error in quadrature; s_t None without
+            temperatures).
+        rho : ndarray or None
+            Correlation of the total errors, rho sigma_P sigma_T / (s_P s_T): the stated
+            errors are correlated, the model errors are added independently.
         """
-        def per_row(a):
-            return a[..., None] if axis else a
-
         s_p = self.total_sigma(errors)
-        if dt is None:
-            return gaussian_logpdf(dp, 0.0, per_row(s_p))
+        if not self.has_temperature:
+            return self.values, None, s_p, None, None
         s_t = self.total_temperature_sigma(errors)
-        # The stated errors are correlated; the model errors are added independently.
         rho = self._rho * self._stated_sigma * self._stated_t_sigma / (s_p * s_t)
-        return bivariate_logpdf(dp, dt, per_row(s_p), per_row(s_t), per_row(rho))
+        return self.values, self.temperature, s_p, s_t, rho
 
     def _per_row(self, column, errors: Mapping | None) -> np.ndarray:
         """Log-likelihood of every row, shape (n, rows)."""
+        p_obs, t_obs, s_p, s_t, rho = self._observed_rows(errors)
         if self.equilibration == "path":
             pressure, temperature, weight = self._path(column)
-            dp = self.values[:, None] - pressure[..., None, :]
-            dt = None if temperature is None else \
-                self.temperature[:, None] - temperature[..., None, :]
-            terms = self._row_logpdf(dp, dt, errors, axis=True)
+            # rows on axis -2, path points on the last axis: (n, rows, k)
+            dp = p_obs[..., None] - pressure[..., None, :]
+            if temperature is None or t_obs is None:
+                terms = gaussian_logpdf(dp, 0.0, s_p[..., None])
+            else:
+                dt = t_obs[..., None] - temperature[..., None, :]
+                terms = bivariate_logpdf(dp, dt, s_p[..., None], s_t[..., None],
+                                         rho[..., None])
             with np.errstate(divide="ignore"):
                 log_w = np.log(weight)[..., None, :]
             return logsumexp(terms + log_w, axis=-1)
         pressure, temperature = self._point(column)
-        dt = None if temperature is None else self.temperature - temperature[..., None]
-        return self._row_logpdf(self.values - pressure[..., None], dt, errors, axis=False)
+        dp = p_obs - pressure[..., None]
+        if temperature is None or t_obs is None:
+            return gaussian_logpdf(dp, 0.0, s_p)
+        return bivariate_logpdf(dp, t_obs - temperature[..., None], s_p, s_t, rho)
 
     def pointwise_log_likelihood(self, column, *, parameters: Mapping | None = None,
                                  errors: Mapping | None = None) -> np.ndarray:
@@ -407,14 +420,18 @@ class MeltingPressure(ObservationSet):
             p, t = self._point(column)
             point_p = np.full(rows, float(np.ravel(p)[0]))
             point_t = None if t is None else np.full(rows, float(np.ravel(t)[0]))
+        _, _, s_p, s_t, rho = self._observed_rows(errors)  # errors: scalar or (1,) each
         z_p = rng.standard_normal(rows)
-        s_p = np.reshape(self.total_sigma(errors), rows)  # errors: scalar or (1,) each
+        s_p = np.reshape(s_p, rows)
         new = {self.value_column: point_p + s_p * z_p}
         if point_t is not None:
             z_t = rng.standard_normal(rows)
-            s_t = np.reshape(self.total_temperature_sigma(errors), rows)
-            rho = self._rho * self._stated_sigma * self._stated_t_sigma / (s_p * s_t)
+            s_t, rho = np.reshape(s_t, rows), np.reshape(rho, rows)
             new["temperature_c"] = point_t + s_t * (rho * z_p + np.sqrt(1 - rho**2) * z_t)
+        return self._replicate(new, errors)
+
+    def _replicate(self, new: dict[str, np.ndarray], errors: Mapping | None):
+        """A copy holding the simulated values `new` (column name -> (rows,))."""
         return self._replace_values(new, **self._options())
 
     def describe(self) -> str:

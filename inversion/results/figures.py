@@ -163,6 +163,8 @@ def _corner_legend(ndim: int):
 
 # ---- fit --------------------------------------------------------------------------------
 
+#: Kinds whose rows are pressures and temperatures, drawn alike (basalt_analyses: derived).
+
 def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     """Observations against the posterior predictive distribution of `ndraws` draws.
 

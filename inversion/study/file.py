@@ -35,6 +35,7 @@ __all__ = [
     "DEFAULT_FIXED",
     "PARAMETERS",
     "PARAMETER_UNITS",
+    "BlockParameter",
     "ErrorParameter",
     "ModelSettings",
     "SamplerSettings",
@@ -101,8 +102,12 @@ class ModelSettings:
 
 
 @dataclass(frozen=True)
-class ErrorParameter:
-    """A free model error of one observation block, sampled with the parameters.
+class BlockParameter:
+    """A setting of one observation block given a prior, sampled with the parameters.
+
+    A free model error (``model_error``, ``temperature_model_error``) or a kind's own
+    sampled setting (``olivine_fo``, ``fe3_fraction`` of ``basalt_analyses``); each kind
+    lists them in ``parameter_options``.
 
     Attributes
     ----------
@@ -115,10 +120,10 @@ class ErrorParameter:
     block : int
         Index of the block in `Study.observations` (0-based).
     option : str
-        ``"model_error"`` or ``"temperature_model_error"``.
+        The block's key, e.g. ``"model_error"`` or ``"olivine_fo"``.
     prior : Prior
     unit : str
-        Unit of the error (the unit of the data it is added to).
+        Unit of the setting (a model error has the unit of the data it is added to).
     """
 
     name: str
@@ -128,18 +133,25 @@ class ErrorParameter:
     unit: str
 
 
-def error_parameters(observations) -> tuple[ErrorParameter, ...]:
-    """The free model errors of a sequence of observation blocks, in block order."""
+#: The earlier name of `BlockParameter` (free model errors were the only kind).
+ErrorParameter = BlockParameter
+
+
+def block_parameters(observations) -> tuple[BlockParameter, ...]:
+    """The sampled settings of a sequence of observation blocks, in block order."""
     labels = [_block_label(block) for block in observations]
     labels = [f"{label}-{i + 1}" if labels.count(label) > 1 else label
               for i, label in enumerate(labels)]
-    units = {"model_error": None, "temperature_model_error": "degC"}
     out = []
     for index, (block, label) in enumerate(zip(observations, labels, strict=True)):
-        for option, prior in block.free_errors.items():
-            out.append(ErrorParameter(f"{label}.{option}", index, option, prior,
-                                      units[option] or block.unit))
+        for option, prior in block.free_options.items():
+            out.append(BlockParameter(f"{label}.{option}", index, option, prior,
+                                      block.option_unit(option)))
     return tuple(out)
+
+
+#: The earlier name of `block_parameters`.
+error_parameters = block_parameters
 
 
 def _block_label(block: ObservationSet) -> str:
@@ -266,7 +278,7 @@ class Study:
         for block in self.observations:
             if not isinstance(block, ObservationSet):
                 raise TypeError(f"observations must be ObservationSet objects, got {block!r}")
-        ndim = len(self.priors) + len(self.error_parameters)
+        ndim = len(self.priors) + len(self.block_parameters)
         if self.sampler.walkers < 2 * ndim:
             raise InputError(
                 f"walkers = {self.sampler.walkers} is too few for {ndim} free parameters; the "
@@ -361,19 +373,26 @@ class Study:
 
     @property
     def sampled_parameters(self) -> tuple[str, ...]:
-        """Every sampled name: `free_parameters`, then the `error_parameters` names.
+        """Every sampled name: `free_parameters`, then the `block_parameters` names.
 
         The column order of `inversion.LogPosterior` and of every chain.
         """
-        return self.free_parameters + tuple(e.name for e in self.error_parameters)
+        return self.free_parameters + tuple(e.name for e in self.block_parameters)
 
     @property
-    def error_parameters(self) -> tuple[ErrorParameter, ...]:
-        """The free model errors of the observation blocks, in block order.
+    def block_parameters(self) -> tuple[BlockParameter, ...]:
+        """The sampled settings of the observation blocks, in block order.
 
-        They are sampled after the physical `free_parameters` (see `ErrorParameter`).
+        Free model errors and a kind's own sampled settings (``olivine_fo``,
+        ``fe3_fraction``); they are sampled after the physical `free_parameters` (see
+        `BlockParameter`).
         """
-        return error_parameters(self.observations)
+        return block_parameters(self.observations)
+
+    @property
+    def error_parameters(self) -> tuple[BlockParameter, ...]:
+        """The earlier name of `block_parameters`."""
+        return self.block_parameters
 
     @property
     def fixed_parameters(self) -> tuple[str, ...]:
@@ -439,7 +458,7 @@ class Study:
                 lines.append(f"  {name}: fixed at {self.fixed[name]:g} {unit}".rstrip())
         lines.extend(f"  data: {block.describe()}" for block in self.observations)
         lines.extend(f"  {error.name}: free, {error.prior.describe(unit=error.unit)}"
-                     for error in self.error_parameters)
+                     for error in self.block_parameters)
         return "\n".join(lines)
 
 
