@@ -24,6 +24,7 @@ from ..outputs.folder import (
     check_output_folder,
     check_replaceable,
     output_lock,
+    output_path,
     remove_listed,
     remove_stale_temporaries,
 )
@@ -104,7 +105,7 @@ def fit(
         started = time.time()
         result = _sample(study, seed, None, resume=False, quiet=quiet)
         return _finish(study, seed, result, started, provenance)
-    out = Path(out).absolute()
+    out = output_path(out)
     with output_lock(out):
         partial = _prepare_folders(out, study, resume=resume, force=force)
         started = time.time()
@@ -168,7 +169,7 @@ def _prepare_folders(out: Path, study, *, resume: bool, force: bool) -> Path:
     """Apply the output-folder rules before any work; return the checkpoint folder."""
     partial = out.with_name(out.name + ".partial")
     inputs = study_inputs(study)
-    check_output_folder(out, force=force, inputs=inputs)
+    check_output_folder(out, force=force, inputs=inputs, kind="fit result")
     if resume and not partial.is_dir():
         raise OutputConflict("there is no interrupted run to resume for this folder",
                              reason="no-checkpoint", file=partial)
@@ -177,7 +178,7 @@ def _prepare_folders(out: Path, study, *, resume: bool, force: bool) -> Path:
             raise OutputConflict("an interrupted run is stored here", reason="checkpoint",
                                  file=partial)
         remove_listed(partial, check_replaceable(partial, inputs=inputs,
-                                                 what="checkpoint folder"))
+                                                 what="checkpoint folder", kind="checkpoint"))
     remove_stale_temporaries(out)
     if not resume:
         try:
