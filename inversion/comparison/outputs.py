@@ -38,6 +38,7 @@ from ..outputs.folder import (
     MANIFEST,
     check_output_folder,
     check_replaceable,
+    discard_checkpoint,
     output_lock,
     output_path,
     publish_folder,
@@ -99,13 +100,10 @@ class Checkpoint:
         remove_stale_temporaries(out)
         if resume:
             _check_resumable(partial, record)
-        elif partial.exists() or partial.is_symlink():
-            if not force:
-                raise OutputConflict("an interrupted comparison is stored here",
-                                     reason="checkpoint", file=partial)
-            remove_listed(partial, check_replaceable(partial, inputs=inputs,
-                                                     what="checkpoint", kind=KIND))
-        if not resume:
+        else:
+            discard_checkpoint(partial, force=force, inputs=inputs, kind=KIND,
+                               what="checkpoint", problem="an interrupted comparison is "
+                               "stored here")
             remove_stale_temporaries(partial)
             with staged_folder(partial) as staged:
                 _write_top_manifest(staged, found.names)

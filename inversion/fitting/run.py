@@ -22,10 +22,9 @@ import numpy as np
 from ..errors import InputError, OutputConflict, PosteriorWarning, WriteError
 from ..outputs.folder import (
     check_output_folder,
-    check_replaceable,
+    discard_checkpoint,
     output_lock,
     output_path,
-    remove_listed,
     remove_stale_temporaries,
 )
 from ..outputs.identity import run_fingerprint, study_inputs
@@ -173,12 +172,9 @@ def _prepare_folders(out: Path, study, *, resume: bool, force: bool) -> Path:
     if resume and not partial.is_dir():
         raise OutputConflict("there is no interrupted run to resume for this folder",
                              reason="no-checkpoint", file=partial)
-    if not resume and (partial.exists() or partial.is_symlink()):
-        if not force:
-            raise OutputConflict("an interrupted run is stored here", reason="checkpoint",
-                                 file=partial)
-        remove_listed(partial, check_replaceable(partial, inputs=inputs,
-                                                 what="checkpoint folder", kind="checkpoint"))
+    if not resume:
+        discard_checkpoint(partial, force=force, inputs=inputs, kind="checkpoint",
+                           problem="an interrupted run is stored here")
     remove_stale_temporaries(out)
     if not resume:
         try:

@@ -56,6 +56,7 @@ __all__ = [
     "check_output_file",
     "check_output_folder",
     "check_replaceable",
+    "discard_checkpoint",
     "output_lock",
     "output_path",
     "publish_folder",
@@ -107,7 +108,7 @@ def write_manifest(folder: str | PathLike[str], files: Iterable[str], *, kind: s
     ----------
     folder : str or path-like
     files : iterable of str
-        File names (no folders) lidmelt writes there.
+        File names (no folders) lidmelt writes there (the manifest is always listed).
     kind : str
         What the folder is, e.g. ``"fit result"``, ``"checkpoint"``, ``"survey site"``.
     patterns : sequence of str
@@ -115,7 +116,7 @@ def write_manifest(folder: str | PathLike[str], files: Iterable[str], *, kind: s
     folders : iterable of str
         Subfolders lidmelt writes there, each with a manifest of its own.
     """
-    record = {"written_by": "lidmelt", "kind": kind, "files": sorted(set(files)),
+    record = {"written_by": "lidmelt", "kind": kind, "files": sorted({*files, MANIFEST}),
               "patterns": list(patterns), "folders": sorted(set(folders))}
     write_text(Path(folder) / MANIFEST, json.dumps(record, indent=2) + "\n")
 
@@ -371,6 +372,26 @@ def remove_listed(folder: Path, files: Iterable[Path]) -> None:
                 file.unlink()
     with contextlib.suppress(OSError):
         Path(folder).rmdir()
+
+
+def discard_checkpoint(partial: Path, *, force: bool, problem: str, kind: str,
+                       inputs: Iterable[str | PathLike[str]] = (),
+                       what: str = "checkpoint folder") -> None:
+    """Before a fresh run: refuse a stored checkpoint `partial`, or with `force` remove it
+    by the rule (`check_replaceable` of `kind`).
+
+    Raises
+    ------
+    OutputConflict
+        `partial` exists and `force` is false (`problem` says what is stored).
+    InputError
+        `partial` is not lidmelt's to remove.
+    """
+    if not (partial.exists() or partial.is_symlink()):
+        return
+    if not force:
+        raise OutputConflict(problem, reason="checkpoint", file=partial)
+    remove_listed(partial, check_replaceable(partial, inputs=inputs, what=what, kind=kind))
 
 
 def written(shown: Path, write: Callable, *args, **kwargs):
