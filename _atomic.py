@@ -25,8 +25,13 @@ from collections.abc import Iterator
 from os import PathLike
 from pathlib import Path
 
-__all__ = ["append_bytes", "replacing", "staged_folder", "temporary_target", "write_bytes",
-           "write_text"]
+__all__ = ["PNG_MARK", "append_bytes", "replacing", "staged_folder", "temporary_target",
+           "write_bytes", "write_text"]
+
+#: The PNG ``Software`` text entry of a figure lidmelt writes as a file of its own (the
+#: column command's ``--plot``); `inversion.outputs.folder.check_output_file` replaces a
+#: file only with this mark.
+PNG_MARK = "lidmelt"
 
 _TEMPORARY = re.compile(r"^\.(?P<target>.+)\.[A-Za-z0-9_]{6,}\.tmp[^/]*$")
 

@@ -9,7 +9,6 @@ import itertools
 import json
 import sys
 import textwrap
-from pathlib import Path
 
 import numpy as np
 
@@ -60,7 +59,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="output format: aligned table for people (default), or CSV / "
                         "JSON at full precision with the same keys")
     parser.add_argument("--plot", metavar="FILE.png",
-                        help="also draw P-T diagrams (one panel per lid) to this PNG")
+                        help="also draw P-T diagrams (one panel per lid) to this PNG "
+                        "(refused if it exists, see --force)")
+    parser.add_argument("--force", action="store_true",
+                        help="replace the --plot file if lidmelt wrote it (never another "
+                        "file)")
 
 
 def parse_values(text: str, option: str) -> list[float]:
@@ -222,13 +225,23 @@ def format_rows(rows: list[dict], fmt: str) -> str:
     return "\n".join(lines)
 
 
+def _check_plot(plot: str, *, force: bool) -> None:
+    """The --plot file: a new .png, or with --force one lidmelt wrote (checked before work)."""
+    from ..inversion.errors import OutputConflict
+    from ..inversion.outputs.folder import check_output_file
+
+    if not plot.lower().endswith(".png"):
+        raise InputError(f"--plot: {plot!r} must end in .png")
+    try:
+        check_output_file(plot, force=force, what="--plot file")
+    except OutputConflict as err:
+        raise InputError(f"{err.problem}; pass --force to replace it (only a figure "
+                         "lidmelt wrote) or choose another name", file=err.file) from None
+
+
 def run(args) -> int:
     if args.plot:
-        if not args.plot.lower().endswith(".png"):
-            raise InputError(f"--plot: {args.plot!r} must end in .png")
-        if not Path(args.plot).absolute().parent.is_dir():
-            raise InputError("--plot: the folder for the figure does not exist; create it "
-                             "first", file=Path(args.plot).absolute().parent)
+        _check_plot(args.plot, force=args.force)
     rows = tabulate(args)
     if args.plot:
         from ..forward._pt_figure import write_column_figure

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._atomic import replacing
+from .._atomic import PNG_MARK, replacing
 from . import figure_style as style
 from .adiabat import depth_per_pressure
 from .column import melt_column
@@ -136,6 +136,10 @@ def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300
 
 
 def save_figure_atomically(fig, path, dpi=150):
-    """Write the figure as a PNG to a temporary file beside ``path``; rename it into place."""
+    """Write the figure as a PNG to a temporary file beside ``path``; rename it into place.
+
+    The PNG is marked as lidmelt's (``Software`` = `_atomic.PNG_MARK`), so a later run may
+    replace it with ``--force``.
+    """
     with replacing(path) as tmp:
-        fig.savefig(tmp, dpi=dpi)
+        fig.savefig(tmp, dpi=dpi, metadata={"Software": PNG_MARK})

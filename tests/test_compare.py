@@ -181,7 +181,7 @@ def test_force_replaces_only_what_lidmelt_compare_wrote(simulated, study_copy, c
     # ... but not once a user's file is inside it
     (done / "thinned" / "notes.txt").write_text("mine")
     assert main(["compare", str(study_copy), "--out", str(done), "--force", "--quiet"]) == 2
-    assert "holds 'notes.txt'" in capsys.readouterr().err
+    assert "holds 'thinned/notes.txt'" in capsys.readouterr().err
     assert (done / "thinned" / "notes.txt").is_file() and (done / "evidence.csv").is_file()
     # never the working folder or the study's own folder, even with a manifest there
     shutil.copy(done / "lidmelt-files.json", study_copy.parent / "lidmelt-files.json")

@@ -117,7 +117,7 @@ def test_rule_refuses_links_and_a_forged_manifest(tmp_path):
     real.mkdir()
     write_manifest(real, [], kind="fit result")
     (tmp_path / "link").symlink_to(real)
-    with pytest.raises(InputError, match="is a file"):
+    with pytest.raises(InputError, match="is a symbolic link"):
         check_replaceable(tmp_path / "link")
     (real / MANIFEST).write_text(json.dumps({"written_by": "someone", "files": []}))
     with pytest.raises(InputError, match="not written by lidmelt"):

@@ -56,8 +56,8 @@ def test_resume_refuses_changed_inputs_and_names_them(stopped, capsys, monkeypat
     study.write_text(text)
 
     with monkeypatch.context() as patch:
-        real = _provenance._version
-        patch.setattr(_provenance, "_version",
+        real = _provenance.package_version
+        patch.setattr(_provenance, "package_version",
                       lambda name: "99.0" if name == "lidmelt" else real(name))
         code, err = _resume(capsys, study, out)
     assert code == 2 and "cannot resume: the lidmelt version changed" in err

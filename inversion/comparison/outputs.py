@@ -14,49 +14,60 @@ Every file goes through `lidmelt._atomic`. While a comparison runs, each finishe
 is staged beside its place in ``DIR.partial/`` and renamed into it in one step (it is
 complete or absent); at the end the summary files are added and ``DIR.partial`` is
 renamed to ``DIR``. A resumed run reloads the finished scenarios after checking that the
-study file, its tables, the seed and the settings are unchanged.
+study file, its tables, the seed and the settings are unchanged (`identity.check_same_run`).
 
-What may be replaced follows lidmelt's one rule (`inversion.outputs.folder`): never a file, the
-working folder or a folder holding an input; only a folder whose manifest lists
-everything in it. A comparison folder holds scenario folders, which that rule (written
-for flat folders) does not look into, so `check_replaceable` here checks each of them
-with it and the top level against its own manifest, as the survey does for its sites.
+What may be replaced follows lidmelt's one rule (`inversion.outputs.folder`): the top
+manifest (kind ``comparison``) lists the summary files and the scenario folders, each of
+which carries its own manifest.
 """
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import io
 import json
 import math
 import os
 import time
-from importlib import metadata
 from pathlib import Path
 
-from ..._atomic import staged_folder, temporary_target, write_bytes
+from ..._atomic import staged_folder, write_bytes
 from ..errors import InputError, OutputConflict
-from ..results.writers import _written as _guarded  # OSError (a full disk) -> WriteError
-from ..outputs.identity import study_inputs
 from ..outputs.folder import (
     MANIFEST,
-    check_not_protected,
+    check_output_folder,
+    check_replaceable,
+    discard_checkpoint,
     output_lock,
+    output_path,
+    publish_folder,
     remove_listed,
     remove_stale_temporaries,
     write_manifest,
+    write_staged,
+    written,
 )
-from ..outputs.folder import check_replaceable as check_flat_replaceable
+from ..outputs.identity import (
+    check_same_run,
+    digest,
+    files_fingerprint,
+    package_version,
+    study_inputs,
+    with_version,
+)
 from ..fitting.sampler import assess_chain, read_chain
 
-__all__ = ["COMPARISON_FILES", "RECORD", "SCENARIO_FILE", "Checkpoint", "check_replaceable",
+__all__ = ["COMPARISON_FILES", "KIND", "RECORD", "SCENARIO_FILE", "Checkpoint",
            "save_comparison"]
 
 RECORD = "comparison.json"
 SCENARIO_FILE = "scenario.json"
 #: Files at the top of a comparison folder (besides the scenario folders).
 COMPARISON_FILES = ("evidence.csv", "compare.png", "report.md", RECORD, MANIFEST)
-_KIND = "comparison"
+#: The manifest kind of a comparison folder (and of its checkpoint ``DIR.partial``).
+KIND = "comparison"
+_WHAT = "comparison folder"
 _RUN_INFO = ("command_line", "sampling_seconds", "finished_utc", "resumed_from_step")
 
 
@@ -81,24 +92,29 @@ class Checkpoint:
             `out` or the checkpoint is not lidmelt's to replace, or `out`'s folder is
             missing.
         """
-        out = Path(out).absolute()
+        out = output_path(out, what=_WHAT)
         partial = out.with_name(out.name + ".partial")
         inputs = _inputs(found)
         record = _record(found, seed)
-        _check_target(out, force=force, inputs=inputs)
+        check_output_folder(out, force=force, inputs=inputs, what=_WHAT, kind=KIND)
         remove_stale_temporaries(out)
         if resume:
-            _check_same_run(partial, record)
-        elif partial.exists() or partial.is_symlink():
-            if not force:
-                raise OutputConflict("an interrupted comparison is stored here",
-                                     reason="checkpoint", file=partial)
-            _remove(partial, check_replaceable(partial, inputs=inputs, what="checkpoint"))
-        if not resume:
-            partial.mkdir()
-            _write_top_manifest(partial)
-            _write_json(partial / RECORD, record)
+            _check_resumable(partial, record)
+        else:
+            discard_checkpoint(partial, force=force, inputs=inputs, kind=KIND,
+                               what="checkpoint", problem="an interrupted comparison is "
+                               "stored here")
+            remove_stale_temporaries(partial)
+            with staged_folder(partial) as staged:
+                _write_top_manifest(staged, found.names)
+                _write_json(staged / RECORD, record)
+                written(partial, os.rename, staged, partial)
         return cls(out, partial, found)
+
+    def discard(self) -> None:
+        """Remove the checkpoint (a fresh run that stopped on bad input), by the rule."""
+        with contextlib.suppress(InputError):  # something foreign appeared: keep it all
+            remove_listed(self.partial, check_replaceable(self.partial, kind=KIND))
 
     def load(self, scenario) -> tuple[dict, object] | None:
         """The stored record and posterior of a finished scenario, or None.
@@ -118,24 +134,26 @@ class Checkpoint:
     def finish(self, comparison, *, force: bool) -> Path:
         """Add the summary files and move the checkpoint to the result folder."""
         write_summary(comparison, self.partial)
-        _publish(self.partial, self.out, inputs=_inputs(self.found), replace=force)
+        written(self.out, publish_folder, self.partial, self.out, inputs=_inputs(self.found),
+                replace=force, kind=KIND, what=_WHAT)
         return self.out
 
 
 def save_comparison(comparison, directory: Path, *, force: bool = False) -> Path:
     """Write a whole comparison folder at once (see `Comparison.save`)."""
-    directory = Path(directory).absolute()
+    directory = output_path(directory, what=_WHAT)
     inputs = _inputs(comparison.scenarios)
     with output_lock(directory):
-        _check_target(directory, force=force, inputs=inputs)
+        check_output_folder(directory, force=force, inputs=inputs, what=_WHAT, kind=KIND)
         remove_stale_temporaries(directory)
         with staged_folder(directory) as staged:
-            _write_top_manifest(staged)
+            _write_top_manifest(staged, comparison.scenarios.names)
             _write_json(staged / RECORD, _record(comparison.scenarios, comparison.seed))
             for result in comparison.results:
                 write_scenario(result, staged)
             write_summary(comparison, staged)
-            _publish(staged, directory, inputs=inputs, replace=force)
+            written(directory, publish_folder, staged, directory, inputs=inputs,
+                    replace=force, kind=KIND, what=_WHAT)
     return directory
 
 
@@ -145,10 +163,8 @@ def write_scenario(result: ScenarioResult, parent: Path) -> Path:
     files = _scenario_files(result)
     remove_stale_temporaries(target)
     with staged_folder(target) as staged:
-        _guarded(target, write_manifest, staged, files, kind="comparison scenario")
-        for name, data in files.items():
-            _guarded(target / name, write_bytes, staged / name, data)
-        _guarded(target, os.rename, staged, target)
+        write_staged(staged, files, kind="comparison scenario", shown=target)
+        written(target, os.rename, staged, target)
     return target
 
 
@@ -201,93 +217,11 @@ def write_summary(comparison, folder: Path) -> None:
                        ("compare.png", buffer.getvalue()),
                        ("report.md", render(comparison).encode("utf-8")),
                        (RECORD, _json_bytes(record))):
-        _guarded(folder / name, write_bytes, folder / name, data)
+        written(folder / name, write_bytes, folder / name, data)
 
 
-# ---- what may be replaced, and how a folder is swapped in --------------------------------
-
-def check_replaceable(path: Path, *, inputs=(), what: str = "comparison folder") -> list:
-    """Check that the comparison folder `path` may be replaced; return what to remove.
-
-    The rule of `inversion.outputs.folder` (module docstring), applied to the top level (its
-    manifest) and to each scenario folder (theirs).
-
-    Returns
-    -------
-    list of (pathlib.Path, list of pathlib.Path)
-        Each folder (scenario folders first, `path` last) with its files to remove.
-
-    Raises
-    ------
-    InputError
-        `path` is protected, not a comparison folder lidmelt wrote, or holds anything
-        lidmelt did not write there.
-    """
-    path = Path(path).absolute()
-    check_not_protected(path, inputs=inputs, what=what)
-    listed = _manifest_files(path)
-    if listed is None:
-        raise InputError(f"the {what} was not written by lidmelt compare (it has no "
-                         f"{MANIFEST} of a comparison); lidmelt replaces only folders it "
-                         "wrote itself", file=path)
-    plan, own = [], []
-    for entry in sorted(path.iterdir()):
-        if entry.is_dir() and not entry.is_symlink():
-            plan.append((entry, check_flat_replaceable(entry, inputs=inputs,
-                                                       what="scenario folder")))
-        elif entry.name in listed or temporary_target(entry.name) in listed:
-            own.append(entry)
-        else:
-            raise InputError(f"the {what} holds '{entry.name}', which lidmelt did not write "
-                             "there; move it away or choose another folder", file=path)
-    return [*plan, (path, own)]
-
-
-def _check_target(target: Path, *, force: bool, inputs) -> None:
-    if not target.parent.is_dir():
-        raise InputError("the folder to hold the comparison folder does not exist; create "
-                         "it first", file=target.parent)
-    if target.exists() or target.is_symlink():
-        if not force:
-            raise OutputConflict("the comparison folder already exists", reason="exists",
-                                 file=target)
-        check_replaceable(target, inputs=inputs)
-
-
-def _publish(staged: Path, target: Path, *, inputs, replace: bool) -> None:
-    """Move the complete folder `staged` to `target`; an old `target` only by the rule."""
-    old, plan = None, []
-    if replace and (target.exists() or target.is_symlink()):
-        plan = check_replaceable(target, inputs=inputs)
-        old = target.with_name(f".{target.name}.old-{os.getpid()}")
-        _guarded(target, os.rename, target, old)
-    _guarded(target, os.rename, staged, target)
-    if old is not None:  # the same files, now under the old folder's new name
-        _remove(old, [(old / folder.relative_to(target),
-                       [old / file.relative_to(target) for file in files])
-                      for folder, files in plan])
-
-
-def _remove(root: Path, plan) -> None:
-    """Remove what `check_replaceable` listed, folder by folder (each only if emptied)."""
-    for folder, files in plan:
-        remove_listed(Path(folder), files)
-    if root.is_dir() and not any(root.iterdir()):
-        root.rmdir()
-
-
-def _manifest_files(folder: Path) -> set[str] | None:
-    try:
-        record = json.loads((folder / MANIFEST).read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return None
-    if record.get("written_by") != "lidmelt" or record.get("kind") != _KIND:
-        return None
-    return set(record.get("files", [])) | {MANIFEST}
-
-
-def _write_top_manifest(folder: Path) -> None:
-    _guarded(folder, write_manifest, folder, COMPARISON_FILES, kind=_KIND)
+def _write_top_manifest(folder: Path, scenarios) -> None:
+    written(folder, write_manifest, folder, COMPARISON_FILES, kind=KIND, folders=scenarios)
 
 
 # ---- provenance -------------------------------------------------------------------------
@@ -300,38 +234,42 @@ def _record(found, seed: int) -> dict:
     source = found.base.source
     return {
         "written_by": "lidmelt compare",
-        "lidmelt_version": _version(),
+        "lidmelt_version": package_version("lidmelt") or "0+unknown",
         "study_name": found.base.name,
         "study_file": None if source is None else str(Path(source).resolve()),
         "inputs_sha256": dict(found.input_hashes),
         "seed": int(seed),
         "scenarios": list(found.names),
         "settings": dataclasses.asdict(found.settings),
+        "fingerprint": _fingerprint(found, seed),
     }
 
 
-def _check_same_run(partial: Path, record: dict) -> None:
-    if not (partial / RECORD).is_file():
+def _fingerprint(found, seed: int) -> dict[str, str]:
+    """What a resumed comparison must share with the stored one (`check_same_run`)."""
+    return with_version({
+        **files_fingerprint(found.input_hashes, study_file=found.base.source),
+        "the seed": str(int(seed)),
+        "the scenarios": digest(json.dumps(list(found.names))),
+        "the comparison settings": digest(json.dumps(_plain(
+            dataclasses.asdict(found.settings)), sort_keys=True)),
+    })
+
+
+def _check_resumable(partial: Path, record: dict) -> None:
+    if partial.is_symlink() or not (partial / RECORD).is_file():
         raise OutputConflict("there is no interrupted comparison to resume for this folder",
                              reason="no-checkpoint", file=partial)
-    stored = json.loads((partial / RECORD).read_text(encoding="utf-8"))
-    old, new = stored.get("inputs_sha256", {}), record["inputs_sha256"]
-    for path in sorted(set(old) | set(new)):
-        if old.get(path) != new.get(path):
-            what = "is new" if path not in old else "is no longer used" if path not in new \
-                else "changed"
-            raise OutputConflict(f"cannot resume: {Path(path).name} {what} since the "
-                                 "interrupted comparison was started", reason="changed",
-                                 file=partial)
-    for key in ("seed", "scenarios", "settings", "lidmelt_version"):
-        if stored.get(key) != record[key]:
-            raise OutputConflict(f"cannot resume: the interrupted comparison has {key} = "
-                                 f"{stored.get(key)!r}, this run {record[key]!r}",
-                                 reason="changed", file=partial)
+    try:
+        stored = json.loads((partial / RECORD).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        stored = {}
+    check_same_run(stored.get("fingerprint"), record["fingerprint"],
+                   since="the interrupted comparison was started", file=partial)
 
 
 def _write_json(path: Path, data: dict) -> None:
-    _guarded(path, write_bytes, path, _json_bytes(data))
+    written(path, write_bytes, path, _json_bytes(data))
 
 
 def _json_bytes(data: dict) -> bytes:
@@ -350,11 +288,3 @@ def _plain(value):
     if isinstance(value, float) and not math.isfinite(value):
         return None
     return value
-
-
-def _version() -> str:
-    try:
-        return metadata.version("lidmelt")
-    except metadata.PackageNotFoundError:
-        return "0+unknown"
-

@@ -84,13 +84,18 @@ def compare(
                              key="out")
         comparison = _run(found, seed, None, quiet=quiet, progress=progress)
     else:
-        from ..outputs.folder import output_lock
+        from ..outputs.folder import output_lock, output_path
         from .outputs import Checkpoint
 
-        out = Path(out).absolute()
+        out = output_path(out, what="comparison folder")
         with output_lock(out):
             checkpoint = Checkpoint.open(out, found, seed, resume=resume, force=force)
-            comparison = _run(found, seed, checkpoint, quiet=quiet, progress=progress)
+            try:
+                comparison = _run(found, seed, checkpoint, quiet=quiet, progress=progress)
+            except InputError:
+                if not resume:  # bad input found late: leave no half folder behind
+                    checkpoint.discard()
+                raise
             checkpoint.finish(comparison, force=force)
     for message in comparison.warnings():
         warnings.warn(ComparisonWarning(message), stacklevel=2)

@@ -21,9 +21,9 @@ import numpy as np
 from ..errors import InputError, OutputConflict, PosteriorWarning, WriteError
 from ..outputs.folder import (
     check_output_folder,
-    check_replaceable,
+    discard_checkpoint,
     output_lock,
-    remove_listed,
+    output_path,
     remove_stale_temporaries,
 )
 from ..outputs.identity import run_fingerprint, study_inputs
@@ -104,7 +104,7 @@ def fit(
         started = time.time()
         result = _sample(study, seed, None, resume=False, quiet=quiet)
         return _finish(study, seed, result, started, provenance)
-    out = Path(out).absolute()
+    out = output_path(out)
     with output_lock(out):
         partial = _prepare_folders(out, study, resume=resume, force=force)
         started = time.time()
@@ -160,16 +160,13 @@ def _prepare_folders(out: Path, study, *, resume: bool, force: bool) -> Path:
     """Apply the output-folder rules before any work; return the checkpoint folder."""
     partial = out.with_name(out.name + ".partial")
     inputs = study_inputs(study)
-    check_output_folder(out, force=force, inputs=inputs)
+    check_output_folder(out, force=force, inputs=inputs, kind="fit result")
     if resume and not partial.is_dir():
         raise OutputConflict("there is no interrupted run to resume for this folder",
                              reason="no-checkpoint", file=partial)
-    if not resume and (partial.exists() or partial.is_symlink()):
-        if not force:
-            raise OutputConflict("an interrupted run is stored here", reason="checkpoint",
-                                 file=partial)
-        remove_listed(partial, check_replaceable(partial, inputs=inputs,
-                                                 what="checkpoint folder"))
+    if not resume:
+        discard_checkpoint(partial, force=force, inputs=inputs, kind="checkpoint",
+                           problem="an interrupted run is stored here")
     remove_stale_temporaries(out)
     if not resume:
         try:

@@ -12,21 +12,25 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from ..._atomic import staged_folder, write_bytes
-from ..errors import WriteError
+from ..._atomic import staged_folder
 from ..outputs.identity import run_record, study_inputs
 from ..outputs.folder import (
     MANIFEST,
     check_output_folder,
     output_lock,
+    output_path,
     publish_folder,
     remove_stale_temporaries,
-    write_manifest,
+    write_staged,
+    written,
 )
 from ..fitting.log_posterior import DERIVED
 from ..fitting.sampler import chain_file_bytes
 
-__all__ = ["OUTPUT_FILES", "save_posterior"]
+__all__ = ["KIND", "OUTPUT_FILES", "save_posterior"]
+
+#: The manifest kind of a fit's result folder.
+KIND = "fit result"
 
 #: Every file a saved result folder contains.
 OUTPUT_FILES = ("summary.csv", "derived.csv", "samples.csv", "chain.h5", "diagnostics.json",
@@ -37,28 +41,17 @@ _CSV = {"index": False, "float_format": "%.6g", "lineterminator": "\n"}
 
 def save_posterior(posterior, directory: Path, *, force: bool = False) -> Path:
     """Write all of `OUTPUT_FILES` for `posterior` to `directory` (see Posterior.save)."""
-    directory = Path(directory).absolute()
+    directory = output_path(directory)
     inputs = study_inputs(posterior.study)
     with output_lock(directory):
-        check_output_folder(directory, force=force, inputs=inputs)
+        check_output_folder(directory, force=force, inputs=inputs, kind=KIND)
         remove_stale_temporaries(directory)
         files = _files(posterior)  # built before the staging folder exists
         with staged_folder(directory) as staged:
-            _written(directory / MANIFEST, write_manifest, staged, OUTPUT_FILES,
-                     kind="fit result")
-            for name, data in files.items():
-                _written(directory / name, write_bytes, staged / name, data)
-            _written(directory, publish_folder, staged, directory, inputs=inputs,
-                     replace=force)
+            write_staged(staged, files, kind=KIND, shown=directory)
+            written(directory, publish_folder, staged, directory, inputs=inputs,
+                    replace=force, kind=KIND)
     return directory
-
-
-def _written(shown: Path, write, *args, **kwargs) -> None:
-    """Call `write`; an OSError (a full disk) becomes a WriteError naming `shown`."""
-    try:
-        write(*args, **kwargs)
-    except OSError as err:
-        raise WriteError(shown, err) from err
 
 
 def _files(posterior) -> dict[str, bytes]:

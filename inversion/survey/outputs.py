@@ -13,33 +13,45 @@ Layout::
     DIR/area.csv            joint mode: the area-wide posterior
     DIR/profile.png, DIR/report.md
 
+Each folder carries lidmelt's manifest (`inversion.outputs.folder.MANIFEST`): the top one
+lists the files above and ``sites/``, whose manifest lists every site folder of the sites
+table, whose own manifest lists `SITE_FILES`. So ``--force`` replaces a survey folder by
+the one rule of `inversion.outputs.folder`, and never a file lidmelt did not write.
+
 A resumed survey re-reads finished sites from their JSON files (floats round-trip
-exactly), so it gives the numbers of an uninterrupted one.
+exactly), so it gives the numbers of an uninterrupted one. `identity` is its resume
+fingerprint (`inversion.outputs.identity`).
 """
 
 from __future__ import annotations
 
-import hashlib
+import contextlib
 import io
 import json
 import re
-from importlib import metadata
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from ..._atomic import staged_folder, write_bytes
 from ..errors import InputError, OutputConflict
-from ._files import (
+from ..outputs.folder import (
     MANIFEST,
+    check_not_protected,
+    check_output_folder,
     check_replaceable,
-    remove_own,
-    remove_temporaries,
-    write_atomic,
-    write_json,
+    publish_folder,
+    read_manifest,
+    remove_listed,
+    remove_own_temporaries,
+    remove_stale_temporaries,
+    write_manifest,
 )
+from ..outputs.identity import check_same_run, digest, with_version
 
-__all__ = ["AREA_COLUMNS", "SUMMARY_COLUMNS", "SurveyFolder", "csv_text"]
+__all__ = ["AREA_COLUMNS", "KIND", "RECORD", "SITE_FILES", "SUMMARY_COLUMNS", "SurveyFolder",
+           "csv_text", "identity"]
 
 #: Columns of sites_summary.csv, in order.
 SUMMARY_COLUMNS = ("site", "position_km", "parameter", "unit", "median", "q2.5", "q16",
@@ -47,7 +59,17 @@ SUMMARY_COLUMNS = ("site", "position_km", "parameter", "unit", "median", "q2.5",
 #: Columns of area.csv, in order.
 AREA_COLUMNS = ("parameter", "unit", "meaning", "median", "mean", "q2.5", "q16", "q84",
                 "q97.5", "sites", "method")
+#: The manifest kind of a survey folder.
+KIND = "survey"
+#: What was run: the inputs' hashes, the settings and the resume fingerprint.
+RECORD = "survey.json"
+#: Files a survey writes at the top of its folder.
+TOP_FILES = (RECORD, "sites_summary.csv", "area.csv", "profile.png", "report.md")
+#: Files a survey writes in each site's folder.
+SITE_FILES = ("site.json", "summary.csv", "likelihood.json", "tp_likelihood.csv",
+              "chain.h5", "grid.npz")
 _TOOL = "lidmelt survey"
+_WHAT = "survey folder"
 _RECORD_FILES = {"likelihood": "likelihood.json", "final": "site.json"}
 
 
@@ -57,18 +79,23 @@ def csv_text(frame: pd.DataFrame) -> str:
 
 
 def identity(study_sha256: str, sites_sha256: str, settings: dict) -> dict:
-    """What makes two survey runs the same run (compared by ``--resume``)."""
+    """What makes two survey runs the same run (the content of survey.json)."""
     text = json.dumps(settings, sort_keys=True)
-    return {"tool": _TOOL, "lidmelt": _version(), "study_sha256": study_sha256,
-            "sites_sha256": sites_sha256, "settings": settings,
-            "settings_sha256": hashlib.sha256(text.encode()).hexdigest()}
+    fingerprint = with_version({"the study file": str(study_sha256),
+                                "the sites file": str(sites_sha256),
+                                "the settings (mode, seed, options)": digest(text)})
+    return {"tool": _TOOL, "lidmelt": fingerprint["the lidmelt version"],
+            "study_sha256": study_sha256, "sites_sha256": sites_sha256,
+            "settings": settings, "settings_sha256": digest(text),
+            "fingerprint": fingerprint}
 
 
-def _version() -> str:
-    try:
-        return metadata.version("lidmelt")
-    except metadata.PackageNotFoundError:
-        return "0+unknown"
+def _write(path: Path, data: bytes | str) -> None:
+    write_bytes(path, data.encode("utf-8") if isinstance(data, str) else data)
+
+
+def _write_json(path: Path, data: dict) -> None:
+    _write(path, json.dumps(data, indent=1) + "\n")  # floats round-trip exactly
 
 
 class SurveyFolder:
@@ -78,9 +105,23 @@ class SurveyFolder:
         self.path = Path(path)
 
     @classmethod
-    def open(cls, path, manifest: dict, *, resume: bool, force: bool,
-             protected=()) -> SurveyFolder:
+    def open(cls, path, record: dict, *, resume: bool, force: bool, inputs=(),
+             site_names=()) -> SurveyFolder:
         """Create, resume or (with `force`) replace the folder, after checking the rules.
+
+        Call it while holding `output_lock` for `path`. A new folder is staged with its
+        manifests and `record` and renamed into place (replacing an old one by the rule).
+
+        Parameters
+        ----------
+        path : path-like
+        record : dict
+            The content of survey.json (`identity` plus the files).
+        resume, force : bool
+        inputs : iterable of path-like
+            The study and sites files (a folder holding them is never replaced).
+        site_names : sequence of str
+            The sites in table order (their folders are listed in ``sites/``'s manifest).
 
         Raises
         ------
@@ -90,37 +131,48 @@ class SurveyFolder:
         """
         folder = cls(Path(path))
         target = folder.path
+        site_folders = [folder.site_dir(k, name).name for k, name in enumerate(site_names)]
         if resume:
-            folder._check_resumable(manifest)
-            remove_temporaries(target)
-        elif target.exists():
-            if not force:
-                raise OutputConflict("the survey folder already exists", reason="checkpoint",
-                                     file=target)
-            check_replaceable(target, protected)
-            remove_own(target)
-        else:
-            if not target.absolute().parent.is_dir():
-                raise InputError("the folder to hold the survey folder does not exist; "
-                                 "create it first", file=target.absolute().parent)
-            target.mkdir()
-        (target / "sites").mkdir(exist_ok=True)
-        write_json(target / MANIFEST, manifest)
+            folder._check_resumable(record, inputs)
+            remove_own_temporaries(target)
+            folder._mark(target, site_folders)
+            _write_json(target / RECORD, record)
+            return folder
+        check_output_folder(target, force=force, inputs=inputs, what=_WHAT, kind=KIND)
+        remove_stale_temporaries(target)
+        with staged_folder(target) as staged:
+            folder._mark(staged, site_folders)
+            _write_json(staged / RECORD, record)
+            publish_folder(staged, target, inputs=inputs, replace=force, kind=KIND,
+                           what=_WHAT)
         return folder
 
-    def _check_resumable(self, manifest: dict) -> None:
-        path = self.path / MANIFEST
-        if not path.is_file():
-            raise OutputConflict(f"there is no survey to resume here (no {MANIFEST})",
-                                 reason="no-checkpoint", file=self.path)
-        old = json.loads(path.read_text(encoding="utf-8"))
-        for key, what in (("study_sha256", "the study file"),
-                          ("sites_sha256", "the sites file"),
-                          ("settings_sha256", "the settings (mode, seed, options)"),
-                          ("lidmelt", "the lidmelt version")):
-            if old.get(key) != manifest.get(key):
-                raise OutputConflict(f"cannot resume: {what} changed since this survey "
-                                     "started", reason="changed", file=self.path)
+    @staticmethod
+    def _mark(top: Path, site_folders) -> None:
+        """The manifests of the folder and of ``sites/`` (before anything else is written)."""
+        write_manifest(top, TOP_FILES, kind=KIND, folders=["sites"])
+        (top / "sites").mkdir(exist_ok=True)
+        write_manifest(top / "sites", [], kind="survey sites", folders=site_folders)
+
+    def _check_resumable(self, record: dict, inputs) -> None:
+        target = self.path
+        if target.exists() or target.is_symlink():
+            check_not_protected(target, inputs=inputs, what=_WHAT)
+        manifest = read_manifest(target) if target.is_dir() else None
+        if manifest is None or manifest.get("kind") != KIND or not (target / RECORD).is_file():
+            raise OutputConflict(f"there is no survey to resume here (no {RECORD} of a "
+                                 "lidmelt survey)", reason="no-checkpoint", file=target)
+        try:
+            old = json.loads((target / RECORD).read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            old = {}
+        check_same_run(old.get("fingerprint"), record["fingerprint"],
+                       since="this survey started", file=target)
+
+    def discard(self) -> None:
+        """Remove the folder by the rule (a fresh survey that stopped on bad input)."""
+        with contextlib.suppress(InputError):  # something foreign appeared: keep it all
+            remove_listed(self.path, check_replaceable(self.path, kind=KIND))
 
     # ---- per site ----------------------------------------------------------------------
 
@@ -143,17 +195,19 @@ class SurveyFolder:
         """Store a site's result (tables first, the JSON record last); return it as read
         back, so fresh and resumed surveys continue from identical numbers."""
         folder = self.site_dir(record["index"], record["site"])
-        folder.mkdir(exist_ok=True)
+        if not (folder / MANIFEST).is_file():
+            folder.mkdir(exist_ok=True)
+            write_manifest(folder, SITE_FILES, kind="survey site")
         if phase == "likelihood" and "tp_axis" in record:
             values = record.get("tp_log_likelihood") or [np.nan] * len(record["tp_axis"])
             table = pd.DataFrame({"potential_temperature": record["tp_axis"],
                                   "log_likelihood": values})
-            write_atomic(folder / "tp_likelihood.csv", table.to_csv(index=False))
+            _write(folder / "tp_likelihood.csv", table.to_csv(index=False))
         if phase == "final":
-            write_atomic(folder / "summary.csv", csv_text(summary_rows([record])))
+            _write(folder / "summary.csv", csv_text(summary_rows([record])))
         self._write_arrays(folder, arrays or {})
         text = json.dumps(record, indent=1) + "\n"
-        write_atomic(folder / _RECORD_FILES[phase], text)
+        _write(folder / _RECORD_FILES[phase], text)
         return json.loads(text)
 
     @staticmethod
@@ -161,7 +215,7 @@ class SurveyFolder:
         if "grid" in arrays:
             buffer = io.BytesIO()
             np.savez_compressed(buffer, **arrays["grid"])
-            write_atomic(folder / "grid.npz", buffer.getvalue())
+            _write(folder / "grid.npz", buffer.getvalue())
         if "chain" in arrays:
             from ..fitting.sampler import write_chain
 
@@ -170,17 +224,17 @@ class SurveyFolder:
     # ---- whole survey ------------------------------------------------------------------
 
     def write_table(self, name: str, frame: pd.DataFrame) -> Path:
-        write_atomic(self.path / name, csv_text(frame))
+        _write(self.path / name, csv_text(frame))
         return self.path / name
 
     def write_text(self, name: str, text: str) -> Path:
-        write_atomic(self.path / name, text)
+        _write(self.path / name, text)
         return self.path / name
 
     def write_figure(self, name: str, figure) -> Path:
         buffer = io.BytesIO()
         figure.savefig(buffer, format="png", dpi=130)
-        write_atomic(self.path / name, buffer.getvalue())
+        _write(self.path / name, buffer.getvalue())
         return self.path / name
 
 

@@ -20,6 +20,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ..errors import InputError
+from ..outputs.folder import output_lock, output_path
 from ..fitting.log_posterior import UNITS
 from ..observations import THICKNESS_OF
 from ..study.seeds import check_seed, integer_seed
@@ -96,19 +97,32 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     SurveyResult
     """
     plan = _Plan.build(study, sites, mode=mode, seed=seed, keep_chains=keep_chains)
-    folder = SurveyFolder.open(out, plan.manifest, resume=resume, force=force,
-                               protected=[Path(study).parent, Path(sites).parent])
-    executor = make_executor(workers, scheduler)
+    target = output_path(out, what="survey folder")
+    executor = make_executor(workers, scheduler)  # a bad option stops before any folder
     try:
-        with _sigterm_as_interrupt():
-            if mode == "independent":
-                records = _run_phase(plan, folder, executor, "posterior", "final",
-                                     quiet=quiet)
-                area = None
-            else:
-                records, area = _run_joint(plan, folder, executor, quiet=quiet)
+        with output_lock(target):  # held for the whole run: no second run writes here
+            folder = SurveyFolder.open(target, plan.manifest, resume=resume, force=force,
+                                       inputs=[Path(study), Path(sites)],
+                                       site_names=[s.name for s in plan.table.sites])
+            try:
+                return _run(plan, folder, executor, mode=mode, quiet=quiet)
+            except InputError:
+                if not resume:  # bad input found late: leave no half folder behind
+                    folder.discard()
+                raise
     finally:
         executor.close()
+
+
+def _run(plan: _Plan, folder: SurveyFolder, executor, *, mode: str,
+         quiet: bool) -> SurveyResult:
+    """Run the sites, combine them (joint mode), write the tables and the report."""
+    with _sigterm_as_interrupt():
+        if mode == "independent":
+            records = _run_phase(plan, folder, executor, "posterior", "final", quiet=quiet)
+            area = None
+        else:
+            records, area = _run_joint(plan, folder, executor, quiet=quiet)
     from .report import write_report
 
     summary = summary_rows(records)
@@ -243,8 +257,8 @@ def _run_joint(plan: _Plan, folder: SurveyFolder, executor, *, quiet: bool):
                        extra={k: {"tp_axis": axis} for k in range(n)})
     used = [k for k, r in enumerate(first) if r["status"] == "ok"]
     if not used:
-        raise InputError("no site could be used for the area-wide answer; see the "
-                         "failed sites in the site folders", file=folder.path)
+        raise InputError(f"no site could be used for the area-wide answer; the first, "
+                         f"'{first[0]['site']}', {first[0]['status']}", file=plan.table.path)
     profiles = np.array([first[k]["tp_log_likelihood"] for k in used])
     if plan.settings.hierarchical:
         area = joint.combine_hierarchical(axis, profiles, prior, plan.settings.tp_spread)
