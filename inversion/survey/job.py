@@ -31,7 +31,16 @@ from scipy.interpolate import CubicSpline
 from scipy.special import logsumexp
 
 from ..errors import InputError, NotConvergedWarning
-from ..fitting.grid import MASS_CUT, Axis, Grid, evaluate, find_box, grid_posterior, prior_axis
+from ..fitting.grid import (
+    MASS_CUT,
+    Axis,
+    Grid,
+    coordinate,
+    evaluate,
+    grid_posterior,
+    parameter_axis,
+    prior_span,
+)
 from ..fitting.log_posterior import UNITS, LogPosterior
 from ..observations import THICKNESS_OF
 from .settings import SurveySettings
@@ -75,7 +84,7 @@ class SiteTask:
     tp_factor : (numpy.ndarray, numpy.ndarray) or None
         ``"conditional"``: Tp nodes (degC) and the log-factor on them.
     tp_box : (float, float) or None
-        ``"conditional"``: part of the Tp prior's probability space holding the mass.
+        ``"conditional"``: the Tp range (degC) holding the mass.
     """
 
     kind: str
@@ -205,9 +214,9 @@ def _row(name: str, values) -> dict:
 def _likelihood(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
     """log L_i(Tp) on the shared axis, the site's own parameters integrated out.
 
-    For each Tp node the site's parameters are integrated by the midpoint rule over the
-    box of their prior probability space that holds the mass at that Tp (found on a
-    coarse scan, as `inversion.fitting.grid.find_box` does for a whole grid); the rule is
+    For each Tp node the site's parameters are integrated by the midpoint rule in
+    parameter units over the box that holds the mass at that Tp (found on a coarse
+    scan, as `inversion.fitting.grid.find_box` does for a whole grid); the rule is
     compared with the rule at half the resolution, and the nodes are doubled (at most
     `_REFINEMENTS` times) until the two agree within `LOG_TOLERANCE` wherever log L_i is
     within `MASS_CUT` of its largest value.
@@ -244,36 +253,49 @@ def _difference(fine: np.ndarray, coarse: np.ndarray) -> float:
 
 
 def _row_boxes(logpost, tp: np.ndarray, others) -> np.ndarray:
-    """Per Tp node, the (u_low, u_high) box of each site axis holding the mass.
+    """Per Tp node, the (t_low, t_high) box of each site axis holding the mass.
 
-    Returns shape ``(len(tp), len(others), 2)``: the cells within `MASS_CUT` of that
-    row's largest value on a coarse grid over the whole prior, plus two cells each side.
+    Returns shape ``(len(tp), len(others), 2)`` in each axis' integration coordinate
+    (`inversion.fitting.grid.coordinate`): the cells within `MASS_CUT` of that row's
+    largest posterior mass on a coarse grid over the prior's range, plus two cells each
+    side.
     """
     priors = dict(zip(logpost.names, logpost.priors, strict=True))
     scan = _SCAN_NODES.get(len(others), 16)
-    grid = Grid((Axis(TP, tp, np.zeros(tp.size)),
-                 *(prior_axis(n, priors[n], (0.0, 1.0), scan) for n in others)))
-    values = evaluate(logpost.log_likelihood, grid)
+    axes = [parameter_axis(n, priors[n], prior_span(priors[n]), scan) for n in others]
+    grid = Grid((Axis(TP, tp, np.zeros(tp.size)), *axes))
+    values = evaluate(logpost.log_likelihood, grid) + grid.log_weights()
     site_axes = tuple(range(1, len(others) + 1))
-    keep = values >= np.max(values, axis=site_axes, keepdims=True) - MASS_CUT
+    with np.errstate(invalid="ignore"):  # a row that is -inf everywhere keeps its range
+        keep = values >= np.max(values, axis=site_axes, keepdims=True) - MASS_CUT
+    keep |= ~np.isfinite(np.max(values, axis=site_axes, keepdims=True))
     boxes = np.empty((tp.size, len(others), 2))
-    for j in range(len(others)):
+    for j, axis in enumerate(axes):
         used = keep.any(axis=tuple(a for a in site_axes if a != j + 1))
         first = np.argmax(used, axis=1)
         last = scan - 1 - np.argmax(used[:, ::-1], axis=1)
-        boxes[:, j, 0] = np.clip((first - 2) / scan, 0.0, 1.0)
-        boxes[:, j, 1] = np.clip((last + 3) / scan, 0.0, 1.0)
+        boxes[:, j, 0] = axis.edges[np.clip(first - 2, 0, scan)]
+        boxes[:, j, 1] = axis.edges[np.clip(last + 3, 0, scan)]
     return boxes
 
 
 def _integrate_rows(logpost, tp: np.ndarray, boxes: np.ndarray, nodes: int) -> np.ndarray:
-    """Midpoint rule with `nodes` cells per site axis inside each Tp node's box."""
+    """Midpoint rule with `nodes` cells per site axis inside each Tp node's box, in
+    parameter units (log units for a log-uniform prior), weights pi(theta) |cell|."""
     priors = dict(zip(logpost.names, logpost.priors, strict=True))
     others = [n for n in logpost.names if n != TP]
     mid = (np.arange(nodes) + 0.5) / nodes
     width = boxes[:, :, 1] - boxes[:, :, 0]  # (m, d)
-    u = boxes[:, :, :1] + width[:, :, None] * mid  # (m, d, nodes)
-    values = {n: np.asarray(priors[n].ppf(u[:, j]), float) for j, n in enumerate(others)}
+    t = boxes[:, :, :1] + width[:, :, None] * mid  # (m, d, nodes)
+    values, log_w = {}, {}
+    for j, name in enumerate(others):
+        _, from_t, in_log = coordinate(priors[name])
+        theta = np.asarray(from_t(t[:, j]), float)
+        with np.errstate(divide="ignore"):
+            log_w[name] = (np.asarray(priors[name].logpdf(theta), float)
+                           + (np.log(theta) if in_log else 0.0)
+                           + np.log(width[:, j] / nodes)[:, None])
+        values[name] = theta
     mesh = np.meshgrid(*([np.arange(nodes)] * len(others)), indexing="ij")
     flat = [m.ravel() for m in mesh]
     out = np.empty(tp.size)
@@ -281,13 +303,19 @@ def _integrate_rows(logpost, tp: np.ndarray, boxes: np.ndarray, nodes: int) -> n
         rows = slice(start, start + _ROWS)
         count = tp[rows].size
         theta = np.empty((count, flat[0].size, len(logpost.names)))
+        weight = np.zeros((count, flat[0].size))
         for c, name in enumerate(logpost.names):
-            theta[:, :, c] = (tp[rows, None] if name == TP
-                              else values[name][rows][:, flat[others.index(name)]])
-        log_l = logpost.log_likelihood(theta.reshape(-1, len(logpost.names)))
+            if name == TP:
+                theta[:, :, c] = tp[rows, None]
+                continue
+            column = flat[others.index(name)]
+            theta[:, :, c] = values[name][rows][:, column]
+            weight += log_w[name][rows][:, column]
+        with np.errstate(all="ignore"):
+            log_l = logpost.log_likelihood(theta.reshape(-1, len(logpost.names)))
         log_l = np.where(np.isnan(log_l), -np.inf, log_l).reshape(count, -1)
-        out[rows] = logsumexp(log_l, axis=1)
-    return out + np.sum(np.log(width / nodes), axis=1)
+        out[rows] = logsumexp(log_l + weight, axis=1)
+    return out
 
 
 def _conditional(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
@@ -301,9 +329,8 @@ def _conditional(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) ->
         extra = np.where((tp >= nodes[0]) & (tp <= nodes[-1]), factor(tp), -np.inf)
         return logpost.log_likelihood(theta) + extra
 
-    start = [tuple(task.tp_box) if name == TP else (0.0, 1.0) for name in logpost.names]
-    box = find_box(log_like, logpost.names, logpost.priors, start=start)
-    post = grid_posterior(log_like, logpost.names, logpost.priors, box=box,
+    start = [tuple(task.tp_box) if name == TP else None for name in logpost.names]
+    post = grid_posterior(log_like, logpost.names, logpost.priors, box=start,
                           max_points=task.settings.grid_points)
     _grid_outcome(task, logpost, post, outcome, method="grid")
 

@@ -13,7 +13,7 @@ hierarchical (site temperatures t_i ~ N(mu, tau^2), truncated to the Tp axis)
 
 Each log L_i is tabulated on the same equally spaced axis and is smooth in t, so sums of
 them are interpolated by cubic splines between the nodes; the area posteriors are then
-grid posteriors (`inversion.fitting.grid`) in the priors' probability space. For the second pass
+grid posteriors (`inversion.fitting.grid`, parameter units). For the second pass
 every site gets a log-factor on t that carries what the other sites say:
 log prod_{j != i} L_j(t) (shared) or log E[N(t; mu, tau^2) / I_i(mu, tau)] - log pi(t)
 over the area posterior (hierarchical); multiplied into the site's own likelihood it
@@ -60,7 +60,7 @@ class AreaPosterior:
     factors : list of (numpy.ndarray, numpy.ndarray)
         Per site (in the order given): Tp nodes (degC) and the log-factor on them.
     boxes : list of (float, float)
-        Per site: part of the Tp prior's probability space holding its posterior mass.
+        Per site: the Tp range (degC) holding its posterior mass.
     """
 
     posterior: GridPosterior
@@ -114,9 +114,7 @@ def combine_shared(axis: np.ndarray, profiles, prior) -> AreaPosterior:
     total = profiles.sum(axis=0)
     post = grid_posterior(_on_axis(CubicSpline(axis, total), axis[0], axis[-1]), [TP],
                           [prior], max_points=_AREA_POINTS[1])
-    u = post.grid.axes[0].u
-    half = (u[1] - u[0]) / 2
-    box = (max(0.0, float(u[0] - half)), min(1.0, float(u[-1] + half)))
+    box = post.grid.axes[0].span
     factors = [(axis, total - own) for own in profiles]
     return AreaPosterior(post, False, factors, [box] * len(profiles))
 
@@ -191,5 +189,5 @@ class _Hierarchy:
         keep = np.flatnonzero(log_density >= np.max(log_density) - MASS_CUT)
         low = self.edges[max(keep[0] - 2, 0)]
         high = self.edges[min(keep[-1] + 3, self.edges.size - 1)]
-        u = np.clip(np.asarray(prior.cdf(np.array([low, high])), float), 0.0, 1.0)
-        return float(u[0]), float(u[1])
+        p_low, p_high = prior.bounds
+        return max(float(low), p_low), min(float(high), p_high)

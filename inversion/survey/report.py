@@ -97,7 +97,7 @@ def render(result, plan, *, executor_name: str) -> str:
         f"{len(result.records)} sites from `{plan.table.path.name}`, mode **{mode}**, "
         f"master seed {plan.seed}, run on {executor_name}. Free parameters per site: "
         f"{free}. Methods used: {', '.join(methods) or 'none'} (grid = quadrature "
-        "on a grid in the priors' probability space for at most 3 free parameters, "
+        "on a grid in parameter units for at most 3 free parameters, "
         "mcmc = emcee); each site's method is in sites_summary.csv.", "",
         "## Area-wide answer", "", *_area_section(result, plan), "",
         "## Sites", "", *_site_table(result), "",
