@@ -58,6 +58,10 @@ QUANTILES = {"median": 0.5, "q2.5": 0.025, "q16": 0.16, "q84": 0.84, "q97.5": 0.
 LOG_TOLERANCE = 0.05
 _DRAWS = 4000  # posterior draws for the predicted thickness and the melt check
 _MIN_MELT_SHARE = 0.5  # below it a site that records melt "cannot make melt"
+#: A site "cannot be fitted" when its thickness lies more than this many total sigma
+#: (stated sigma and model error in quadrature) from the posterior's predicted thickness
+#: (median over the draws): 5 sigma happens by chance once in ~1.7 million sites.
+MISFIT_SIGMA = 5.0
 _SITE_NODES = {1: 64, 2: 24}  # first try per site-level axis in the likelihood pass
 _SCAN_NODES = {1: 48, 2: 24}  # coarse scan for the per-Tp boxes
 _ROWS = 64  # Tp nodes per call of the log-likelihood (bounds memory)
@@ -186,13 +190,25 @@ def _mcmc_outcome(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -
 
 
 def _finish(task, logpost, rows, draws: np.ndarray, outcome: SiteOutcome) -> None:
-    """Add the predicted thickness row and fail a site whose posterior makes no melt."""
+    """Add the predicted thickness row and check the site (`_check_site`)."""
+    predicted = _check_site(task, logpost, draws, outcome)
+    rows.append(_row(THICKNESS_OF[task.settings.thickness_of],
+                     np.quantile(predicted, list(QUANTILES.values()))))
+    outcome.record["rows"] = rows
+
+
+def _check_site(task, logpost, draws: np.ndarray, outcome: SiteOutcome) -> np.ndarray:
+    """Fail a site whose posterior makes no melt or cannot fit its thickness.
+
+    The misfit rule (`MISFIT_SIGMA`) judges a site on its own posterior, so the joint
+    second pass (a posterior given the other sites) records the misfit but does not fail
+    on it: disagreement with the other sites is the consistency check's business.
+    Returns the predicted thickness of every draw (km).
+    """
     column = logpost.column(draws)
-    quantity = THICKNESS_OF[task.settings.thickness_of]
-    predicted = np.asarray(getattr(column, quantity), float)
-    rows.append(_row(quantity, np.quantile(predicted, list(QUANTILES.values()))))
+    predicted = np.asarray(getattr(column, THICKNESS_OF[task.settings.thickness_of]), float)
     share = float(np.mean(np.asarray(column.produces_melt, bool)))
-    outcome.record.update(rows=rows, melt_share=share)
+    outcome.record["melt_share"] = share
     site = task.site
     if site.records_melt and share < _MIN_MELT_SHARE:
         outcome.record.update(status=(
@@ -201,6 +217,27 @@ def _finish(task, logpost, rows, draws: np.ndarray, outcome: SiteOutcome) -> Non
             + (" and a melting pressure" if site.has_pressure else "")
             + "; the priors cannot explain the data (mantle too cold or lid too thick)"),
             converged=False)
+        return predicted
+    z = _thickness_misfit(logpost, draws, predicted)
+    outcome.record["thickness_z"] = z
+    if abs(z) > MISFIT_SIGMA and task.kind != "conditional":
+        outcome.record.update(status=(
+            f"failed: cannot be fitted: the site records {site.thickness_km:g} km, "
+            f"{abs(z):.1f} sigma {'above' if z > 0 else 'below'} the "
+            f"{np.median(predicted):.3g} km its posterior predicts (rule: more than "
+            f"{MISFIT_SIGMA:g} sigma); the model and priors cannot make this thickness"),
+            converged=False)
+    return predicted
+
+
+def _thickness_misfit(logpost, draws: np.ndarray, predicted: np.ndarray) -> float:
+    """Median over the draws of (observed - predicted) / total sigma of the thickness."""
+    block = logpost.study.observations[0]  # the crust block (`site_observations`)
+    errors = logpost.block_errors(draws)[0]
+    sigma = np.asarray(block.total_sigma(errors or None), float)
+    sigma = sigma[:, 0] if sigma.ndim == 2 else sigma[0]  # per draw for a free error
+    observed = float(np.asarray(block.values, float)[0])
+    return float(np.median((observed - predicted) / sigma))
 
 
 def _row(name: str, values) -> dict:
@@ -224,10 +261,13 @@ def _likelihood(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> 
     others = [n for n in logpost.names if n != TP]
     tp = np.asarray(task.tp_axis, float)
     if not others:
-        values = evaluate(logpost.log_likelihood, Grid((Axis(TP, tp, np.zeros(tp.size)),)))
+        grid = Grid((Axis(TP, tp, np.zeros(tp.size)),))
+        values = evaluate(logpost.log_likelihood, grid)
+        _check_alone(task, logpost, grid, values, outcome)
         fine, error, nodes = values, 0.0, 0
     else:
-        boxes = _row_boxes(logpost, tp, others)
+        boxes, grid, values = _row_boxes(logpost, tp, others)
+        _check_alone(task, logpost, grid, values, outcome)
         nodes = _SITE_NODES.get(len(others), 16)
         coarse = _integrate_rows(logpost, tp, boxes, nodes // 2)
         for step in range(_REFINEMENTS + 1):
@@ -236,6 +276,9 @@ def _likelihood(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> 
             if error <= LOG_TOLERANCE or step == _REFINEMENTS:
                 break
             coarse, nodes = fine, 2 * nodes
+    if outcome.record["status"] != "ok":
+        outcome.record.update(method="grid", converged=False)
+        return
     outcome.record.update(method="grid", converged=bool(error <= LOG_TOLERANCE),
                           tp_log_likelihood=[float(v) for v in fine],
                           diagnostics={"site_nodes": nodes, "quadrature_error": error})
@@ -276,7 +319,26 @@ def _row_boxes(logpost, tp: np.ndarray, others) -> np.ndarray:
         last = scan - 1 - np.argmax(used[:, ::-1], axis=1)
         boxes[:, j, 0] = axis.edges[np.clip(first - 2, 0, scan)]
         boxes[:, j, 1] = axis.edges[np.clip(last + 3, 0, scan)]
-    return boxes
+    return boxes, grid, values
+
+
+def _check_alone(task, logpost, grid: Grid, values: np.ndarray,
+                 outcome: SiteOutcome) -> None:
+    """`_check_site` on the site's own posterior, from draws of the coarse scan's nodes
+    (weights: likelihood, site-axis weights and the Tp prior; the Tp axis is equally
+    spaced). A failed site is left out of the area-wide answer."""
+    tp_prior = logpost.priors[logpost.names.index(TP)]
+    with np.errstate(divide="ignore"):
+        log_p = values + np.expand_dims(np.asarray(tp_prior.logpdf(grid.axes[0].values),
+                                                   float), tuple(range(1, values.ndim)))
+    if not np.isfinite(log_p).any():
+        raise InputError("the site's likelihood is zero everywhere in the priors")
+    weights = np.exp(log_p - np.max(log_p)).ravel()
+    rng = np.random.default_rng(task.seed)
+    index = rng.choice(weights.size, size=_DRAWS // 4, p=weights / weights.sum())
+    points = grid.points()[index]
+    order = [grid.names.index(name) for name in logpost.names]
+    _check_site(task, logpost, points[:, order], outcome)
 
 
 def _integrate_rows(logpost, tp: np.ndarray, boxes: np.ndarray, nodes: int) -> np.ndarray:
