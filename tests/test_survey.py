@@ -239,3 +239,52 @@ def test_import_lidmelt_stays_light():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True).stdout.split()
     assert out == ["True", "survey", "False"]
+
+
+def _closed_port() -> int:
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.fixture()
+def web_server():
+    import http.server
+    import threading
+
+    server = http.server.ThreadingHTTPServer(("127.0.0.1", 0),
+                                             http.server.SimpleHTTPRequestHandler)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+    yield f"tcp://127.0.0.1:{server.server_address[1]}"
+    server.shutdown()
+    server.server_close()
+
+
+@pytest.mark.parametrize("which, needle", [
+    ("web", "not a Dask scheduler"),
+    ("notanaddress", "is not a scheduler address"),
+    ("closed", "cannot connect"),
+])
+def test_a_wrong_scheduler_fails_at_once_with_one_line(inputs, tmp_path, capsys, web_server,
+                                                       which, needle):
+    _, study, sites = inputs
+    address = {"web": web_server, "notanaddress": "notanaddress",
+               "closed": f"tcp://127.0.0.1:{_closed_port()}"}[which]
+    out = tmp_path / "out"
+    code = main(["survey", str(study), "--sites", str(sites), "--out", str(out),
+                 "--scheduler", address, "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert needle in err and address in err and "tcp://host:8786" in err
+    assert err.count("\n") == 1  # one line, no traceback
+    assert not out.exists()
+
+
+def test_a_scheduler_address_without_scheme_is_accepted(dask_cluster):
+    from lidmelt.inversion.survey.executors import check_scheduler
+
+    bare = dask_cluster.scheduler_address.split("://")[1]
+    assert check_scheduler(bare) == dask_cluster.scheduler_address

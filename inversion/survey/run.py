@@ -105,9 +105,13 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     SurveyResult
     """
     plan = _Plan.build(study, sites, mode=mode, seed=seed, keep_chains=keep_chains)
-    folder = SurveyFolder.open(out, plan.manifest, resume=resume, force=force,
-                               protected=[Path(study).parent, Path(sites).parent])
-    executor = make_executor(workers, scheduler)
+    executor = make_executor(workers, scheduler)  # a wrong --scheduler fails before
+    try:                                           # anything is created
+        folder = SurveyFolder.open(out, plan.manifest, resume=resume, force=force,
+                                   protected=[Path(study).parent, Path(sites).parent])
+    except BaseException:
+        executor.close()
+        raise
     try:
         with _sigterm_as_interrupt():
             if mode == "independent":
