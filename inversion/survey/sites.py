@@ -1,15 +1,23 @@
 """The sites table of a survey (SITES.csv): one row per site.
 
-Columns: ``site`` (name), ``thickness_km`` (>= 0) and ``sigma_km`` (> 0, 1 sigma);
-optional ``position_km`` (distance along the study area, for the profile figure);
-optional ``pressure_gpa`` with ``pressure_sigma_gpa``; optional ``temperature_c`` with
-``temperature_sigma_c`` (only beside a pressure). Other columns are kept as text.
+Columns: ``site`` (name), ``thickness_km`` (0 to 60) and ``sigma_km`` (>= 0.001, 1
+sigma); optional ``position_km`` (distance along the study area, for the profile
+figure); optional ``pressure_gpa`` with ``pressure_sigma_gpa``; optional
+``temperature_c`` with ``temperature_sigma_c`` (only beside a pressure) and, beside
+those, ``pt_correlation`` (correlation of the pressure and temperature errors,
+-1 < rho < 1, as in an observation table). Other columns are ignored. A line whose first
+non-blank character is ``#`` is a comment and skipped, so a site name must not start
+with ``#``; a name that CSV tools read as a missing value (``nan``, ``NA``, ...) is
+refused. Uncertainties have a floor (0.001 km, 0.0001 GPa, 0.01 degC): smaller ones are
+no measurement errors and would make every likelihood underflow.
 
 The file's structure (header, field counts, names) is checked first: a mistake there
 stops the survey with an `InputError`. Each row's values are then checked on their own
 with the same rules as the observation tables, so a bad value fails only its site, with a
 message naming the file, the line and the column. In the optional column pairs a row may
-leave both cells empty (that site has no such measurement), not one of them.
+leave both cells empty (that site has no such measurement), not one of them. The checks
+run on whole columns at once (`_fast_values`); only rows they flag go through the
+row-by-row rules that word the message, so checking grows linearly with the rows.
 """
 
 from __future__ import annotations
@@ -20,6 +28,7 @@ from dataclasses import dataclass
 from os import PathLike
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from ..errors import InputError
@@ -29,29 +38,39 @@ from ..observations import (
     CrustalThickness,
     MeltingPressure,
 )
+from ..observations.crust import MAX_THICKNESS
 from ..observations.tables import ColumnRule, _read_rows, _rules_for, validate_frame
 
 __all__ = ["Site", "SiteTable", "read_sites", "site_observations"]
 
 _REQUIRED = (
     ColumnRule("site", numeric=False),
-    ColumnRule("thickness_km", low=0.0, unit="km", why="a thickness cannot be negative"),
-    ColumnRule("sigma_km", low=0.0, low_open=True, unit="km",
-               why="a 1-sigma uncertainty must be positive"),
+    ColumnRule("thickness_km", low=0.0, high=MAX_THICKNESS, unit="km",
+               why="a thickness cannot be negative, and the thickest igneous crust, "
+               "beneath Iceland and oceanic plateaus, is about 40 km"),
+    ColumnRule("sigma_km", low=1e-3, unit="km",
+               why="a 1-sigma uncertainty below 1 m is no measurement error"),
 )
 _POSITION = (ColumnRule("position_km", unit="km"),)
 _PRESSURE = (
     ColumnRule("pressure_gpa", low=PRESSURE_RANGE[0], high=PRESSURE_RANGE[1], unit="GPa"),
-    ColumnRule("pressure_sigma_gpa", low=0.0, low_open=True, unit="GPa",
-               why="a 1-sigma uncertainty must be positive"),
+    ColumnRule("pressure_sigma_gpa", low=1e-4, unit="GPa",
+               why="a 1-sigma uncertainty below 0.0001 GPa is no measurement error"),
 )
 _TEMPERATURE = (
     ColumnRule("temperature_c", low=TEMPERATURE_RANGE[0], high=TEMPERATURE_RANGE[1],
                unit="degC", why="outside this range the unit is probably not degC"),
-    ColumnRule("temperature_sigma_c", low=0.0, low_open=True, unit="degC",
-               why="a 1-sigma uncertainty must be positive"),
+    ColumnRule("temperature_sigma_c", low=1e-2, unit="degC",
+               why="a 1-sigma uncertainty below 0.01 degC is no measurement error"),
 )
-_GROUPS = (_POSITION, _PRESSURE, _TEMPERATURE)
+_CORRELATION = (ColumnRule("pt_correlation", low=-1.0, high=1.0, low_open=True,
+                           high_open=True, requires=("temperature_c", "temperature_sigma_c"),
+                           why="a correlation coefficient lies strictly between -1 and 1"),)
+_GROUPS = (_POSITION, _PRESSURE, _TEMPERATURE, _CORRELATION)
+#: Site names that CSV readers (pandas among them) take for a missing value.
+_MISSING_NAMES = frozenset({"nan", "na", "n/a", "null", "none", "-nan", "#n/a", "<na>"})
+#: Rows from which reading shows a progress bar (on standard error).
+PROGRESS_ROWS = 50_000
 
 
 @dataclass(frozen=True)
@@ -79,6 +98,7 @@ class Site:
     pressure_sigma_gpa: float | None = None
     temperature_c: float | None = None
     temperature_sigma_c: float | None = None
+    pt_correlation: float | None = None
     error: str | None = None
 
     @property
@@ -105,14 +125,20 @@ class SiteTable:
         return len(self.sites)
 
 
-def read_sites(path: str | PathLike[str]) -> SiteTable:
+def read_sites(path: str | PathLike[str], *, progress: bool = True) -> SiteTable:
     """Read and check a sites table (see the module docstring).
+
+    Parameters
+    ----------
+    path : str or path-like
+    progress : bool
+        Show a progress bar on standard error for tables of `PROGRESS_ROWS` rows or more.
 
     Raises
     ------
     InputError
         Missing file, bad header, a missing column (or half of a column pair), wrong
-        field counts, an empty site name or a name used twice.
+        field counts, an empty site name, a name used twice or read as a missing value.
     """
     path = Path(path)
     if not path.is_file():
@@ -121,18 +147,72 @@ def read_sites(path: str | PathLike[str]) -> SiteTable:
     header, header_line, rows, lines = _read_rows(path)
     rules = _rules_for(header, header_line, _REQUIRED, _GROUPS, path)
     present = [group for group in _GROUPS if group[0] in rules]
-    names = validate_frame(pd.DataFrame({"site": [r[header.index("site")] for r in rows]}),
-                           _REQUIRED[:1], file=path, lines=lines).data["site"]
-    _check_unique(list(names), lines, path)
-    sites = tuple(_site(k, dict(zip(header, row, strict=True)), line, present, path)
-                  for k, (row, line) in enumerate(zip(rows, lines, strict=True)))
-    return SiteTable(path, sites, hashlib.sha256(path.read_bytes()).hexdigest(),
+    frame = pd.DataFrame(rows, columns=header, dtype=object)
+    _check_names([str(name).strip() for name in frame["site"]], lines, path)
+    names = validate_frame(frame[["site"]], _REQUIRED[:1], file=path, lines=lines).data["site"]
+    names = [str(name).strip() for name in names]
+    values, bad = _fast_values(frame, present)
+    sites = []
+    show = progress and len(rows) >= PROGRESS_ROWS
+    from tqdm.auto import tqdm
+
+    for k in tqdm(range(len(rows)), disable=not show, unit="row", desc="checking sites",
+                  mininterval=0.5):
+        if bad[k]:
+            sites.append(_site(k, dict(zip(header, rows[k], strict=True)), lines[k],
+                               present, path))
+        else:
+            sites.append(Site(k, names[k], lines[k],
+                              **{key: column[k] for key, column in values.items()
+                                 if column[k] is not None}))
+    return SiteTable(path, tuple(sites), hashlib.sha256(path.read_bytes()).hexdigest(),
                      has_positions=_POSITION in present, has_pressures=_PRESSURE in present)
 
 
-def _check_unique(names: list[str], lines, path: Path) -> None:
+def _fast_values(frame: pd.DataFrame, groups) -> tuple[dict, np.ndarray]:
+    """Every column's numbers (None where a group is blank) and a mask of the rows that
+    need the row-by-row check: any cell that is not a finite number in range, a group
+    only partly given, or a temperature without a pressure."""
+    n = len(frame)
+    bad = np.zeros(n, bool)
+    values = {}
+    given = {}
+    for group in (_REQUIRED[1:], *groups):
+        blank = np.column_stack([frame[r.name].str.strip().eq("").to_numpy()
+                                 for r in group])
+        present = ~blank.all(axis=1)
+        if group is not _REQUIRED[1:]:
+            bad |= present & blank.any(axis=1)
+        else:
+            present = np.ones(n, bool)
+        given[group[0].name] = present
+        for rule in group:
+            number = pd.to_numeric(frame[rule.name].str.strip(), errors="coerce").to_numpy(
+                float)
+            with np.errstate(invalid="ignore"):
+                ok = np.isfinite(number)
+                if rule.low is not None:
+                    ok &= number > rule.low if rule.low_open else number >= rule.low
+                if rule.high is not None:
+                    ok &= number < rule.high if rule.high_open else number <= rule.high
+            bad |= present & ~ok
+            values[rule.name] = [float(v) if p else None for v, p in zip(number, present)]
+    if "temperature_c" in given:
+        bad |= given["temperature_c"] & ~given.get("pressure_gpa", np.zeros(n, bool))
+    if "pt_correlation" in given:
+        bad |= given["pt_correlation"] & ~given["temperature_c"]
+    return values, bad
+
+
+def _check_names(names: list[str], lines, path: Path) -> None:
     first: dict[str, int] = {}
     for name, line in zip(names, lines, strict=True):
+        if not name:
+            continue  # validate_frame words this one
+        if name.lower() in _MISSING_NAMES:
+            raise InputError(f"site name '{name}' reads as a missing value in CSV tools "
+                             "(and in sites_summary.csv); give the site another name",
+                             file=path, row=line, column="site")
         if name in first:
             raise InputError(f"site '{name}' appears twice (also on line {first[name]}); "
                              "give every site its own name", file=path, row=line,
@@ -175,6 +255,10 @@ def _row_values(row: dict, line: int, groups, path: Path) -> dict:
         raise InputError("a temperature needs the melting pressure it goes with; give "
                          "pressure_gpa and pressure_sigma_gpa too", file=path, row=line,
                          column="temperature_c")
+    if "pt_correlation" in names and "temperature_c" not in names:
+        raise InputError("a P-T error correlation needs the temperature it goes with; "
+                         "give temperature_c and temperature_sigma_c too", file=path,
+                         row=line, column="pt_correlation")
     frame = pd.DataFrame({rule.name: [row[rule.name]] for rule in rules})
     data = validate_frame(frame, rules, file=path, lines=[line]).data
     return {rule.name: float(data[rule.name].iloc[0]) for rule in rules}
@@ -200,6 +284,8 @@ def site_observations(site: Site, settings) -> list:
              "sigma_gpa": [site.pressure_sigma_gpa]}
     if site.temperature_c is not None:
         table.update(temperature_c=[site.temperature_c], sigma_c=[site.temperature_sigma_c])
+    if site.pt_correlation is not None:
+        table.update(pt_correlation=[site.pt_correlation])
     pressure = MeltingPressure.from_frame(
         pd.DataFrame(table), model_error=settings.pressure_model_error,
         equilibration=settings.equilibration, path_points=settings.path_points,
