@@ -346,3 +346,24 @@ def test_fast_row_checks_give_the_row_by_row_answers(tmp_path):
         slow = _site(k, dict(zip(header, lines[k + 1].split(","), strict=True)), k + 2,
                      _GROUPS[:2], sites)
         assert site == slow
+
+
+def test_a_survey_model_error_may_be_a_prior(tmp_path):
+    # a free crust model error: each site integrates it (grid, 3 free parameters) and
+    # reports it in km within its prior; with one datum per site the error is weakly
+    # constrained, so the check is that it is a proper posterior inside the prior
+    study = write_study(tmp_path, extra_survey='crust_model_error = { prior = '
+                        '"log-uniform", min = 0.01, max = 5.0 }\ngrid_points = 27000')
+    truth = truth_table(1400.0, [20.0, 30.0, 40.0], pressure_every=100).assign(
+        **{"crustal_thickness.model_error": 1.0})
+    sites = write_sites(tmp_path, study, truth, 3)
+    result = survey(study, sites, out=tmp_path / "out", workers=1, quiet=True)
+    rows = result.summary.set_index(["site", "parameter"])
+    names = set(result.summary["parameter"])
+    error = "crustal_thickness.model_error"
+    assert error in names
+    assert (result.summary[result.summary["parameter"] == error]["unit"] == "km").all()
+    assert result.records[0]["method"] == "grid" and not result.failed
+    for site in ("S01", "S02", "S03"):
+        q = rows.loc[(site, error)]
+        assert 0.01 <= q["q2.5"] < q["median"] < q["q97.5"] <= 5.0

@@ -149,7 +149,7 @@ def _posterior(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> N
 
 def _grid_outcome(task, logpost, post, outcome: SiteOutcome, *, method: str) -> None:
     error = float(post.log_evidence_error)
-    rows = [_row(name, post.quantile(name, list(QUANTILES.values())))
+    rows = [_row(name, post.quantile(name, list(QUANTILES.values())), logpost.units[name])
             for name in logpost.names]
     draws = post.sample(np.random.default_rng(task.seed), _DRAWS)
     outcome.record.update(method=method, converged=bool(error <= LOG_TOLERANCE),
@@ -173,7 +173,7 @@ def _mcmc_outcome(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -
         warnings.simplefilter("ignore", NotConvergedWarning)
         posterior = fit(logpost.study, seed=task.seed, quiet=True)
     summary = posterior.summary().set_index("parameter")
-    rows = [_row(name, [summary.loc[name, key] for key in QUANTILES])
+    rows = [_row(name, [summary.loc[name, key] for key in QUANTILES], logpost.units[name])
             for name in logpost.names]
     outcome.record.update(method="mcmc", converged=bool(posterior.converged),
                           diagnostics={"steps": int(posterior.chain.shape[0]),
@@ -240,9 +240,9 @@ def _thickness_misfit(logpost, draws: np.ndarray, predicted: np.ndarray) -> floa
     return float(np.median((observed - predicted) / sigma))
 
 
-def _row(name: str, values) -> dict:
+def _row(name: str, values, unit: str | None = None) -> dict:
     values = [float(v) for v in values]
-    return {"parameter": name, "unit": UNITS[name],
+    return {"parameter": name, "unit": unit or UNITS[name],
             **{key: v for key, v in zip(QUANTILES, values, strict=True)}}
 
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 import signal
 import threading
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from os import PathLike
 from pathlib import Path
 
@@ -176,12 +176,28 @@ class _Plan:
         return THICKNESS_OF[self.settings.thickness_of]
 
     @property
-    def row_names(self) -> tuple[str, ...]:
-        return (*self.study.free_parameters, self.predicted)
+    def row_names(self) -> dict:
+        """Rows of a site and their units: free parameters (model errors too), thickness."""
+        units = site_units(self.study, self.settings, self.table.has_pressures)
+        return {**units, self.predicted: UNITS[self.predicted]}
+
+
+def site_units(study, settings, has_pressures: bool) -> dict:
+    """Unit of every free parameter of a site (a pressure site when `has_pressures`),
+    in column order, model errors included."""
+    from ..fitting.log_posterior import LogPosterior
+    from .sites import Site, site_observations
+
+    pressure = {"pressure_gpa": 1.0, "pressure_sigma_gpa": 0.1} if has_pressures else {}
+    probe = Site(0, "probe", 0, thickness_km=5.0, sigma_km=1.0, **pressure)
+    if settings.equilibration is None:
+        settings = replace(settings, equilibration="top")
+    logpost = LogPosterior(study.with_observations(site_observations(probe, settings)))
+    return {name: logpost.units.get(name) or UNITS.get(name) for name in logpost.names}
 
 
 def _check_combination(study, settings, table, mode: str, study_path: Path) -> None:
-    free = study.free_parameters
+    free = tuple(site_units(study, settings, table.has_pressures))
     if table.has_pressures and settings.equilibration is None:
         raise InputError("the sites carry melting pressures: set equilibration = \"top\", "
                          "\"pooled\" or \"path\" in the [survey] table", file=study_path,
@@ -264,12 +280,12 @@ def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
     return SiteOutcome(record)
 
 
-def _fill_failed(record: dict, names: Sequence[str]) -> None:
+def _fill_failed(record: dict, names: dict) -> None:
     """Give a failed final record one NaN row per parameter (every site has its rows)."""
     if record["phase"] == "likelihood" or record.get("rows"):
         return
-    record["rows"] = [{"parameter": n, "unit": UNITS[n], **{q: None for q in QUANTILES}}
-                      for n in names]
+    record["rows"] = [{"parameter": n, "unit": unit, **{q: None for q in QUANTILES}}
+                      for n, unit in names.items()]
 
 
 def _run_joint(plan: _Plan, folder: SurveyFolder, executor, *, quiet: bool):
