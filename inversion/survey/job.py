@@ -118,7 +118,13 @@ def run_site(task: SiteTask) -> SiteOutcome:
         if task.site.error is not None:
             raise InputError(task.site.error)
         study = task.study.with_observations(site_observations(task.site, task.settings))
-        _KINDS[task.kind](task, LogPosterior(study), outcome)
+        # warnings become part of the site's record, never raw lines on standard error
+        with warnings.catch_warnings(record=True) as caught, np.errstate(all="ignore"):
+            warnings.simplefilter("always")
+            _KINDS[task.kind](task, LogPosterior(study), outcome)
+        messages = sorted({f"{w.category.__name__}: {w.message}" for w in caught})
+        if messages:
+            outcome.record["warnings"] = messages
     except (InputError, ValueError, FloatingPointError) as err:
         outcome.record.update(status=f"failed: {err}", converged=False)
     except Exception as err:  # a bug should not stop a thousand-site survey: report it

@@ -67,8 +67,10 @@ _CORRELATION = (ColumnRule("pt_correlation", low=-1.0, high=1.0, low_open=True,
                            high_open=True, requires=("temperature_c", "temperature_sigma_c"),
                            why="a correlation coefficient lies strictly between -1 and 1"),)
 _GROUPS = (_POSITION, _PRESSURE, _TEMPERATURE, _CORRELATION)
-#: Site names that CSV readers (pandas among them) take for a missing value.
-_MISSING_NAMES = frozenset({"nan", "na", "n/a", "null", "none", "-nan", "#n/a", "<na>"})
+#: Site names that CSV readers take for a missing value (pandas' default list, exact case).
+_MISSING_NAMES = frozenset({"-1.#IND", "1.#QNAN", "1.#IND", "-1.#QNAN", "#N/A N/A", "#N/A",
+                            "N/A", "n/a", "NA", "<NA>", "#NA", "NULL", "null", "NaN",
+                            "-NaN", "nan", "-nan", "None"})
 #: Rows from which reading shows a progress bar (on standard error).
 PROGRESS_ROWS = 50_000
 
@@ -209,7 +211,7 @@ def _check_names(names: list[str], lines, path: Path) -> None:
     for name, line in zip(names, lines, strict=True):
         if not name:
             continue  # validate_frame words this one
-        if name.lower() in _MISSING_NAMES:
+        if name in _MISSING_NAMES:
             raise InputError(f"site name '{name}' reads as a missing value in CSV tools "
                              "(and in sites_summary.csv); give the site another name",
                              file=path, row=line, column="site")
