@@ -367,3 +367,44 @@ def test_a_survey_model_error_may_be_a_prior(tmp_path):
     for site in ("S01", "S02", "S03"):
         q = rows.loc[(site, error)]
         assert 0.01 <= q["q2.5"] < q["median"] < q["q97.5"] <= 5.0
+
+
+def _session_processes(session: int) -> list[int]:
+    found = []
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            fields = (entry / "stat").read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[3]) == session and fields[0] != "Z":  # session id, not a zombie
+            found.append(int(entry.name))
+    return found
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs Linux /proc")
+def test_workers_end_when_the_survey_is_killed(inputs, tmp_path):
+    _, study, sites = inputs
+    many = write_sites(tmp_path, study, truth_table(1390.0, np.linspace(15, 45, 12)), 9)
+    out = tmp_path / "killed"
+    command = [sys.executable, "-m", "lidmelt.cli", "survey", str(study),
+               "--sites", str(many), "--out", str(out), "--workers", "2", "--quiet"]
+    child = subprocess.Popen(command, start_new_session=True, stdout=subprocess.DEVNULL,
+                             stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 120
+        while _finished(out) < 1 and time.monotonic() < deadline and child.poll() is None:
+            time.sleep(0.05)
+        others = [p for p in _session_processes(child.pid) if p != child.pid]
+        assert others, "no worker process was running"
+        os.kill(child.pid, signal.SIGKILL)  # the survey process only, not its group
+        child.wait()
+        deadline = time.monotonic() + 10
+        while _session_processes(child.pid) and time.monotonic() < deadline:
+            time.sleep(0.1)
+        left = _session_processes(child.pid)
+    finally:
+        for pid in _session_processes(child.pid):  # never leave them, even on failure
+            os.kill(pid, signal.SIGKILL)
+    assert not left, f"workers outlived the survey: {left}"

@@ -77,7 +77,9 @@ class LocalExecutor:
                 "forkserver" if "forkserver" in methods else "spawn")
             if context.get_start_method() == "forkserver":  # import once, fork workers
                 context.set_forkserver_preload(list(_PRELOAD))
-            self._executor = ProcessPoolExecutor(self.workers, mp_context=context)
+            self._executor = ProcessPoolExecutor(self.workers, mp_context=context,
+                                                 initializer=_watch_parent,
+                                                 initargs=(os.getpid(),))
         return self._executor
 
     def close(self) -> None:
@@ -203,6 +205,34 @@ def _greets_like_dask(connection: socket.socket) -> bool:
         return False
     length, frames = struct.unpack("<QQ", data)
     return 0 < length < 2**24 and 0 < frames < 2**10
+
+
+_WATCH_SECONDS = 0.5  # how often a worker checks that the survey process still lives
+
+
+def _watch_parent(parent: int) -> None:
+    """In each local worker: end the worker soon after the survey process dies.
+
+    Workers are children of the forkserver, not of the survey process, so neither their
+    parent pid nor a parent-death signal follows the survey; a daemon thread polls the
+    survey's pid instead (signal 0 tests existence; the pid cannot be reused while the
+    worker, which does not reap it, only polls). A killed survey (kill -9) so leaves no
+    worker behind for more than about `_WATCH_SECONDS`.
+    """
+    import threading
+    import time
+
+    def watch() -> None:
+        while True:
+            time.sleep(_WATCH_SECONDS)
+            try:
+                os.kill(parent, 0)
+            except ProcessLookupError:
+                os._exit(1)
+            except PermissionError:  # alive, owned by another user: cannot happen here
+                continue
+
+    threading.Thread(target=watch, name="lidmelt-parent-watch", daemon=True).start()
 
 
 def _call(fn: Callable, task):
