@@ -11,7 +11,8 @@ __all__ = ["add_arguments", "run"]
 _EPILOG = """\
 SITES.csv has one row per site: site, thickness_km, sigma_km; optional position_km;
 optional pressure_gpa with pressure_sigma_gpa; optional temperature_c with
-temperature_sigma_c. A row with a bad value fails only its own site (named with its line
+temperature_sigma_c (and pt_correlation beside them). Lines starting with # are comments.
+A row with a bad value fails only its own site (named with its line
 and column in the summary and the report). The study file gives model, priors and sampler
 settings (its [[observations]] are not used) and a [survey] table: equilibration = "top" |
 "pooled" | "path" is required when the sites carry pressures; tp_spread = { prior = ... }
