@@ -11,7 +11,8 @@ __all__ = ["add_arguments", "run"]
 _EPILOG = """\
 SITES.csv has one row per site: site, thickness_km, thickness_sigma_km; optional position_km;
 optional pressure_gpa with pressure_sigma_gpa; optional temperature_c with
-temperature_sigma_c. A row with a bad value fails only its own site (named with its line
+temperature_sigma_c (and pt_correlation beside them). Lines starting with # are comments.
+A row with a bad value fails only its own site (named with its line
 and column in the summary and the report). The study file gives model, priors and sampler
 settings (its [[observations]] are not used) and a [survey] table: equilibration = "top" |
 "pooled" | "path" is required when the sites carry pressures; tp_spread = { prior = ... }
@@ -59,7 +60,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run the survey; 0 when it completed (even if some sites failed)."""
+    """Run the survey: 0 when it completed with at least one site's result (even if
+    some sites failed), 1 when no site gave a result (joint mode: no area-wide answer),
+    130 when interrupted; bad input exits 2 (the package's `InputError` handling)."""
     from ..inversion.survey import survey
 
     try:
@@ -72,6 +75,11 @@ def run(args: argparse.Namespace) -> int:
               "continue by running the same command with --resume", file=sys.stderr)
         return 130
     _print_result(result)
+    if not result.usable:
+        what = "there is no area-wide answer" if args.mode == "joint" else "nothing to show"
+        print(f"lidmelt survey: no site gave a result ({len(result.records)} failed); "
+              f"{what}; see {Path(result.folder) / 'report.md'}", file=sys.stderr)
+        return 1
     return 0
 
 
@@ -80,13 +88,18 @@ def _print_result(result) -> None:
 
     folder = Path(result.folder).resolve()
     n = len(result.records)
-    print(f"survey: {n - len(result.failed)} of {n} sites gave a result")
+    print(f"survey: {len(result.usable)} of {n} sites gave a result")
     if result.area is not None:
+        used = int(result.area["sites"].iloc[0])
+        print(f"  area-wide answer from the {used} sites with a result:")
         for _, row in result.area.iterrows():
             unit = unit_text(row["unit"])
             median, low, high = (format_signed(row[q], 1) for q in ("median", "q2.5", "q97.5"))
             print(f"  {row['parameter']} ({row['meaning']}): median {median} "
                   f"{unit}, 95 % interval {low} to {high} {unit}")
+        flagged = result.in_tension
+        print(f"  consistency check: {len(flagged)} of {used} sites in tension with the "
+              "rest" + (": " + ", ".join(r["site"] for r in flagged) if flagged else ""))
     for record in result.failed:
         print(f"lidmelt survey: site '{record['site']}': {record['status']}",
               file=sys.stderr)

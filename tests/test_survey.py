@@ -101,7 +101,7 @@ def test_a_site_with_bad_data_fails_alone(tmp_path, capsys):
     assert status["A"] == "ok" and status["C"] == "ok"
     assert status["B"].startswith("failed:")
     assert "sites.csv, line 3, column 'thickness_sigma_km'" in status["B"]  # header is line 1
-    assert "must be > 0" in status["B"]
+    assert "must be >= 0.001" in status["B"]
     assert "line 5, column 'pressure_sigma_gpa'" in status["D"]  # half of a pair
     assert summary[summary["site"] == "B"]["median"].isna().all()
     report = (tmp_path / "out" / "report.md").read_text(encoding="utf-8")
@@ -267,3 +267,172 @@ def test_import_lidmelt_stays_light():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True).stdout.split()
     assert out == ["True", "survey", "False"]
+
+
+def _closed_port() -> int:
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.fixture()
+def web_server():
+    import http.server
+    import threading
+
+    server = http.server.ThreadingHTTPServer(("127.0.0.1", 0),
+                                             http.server.SimpleHTTPRequestHandler)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+    yield f"tcp://127.0.0.1:{server.server_address[1]}"
+    server.shutdown()
+    server.server_close()
+
+
+@pytest.mark.parametrize("which, needle", [
+    ("web", "not a Dask scheduler"),
+    ("notanaddress", "is not a scheduler address"),
+    ("closed", "cannot connect"),
+])
+def test_a_wrong_scheduler_fails_at_once_with_one_line(inputs, tmp_path, capsys, web_server,
+                                                       which, needle):
+    _, study, sites = inputs
+    address = {"web": web_server, "notanaddress": "notanaddress",
+               "closed": f"tcp://127.0.0.1:{_closed_port()}"}[which]
+    out = tmp_path / "out"
+    code = main(["survey", str(study), "--sites", str(sites), "--out", str(out),
+                 "--scheduler", address, "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert needle in err and address in err and "tcp://host:8786" in err
+    assert err.count("\n") == 1  # one line, no traceback
+    assert not out.exists()
+
+
+def test_a_scheduler_address_without_scheme_is_accepted(dask_cluster):
+    from lidmelt.inversion.survey.executors import check_scheduler
+
+    bare = dask_cluster.scheduler_address.split("://")[1]
+    assert check_scheduler(bare) == dask_cluster.scheduler_address
+
+
+def test_row_messages_name_the_file_and_the_real_line(tmp_path):
+    sites = tmp_path / "sites.csv"
+    sites.write_text("# invented\nsite,thickness_km,thickness_sigma_km\nA,6,0.5\nB,70,0.5\n"
+                     "C,6,1e-300\n", encoding="utf-8")
+    table = read_sites(sites)
+    assert table.sites[0].error is None
+    # the crust rule of the observation tables (0-60 km), on the file's own line 5
+    assert str(sites) + ", line 4, column 'thickness_km'" in table.sites[1].error
+    assert "between 0 and 60" in table.sites[1].error
+    assert str(sites) + ", line 5, column 'thickness_sigma_km'" in table.sites[2].error
+    assert "no measurement error" in table.sites[2].error
+
+
+@pytest.mark.parametrize("name", ["nan", "NA", "null"])
+def test_a_site_name_read_as_missing_is_refused(tmp_path, name):
+    from lidmelt.inversion.errors import InputError
+
+    sites = tmp_path / "sites.csv"
+    sites.write_text(f"site,thickness_km,thickness_sigma_km\nA,6,0.5\n{name},5,0.5\n",
+                     encoding="utf-8")
+    with pytest.raises(InputError, match="line 3, column 'site': site name"):
+        read_sites(sites)
+
+
+def test_pt_correlation_reaches_the_pressure_block(tmp_path):
+    from lidmelt.inversion.survey import SurveySettings
+    from lidmelt.inversion.survey.sites import site_observations
+
+    sites = tmp_path / "sites.csv"
+    sites.write_text("site,thickness_km,sigma_km,pressure_gpa,pressure_sigma_gpa,"
+                     "temperature_c,temperature_sigma_c,pt_correlation\n"
+                     "A,6,0.5,1.2,0.1,1350,30,0.6\nB,6,0.5,1.2,0.1,,,0.6\n"
+                     "C,6,0.5,1.2,0.1,1350,30,\n", encoding="utf-8")
+    table = read_sites(sites)
+    block = site_observations(table.sites[0], SurveySettings(equilibration="top"))[1]
+    assert block.has_correlation and float(block.pt_correlation[0]) == 0.6
+    assert "pt_correlation" in table.sites[1].error  # no temperature beside it
+    assert table.sites[2].error is None and table.sites[2].pt_correlation is None
+
+
+def test_fast_row_checks_give_the_row_by_row_answers(tmp_path):
+    # every row through the vectorised path must equal the row-by-row rules
+    from lidmelt.inversion.survey.sites import _GROUPS, _site
+
+    sites = tmp_path / "sites.csv"
+    cells = ["6", "0", "-1", "61", "x", "", "1e-4", "0.5", "nan", "inf", "1.1"]
+    lines = ["site,thickness_km,sigma_km,pressure_gpa,pressure_sigma_gpa,position_km"]
+    for k, (a, b, c) in enumerate(zip(cells, reversed(cells), cells[3:] + cells[:3])):
+        lines.append(f"S{k},{a},{b},{c},{b},{a}")
+    sites.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    table = read_sites(sites)
+    header = lines[0].split(",")
+    for k, site in enumerate(table.sites):
+        slow = _site(k, dict(zip(header, lines[k + 1].split(","), strict=True)), k + 2,
+                     _GROUPS[:2], sites)
+        assert site == slow
+
+
+def test_a_survey_model_error_may_be_a_prior(tmp_path):
+    # a free crust model error: each site integrates it (grid, 3 free parameters) and
+    # reports it in km within its prior; with one datum per site the error is weakly
+    # constrained, so the check is that it is a proper posterior inside the prior
+    study = write_study(tmp_path, extra_survey='crust_model_error = { prior = '
+                        '"log-uniform", min = 0.01, max = 5.0 }\ngrid_points = 27000')
+    truth = truth_table(1400.0, [20.0, 30.0, 40.0], pressure_every=100).assign(
+        **{"crustal_thickness.model_error": 1.0})
+    sites = write_sites(tmp_path, study, truth, 3)
+    result = survey(study, sites, out=tmp_path / "out", workers=1, quiet=True)
+    rows = result.summary.set_index(["site", "parameter"])
+    names = set(result.summary["parameter"])
+    error = "crustal_thickness.model_error"
+    assert error in names
+    assert (result.summary[result.summary["parameter"] == error]["unit"] == "km").all()
+    assert result.records[0]["method"] == "grid" and not result.failed
+    for site in ("S01", "S02", "S03"):
+        q = rows.loc[(site, error)]
+        assert 0.01 <= q["q2.5"] < q["median"] < q["q97.5"] <= 5.0
+
+
+def _session_processes(session: int) -> list[int]:
+    found = []
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            fields = (entry / "stat").read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[3]) == session and fields[0] != "Z":  # session id, not a zombie
+            found.append(int(entry.name))
+    return found
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs Linux /proc")
+def test_workers_end_when_the_survey_is_killed(inputs, tmp_path):
+    _, study, sites = inputs
+    many = write_sites(tmp_path, study, truth_table(1390.0, np.linspace(15, 45, 12)), 9)
+    out = tmp_path / "killed"
+    command = [sys.executable, "-m", "lidmelt.cli", "survey", str(study),
+               "--sites", str(many), "--out", str(out), "--workers", "2", "--quiet"]
+    child = subprocess.Popen(command, start_new_session=True, stdout=subprocess.DEVNULL,
+                             stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 120
+        while _finished(out) < 1 and time.monotonic() < deadline and child.poll() is None:
+            time.sleep(0.05)
+        others = [p for p in _session_processes(child.pid) if p != child.pid]
+        assert others, "no worker process was running"
+        os.kill(child.pid, signal.SIGKILL)  # the survey process only, not its group
+        child.wait()
+        deadline = time.monotonic() + 10
+        while _session_processes(child.pid) and time.monotonic() < deadline:
+            time.sleep(0.1)
+        left = _session_processes(child.pid)
+    finally:
+        for pid in _session_processes(child.pid):  # never leave them, even on failure
+            os.kill(pid, signal.SIGKILL)
+    assert not left, f"workers outlived the survey: {left}"

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import emcee
+import pandas as pd
 import numpy as np
 import pytest
 from scipy import integrate, stats
@@ -154,3 +155,77 @@ def test_hierarchical_recovers_a_known_spread(tmp_path):
     site_tp = result.summary[result.summary["parameter"] == "potential_temperature"]
     inside = (site_tp["q2.5"].to_numpy() < tps) & (tps < site_tp["q97.5"].to_numpy())
     assert inside.sum() >= 12  # 95 % intervals: about 13.3 of 14 expected
+
+
+def test_a_site_that_cannot_be_fitted_is_left_out_of_the_area(joint_run, tmp_path, capsys):
+    # 55 km of igneous crust is beyond any potential temperature of the prior (<= 1600
+    # degC makes at most ~30-40 km of crust, White et al. 1992; value from memory):
+    # the area answer must be that of the four other sites, to the last digit
+    from lidmelt.cli import main
+
+    study, sites, result = joint_run
+    extra = tmp_path / "sites.csv"
+    extra.write_text(sites.read_text(encoding="utf-8")
+                     + "X,240,55.0,0.5,,\n", encoding="utf-8")
+    out = tmp_path / "out"
+    assert main(["survey", str(study), "--sites", str(extra), "--out", str(out),
+                 "--mode", "joint", "--workers", "2", "--quiet"]) == 0
+    text = capsys.readouterr().out
+    assert "4 of 5 sites gave a result" in text
+    assert "area-wide answer from the 4 sites with a result" in text
+    area = pd.read_csv(out / "area.csv")
+    expected = result.area.reset_index(drop=True)
+    np.testing.assert_allclose(area[["median", "q2.5", "q97.5"]].to_numpy(float),
+                               expected[["median", "q2.5", "q97.5"]].to_numpy(float),
+                               rtol=1e-5)  # area.csv keeps 6 significant digits
+    assert int(area["sites"].iloc[0]) == 4
+    status = pd.read_csv(out / "sites_summary.csv").groupby("site")["status"].first()
+    assert status["X"].startswith("failed: cannot be fitted")
+    report = (out / "report.md").read_text(encoding="utf-8")
+    assert "4 of 5 sites gave a result" in report and "from 4 sites" in report
+    assert "Consistency between sites" in report
+
+
+@pytest.mark.parametrize("mode", ["joint", "independent"])
+def test_a_survey_where_every_site_fails_exits_non_zero(tmp_path, capsys, mode):
+    # Tp <= 1270 degC under a lid >= 90 km makes no melt (melting starts near 50-60 km
+    # at such Tp, McKenzie & Bickle 1988; value from memory), yet both sites record crust
+    from lidmelt.cli import main
+
+    cold = write_study(tmp_path)
+    cold.write_text(cold.read_text().replace("max = 1600.0", "max = 1270.0").replace(
+        "min = 5.0", "min = 90.0"))
+    sites = tmp_path / "sites.csv"
+    sites.write_text("site,thickness_km,thickness_sigma_km\nA,6,0.5\nB,7,0.5\n", encoding="utf-8")
+    out = tmp_path / "out"
+    code = main(["survey", str(cold), "--sites", str(sites), "--out", str(out),
+                 "--mode", mode, "--workers", "1", "--quiet"])
+    captured = capsys.readouterr()
+    assert code == 1
+    assert "0 of 2 sites gave a result" in captured.out
+    assert "potential_temperature" not in captured.out  # no area number
+    assert "lidmelt survey: no site gave a result" in captured.err
+    assert not (out / "area.csv").exists()
+    if mode == "joint":
+        report = (out / "report.md").read_text(encoding="utf-8")
+        assert "there is no area-wide answer" in report
+
+
+def test_tension_p_of_gaussian_sites_is_the_normal_difference_test():
+    # T_site ~ N(y_i, s_i^2) (flat prior), T_rest ~ N(m, v) the other schools' product:
+    # T_site - T_rest ~ N(y_i - m, s_i^2 + v), so p = 2 Phi(-|y_i - m| / sqrt(s_i^2 + v))
+    # (difference of independent normals, common practice)
+    from lidmelt.inversion.survey.joint import tension_p
+
+    y = np.append(SCHOOLS_Y, 90.0)  # an outlier school
+    s = np.append(SCHOOLS_S, 10.0)
+    axis = np.linspace(-150.0, 250.0, 2001)
+    area = combine_shared(axis, _gaussian_profiles(axis, y, s), Uniform(-150.0, 250.0))
+    for i in range(y.size):
+        w = np.delete(1.0 / s**2, i)
+        m = np.sum(w * np.delete(y, i)) / w.sum()
+        exact = 2.0 * stats.norm.sf(abs(y[i] - m) / np.sqrt(s[i] ** 2 + 1.0 / w.sum()))
+        # 0.2-wide nodes on sd >= 10: discretisation error well below 1e-3
+        assert area.tension[i] == pytest.approx(exact, abs=1e-3, rel=1e-2)
+    assert area.tension[-1] < 0.003 and min(area.tension[:-1]) > 0.003
+    assert tension_p(np.zeros(5), np.zeros(5)) == pytest.approx(1.0)

@@ -1,26 +1,31 @@
 """Posteriors and evidence by quadrature on a tensor grid, for problems with few parameters.
 
 With at most three free parameters the vectorised forward model makes a grid posterior
-exact to quadrature accuracy and much cheaper than MCMC. The integrals are taken in the
-probability space of the priors: with u_j = F_j(theta_j) (each prior's CDF) the prior
-becomes uniform on the unit cube, and
+exact to quadrature accuracy and much cheaper than MCMC. Every axis is built one way
+(`parameter_axis`): the midpoint rule in parameter units (log units for a log-uniform
+prior), each node weighted by pi(theta) times its cell volume, so that
 
-    Z = integral of L(theta) pi(theta) d theta = integral over [0, 1]^d of L(ppf(u)) du,
+    Z = integral of L(theta) pi(theta) d theta ~= sum_i L(theta_i) pi(theta_i) |cell_i|.
 
-so normalised priors of every family (truncated or not) need no density factor and no
-Jacobian. The midpoint rule is used on a box of the cube that holds the posterior mass;
-outside it the integrand is negligible by construction (`find_box`). The error of ln Z is
-estimated as the difference between the grid and a grid of half the resolution (the
-midpoint rule converges at least quadratically, so this over-states the error).
+Parameter units rather than the prior's probability space (u = F(theta)): a posterior
+pushed deep into the tail of a normal prior fills a sliver of probability space that no
+regular grid there resolves, while it is smooth in parameter units.
 
-Two users: the evidence cross-check of scenario comparison and the per-site posteriors
-and marginal likelihoods of a survey (which integrates site-level parameters out for
-each node of an area-wide axis, see `Grid.log_integrate`).
+The grid covers a box that holds the posterior mass: `find_box` zooms in on it from the
+prior's range, and `widen_box` pushes out every face that is not a bound of the prior
+while its edge nodes still hold mass, so a box drawn too tight cannot truncate the
+integral unnoticed. The error of ln Z is estimated as the difference between the grid
+and a grid of half the resolution (the midpoint rule converges quadratically, so this
+over-states the error).
+
+Users: the evidence cross-check of scenario comparison (`inversion.comparison.quadrature`)
+and the per-site posteriors and marginal likelihoods of a survey (which integrates
+site-level parameters out for each node of an area-wide axis, see `Grid.log_integrate`).
 
 Examples
 --------
 >>> from lidmelt.inversion.study.priors import Normal
->>> axis = prior_axis("x", Normal(0.0, 1.0), (0.0, 1.0), 400)
+>>> axis = parameter_axis("x", Normal(0.0, 1.0), (-8.0, 8.0), 400)
 >>> grid = Grid((axis,))
 >>> # a unit-variance Gaussian likelihood against a N(0, 1) prior: Z = N(0.5; 0, 2)
 >>> log_like = -0.5 * (grid.points()[:, 0] - 0.5) ** 2 - 0.5 * np.log(2 * np.pi)
@@ -30,29 +35,69 @@ Examples
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import logsumexp
 
+from ..study.priors import LogUniform
+
 __all__ = [
     "Axis",
     "Grid",
     "GridPosterior",
+    "coordinate",
     "evaluate",
     "find_box",
     "grid_posterior",
-    "prior_axis",
+    "parameter_axis",
+    "parameter_grid",
+    "prior_span",
+    "widen_box",
 ]
 
 #: Nodes with log-posterior below the maximum minus this hold negligible mass (e^-25).
 MASS_CUT = 25.0
+#: A box face is far enough out when the grid's edge nodes there hold less than e^-15
+#: of the fullest node's posterior mass along that axis (far below the quadrature error).
+EDGE_CUT = 15.0
 #: Default size of the final grid (points): 50 per axis in 3-D, ln Z to about 0.005 on the demo.
 MAX_POINTS = 125_000
+#: Prior mass left out beyond each end of an unbounded prior's starting range (a normal
+#: prior: about 7 sd); `widen_box` still moves a face out when mass lies beyond it.
+TAIL = 1e-12
+_WIDENINGS = 4  # at most this many outward moves of a face
 # Points per call of the log-likelihood: ~2000 keeps the forward model's arrays in cache
 # (on the demo, 2048-point calls ran 5-9x faster than 65536-point ones).
 _CHUNK = 2048
+
+
+def coordinate(prior) -> tuple[Callable, Callable, bool]:
+    """Integration coordinate t(theta), its inverse, and whether it is log units.
+
+    Log units for a log-uniform prior (its density is flat in ln theta), else the
+    parameter itself.
+    """
+    if isinstance(prior, LogUniform):
+        return np.log, np.exp, True
+    return (lambda x: np.asarray(x, float)), (lambda t: np.asarray(t, float)), False
+
+
+def prior_span(prior) -> tuple[float, float]:
+    """The prior's bounds, with an infinite end replaced by its 1e-12 quantile (`TAIL`)."""
+    low, high = (float(b) for b in prior.bounds)
+    if not math.isfinite(low):
+        low = float(prior.ppf(TAIL))
+    if not math.isfinite(high):
+        high = float(prior.ppf(1.0 - TAIL))
+    return low, high
+
+
+def _clip(prior, low: float, high: float) -> tuple[float, float]:
+    p_low, p_high = prior.bounds
+    return (max(float(low), p_low), min(float(high), p_high))
 
 
 @dataclass(frozen=True)
@@ -66,46 +111,65 @@ class Axis:
     values : numpy.ndarray
         Node positions, parameter units, shape ``(m,)``, increasing.
     log_weights : numpy.ndarray
-        Log of the prior probability each node stands for, shape ``(m,)``; the weights
-        sum to the prior mass of the axis' span.
-    u : numpy.ndarray or None
-        Node positions in prior probability (CDF) space, shape ``(m,)``, for axes made by
-        `prior_axis`.
+        Log of the prior mass each node stands for, log(pi(theta_i) |cell_i|), shape
+        ``(m,)``; zeros for a plain axis of nodes (e.g. a shared Tp axis).
+    edges : numpy.ndarray or None
+        Cell edges in the integration coordinate (`coordinate`), shape ``(m + 1,)``, for
+        axes made by `parameter_axis`.
     prior : object or None
-        The prior behind a `prior_axis` (for `GridPosterior.quantile`).
+        The prior behind a `parameter_axis`.
     """
 
     name: str
     values: np.ndarray
     log_weights: np.ndarray
-    u: np.ndarray | None = None
+    edges: np.ndarray | None = None
     prior: object | None = None
 
     @property
     def size(self) -> int:
         return int(self.values.size)
 
+    def to_values(self, t) -> np.ndarray:
+        """Integration coordinate -> parameter units."""
+        return np.asarray(coordinate(self.prior)[1](np.asarray(t, float)), float)
 
-def prior_axis(name: str, prior, box: tuple[float, float], nodes: int) -> Axis:
-    """Midpoint-rule axis over ``box = (u_low, u_high)`` of a prior's probability space.
+    @property
+    def span(self) -> tuple[float, float]:
+        """The covered range in parameter units (outer cell edges)."""
+        low, high = self.to_values(self.edges[[0, -1]])
+        return float(low), float(high)
+
+
+def parameter_axis(name: str, prior, span: tuple[float, float], nodes: int) -> Axis:
+    """Midpoint-rule axis over `span` (parameter units) with weights pi(theta) |cell|.
 
     Parameters
     ----------
     name : str
     prior : inversion.study.priors.Prior
-        Needs ``ppf``.
-    box : (float, float)
-        Part of [0, 1] to cover.
+        Needs ``logpdf`` (and ``bounds`` for the callers that clip to them).
+    span : (float, float)
+        ``(low, high)``, finite, parameter units.
     nodes : int
-        Number of equal cells (one node at the centre of each).
+        Number of equal cells in the integration coordinate (one node at each centre).
+
+    Notes
+    -----
+    With t = ln theta (log-uniform prior), d theta = theta d t, so the weight is
+    pi(theta) theta |cell in t|.
     """
-    low, high = float(box[0]), float(box[1])
-    if not 0.0 <= low < high <= 1.0:
-        raise ValueError(f"box {box!r} must satisfy 0 <= low < high <= 1")
-    width = (high - low) / nodes
-    u = low + width * (np.arange(nodes) + 0.5)
-    values = np.asarray(prior.ppf(u), dtype=float)
-    return Axis(name, values, np.full(nodes, np.log(width)), u=u, prior=prior)
+    to_t, from_t, in_log = coordinate(prior)
+    t_low, t_high = (float(v) for v in to_t(np.asarray(span, float)))
+    if not (math.isfinite(t_low) and math.isfinite(t_high) and t_low < t_high):
+        raise ValueError(f"span {span!r} of {name} must be finite and increasing")
+    width = (t_high - t_low) / nodes
+    edges = t_low + width * np.arange(nodes + 1)
+    theta = np.asarray(from_t(0.5 * (edges[1:] + edges[:-1])), float)
+    log_jacobian = np.log(theta) if in_log else 0.0
+    with np.errstate(divide="ignore"):
+        log_w = np.asarray(prior.logpdf(theta), float) + log_jacobian + math.log(width)
+    return Axis(name, theta, log_w, edges=edges, prior=prior)
 
 
 @dataclass(frozen=True)
@@ -161,6 +225,12 @@ class Grid:
         return float(result) if np.ndim(result) == 0 else result
 
 
+def parameter_grid(names: Sequence[str], priors: Sequence, box: Sequence, nodes: int) -> Grid:
+    """`Grid` of `parameter_axis` axes over `box` (one ``(low, high)`` per parameter)."""
+    return Grid(tuple(parameter_axis(n, p, b, nodes)
+                      for n, p, b in zip(names, priors, box, strict=True)))
+
+
 def evaluate(log_f: Callable[[np.ndarray], np.ndarray], grid: Grid,
              chunk: int = _CHUNK) -> np.ndarray:
     """Evaluate a vectorised function of ``(n, ndim)`` points on every node of `grid`.
@@ -169,51 +239,100 @@ def evaluate(log_f: Callable[[np.ndarray], np.ndarray], grid: Grid,
     """
     points = grid.points()
     out = np.empty(points.shape[0])
-    for start in range(0, points.shape[0], chunk):
-        out[start:start + chunk] = log_f(points[start:start + chunk])
+    with np.errstate(all="ignore"):  # off-domain points give -inf or NaN, handled here
+        for start in range(0, points.shape[0], chunk):
+            out[start:start + chunk] = log_f(points[start:start + chunk])
     return np.where(np.isnan(out), -np.inf, out).reshape(grid.shape)
 
 
 def find_box(log_like: Callable[[np.ndarray], np.ndarray], names: Sequence[str],
              priors: Sequence, *, nodes: int = 24, rounds: int = 6,
-             start: Sequence[tuple[float, float]] | None = None) -> list[tuple[float, float]]:
-    """Box of prior probability space that holds the posterior mass.
+             start: Sequence[tuple[float, float] | None] | None = None,
+             ) -> list[tuple[float, float]]:
+    """Box (parameter units) that holds the posterior mass.
 
-    Zooms in from `start` (default the whole unit cube): each round evaluates a coarse
-    grid, keeps the cells whose log-posterior is within `MASS_CUT` of the largest, and
-    takes their extent plus two cells on each side; it stops when the box stops
-    shrinking. A posterior narrower than a coarse cell is still found, because the
-    mass cut is wide and the margin keeps the neighbouring cells.
+    Zooms in from `start` (default, and for a None entry, `prior_span`): each round
+    evaluates a coarse grid, keeps the cells whose log posterior mass is within
+    `MASS_CUT` of the largest, and takes their extent plus two cells on each side; a
+    kept cell at a face that is not a bound of the prior moves that face out by the
+    box's width instead. It stops when the box stops shrinking. A posterior narrower
+    than a coarse cell is still found, because the mass cut is wide and the margin keeps
+    the neighbouring cells.
 
     Returns
     -------
     list of (float, float)
-        One ``(u_low, u_high)`` per parameter.
+        One ``(low, high)`` per parameter, parameter units.
     """
-    box = [tuple(b) for b in (start or [(0.0, 1.0)] * len(names))]
+    start = list(start) if start is not None else [None] * len(names)
+    box = [_clip(p, *(b if b is not None else prior_span(p))) for p, b in zip(priors, start)]
     for _ in range(rounds):
-        grid = Grid(tuple(prior_axis(n, p, b, nodes) for n, p, b in zip(names, priors, box)))
-        values = evaluate(log_like, grid)
+        grid = parameter_grid(names, priors, box, nodes)
+        values = evaluate(log_like, grid) + grid.log_weights()
         if not np.isfinite(values).any():
             return box
         keep = values >= values.max() - MASS_CUT
-        new_box = []
-        for j, (low, high) in enumerate(box):
+        new_box, moved = [], False
+        for j, axis in enumerate(grid.axes):
             other = tuple(k for k in range(len(box)) if k != j)
             used = np.flatnonzero(keep.any(axis=other))
-            cell = (high - low) / nodes
-            new_box.append((max(0.0, low + (used[0] - 2) * cell),
-                            min(1.0, low + (used[-1] + 3) * cell)))
-        shrink = max((h - l) / (bh - bl) for (l, h), (bl, bh) in zip(new_box, box))
+            edges, (p_low, p_high) = axis.edges, priors[j].bounds
+            width = edges[-1] - edges[0]
+            low = edges[max(used[0] - 2, 0)]
+            high = edges[min(used[-1] + 3, nodes)]
+            if used[0] == 0 and box[j][0] > p_low:
+                low, moved = edges[0] - width, True
+            if used[-1] == nodes - 1 and box[j][1] < p_high:
+                high, moved = edges[-1] + width, True
+            new_box.append(_clip(priors[j], *(float(v) for v in axis.to_values([low, high]))))
+        shrink = max(_width(p, b) / _width(p, a) for p, a, b in zip(priors, box, new_box))
         box = new_box
-        if shrink > 0.7:
+        if shrink > 0.7 and not moved:
             break
     return box
 
 
+def _width(prior, box) -> float:
+    to_t = coordinate(prior)[0]
+    low, high = (float(v) for v in to_t(np.asarray(box, float)))
+    return high - low
+
+
+def widen_box(log_mass: np.ndarray, grid: Grid, box: Sequence[tuple[float, float]],
+              ) -> list[tuple[float, float]]:
+    """`box` (the grid's) with every face that still holds posterior mass moved out.
+
+    A face moves out by the box's width (in the integration coordinate) when the edge
+    nodes there hold more than e^-`EDGE_CUT` of the largest node of the marginal, unless
+    it is a bound of the prior.
+
+    Parameters
+    ----------
+    log_mass : numpy.ndarray
+        log(L pi |cell|) at the nodes, shape ``grid.shape``.
+    grid : Grid
+        Made of `parameter_axis` axes.
+    box : sequence of (float, float)
+        The box the grid was made on (parameter units); faces not moved are kept as given.
+    """
+    out = []
+    for j, (axis, (low, high)) in enumerate(zip(grid.axes, box, strict=True)):
+        other = tuple(k for k in range(len(grid.axes)) if k != j)
+        marginal = logsumexp(log_mass, axis=other) if other else log_mass
+        cut = float(np.max(marginal)) - EDGE_CUT
+        p_low, p_high = axis.prior.bounds
+        width = axis.edges[-1] - axis.edges[0]
+        if low > p_low and marginal[0] > cut:
+            low = float(axis.to_values(axis.edges[0] - width))
+        if high < p_high and marginal[-1] > cut:
+            high = float(axis.to_values(axis.edges[-1] + width))
+        out.append(_clip(axis.prior, low, high))
+    return out
+
+
 @dataclass(frozen=True)
 class GridPosterior:
-    """A posterior tabulated on a grid in prior probability space.
+    """A posterior tabulated on a grid of `parameter_axis` axes.
 
     Attributes
     ----------
@@ -247,14 +366,13 @@ class GridPosterior:
         return self.grid.axes[j].values, self.weights().sum(axis=other)
 
     def quantile(self, name: str, q) -> np.ndarray:
-        """Posterior quantiles of one parameter (linear CDF within each cell)."""
+        """Posterior quantiles of one parameter (CDF linear within each cell, in the
+        integration coordinate)."""
         axis = self.grid.axes[self.names.index(name)]
         _, mass = self.marginal(name)
-        half = (axis.u[1] - axis.u[0]) / 2 if axis.size > 1 else 0.0
-        edges = np.concatenate([[axis.u[0] - half], axis.u + half])
         cdf = np.concatenate([[0.0], np.cumsum(mass)])
-        u = np.interp(np.asarray(q, float) * cdf[-1], cdf, edges)
-        return np.asarray(axis.prior.ppf(u), dtype=float)
+        t = np.interp(np.asarray(q, float) * cdf[-1], cdf, axis.edges)
+        return axis.to_values(t)
 
     def mean(self, name: str) -> float:
         values, mass = self.marginal(name)
@@ -262,30 +380,31 @@ class GridPosterior:
 
     def sample(self, rng: np.random.Generator, size: int) -> np.ndarray:
         """Posterior draws, shape ``(size, ndim)``: a node by its weight, then a uniform
-        position within its cell (in probability space)."""
+        position within its cell (in the integration coordinate)."""
         weights = self.weights().ravel()
         index = rng.choice(weights.size, size=size, p=weights / weights.sum())
         cells = np.unravel_index(index, self.grid.shape)
         out = np.empty((size, len(self.names)))
         for j, axis in enumerate(self.grid.axes):
-            width = axis.u[1] - axis.u[0] if axis.size > 1 else 0.0
-            u = axis.u[cells[j]] + width * (rng.random(size) - 0.5)
-            out[:, j] = axis.prior.ppf(np.clip(u, 0.0, 1.0))
+            low, high = axis.edges[cells[j]], axis.edges[cells[j] + 1]
+            out[:, j] = axis.to_values(low + (high - low) * rng.random(size))
         return out
 
     def map_point(self) -> dict[str, float]:
         """The node of largest posterior density (in parameter space)."""
-        density = self.log_likelihood + sum(
-            np.expand_dims(np.asarray(a.prior.logpdf(a.values), float),
-                           [k for k in range(len(self.names)) if k != j])
-            for j, a in enumerate(self.grid.axes))
+        with np.errstate(divide="ignore"):
+            density = self.log_likelihood + sum(
+                np.expand_dims(np.asarray(a.prior.logpdf(a.values), float),
+                               [k for k in range(len(self.names)) if k != j])
+                for j, a in enumerate(self.grid.axes))
         index = np.unravel_index(np.nanargmax(density), self.grid.shape)
         return {a.name: float(a.values[i]) for a, i in zip(self.grid.axes, index)}
 
 
 def grid_posterior(log_like: Callable[[np.ndarray], np.ndarray], names: Sequence[str],
                    priors: Sequence, *, max_points: int = MAX_POINTS,
-                   box: Sequence[tuple[float, float]] | None = None) -> GridPosterior:
+                   box: Sequence[tuple[float, float] | None] | None = None,
+                   max_nodes: int | None = None) -> GridPosterior:
     """Posterior and ln Z of a problem with few parameters, by grid quadrature.
 
     Parameters
@@ -294,26 +413,36 @@ def grid_posterior(log_like: Callable[[np.ndarray], np.ndarray], names: Sequence
         ``(n, ndim)`` parameter values -> ``(n,)`` log-likelihood (``-inf`` allowed).
         `inversion.LogPosterior.log_likelihood` is one.
     names, priors : sequences
-        Free parameters and their priors (with ``ppf``, ``logpdf``), in column order.
+        Free parameters and their priors (with ``logpdf``, ``bounds``, ``ppf``), in
+        column order.
     max_points : int
         Size of the final grid (its resolution per axis is ``max_points ** (1/ndim)``).
     box : sequence of (float, float), optional
-        Box of prior probability space holding the posterior mass (e.g. from nested
-        samples); found by `find_box` when omitted.
+        Starting box in parameter units (e.g. from nested samples; a None entry: the
+        prior's range); `find_box` zooms in from it.
+    max_nodes : int, optional
+        Cap on the nodes per axis.
 
     Returns
     -------
     GridPosterior
+        On the box `find_box` gave, widened (`widen_box`) while a face held mass.
     """
     names, priors = tuple(names), tuple(priors)
     if not names:
         raise ValueError("a grid posterior needs at least one free parameter")
-    box = list(box) if box is not None else find_box(log_like, names, priors)
+    box = find_box(log_like, names, priors, start=box)
     nodes = max(8, int(round(max_points ** (1.0 / len(names)))))
-    grid = Grid(tuple(prior_axis(n, p, b, nodes) for n, p, b in zip(names, priors, box)))
-    values = evaluate(log_like, grid)
+    nodes = min(nodes, max_nodes) if max_nodes else nodes
+    for _ in range(_WIDENINGS + 1):
+        grid = parameter_grid(names, priors, box, nodes)
+        values = evaluate(log_like, grid)
+        wider = widen_box(values + grid.log_weights(), grid, box)
+        if wider == box or not np.isfinite(values).any():
+            break
+        box = wider
     log_z = grid.log_integrate(values)
     # the same box at half the resolution: every other cell, twice as wide
-    half = Grid(tuple(prior_axis(n, p, b, nodes // 2) for n, p, b in zip(names, priors, box)))
+    half = parameter_grid(names, priors, box, nodes // 2)
     log_z_half = half.log_integrate(evaluate(log_like, half))
     return GridPosterior(grid, values, log_z, abs(log_z - log_z_half))

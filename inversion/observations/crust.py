@@ -122,8 +122,9 @@ class CrustalThickness(ObservationSet):
             ColumnRule("thickness_km", low=0.0, high=MAX_THICKNESS, unit="km",
                        why="a thickness cannot be negative, and the thickest igneous "
                        "crust, beneath Iceland and oceanic plateaus, is about 40 km"),
-            ColumnRule("thickness_sigma_km", low=0.0, low_open=True, unit="km",
-                       why="a 1-sigma uncertainty must be positive"),
+            ColumnRule("thickness_sigma_km", low=1e-3, unit="km",
+                       why="a 1-sigma uncertainty below 1 m is no measurement error (and "
+                       "would make every likelihood underflow)"),
         ], []
 
     @classmethod

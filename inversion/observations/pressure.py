@@ -147,14 +147,14 @@ class MeltingPressure(ObservationSet):
         required = [
             ColumnRule("sample", numeric=False),
             ColumnRule("pressure_gpa", low=low, high=high, unit="GPa"),
-            ColumnRule("pressure_sigma_gpa", low=0.0, low_open=True, unit="GPa",
-                       why="a 1-sigma uncertainty must be positive"),
+            ColumnRule("pressure_sigma_gpa", low=1e-4, unit="GPa",
+                       why="a 1-sigma uncertainty below 0.0001 GPa is no measurement error"),
         ]
         temperature = [
             ColumnRule("temperature_c", low=t_low, high=t_high, unit="degC",
                        why="outside this range the unit is probably not degC"),
-            ColumnRule("temperature_sigma_c", low=0.0, low_open=True, unit="degC",
-                       why="a 1-sigma uncertainty must be positive"),
+            ColumnRule("temperature_sigma_c", low=1e-2, unit="degC",
+                       why="a 1-sigma uncertainty below 0.01 degC is no measurement error"),
         ]
         correlation = [
             ColumnRule("pt_correlation", low=-1.0, high=1.0, low_open=True, high_open=True,

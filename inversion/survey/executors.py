@@ -18,12 +18,21 @@ from __future__ import annotations
 import contextlib
 import multiprocessing
 import os
+import socket
+import struct
+import sys
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
 from ..errors import InputError
 
-__all__ = ["DaskExecutor", "LocalExecutor", "make_executor"]
+__all__ = ["DaskExecutor", "LocalExecutor", "check_scheduler", "make_executor"]
+
+#: Seconds to open a TCP connection to a scheduler, and to wait for its greeting.
+CONNECT_TIMEOUT = 5.0
+GREETING_TIMEOUT = 3.0
+_WAIT_MESSAGE_EVERY = 60.0  # seconds between "still no workers" lines
+_EXPECTED = "expected the address of a running Dask scheduler, such as tcp://host:8786"
 
 _PRELOAD = ("lidmelt.inversion.survey.job",)  # what every worker needs, imported once
 _THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
@@ -68,7 +77,9 @@ class LocalExecutor:
                 "forkserver" if "forkserver" in methods else "spawn")
             if context.get_start_method() == "forkserver":  # import once, fork workers
                 context.set_forkserver_preload(list(_PRELOAD))
-            self._executor = ProcessPoolExecutor(self.workers, mp_context=context)
+            self._executor = ProcessPoolExecutor(self.workers, mp_context=context,
+                                                 initializer=_watch_parent,
+                                                 initargs=(os.getpid(),))
         return self._executor
 
     def close(self) -> None:
@@ -93,16 +104,35 @@ class DaskExecutor:
         except ImportError:
             raise InputError("--scheduler needs Dask: pip install 'lidmelt[cluster]'",
                              key="scheduler") from None
+        address = check_scheduler(address)
         try:
-            self.client = Client(address, timeout="20s", set_as_default=False)
-        except (OSError, TimeoutError) as err:
-            raise InputError(f"cannot reach the Dask scheduler at {address}: {err}",
+            self.client = Client(address, timeout="10s", set_as_default=False)
+        except Exception as err:  # anything the handshake raises becomes one line
+            raise InputError(f"--scheduler {address}: the Dask client could not connect "
+                             f"({type(err).__name__}: {err}); {_EXPECTED}",
                              key="scheduler") from None
+        self.address = address
         self.workers = len(self.client.scheduler_info().get("workers", {}))
         self.where = f"Dask cluster {address} ({self.workers} workers)"
 
+    def _wait_for_workers(self) -> None:
+        """Say so, once a minute, while the cluster has no worker to run a site."""
+        waited = 0.0
+        while not self.client.scheduler_info().get("workers"):
+            print(f"lidmelt survey: the Dask cluster at {self.address} has no workers; "
+                  f"waiting for one to connect ({waited:.0f} s so far; Ctrl-C to stop)",
+                  file=sys.stderr, flush=True)
+            try:
+                self.client.wait_for_workers(1, timeout=_WAIT_MESSAGE_EVERY)
+            except TimeoutError:
+                waited += _WAIT_MESSAGE_EVERY
+        self.workers = len(self.client.scheduler_info().get("workers", {}))
+
     def run(self, fn: Callable, tasks: Sequence) -> Iterator[tuple[int, object]]:
         from dask.distributed import as_completed as dask_completed
+
+        if tasks:
+            self._wait_for_workers()
 
         futures = {self.client.submit(fn, task, pure=False): k for k, task in enumerate(tasks)}
         try:
@@ -115,6 +145,94 @@ class DaskExecutor:
 
     def close(self) -> None:
         self.client.close()
+
+
+def check_scheduler(address: str, *, timeout: float = CONNECT_TIMEOUT) -> str:
+    """Check that a Dask scheduler answers at `address`, before anything is created.
+
+    The address is parsed (``tcp://host:port``, ``tls://host:port`` or ``host:port``), a
+    TCP connection opened within `timeout` seconds and, for ``tcp://``, the greeting
+    read: a Dask scheduler sends a framed handshake at once (an 8-byte little-endian
+    message length, then the number of frames), which a web server or another service
+    does not. Returns the address with its scheme.
+
+    Raises
+    ------
+    InputError
+        One line naming the address and what was expected.
+    """
+    text = str(address).strip()
+    scheme, _, rest = text.rpartition("://")
+    scheme = scheme or "tcp"
+    host, _, port_text = rest.rpartition(":")
+    host = host.strip("[]")
+    if scheme not in ("tcp", "tls") or not host or not port_text.isdigit() \
+            or not 0 < int(port_text) < 65536:
+        raise InputError(f"--scheduler {text!r} is not a scheduler address; {_EXPECTED}",
+                         key="scheduler")
+    full = f"{scheme}://{rest}"
+    try:
+        connection = socket.create_connection((host, int(port_text)), timeout=timeout)
+    except socket.gaierror:
+        raise InputError(f"--scheduler {full}: unknown host {host!r}; {_EXPECTED}",
+                         key="scheduler") from None
+    except (TimeoutError, socket.timeout):
+        raise InputError(f"--scheduler {full}: no answer within {timeout:g} s; {_EXPECTED}",
+                         key="scheduler") from None
+    except OSError as err:
+        raise InputError(f"--scheduler {full}: cannot connect ({err.strerror or err}); "
+                         f"{_EXPECTED}", key="scheduler") from None
+    with connection:
+        if scheme == "tcp" and not _greets_like_dask(connection):
+            raise InputError(f"--scheduler {full}: something listens there but it is not "
+                             "a Dask scheduler (it did not send the Dask handshake; a web "
+                             f"dashboard port?); {_EXPECTED}", key="scheduler")
+    return full
+
+
+def _greets_like_dask(connection: socket.socket) -> bool:
+    connection.settimeout(GREETING_TIMEOUT)
+    data = b""
+    try:
+        while len(data) < 16:
+            chunk = connection.recv(16 - len(data))
+            if not chunk:
+                break
+            data += chunk
+    except OSError:  # includes the timeout: a web server waits for a request
+        pass
+    if len(data) < 16:
+        return False
+    length, frames = struct.unpack("<QQ", data)
+    return 0 < length < 2**24 and 0 < frames < 2**10
+
+
+_WATCH_SECONDS = 0.5  # how often a worker checks that the survey process still lives
+
+
+def _watch_parent(parent: int) -> None:
+    """In each local worker: end the worker soon after the survey process dies.
+
+    Workers are children of the forkserver, not of the survey process, so neither their
+    parent pid nor a parent-death signal follows the survey; a daemon thread polls the
+    survey's pid instead (signal 0 tests existence; the pid cannot be reused while the
+    worker, which does not reap it, only polls). A killed survey (kill -9) so leaves no
+    worker behind for more than about `_WATCH_SECONDS`.
+    """
+    import threading
+    import time
+
+    def watch() -> None:
+        while True:
+            time.sleep(_WATCH_SECONDS)
+            try:
+                os.kill(parent, 0)
+            except ProcessLookupError:
+                os._exit(1)
+            except PermissionError:  # alive, owned by another user: cannot happen here
+                continue
+
+    threading.Thread(target=watch, name="lidmelt-parent-watch", daemon=True).start()
 
 
 def _call(fn: Callable, task):

@@ -13,7 +13,7 @@ hierarchical (site temperatures t_i ~ N(mu, tau^2), truncated to the Tp axis)
 
 Each log L_i is tabulated on the same equally spaced axis and is smooth in t, so sums of
 them are interpolated by cubic splines between the nodes; the area posteriors are then
-grid posteriors (`inversion.fitting.grid`) in the priors' probability space. For the second pass
+grid posteriors (`inversion.fitting.grid`, parameter units). For the second pass
 every site gets a log-factor on t that carries what the other sites say:
 log prod_{j != i} L_j(t) (shared) or log E[N(t; mu, tau^2) / I_i(mu, tau)] - log pi(t)
 over the area posterior (hierarchical); multiplied into the site's own likelihood it
@@ -31,8 +31,12 @@ from scipy.interpolate import CubicSpline
 from ..fitting.grid import MASS_CUT, GridPosterior, grid_posterior
 from .job import TP
 
-__all__ = ["AreaPosterior", "alone_quantiles", "combine_hierarchical", "combine_shared",
-           "tp_axis"]
+__all__ = ["TENSION_P", "AreaPosterior", "alone_quantiles", "combine_hierarchical",
+           "combine_shared", "tension_p", "tp_axis"]
+
+#: A site is flagged as in tension with the rest of the area when the two-sided p-value
+#: of `tension_p` is below this (about 3 sigma of a normal, common practice).
+TENSION_P = 0.003
 
 _TAIL = 1e-7  # prior mass left out beyond each end of the Tp axis
 _AREA_POINTS = {1: 4_000, 2: 6_400}  # grid size of the area posterior by dimension
@@ -60,13 +64,16 @@ class AreaPosterior:
     factors : list of (numpy.ndarray, numpy.ndarray)
         Per site (in the order given): Tp nodes (degC) and the log-factor on them.
     boxes : list of (float, float)
-        Per site: part of the Tp prior's probability space holding its posterior mass.
+        Per site: the Tp range (degC) holding its posterior mass.
+    tension : list of float
+        Per site: the two-sided p-value of `tension_p` against the rest of the area.
     """
 
     posterior: GridPosterior
     hierarchical: bool
     factors: list
     boxes: list
+    tension: list
 
     @property
     def sites(self) -> int:
@@ -114,11 +121,35 @@ def combine_shared(axis: np.ndarray, profiles, prior) -> AreaPosterior:
     total = profiles.sum(axis=0)
     post = grid_posterior(_on_axis(CubicSpline(axis, total), axis[0], axis[-1]), [TP],
                           [prior], max_points=_AREA_POINTS[1])
-    u = post.grid.axes[0].u
-    half = (u[1] - u[0]) / 2
-    box = (max(0.0, float(u[0] - half)), min(1.0, float(u[-1] + half)))
+    box = post.grid.axes[0].span
     factors = [(axis, total - own) for own in profiles]
-    return AreaPosterior(post, False, factors, [box] * len(profiles))
+    log_prior = np.asarray(prior.logpdf(axis), float)
+    tension = [tension_p(own, rest + log_prior) for own, (_, rest)
+               in zip(profiles, factors, strict=True)]
+    return AreaPosterior(post, False, factors, [box] * len(profiles), tension)
+
+
+def tension_p(own: np.ndarray, reference: np.ndarray) -> float:
+    """Two-sided p-value that a site's Tp and the rest of the area's agree.
+
+    With T_site distributed as the site's own Tp likelihood (normalised, flat over the
+    axis) and T_rest as the reference density (shared mode: the area posterior from the
+    other sites; hierarchical: the predictive density of a site's Tp under the area
+    posterior), p = 2 min(P(T_site < T_rest), P(T_site > T_rest)), the probability
+    comparison of two independent densities on the same equally spaced axis (a tie
+    counts half). A site is flagged when p < `TENSION_P`.
+
+    Parameters
+    ----------
+    own, reference : numpy.ndarray
+        Log densities (any offset) on the same equally spaced nodes, shape ``(m,)``.
+    """
+    q = np.exp(own - np.max(own))
+    r = np.exp(reference - np.max(reference))
+    q, r = q / q.sum(), r / r.sum()
+    below = np.concatenate([[0.0], np.cumsum(r)[:-1]])  # P(T_rest < node)
+    greater = float(np.sum(q * (below + 0.5 * r)))  # P(T_site > T_rest)
+    return float(min(1.0, 2.0 * min(greater, 1.0 - greater)))
 
 
 def combine_hierarchical(axis: np.ndarray, profiles, prior, spread_prior) -> AreaPosterior:
@@ -131,7 +162,9 @@ def combine_hierarchical(axis: np.ndarray, profiles, prior, spread_prior) -> Are
     post = grid_posterior(model.log_likelihood, [TP, "tp_spread"], [prior, spread_prior],
                           max_points=_AREA_POINTS[2])
     factors, boxes = model.site_factors(post, prior)
-    return AreaPosterior(post, True, factors, boxes)
+    predictive = model.predictive(post)
+    tension = [tension_p(own, predictive) for own in model.log_l]
+    return AreaPosterior(post, True, factors, boxes, tension)
 
 
 class _Hierarchy:
@@ -165,6 +198,18 @@ class _Hierarchy:
             out[start:start + _CHUNK] = self.log_integrals(mu, tau).sum(axis=0)
         return out
 
+    def predictive(self, post: GridPosterior) -> np.ndarray:
+        """log of the area posterior's predictive density of one site's Tp on the fine
+        axis: sum over area nodes m of w_m N(t; mu_m, tau_m^2) (truncated to the axis)."""
+        weights = post.weights().ravel()
+        keep = weights > _WEIGHT_CUT * weights.max()
+        points, w = post.grid.points()[keep], weights[keep]
+        total = np.zeros(self.t.size)
+        for s in range(0, points.shape[0], _CHUNK):
+            total += self.kernel(*points[s:s + _CHUNK].T) @ w[s:s + _CHUNK]
+        with np.errstate(divide="ignore"):
+            return np.log(total)
+
     def site_factors(self, post: GridPosterior, prior) -> tuple[list, list]:
         """Per site: log E[N(t; mu, tau^2) / I_i] - log pi(t) on t, and its Tp box."""
         weights = post.weights().ravel()
@@ -191,5 +236,5 @@ class _Hierarchy:
         keep = np.flatnonzero(log_density >= np.max(log_density) - MASS_CUT)
         low = self.edges[max(keep[0] - 2, 0)]
         high = self.edges[min(keep[-1] + 3, self.edges.size - 1)]
-        u = np.clip(np.asarray(prior.cdf(np.array([low, high])), float), 0.0, 1.0)
-        return float(u[0]), float(u[1])
+        p_low, p_high = prior.bounds
+        return max(float(low), p_low), min(float(high), p_high)

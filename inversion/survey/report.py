@@ -41,22 +41,55 @@ def _interval(row) -> str:
 
 
 def _area_section(result, plan) -> list[str]:
+    ok = result.summary[(result.summary["parameter"] == TP)
+                        & (result.summary["status"] == "ok")]
+    n, used = len(result.records), len(result.usable)
+    head = f"{used} of {n} sites gave a result."
+    if plan.mode == "joint" and result.area is None:
+        return [f"{head} No site could be used, so there is no area-wide answer."]
     if result.area is None:
-        ok = result.summary[(result.summary["parameter"] == TP)
-                            & (result.summary["status"] == "ok")]
         if ok.empty:
-            return ["No site gave a result."]
+            return [f"{head} No site gave a result."]
         return [
-            "Each site was fitted on its own (independent mode); there is no area-wide "
-            "posterior. Across the sites with a result, the site medians of the potential "
-            f"temperature range from {ok['median'].min():.0f} to {ok['median'].max():.0f} "
-            f"°C (median of the medians {ok['median'].median():.0f} °C). Run with "
-            "`--mode joint` for one area-wide answer that uses every site at once."]
-    lines = []
+            f"{head} Each site was fitted on its own (independent mode); there is no "
+            "area-wide posterior. Across the sites with a result, the site medians of the "
+            f"potential temperature range from {ok['median'].min():.0f} to "
+            f"{ok['median'].max():.0f} °C (median of the medians {ok['median'].median():.0f}"
+            " °C). Run with `--mode joint` for one area-wide answer that uses every site "
+            "at once."]
+    lines = [f"{head} The area-wide answer uses those {used} sites only (a failed site "
+             "is left out and the others combined again without it).", ""]
     for _, row in result.area.iterrows():
         lines.append(f"- **{row['parameter']}** ({row['meaning']}): {_interval(row)} "
                      f"{row['unit']}, from {row['sites']} sites")
     return lines
+
+
+def _tension_section(result, plan) -> list[str]:
+    from .joint import TENSION_P
+
+    checked = [r for r in result.usable if "tension_p" in r]
+    if plan.mode != "joint" or not checked:
+        return []
+    reference = ("the predictive distribution of a site's temperature under the area "
+                 "posterior" if plan.settings.hierarchical else
+                 "the area posterior from the other sites")
+    lines = ["## Consistency between sites", "",
+             "Each used site's potential temperature (its own Tp likelihood, flat over "
+             f"the prior's range) is compared with {reference}: p = 2 min(P(site < rest), "
+             f"P(site > rest)). A site is flagged as in tension when p < {TENSION_P:g} "
+             "(about 3 sigma).", ""]
+    flagged = [r for r in checked if r["in_tension"]]
+    if not flagged:
+        lines.append(f"No site is in tension ({len(checked)} checked; smallest p = "
+                     f"{min(r['tension_p'] for r in checked):.2g}).")
+    else:
+        lines.append(f"{len(flagged)} of {len(checked)} sites are in tension with the "
+                     "rest of the area (the area-wide answer may not describe them):")
+        lines.append("")
+        lines += [f"- **{r['site']}** (line {r['line']}): p = {r['tension_p']:.2g}"
+                  for r in flagged]
+    return [*lines, ""]
 
 
 def _site_table(result) -> list[str]:
@@ -98,11 +131,12 @@ def render(result, plan, *, executor_name: str) -> str:
         f"{len(result.records)} sites from `{plan.table.path.name}`, mode **{mode}**, "
         f"master seed {plan.seed}, run on {executor_name}. Free parameters per site: "
         f"{free}. Methods used: {', '.join(methods) or 'none'} (grid = quadrature "
-        "on a grid in the priors' probability space for at most 3 free parameters, "
+        "on a grid in parameter units for at most 3 free parameters, "
         "mcmc = emcee); each site's method is in sites_summary.csv.", "",
         thickness_reading(plan.settings.thickness_of, plan.study.model.crust_density,
                           plan.study.model.mantle_density), "",
         "## Area-wide answer", "", *_area_section(result, plan), "",
+        *_tension_section(result, plan),
         "## Sites", "", *_site_table(result), "",
         "## Failed sites", "", *_failed(result), "",
         "## Files", "",

@@ -11,7 +11,7 @@ from __future__ import annotations
 import signal
 import threading
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from os import PathLike
 from pathlib import Path
 
@@ -61,6 +61,16 @@ class SurveyResult:
     def failed(self) -> list[dict]:
         """Records of the sites whose status is not "ok"."""
         return [r for r in self.records if r["status"] != "ok"]
+
+    @property
+    def usable(self) -> list[dict]:
+        """Records of the sites that gave a result (those the area-wide answer uses)."""
+        return [r for r in self.records if r["status"] == "ok"]
+
+    @property
+    def in_tension(self) -> list[dict]:
+        """Joint mode: used sites flagged by the consistency check (`joint.tension_p`)."""
+        return [r for r in self.usable if r.get("in_tension")]
 
 
 def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
@@ -174,12 +184,28 @@ class _Plan:
         return THICKNESS_OF[self.settings.thickness_of]
 
     @property
-    def row_names(self) -> tuple[str, ...]:
-        return (*self.study.free_parameters, self.predicted)
+    def row_names(self) -> dict:
+        """Rows of a site and their units: free parameters (model errors too), thickness."""
+        units = site_units(self.study, self.settings, self.table.has_pressures)
+        return {**units, self.predicted: UNITS[self.predicted]}
+
+
+def site_units(study, settings, has_pressures: bool) -> dict:
+    """Unit of every free parameter of a site (a pressure site when `has_pressures`),
+    in column order, model errors included."""
+    from ..fitting.log_posterior import LogPosterior
+    from .sites import Site, site_observations
+
+    pressure = {"pressure_gpa": 1.0, "pressure_sigma_gpa": 0.1} if has_pressures else {}
+    probe = Site(0, "probe", 0, thickness_km=5.0, thickness_sigma_km=1.0, **pressure)
+    if settings.equilibration is None:
+        settings = replace(settings, equilibration="top")
+    logpost = LogPosterior(study.with_observations(site_observations(probe, settings)))
+    return {name: logpost.units.get(name) or UNITS.get(name) for name in logpost.names}
 
 
 def _check_combination(study, settings, table, mode: str, study_path: Path) -> None:
-    free = study.free_parameters
+    free = tuple(site_units(study, settings, table.has_pressures))
     if table.has_pressures and settings.equilibration is None:
         raise InputError("the sites carry melting pressures: set equilibration = \"top\", "
                          "\"pooled\" or \"path\" in the [survey] table", file=study_path,
@@ -201,17 +227,21 @@ def _check_combination(study, settings, table, mode: str, study_path: Path) -> N
 
 def _run_phase(plan: _Plan, folder: SurveyFolder, executor, kind: str, phase: str, *,
                quiet: bool, indices: Sequence[int] | None = None,
-               extra: dict | None = None) -> list[dict]:
-    """Run `kind` tasks for the sites without a `phase` record; return all records."""
+               extra: dict | None = None, area_key: str | None = None) -> list[dict]:
+    """Run `kind` tasks for the sites without a usable `phase` record; return all records.
+
+    A stored record is reused only when it is complete (`_RECORD_KEYS`) and, in the
+    second joint pass, was made from the same set of sites (`area_key`).
+    """
     indices = range(len(plan.table)) if indices is None else indices
     records, todo = {}, []
     for k in indices:
         site = plan.table.sites[k]
         record = folder.read_record(k, site.name, phase)
-        if record is None:
-            todo.append(k)
-        else:
+        if _usable(record, area_key):
             records[k] = record
+        else:
+            todo.append(k)
     tasks = [plan.task(kind, k, **(extra or {}).get(k, {})) for k in todo]
     label = {"posterior": "sites", "likelihood": "Tp likelihoods",
              "conditional": "site posteriors"}[kind]
@@ -222,10 +252,28 @@ def _run_phase(plan: _Plan, folder: SurveyFolder, executor, kind: str, phase: st
             outcome = _as_outcome(outcome, plan, k, kind)
             if phase == "likelihood":
                 outcome.record["tp_axis"] = [float(v) for v in extra[k]["tp_axis"]]
+            if area_key is not None:
+                outcome.record["area_key"] = area_key
             _fill_failed(outcome.record, plan.row_names)
             records[k] = folder.write_record(outcome.record, phase, outcome.arrays)
             bar.update(1)
     return [records[k] for k in indices]
+
+
+#: Keys every stored site record has (a damaged site.json without them runs again).
+_RECORD_KEYS = ("site", "index", "line", "position_km", "seed", "phase", "method",
+                "converged", "status")
+
+
+def _usable(record: dict | None, area_key: str | None) -> bool:
+    if not isinstance(record, dict) or any(key not in record for key in _RECORD_KEYS):
+        return False
+    if record["phase"] != "likelihood" and not isinstance(record.get("rows"), list):
+        return False
+    if record["phase"] == "likelihood" and record["status"] == "ok" and not isinstance(
+            record.get("tp_log_likelihood"), list):
+        return False
+    return area_key is None or record.get("area_key") == area_key
 
 
 def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
@@ -240,42 +288,60 @@ def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
     return SiteOutcome(record)
 
 
-def _fill_failed(record: dict, names: Sequence[str]) -> None:
+def _fill_failed(record: dict, names: dict) -> None:
     """Give a failed final record one NaN row per parameter (every site has its rows)."""
     if record["phase"] == "likelihood" or record.get("rows"):
         return
-    record["rows"] = [{"parameter": n, "unit": UNITS[n], **{q: None for q in QUANTILES}}
-                      for n in names]
+    record["rows"] = [{"parameter": n, "unit": unit, **{q: None for q in QUANTILES}}
+                      for n, unit in names.items()]
 
 
 def _run_joint(plan: _Plan, folder: SurveyFolder, executor, *, quiet: bool):
-    """First pass (Tp likelihoods), area posterior, second pass (site posteriors)."""
+    """First pass (Tp likelihoods), area posterior, second pass (site posteriors).
+
+    Only sites that give a result make the area-wide answer: a site that fails its
+    second pass (e.g. the model cannot fit it, `job._finish`) is left out, the area
+    posterior is combined again from the others and their second pass rerun, until no
+    site used fails (each round drops at least one site). Returns the final records and
+    the area posterior, None when no site could be used.
+    """
     prior = plan.study.priors[TP]
     axis = joint.tp_axis(prior, plan.settings.tp_nodes)
     n = len(plan.table)
     first = _run_phase(plan, folder, executor, "likelihood", "likelihood", quiet=quiet,
                        extra={k: {"tp_axis": axis} for k in range(n)})
     used = [k for k, r in enumerate(first) if r["status"] == "ok"]
+    second, area = {}, None
+    while used:
+        profiles = np.array([first[k]["tp_log_likelihood"] for k in used])
+        if plan.settings.hierarchical:
+            area = joint.combine_hierarchical(axis, profiles, prior,
+                                              plan.settings.tp_spread)
+        else:
+            area = joint.combine_shared(axis, profiles, prior)
+        key = _area_key(used)
+        extra = {k: {"tp_factor": area.factors[j], "tp_box": area.boxes[j]}
+                 for j, k in enumerate(used)}
+        second.update(zip(used, _run_phase(plan, folder, executor, "conditional", "final",
+                                           quiet=quiet, indices=used, extra=extra,
+                                           area_key=key), strict=True))
+        dropped = [k for k in used if second[k]["status"] != "ok"]
+        if not dropped:
+            break
+        used = [k for k in used if k not in dropped]
     if not used:
-        raise InputError(f"no site could be used for the area-wide answer; the first, "
-                         f"'{first[0]['site']}', {first[0]['status']}", file=plan.table.path)
-    profiles = np.array([first[k]["tp_log_likelihood"] for k in used])
-    if plan.settings.hierarchical:
-        area = joint.combine_hierarchical(axis, profiles, prior, plan.settings.tp_spread)
-    else:
-        area = joint.combine_shared(axis, profiles, prior)
-    extra = {k: {"tp_factor": area.factors[j], "tp_box": area.boxes[j]}
-             for j, k in enumerate(used)}
-    alone = {k: dict(zip(QUANTILES, map(float, joint.alone_quantiles(
-        axis, first[k]["tp_log_likelihood"], prior, list(QUANTILES.values()))), strict=True))
-        for k in used}
-    second = dict(zip(used, _run_phase(plan, folder, executor, "conditional", "final",
-                                       quiet=quiet, indices=used, extra=extra),
-                      strict=True))
+        area = None
+    tension = {} if area is None else dict(zip(used, area.tension, strict=True))
     records = []
     for k, record in enumerate(first):
         if k in second:
-            records.append({**second[k], "tp_alone": alone[k]})
+            final = {**second[k], "tp_alone": dict(zip(QUANTILES, map(float, (
+                joint.alone_quantiles(axis, record["tp_log_likelihood"], prior,
+                                      list(QUANTILES.values())))), strict=True))}
+            if k in tension:
+                final.update(tension_p=tension[k],
+                             in_tension=bool(tension[k] < joint.TENSION_P))
+            records.append(final)
             continue
         final = {**record, "phase": "final"}
         final.pop("tp_log_likelihood", None)
@@ -283,6 +349,13 @@ def _run_joint(plan: _Plan, folder: SurveyFolder, executor, *, quiet: bool):
         _fill_failed(final, plan.row_names)
         records.append(folder.write_record(final, "final"))
     return records, area
+
+
+def _area_key(used: Sequence[int]) -> str:
+    """Which sites made the area posterior that a second-pass record depends on."""
+    import hashlib
+
+    return hashlib.sha256(",".join(map(str, used)).encode()).hexdigest()[:16]
 
 
 def area_frame(area) -> pd.DataFrame:

@@ -15,7 +15,11 @@ site's data come from the sites table. Keys of ``[survey]``:
 ``thickness_of``
     ``"crust"`` (default) or ``"melt"``: what the sites' thickness is compared with.
 ``crust_model_error``, ``pressure_model_error``, ``temperature_model_error``
-    Added in quadrature to every site's sigma (km, GPa, degC; default 0).
+    Added in quadrature to every site's sigma (km, GPa, degC; default 0). Each is a
+    number or, as in a study's observation blocks, a prior such as
+    ``{ prior = "log-uniform", min = 0.05, max = 2.0 }``: then it is a free parameter of
+    every site (its own value per site), sampled or integrated with the site's other
+    parameters and reported in its rows.
 ``path_points``
     Path intervals for ``"path"`` and ``"pooled"`` temperatures (default 64).
 ``grid_points``
@@ -28,14 +32,13 @@ site's data come from the sites table. Keys of ``[survey]``:
 from __future__ import annotations
 
 import hashlib
-import math
 from dataclasses import dataclass
-from numbers import Real
 from os import PathLike
 from pathlib import Path
 
 from ..errors import InputError, suggest
 from ..observations import EQUILIBRATION, THICKNESS_OF
+from ..observations.model_error import parse_error_setting
 from ..study.priors import Prior, prior_from_spec
 from ..study.file import Study
 from ..study.keys import key_line, read_study_file
@@ -57,9 +60,9 @@ class SurveySettings:
     equilibration: str | None = None
     tp_spread: Prior | None = None
     thickness_of: str = "crust"
-    crust_model_error: float = 0.0
-    pressure_model_error: float = 0.0
-    temperature_model_error: float = 0.0
+    crust_model_error: float | Prior = 0.0
+    pressure_model_error: float | Prior = 0.0
+    temperature_model_error: float | Prior = 0.0
     path_points: int = 64
     grid_points: int = 40_000
     tp_nodes: int = 351
@@ -71,8 +74,10 @@ class SurveySettings:
 
     def record(self) -> dict:
         """Plain-value form for the run manifest (and its settings hash)."""
-        out = {k: getattr(self, k) for k in _KEYS if k != "tp_spread"}
-        out["tp_spread"] = None if self.tp_spread is None else self.tp_spread.describe()
+        out = {}
+        for key in _KEYS:
+            value = getattr(self, key)
+            out[key] = value.describe() if isinstance(value, Prior) else value
         return out
 
 
@@ -117,7 +122,7 @@ def parse_survey_table(table) -> SurveySettings:
             values[key] = table[key]
     for key in ("crust_model_error", "pressure_model_error", "temperature_model_error"):
         if key in table:
-            values[key] = _non_negative(table[key], f"survey.{key}")
+            values[key] = parse_error_setting(table[key], f"survey.{key}")
     for key, low, high in (("path_points", 8, 1024), ("grid_points", 1_000, 4_000_000),
                            ("tp_nodes", 41, 4_001)):
         if key in table:
@@ -133,15 +138,6 @@ def _spread_prior(spec) -> Prior:
         raise InputError("the spread must be free: give a prior, not a value (for no "
                          "spread leave tp_spread out)", key=f"survey.{SPREAD}")
     return prior
-
-
-def _non_negative(value, key: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, Real) or not math.isfinite(value):
-        raise InputError(f"{value!r} must be a finite number", key=key)
-    if value < 0:
-        raise InputError(f"{value:g} must be >= 0 (it is added to sigma in quadrature)",
-                         key=key)
-    return float(value)
 
 
 def _whole(value, low: int, high: int, key: str) -> int:

@@ -24,6 +24,7 @@ def simulate_sites(study, settings, truth: pd.DataFrame,
     truth : pandas.DataFrame
         One row per site: ``site``, ``thickness_sigma_km`` and every free parameter of `study`
         (e.g. ``potential_temperature`` degC, ``lithosphere_thickness`` km); optional
+        value of a free model error, by its parameter name (default 0); optional
         ``position_km``; optional ``pressure_sigma_gpa`` (the site then has a pressure).
     rng : numpy.random.Generator
 
@@ -42,8 +43,14 @@ def simulate_sites(study, settings, truth: pd.DataFrame,
                                             else None))
         blocks = site_observations(template, settings)
         logpost = LogPosterior(study.with_observations(blocks))
-        column = logpost.column(np.array([[spec[n] for n in logpost.names]], float))
-        drawn = [block.simulate(column, rng) for block in blocks]
+        column = logpost.column(np.array([[spec[n] for n in logpost.physical]], float))
+        # a free model error takes its value from the truth (column named like the
+        # site's parameter, e.g. crustal_thickness.model_error), else 0
+        values = np.array([[float(spec.get(e.name, 0.0)) for e in logpost.errors]])
+        errors = logpost.block_errors(np.hstack([np.zeros((1, len(logpost.physical))),
+                                                 values]))
+        drawn = [block.simulate(column, rng, errors=e or None)
+                 for block, e in zip(blocks, errors, strict=True)]
         row = {"site": spec["site"]}
         if "position_km" in spec:
             row["position_km"] = spec["position_km"]

@@ -6,13 +6,19 @@ Columns: ``site`` (name), then the columns of each observation kind a survey rea
 (> 0), required; optional ``pressure_gpa`` with ``pressure_sigma_gpa``, ``temperature_c``
 with ``temperature_sigma_c`` (only beside a pressure) and ``pt_correlation`` (only beside
 a temperature); optional ``position_km`` (distance along the study area, for the profile
-figure). Columns starting with ``note`` are remarks; any other column is refused.
+figure). Columns starting with ``note`` are remarks; any other column is refused. A line
+whose first non-blank character is ``#`` is a comment and skipped, so a site name must not
+start with ``#``; a name that CSV tools read as a missing value (``nan``, ``NA``, ...) is
+refused. Uncertainties have a floor (0.001 km, 0.0001 GPa, 0.01 degC, in the kinds'
+rules): smaller ones are no measurement errors and would make every likelihood underflow.
 
 The file's structure (header, field counts, names) is checked first: a mistake there
 stops the survey with an `InputError`. Each row's values are then checked on their own
 with the same rules as the observation tables, so a bad value fails only its site, with a
 message naming the file, the line and the column. In the optional column groups a row
-may leave a whole group empty (that site has no such measurement), not part of it.
+may leave a whole group empty (that site has no such measurement), not part of it. The
+checks run on whole columns at once (`_fast_values`); only rows they flag go through the
+row-by-row rules that word the message, so checking grows linearly with the rows.
 """
 
 from __future__ import annotations
@@ -23,6 +29,7 @@ from dataclasses import dataclass
 from os import PathLike
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from ..errors import InputError
@@ -45,6 +52,12 @@ _KIND_GROUPS = tuple(kind.site_columns() for kind in SURVEY_KINDS)
 _REQUIRED = (_NAME, *_KIND_GROUPS[0][0])
 _GROUPS = (_POSITION, *_KIND_GROUPS[0][1:], *(g for groups in _KIND_GROUPS[1:]
                                                 for g in groups))
+#: Site names that CSV readers take for a missing value (pandas' default list, exact case).
+_MISSING_NAMES = frozenset({"-1.#IND", "1.#QNAN", "1.#IND", "-1.#QNAN", "#N/A N/A", "#N/A",
+                            "N/A", "n/a", "NA", "<NA>", "#NA", "NULL", "null", "NaN",
+                            "-NaN", "nan", "-nan", "None"})
+#: Rows from which reading shows a progress bar (on standard error).
+PROGRESS_ROWS = 50_000
 
 
 @dataclass(frozen=True)
@@ -102,14 +115,20 @@ class SiteTable:
         return len(self.sites)
 
 
-def read_sites(path: str | PathLike[str]) -> SiteTable:
+def read_sites(path: str | PathLike[str], *, progress: bool = True) -> SiteTable:
     """Read and check a sites table (see the module docstring).
+
+    Parameters
+    ----------
+    path : str or path-like
+    progress : bool
+        Show a progress bar on standard error for tables of `PROGRESS_ROWS` rows or more.
 
     Raises
     ------
     InputError
         Missing file, bad header, a missing column (or half of a column pair), wrong
-        field counts, an empty site name or a name used twice.
+        field counts, an empty site name, a name used twice or read as a missing value.
     """
     path = Path(path)
     if not path.is_file():
@@ -118,19 +137,77 @@ def read_sites(path: str | PathLike[str]) -> SiteTable:
     header, header_line, rows, lines = read_rows(path)
     rules = header_rules(header, header_line, _REQUIRED, _GROUPS, path)
     present = [group for group in _GROUPS if group[0] in rules]
-    names = validate_frame(pd.DataFrame({"site": [r[header.index("site")] for r in rows]}),
-                           _REQUIRED[:1], file=path, lines=lines).data["site"]
-    _check_unique(list(names), lines, path)
-    sites = tuple(_site(k, dict(zip(header, row, strict=True)), line, present, path)
-                  for k, (row, line) in enumerate(zip(rows, lines, strict=True)))
-    return SiteTable(path, sites, hashlib.sha256(path.read_bytes()).hexdigest(),
+    frame = pd.DataFrame(rows, columns=header, dtype=object)
+    _check_names([str(name).strip() for name in frame["site"]], lines, path)
+    names = validate_frame(frame[["site"]], _REQUIRED[:1], file=path, lines=lines).data["site"]
+    names = [str(name).strip() for name in names]
+    values, bad = _fast_values(frame, present)
+    from tqdm.auto import tqdm
+
+    sites = []
+    show = progress and len(rows) >= PROGRESS_ROWS
+    for k in tqdm(range(len(rows)), disable=not show, unit="row", desc="checking sites",
+                  mininterval=0.5):
+        if bad[k]:
+            sites.append(_site(k, dict(zip(header, rows[k], strict=True)), lines[k],
+                               present, path))
+        else:
+            sites.append(Site(k, names[k], lines[k], file=path,
+                              **{key: column[k] for key, column in values.items()
+                                 if column[k] is not None}))
+    return SiteTable(path, tuple(sites), hashlib.sha256(path.read_bytes()).hexdigest(),
                      has_positions=_POSITION in present,
                      has_pressures=_KIND_GROUPS[1][0] in present)
 
 
-def _check_unique(names: list[str], lines, path: Path) -> None:
+def _fast_values(frame: pd.DataFrame, groups) -> tuple[dict, np.ndarray]:
+    """Every column's numbers (None where a group is blank) and a mask of the rows that
+    need the row-by-row check: a cell that is not a finite number in range, a group only
+    partly given, a column given without one it `requires`, or a kind's extra group
+    without that kind's main measurement."""
+    n = len(frame)
+    bad = np.zeros(n, bool)
+    values, given = {}, {}
+    main = _KIND_GROUPS[0][0]
+    for group in (main, *groups):
+        blank = np.column_stack([frame[r.name].astype(str).str.strip().eq("").to_numpy()
+                                 for r in group])
+        filled = np.ones(n, bool) if group is main else ~blank.all(axis=1)
+        bad |= filled & blank.any(axis=1)
+        for rule in group:
+            given[rule.name] = filled
+            number = pd.to_numeric(frame[rule.name].astype(str).str.strip(),
+                                   errors="coerce").to_numpy(float)
+            with np.errstate(invalid="ignore"):
+                ok = np.isfinite(number)
+                if rule.low is not None:
+                    ok &= number > rule.low if rule.low_open else number >= rule.low
+                if rule.high is not None:
+                    ok &= number < rule.high if rule.high_open else number <= rule.high
+            bad |= filled & ~ok
+            values[rule.name] = [float(v) if f else None for v, f in zip(number, filled)]
+    none = np.zeros(n, bool)
+    for group in groups:
+        for rule in group:
+            for needed in rule.requires:
+                bad |= given[rule.name] & ~given.get(needed, none)
+    for kind_groups in _KIND_GROUPS:
+        first = kind_groups[0][0].name
+        for extra in kind_groups[1:]:
+            if extra[0].name in given:
+                bad |= given[extra[0].name] & ~given.get(first, none)
+    return values, bad
+
+
+def _check_names(names: list[str], lines, path: Path) -> None:
     first: dict[str, int] = {}
     for name, line in zip(names, lines, strict=True):
+        if not name:
+            continue  # validate_frame words this one
+        if name in _MISSING_NAMES:
+            raise InputError(f"site name '{name}' reads as a missing value in CSV tools "
+                             "(and in sites_summary.csv); give the site another name",
+                             file=path, row=line, column="site")
         if name in first:
             raise InputError(f"site '{name}' appears twice (also on line {first[name]}); "
                              "give every site its own name", file=path, row=line,
