@@ -223,7 +223,9 @@ def test_bad_options_of_a_survey_leave_no_folder(survey_inputs, tmp_path, capsys
     out = tmp_path / "out"
     assert "--workers 0 must be at least 1" in _refused(
         capsys, *_survey(*survey_inputs, out)[:-2], "--workers", "0")
-    _refused(capsys, *_survey(*survey_inputs, out, "--seed", "-1"))
+    with pytest.raises(SystemExit) as stop:  # the seed is checked while parsing
+        main(list(_survey(*survey_inputs, out, "--seed", "-1")))
+    assert stop.value.code == 2
     assert list(tmp_path.iterdir()) == []
 
 
@@ -231,10 +233,11 @@ def test_a_joint_survey_with_every_site_bad_leaves_no_folder(survey_inputs, tmp_
                                                             capsys):
     study, _ = survey_inputs
     sites = tmp_path / "sites.csv"
-    sites.write_text("site,thickness_km,sigma_km\nA,7.0,-1\nB,6.5,-1\n", encoding="utf-8")
+    sites.write_text("site,thickness_km,thickness_sigma_km\nA,7.0,-1\nB,6.5,-1\n",
+                     encoding="utf-8")
     out = tmp_path / "out"
     err = _refused(capsys, *_survey(study, sites, out, "--mode", "joint"))
-    assert "no site could be used for the area-wide answer; the first, 'A', failed" in err
+    assert "no site could be used: every row has a bad value; the first, 'A'" in err
     assert not out.exists() and not list(tmp_path.glob(".out*"))
 
 

@@ -347,7 +347,7 @@ def test_pt_correlation_reaches_the_pressure_block(tmp_path):
     from lidmelt.inversion.survey.sites import site_observations
 
     sites = tmp_path / "sites.csv"
-    sites.write_text("site,thickness_km,sigma_km,pressure_gpa,pressure_sigma_gpa,"
+    sites.write_text("site,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma_gpa,"
                      "temperature_c,temperature_sigma_c,pt_correlation\n"
                      "A,6,0.5,1.2,0.1,1350,30,0.6\nB,6,0.5,1.2,0.1,,,0.6\n"
                      "C,6,0.5,1.2,0.1,1350,30,\n", encoding="utf-8")
@@ -364,7 +364,7 @@ def test_fast_row_checks_give_the_row_by_row_answers(tmp_path):
 
     sites = tmp_path / "sites.csv"
     cells = ["6", "0", "-1", "61", "x", "", "1e-4", "0.5", "nan", "inf", "1.1"]
-    lines = ["site,thickness_km,sigma_km,pressure_gpa,pressure_sigma_gpa,position_km"]
+    lines = ["site,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma_gpa,position_km"]
     for k, (a, b, c) in enumerate(zip(cells, reversed(cells), cells[3:] + cells[:3])):
         lines.append(f"S{k},{a},{b},{c},{b},{a}")
     sites.write_text("\n".join(lines) + "\n", encoding="utf-8")

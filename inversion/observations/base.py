@@ -360,8 +360,10 @@ class ObservationSet(ABC):
         are named in any message (the row is checked again by the kind's rules).
         """
         data = pd.DataFrame({cls.id_column: [name]} | {k: [v] for k, v in values.items()})
-        return cls.from_frame(data, file=file, model_error=model_error,
-                              lines=None if line is None else [line], **options)
+        block = cls.from_frame(data, file=file, model_error=model_error,
+                               lines=None if line is None else [line], **options)
+        block.from_sites_file = True  # one site's row: labelled by its kind, not the file
+        return block
 
     # ---- data views -------------------------------------------------------------------
 

@@ -155,7 +155,8 @@ error_parameters = block_parameters
 
 
 def _block_label(block: ObservationSet) -> str:
-    stem = block.file.stem if block.file is not None else block.kind
+    by_kind = block.file is None or getattr(block, "from_sites_file", False)
+    stem = block.kind if by_kind else block.file.stem
     return re.sub(r"[^A-Za-z0-9_-]", "_", stem) or block.kind
 
 

@@ -165,6 +165,9 @@ class _Plan:
                              key="mode")
         study, settings = load_survey_study(study_path)
         table = read_sites(sites_path)
+        if all(site.error is not None for site in table.sites):  # nothing could run
+            raise InputError(f"no site could be used: every row has a bad value; the "
+                             f"first, '{table.sites[0].name}': {table.sites[0].error}")
         _check_combination(study, settings, table, mode, Path(study_path))
         seed = check_seed(study.sampler.seed if seed is None else seed)
         seeds = tuple(integer_seed(seed, "survey_site", k) for k in range(len(table)))
