@@ -15,13 +15,16 @@ speed for the current estimate (or until the step cap, whichever is first).
 
 from __future__ import annotations
 
+import contextlib
 import math
+import sys
 import time
 
 import numpy as np
 from tqdm.auto import tqdm
 
-__all__ = ["SamplingProgress", "expected_steps", "format_duration"]
+__all__ = ["SamplingProgress", "TablePrinter", "expected_steps", "format_duration",
+           "table_progress"]
 
 
 def expected_steps(assessment: dict, nwalkers: int, rule) -> int:
@@ -108,3 +111,76 @@ class SamplingProgress:
 
     def close(self) -> None:
         self.bar.close()
+
+
+def _table_words(table: str) -> str:
+    """``"katz2003-wet"`` -> ``"katz2003 melting table across water"``."""
+    name, _, kind = table.rpartition("-")
+    return f"{name} melting table {'across water' if kind == 'wet' else 'for a dry source'}"
+
+
+class TablePrinter:
+    """Shows `forward.progress.TableProgress` events on stderr: a bar with the time left
+    while a melting table is built, a line while another process builds it, and one line
+    when it is ready (how long it took, where it is kept)."""
+
+    def __init__(self) -> None:
+        self.bar = None
+        self.waited = None
+
+    def __call__(self, event) -> None:
+        if event.stage == "waiting":
+            self._waiting(event)
+        elif event.stage in ("building", "saving"):
+            self._building(event)
+        else:
+            self._done(event)
+
+    def _waiting(self, event) -> None:
+        if self.waited is None:
+            self.waited = tqdm(total=None, leave=False, bar_format="{desc}")
+        self.waited.set_description_str(
+            f"lidmelt: waiting for another lidmelt process to build the "
+            f"{_table_words(event.table)} ({format_duration(event.elapsed)} so far)")
+
+    def _building(self, event) -> None:
+        if self.waited is not None:
+            self.waited.close()
+            self.waited = None
+        if self.bar is None:
+            self.bar = tqdm(total=100, leave=False, bar_format=(
+                f"lidmelt: building the {_table_words(event.table)} (once per "
+                "lidmelt version) {percentage:3.0f}%|{bar:20}| {desc}"))
+        left = event.remaining
+        if event.stage == "saving":
+            words = "writing it to the cache"
+        elif left is None:
+            words = "time left known shortly"
+        else:
+            words = f"~{format_duration(left)} left"
+        self.bar.n = int(100 * event.done)
+        self.bar.set_description_str(words)  # refreshes
+
+    def _done(self, event) -> None:
+        for bar in (self.bar, self.waited):
+            if bar is not None:
+                bar.close()
+        if self.waited is not None and self.bar is None:
+            tqdm.write(f"lidmelt: another process built the "
+                       f"{_table_words(event.table)}; waited {format_duration(event.elapsed)}",
+                       file=sys.stderr)
+        if self.bar is not None:
+            where = f"; kept in {event.path.parent}" if event.path is not None else ""
+            tqdm.write(f"lidmelt: built the {_table_words(event.table)} in "
+                       f"{format_duration(event.elapsed)}{where}", file=sys.stderr)
+        self.bar = self.waited = None
+
+
+def table_progress(*, quiet: bool):
+    """Context manager: print table builds and waits on stderr (`TablePrinter`), unless
+    ``quiet`` or someone already listens (`forward.progress.listening`)."""
+    from ...forward import progress
+
+    if quiet or progress.has_listener():
+        return contextlib.nullcontext()
+    return progress.listening(TablePrinter())
