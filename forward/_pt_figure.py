@@ -19,10 +19,11 @@ from .plotting import (
 )
 from .quantities import quantity
 
-__all__ = ["save_figure_atomically", "write_column_figure"]
+__all__ = ["MAX_PANELS", "MAX_PATHS", "pick_temperatures", "save_figure_atomically",
+           "write_column_figure"]
 
-_MAX_PANELS = 6
-_MAX_PATHS = 8
+MAX_PANELS = 6  # panels drawn; the note says how many there were
+MAX_PATHS = 8  # potential temperatures drawn per panel, spread over those given
 _NOTE = ("Thick line: melting path, from the ring where melting starts up to the lid base; "
          "dotted thin line: solid adiabat of the same Tp. Each panel has its own lid (dotted "
          "violet line, pale band above).\nScientific estimate: depends on the melting "
@@ -37,6 +38,12 @@ def _panels(rows):
                row["lithosphere_thickness"])
         groups.setdefault(key, []).append(row)
     return list(groups.items())
+
+
+def pick_temperatures(values):
+    """The potential temperatures a panel draws: at most `MAX_PATHS`, evenly spread
+    over the sorted `values`, ends included."""
+    return _pick(list(values), MAX_PATHS)
 
 
 def _pick(values, limit):
@@ -70,7 +77,7 @@ def _draw_panel(ax, key, rows, colors, frame):
     for row in rows:
         by_tp.setdefault(row["potential_temperature"], []).append(row)
     crust_lines = []
-    for tp in _pick(sorted(by_tp), _MAX_PATHS):
+    for tp in _pick(sorted(by_tp), MAX_PATHS):
         group = by_tp[tp]
         crust_lines.append(f"{quantity('potential_temperature').with_value(tp)}: " + ", ".join(
             f"{r['crustal_thickness']:.1f} km{_variant(r, group)}" for r in group))
@@ -109,15 +116,20 @@ def _frame(rows, crust_density, mantle_density) -> dict:
             "mantle_density": mantle_density}
 
 
-def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300.0):
-    """Draw one P-T panel per lid and melting-curve set and write a PNG atomically."""
+def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300.0,
+                        panels=None):
+    """Draw one P-T panel per lid and melting-curve set and write a PNG atomically.
+
+    ``rows`` are ``lidmelt column`` rows; ``panels`` is how many panels the whole table
+    has when ``rows`` hold only those drawn (default: counted from ``rows``).
+    """
     import matplotlib
 
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    panels = _panels(rows)
-    shown = panels[:_MAX_PANELS]
+    shown = _panels(rows)[:MAX_PANELS]
+    total = len(_panels(rows)) if panels is None else panels
     colors = style.temperature_colors(r["potential_temperature"] for r in rows)
     frame = _frame([r for _, group in shown for r in group], crust_density, mantle_density)
     ncols = min(len(shown), 3)
@@ -134,8 +146,8 @@ def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300
             ax.set_ylabel("")
     for ax in axes[len(shown):]:
         ax.set_visible(False)
-    note = _NOTE if len(panels) <= _MAX_PANELS else (
-        f"First {_MAX_PANELS} of {len(panels)} panels shown. " + _NOTE)
+    note = _NOTE if total <= MAX_PANELS else (
+        f"First {MAX_PANELS} of {total} panels shown. " + _NOTE)
     bottom = below / height
     fig.get_layout_engine().set(rect=(0, bottom, 1, 1 - bottom))
     _figure_legend(fig, axes[: len(shown)], ncols, top=bottom)
@@ -149,7 +161,7 @@ def _legend_entries_guess(shown) -> list:
     lherzolite-out, liquidus, a wet solidus per water content, a path per Tp."""
     waters = {key[1] for key, _ in shown if key[1] > 0}
     tps = {r["potential_temperature"] for _, group in shown for r in group}
-    return [None] * (4 + len(waters) + min(len(tps), _MAX_PATHS * len(shown)))
+    return [None] * (4 + len(waters) + min(len(tps), MAX_PATHS * len(shown)))
 
 
 def _figure_legend(fig, axes, ncols, *, top) -> None:
