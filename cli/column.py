@@ -143,8 +143,10 @@ class Combinations:
             len(set(self.numeric[k])) for k in ("water", "solidus_offset",
                                                 "lithosphere_thickness"))
 
-    def chunks(self, size: int = CHUNK_ROWS) -> Iterator[list[dict]]:
-        """Lists of at most `size` rows (dicts of `INPUT_KEYS` and `OUTPUT_KEYS`)."""
+    def chunks(self, size: int | None = None) -> Iterator[list[dict]]:
+        """Lists of at most `size` rows (default `CHUNK_ROWS`), each row a dict of
+        `INPUT_KEYS` and `OUTPUT_KEYS`."""
+        size = CHUNK_ROWS if size is None else size
         n = math.prod(self.shape)
         values = [np.asarray(v, float) for v in self.numeric.values()]
         for param, region in itertools.product(self.params, self.regions):
