@@ -11,6 +11,8 @@ panels, names the scenarios' colours and the line styles.
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
@@ -50,9 +52,8 @@ def comparison_figure(comparison) -> Figure:
     for i in range(panels):
         ax = fig.add_subplot(grid[marginal_rows + 1 + i, :])
         _draw_predictive(ax, results, [p[i] for p in predictions])
-    fig.suptitle(f"{comparison.scenarios.base.name}: {len(results)} scenarios compared",
-                 fontsize=12)
-    _legend(fig, results)
+    _legend(fig, results, title=f"{comparison.scenarios.base.name}: {len(results)} "
+            "scenarios compared")
     return fig
 
 
@@ -117,8 +118,9 @@ def _draw_marginals(ax, results, name: str, unit: str) -> None:
     ax.set_title(q.title if len(q.title) <= 34 else q.symbol, fontsize=9.5, loc="left")
 
 
-def _legend(fig, results) -> None:
-    """One legend for the whole figure, above the panels, so that none hides a curve."""
+def _legend(fig, results, *, title: str) -> None:
+    """One legend for the whole figure, above the panels, so that none hides a curve; the
+    figure's title heads it (a separate title and an outside legend would overlap)."""
     from matplotlib.lines import Line2D
 
     handles = [Line2D([], [], color=_colour(k), lw=4.0) for k in range(len(results))]
@@ -131,7 +133,8 @@ def _legend(fig, results) -> None:
     labels += ["prior (dashed; in the scenario's colour where priors differ)",
                "fixed value (dotted)", "observed ± 1σ"]
     fig.legend(handles, labels, loc="outside upper center", ncols=min(len(labels), 6),
-               fontsize=8.5, frameon=False)
+               fontsize=8.5, frameon=False, title=textwrap.fill(title, width=120),
+               title_fontsize=12)
 
 
 def _axis_range(results, name: str) -> tuple[float, float]:
@@ -239,9 +242,10 @@ def _draw_predictive(ax, results, panels) -> None:
     ax.set_xticks(x, first["names"], rotation=25, ha="right", fontsize=8)
     ax.set_xlim(-0.6, len(x) - 0.4)
     ax.set_ylabel(first["ylabel"])
-    ax.set_title(f"{first['title']}: observed against each scenario's posterior predictive "
-                 "(data simulated from its posterior; thick 68 %, thin 95 %, tick median)",
-                 fontsize=9.5, loc="left")
+    ax.set_title(textwrap.fill(f"{first['title']}: observed against each scenario's "
+                               "posterior predictive (data simulated from its posterior; "
+                               "thick 68 %, thin 95 %, tick median)", width=170),
+                 fontsize=9.5, loc="left")  # 170 characters of 9.5 pt fill the 15 in width
     ax.grid(axis="y", alpha=0.3, lw=0.5)
     if first.get("invert"):
         ax.invert_yaxis()

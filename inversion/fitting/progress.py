@@ -21,10 +21,23 @@ import sys
 import time
 
 import numpy as np
-from tqdm.auto import tqdm
 
 __all__ = ["SamplingProgress", "TablePrinter", "expected_steps", "format_duration",
            "table_progress"]
+
+
+def _bar(*args, **kwargs):
+    """tqdm's bar, imported on first use (``lidmelt column`` starts without it)."""
+    from tqdm.auto import tqdm as bar
+
+    return bar(*args, **kwargs)
+
+
+def _write(line: str) -> None:
+    """A whole line on stderr that does not break a bar being drawn."""
+    from tqdm.auto import tqdm as bar
+
+    bar.write(line, file=sys.stderr)
 
 
 def expected_steps(assessment: dict, nwalkers: int, rule) -> int:
@@ -69,7 +82,7 @@ class SamplingProgress:
         self.first, self.started = start, time.monotonic()
         self.status = f"first convergence check at step {self._next_check(start)}"
         self.checks = 0
-        self.bar = tqdm(total=100, disable=quiet, leave=False,
+        self.bar = _bar(total=100, disable=quiet, leave=False,
                         bar_format="sampling {percentage:3.0f}%|{bar:20}| {desc}")
         self.step(start)
 
@@ -138,7 +151,7 @@ class TablePrinter:
 
     def _waiting(self, event) -> None:
         if self.waited is None:
-            self.waited = tqdm(total=None, leave=False, bar_format="{desc}")
+            self.waited = _bar(total=None, leave=False, bar_format="{desc}")
         self.waited.set_description_str(
             f"lidmelt: waiting for another lidmelt process to build the "
             f"{_table_words(event.table)} ({format_duration(event.elapsed)} so far)")
@@ -148,7 +161,7 @@ class TablePrinter:
             self.waited.close()
             self.waited = None
         if self.bar is None:
-            self.bar = tqdm(total=100, leave=False, bar_format=(
+            self.bar = _bar(total=100, leave=False, bar_format=(
                 f"lidmelt: building the {_table_words(event.table)} (once per "
                 "lidmelt version) {percentage:3.0f}%|{bar:20}| {desc}"))
         left = event.remaining
@@ -166,13 +179,12 @@ class TablePrinter:
             if bar is not None:
                 bar.close()
         if self.waited is not None and self.bar is None:
-            tqdm.write(f"lidmelt: another process built the "
-                       f"{_table_words(event.table)}; waited {format_duration(event.elapsed)}",
-                       file=sys.stderr)
+            _write(f"lidmelt: another process built the {_table_words(event.table)}; "
+                   f"waited {format_duration(event.elapsed)}")
         if self.bar is not None:
             where = f"; kept in {event.path.parent}" if event.path is not None else ""
-            tqdm.write(f"lidmelt: built the {_table_words(event.table)} in "
-                       f"{format_duration(event.elapsed)}{where}", file=sys.stderr)
+            _write(f"lidmelt: built the {_table_words(event.table)} in "
+                   f"{format_duration(event.elapsed)}{where}")
         self.bar = self.waited = None
 
 
