@@ -143,6 +143,16 @@ class Combinations:
             len(set(self.numeric[k])) for k in ("water", "solidus_offset",
                                                 "lithosphere_thickness"))
 
+    def corners(self) -> list[dict]:
+        """Rows at every combination of each numeric option's smallest and largest value:
+        where the outputs' extremes lie (they are monotonic in each input or nearly), so
+        the table for people can size its columns before the rows stream past."""
+        ends = {k: sorted({min(v), max(v)}) for k, v in self.numeric.items()}
+        probe = argparse.Namespace(**{k: ",".join(repr(x) for x in v) for k, v in ends.items()},
+                                   melting_region=",".join(self.regions),
+                                   parameterization=",".join(self.params), **self.densities)
+        return [row for chunk in Combinations(probe).chunks() for row in chunk]
+
     def chunks(self, size: int | None = None) -> Iterator[list[dict]]:
         """Lists of at most `size` rows (default `CHUNK_ROWS`), each row a dict of
         `INPUT_KEYS` and `OUTPUT_KEYS`."""
@@ -246,7 +256,7 @@ def _csv_cell(value):
 
 
 def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
-               varying: list[str]) -> None:
+               varying: list[str], extremes: list[dict] = ()) -> None:
     """Write the rows chunk by chunk: an aligned table for people, or CSV / JSON at full
     precision (floats written by ``repr``, which reads back to the same number).
 
@@ -257,6 +267,7 @@ def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
     ``melt_column`` names), with ``units`` giving each key's unit and ``columns`` its CSV
     name. The table prints the inputs shared by every row once, above it, with units in
     a header line and a legend below; `varying` are the inputs that differ between rows.
+    Its column widths come from the first chunk and the `extremes` rows (not written).
     """
     keys = [*INPUT_KEYS, *OUTPUT_KEYS]
     if fmt == "csv":
@@ -283,7 +294,7 @@ def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
     layout = None
     for rows in chunks:
         if layout is None:
-            layout = _Layout(rows, shown)
+            layout = _Layout([*rows, *extremes], shown)
             out.write("\n".join([_constant_line(rows[0], varying), "", *layout.header()]))
         out.write("\n" + "\n".join(layout.body(rows)))
     legend = _legend([k for k in shown if k not in ("parameterization", "melting_region")])
@@ -338,7 +349,9 @@ def run(args) -> int:
         chunks = (plot.keep(rows) for rows in chunks)
     with table_progress(quiet=False):  # stdout carries the rows; progress goes to stderr
         try:
-            write_rows(chunks, args.format, sys.stdout, varying=combos.varying)
+            extremes = combos.corners() if len(combos) > CHUNK_ROWS else []
+            write_rows(chunks, args.format, sys.stdout, varying=combos.varying,
+                       extremes=extremes if args.format == "table" else [])
             sys.stdout.flush()
         except BrokenPipeError:  # the reader has seen enough (`| head`): stop quietly
             os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())

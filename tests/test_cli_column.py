@@ -96,7 +96,7 @@ def test_rows_stream_in_chunks_with_the_same_table(capsys, monkeypatch):
     # Chunks of 2 rows must give the very text of one chunk: widths, order, every format.
     from lidmelt.cli import column
 
-    argv = ["column", "--potential-temperature", "1300:1400:25", "--lithosphere-thickness",
+    argv = ["column", "--potential-temperature", "1300:1500:50", "--lithosphere-thickness",
             "20,40"]
     outputs = {}
     whole = column.CHUNK_ROWS
@@ -107,8 +107,13 @@ def test_rows_stream_in_chunks_with_the_same_table(capsys, monkeypatch):
             outputs[size, fmt] = capsys.readouterr().out
     for fmt in ("table", "csv", "json"):
         assert outputs[2, fmt] == outputs[whole, fmt]
+    # a wider value in a later chunk (Tp varies slowest, hot rows come last) still aligns:
+    # the widths include the rows at the ends of every option
+    table = outputs[2, "table"].split("\n\n")[1].splitlines()
+    assert len({len(line) for line in table[1:]}) == 1
     rows = json.loads(outputs[2, "json"])["rows"]
     assert len(rows) == 10 and rows[1]["lithosphere_thickness"] == 40.0
+    assert rows[-2]["melt_thickness"] >= 10.0 > rows[0]["melt_thickness"]  # widths differ
 
 
 def test_json_rows_are_one_per_line(capsys):
