@@ -7,8 +7,13 @@ import csv
 import io
 import itertools
 import json
+import math
+import os
 import sys
 import textwrap
+from collections.abc import Iterable, Iterator
+from pathlib import Path
+from typing import TextIO
 
 import numpy as np
 
@@ -99,42 +104,92 @@ def _names(text: str, allowed, option: str) -> list[str]:
     return names
 
 
+#: Rows computed and written at a time: memory stays bounded whatever the row count.
+CHUNK_ROWS = 20_000
+
+
+class Combinations:
+    """Every combination of the command's inputs, in option order, read in chunks.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        The parsed options of ``lidmelt column``.
+    """
+
+    def __init__(self, args) -> None:
+        self.numeric = {k: parse_values(getattr(args, k), k.replace("_", "-"))
+                        for k in _NUMERIC}
+        self.regions = _names(args.melting_region, MELTING_REGIONS, "melting-region")
+        self.params = _names(args.parameterization, list(PARAMETERIZATIONS),
+                             "parameterization")
+        for param in self.params:
+            if not PARAMETERIZATIONS[param].supports_water and any(self.numeric["water"]):
+                raise InputError(f"--water: {param} is a dry parameterization; give --water 0")
+        self.densities = {"crust_density": args.crust_density,
+                          "mantle_density": args.mantle_density}
+        self.shape = tuple(len(v) for v in self.numeric.values())
+
+    def __len__(self) -> int:
+        return len(self.params) * len(self.regions) * math.prod(self.shape)
+
+    @property
+    def varying(self) -> list[str]:
+        """Input keys with more than one value, in input order."""
+        counts = {k: len(set(v)) for k, v in self.numeric.items()}
+        counts |= {"parameterization": len(set(self.params)),
+                   "melting_region": len(set(self.regions))}
+        return [k for k in INPUT_KEYS if counts.get(k, 1) > 1]
+
+    def panel_count(self) -> int:
+        """Panels of the P-T figure: one per parameterization, water, offset and lid."""
+        return len(set(self.params)) * math.prod(
+            len(set(self.numeric[k])) for k in ("water", "solidus_offset",
+                                                "lithosphere_thickness"))
+
+    def corners(self) -> list[dict]:
+        """Rows at every combination of each numeric option's smallest and largest value:
+        where the outputs' extremes lie (they are monotonic in each input or nearly), so
+        the table for people can size its columns before the rows stream past."""
+        ends = {k: sorted({min(v), max(v)}) for k, v in self.numeric.items()}
+        probe = argparse.Namespace(**{k: ",".join(repr(x) for x in v) for k, v in ends.items()},
+                                   melting_region=",".join(self.regions),
+                                   parameterization=",".join(self.params), **self.densities)
+        return [row for chunk in Combinations(probe).chunks() for row in chunk]
+
+    def chunks(self, size: int | None = None) -> Iterator[list[dict]]:
+        """Lists of at most `size` rows (default `CHUNK_ROWS`), each row a dict of
+        `INPUT_KEYS` and `OUTPUT_KEYS`."""
+        size = CHUNK_ROWS if size is None else size
+        n = math.prod(self.shape)
+        values = [np.asarray(v, float) for v in self.numeric.values()]
+        for param, region in itertools.product(self.params, self.regions):
+            for start in range(0, n, size):
+                index = np.unravel_index(np.arange(start, min(n, start + size)), self.shape)
+                inputs = {k: v[i] for k, v, i in zip(self.numeric, values, index, strict=True)}
+                res = melt_column(**inputs, parameterization=param, melting_region=region,
+                                  **self.densities)
+                columns = {k: v.tolist() for k, v in inputs.items()}
+                columns |= {k: np.broadcast_to(getattr(res, k), index[0].shape).tolist()
+                            for k in OUTPUT_KEYS}
+                fixed = {"parameterization": param, "melting_region": region,
+                         **self.densities}
+                yield [{**{k: columns[k][i] for k in _NUMERIC}, **fixed,
+                        **{k: columns[k][i] for k in OUTPUT_KEYS}}
+                       for i in range(index[0].size)]
+
+
 def tabulate(args) -> list[dict]:
-    """One row per combination, in option order."""
-    numeric = {k: parse_values(getattr(args, k), k.replace("_", "-")) for k in _NUMERIC}
-    regions = _names(args.melting_region, MELTING_REGIONS, "melting-region")
-    params = _names(args.parameterization, list(PARAMETERIZATIONS), "parameterization")
-    for param in params:
-        if not PARAMETERIZATIONS[param].supports_water and any(numeric["water"]):
-            raise InputError(f"--water: {param} is a dry parameterization; give --water 0")
-    rows = []
-    for param, melting_region in itertools.product(params, regions):
-        grid = np.array(list(itertools.product(*numeric.values())), float)
-        inputs = dict(zip(_NUMERIC, grid.T, strict=True))
-        res = melt_column(**inputs, parameterization=param, melting_region=melting_region,
-                          crust_density=args.crust_density, mantle_density=args.mantle_density)
-        for i in range(grid.shape[0]):
-            row = {k: float(v[i]) for k, v in inputs.items()}
-            row |= {"parameterization": param, "melting_region": melting_region,
-                    "crust_density": args.crust_density,
-                    "mantle_density": args.mantle_density}
-            row |= {name: float(getattr(res, name)[i]) for name in OUTPUT_KEYS}
-            rows.append(row)
-    return rows
+    """Every row at once, in option order (`Combinations` reads them in chunks)."""
+    return [row for chunk in Combinations(args).chunks() for row in chunk]
 
 
 def _cell(key: str, value) -> str:
     return quantity(key).format(value) if isinstance(value, float) else str(value)
 
 
-def _varying(rows: list[dict]) -> list[str]:
-    """Input keys whose value differs between rows, in input order."""
-    return [k for k in INPUT_KEYS if len({r[k] for r in rows}) > 1]
-
-
-def _constant_line(rows: list[dict], varying: list[str]) -> str:
+def _constant_line(first: dict, varying: list[str]) -> str:
     """The inputs shared by every row, said once above the table."""
-    first = rows[0]
     words = []
     for key in INPUT_KEYS:
         if key in varying:
@@ -162,67 +217,124 @@ def _legend(keys: list[str], width: int = 96) -> str:
     return "\n".join(lines) + "."
 
 
-def _grouped_block(rows: list[dict], keys: list[str]) -> list[str]:
-    """Group heading, column label and unit lines, then one line per row."""
-    columns = []  # (group, label, unit, cells)
-    for key in keys:
-        q = quantity(key)
-        cells = [_cell(key, r[key]) for r in rows]
-        group = GROUPS[q.group] if key not in INPUT_KEYS else GROUPS["input"]
-        unit = q.unit_text or ("–" if q.unit else "")  # "–": dimensionless number
-        columns.append([group, q.short, unit, cells])
-    widths = [max(len(c[1]), len(c[2]), *(len(x) for x in c[3])) for c in columns]
-    groups = list(dict.fromkeys(c[0] for c in columns))
-    for group in groups:  # a heading wider than its columns widens them evenly
-        idx = [i for i, c in enumerate(columns) if c[0] == group]
-        missing = len(group) - (sum(widths[i] for i in idx) + 2 * (len(idx) - 1))
-        for n, i in enumerate(idx):
-            widths[i] += max(0, missing) // len(idx) + (n < max(0, missing) % len(idx))
-    gap = "  "
-    sep = " | "
+class _Layout:
+    """Column widths and group headings of the table for people, fixed by its first rows
+    (later rows keep those widths; a wider cell only widens its own line)."""
 
-    def line(cells):
-        out = []
-        for group in groups:
-            idx = [i for i, c in enumerate(columns) if c[0] == group]
-            out.append(gap.join(cells[i].rjust(widths[i]) for i in idx))
-        return sep.join(out).rstrip()
+    def __init__(self, rows: list[dict], keys: list[str]) -> None:
+        self.keys = keys
+        self.groups_of = [GROUPS["input"] if k in INPUT_KEYS else GROUPS[quantity(k).group]
+                          for k in keys]
+        self.labels = [quantity(k).short for k in keys]
+        self.units = [quantity(k).unit_text or ("–" if quantity(k).unit else "")
+                      for k in keys]  # "–": a dimensionless number
+        self.widths = [max(len(label), len(unit), *(len(_cell(k, r[k])) for r in rows))
+                       for k, label, unit in zip(keys, self.labels, self.units, strict=True)]
+        self.groups = list(dict.fromkeys(self.groups_of))
+        for group in self.groups:  # a heading wider than its columns widens them evenly
+            idx = self._members(group)
+            missing = max(0, len(group) - (sum(self.widths[i] for i in idx)
+                                           + 2 * (len(idx) - 1)))
+            for n, i in enumerate(idx):
+                self.widths[i] += missing // len(idx) + (n < missing % len(idx))
 
-    spans = [sum(widths[i] for i, c in enumerate(columns) if c[0] == g)
-             + 2 * (sum(c[0] == g for c in columns) - 1) for g in groups]
-    heading = sep.join(g.ljust(w) for g, w in zip(groups, spans, strict=True)).rstrip()
-    lines = [heading, line([c[1] for c in columns]), line([c[2] for c in columns])]
-    lines += [line([c[3][r] for c in columns]) for r in range(len(rows))]
-    return lines
+    def _members(self, group: str) -> list[int]:
+        return [i for i, g in enumerate(self.groups_of) if g == group]
+
+    def line(self, cells: list[str]) -> str:
+        return " | ".join("  ".join(cells[i].rjust(self.widths[i]) for i in self._members(g))
+                          for g in self.groups).rstrip()
+
+    def header(self) -> list[str]:
+        spans = [sum(self.widths[i] for i in self._members(g)) + 2 * (len(self._members(g)) - 1)
+                 for g in self.groups]
+        heading = " | ".join(g.ljust(w) for g, w in zip(self.groups, spans, strict=True))
+        return [heading.rstrip(), self.line(self.labels), self.line(self.units)]
+
+    def body(self, rows: list[dict]) -> list[str]:
+        return [self.line([_cell(k, r[k]) for k in self.keys]) for r in rows]
 
 
-def format_rows(rows: list[dict], fmt: str) -> str:
-    """The rows as an aligned table for people, or CSV / JSON at full precision.
+def _csv_cell(value):
+    return repr(value) if isinstance(value, float) else value
 
-    All three use the same keys in the same grouped order (inputs, where melting happens,
-    how much melt, what melt). The table prints the inputs shared by every row once,
-    above it, with units in a header line and a legend below.
+
+def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
+               varying: list[str], extremes: list[dict] = ()) -> None:
+    """Write the rows chunk by chunk: an aligned table for people, or CSV / JSON at full
+    precision (floats written by ``repr``, which reads back to the same number).
+
+    All three keep the grouped order (inputs, where melting happens, how much melt, what
+    melt). CSV columns are named ``<key>_<unit>`` (`Quantity.column`, the rule of the
+    observation tables); JSON is one object ``{"units", "groups", "columns", "rows"}``
+    whose ``rows`` array is written one row per line, keyed by the bare keys (the
+    ``melt_column`` names), with ``units`` giving each key's unit and ``columns`` its CSV
+    name. The table prints the inputs shared by every row once, above it, with units in
+    a header line and a legend below; `varying` are the inputs that differ between rows.
+    Its column widths come from the first chunk and the `extremes` rows (not written).
     """
     keys = [*INPUT_KEYS, *OUTPUT_KEYS]
+    if fmt == "csv":
+        writer = csv.writer(out, lineterminator="\n")
+        writer.writerow([quantity(k).column for k in keys])
+        for rows in chunks:
+            writer.writerows([_csv_cell(r[k]) for k in keys] for r in rows)
+        return
     if fmt == "json":
         groups = {GROUPS["input"]: list(INPUT_KEYS)}
         for key in OUTPUT_KEYS:
             groups.setdefault(GROUPS[quantity(key).group], []).append(key)
-        units = {k: quantity(k).unit for k in keys if quantity(k).unit}
-        return json.dumps({"units": units, "groups": groups,
-                           "rows": [{k: r[k] for k in keys} for r in rows]}, indent=2)
-    if fmt == "csv":
-        buffer = io.StringIO()
-        writer = csv.writer(buffer, lineterminator="\n")
-        writer.writerow(keys)
-        writer.writerows([repr(r[k]) if isinstance(r[k], float) else r[k] for k in keys]
-                         for r in rows)
-        return buffer.getvalue().rstrip("\n")
-    varying = _varying(rows)
+        head = {"units": {k: quantity(k).unit for k in keys if quantity(k).unit},
+                "groups": groups, "columns": {k: quantity(k).column for k in keys}}
+        out.write(json.dumps(head, indent=2)[:-2] + ',\n  "rows": [')
+        separator = "\n    "
+        for rows in chunks:
+            for row in rows:
+                out.write(separator + json.dumps({k: row[k] for k in keys}))
+                separator = ",\n    "
+        out.write("\n  ]\n}\n")
+        return
     shown = [*varying, *OUTPUT_KEYS]
-    lines = [_constant_line(rows, varying), "", *_grouped_block(rows, shown), "",
-             _legend([k for k in shown if k not in ("parameterization", "melting_region")])]
-    return "\n".join(lines)
+    layout = None
+    for rows in chunks:
+        if layout is None:
+            layout = _Layout([*rows, *extremes], shown)
+            out.write("\n".join([_constant_line(rows[0], varying), "", *layout.header()]))
+        out.write("\n" + "\n".join(layout.body(rows)))
+    legend = _legend([k for k in shown if k not in ("parameterization", "melting_region")])
+    out.write("\n\n" + legend + "\n")
+
+
+def format_rows(rows: list[dict], fmt: str) -> str:
+    """The rows as one string, in the format of `write_rows`."""
+    buffer = io.StringIO()
+    varying = [k for k in INPUT_KEYS if len({r[k] for r in rows}) > 1]
+    write_rows([rows], fmt, buffer, varying=varying)
+    return buffer.getvalue().rstrip("\n")
+
+
+class _PlotRows:
+    """The rows the P-T figure draws, kept while the others stream past: those of its
+    first panels and picked potential temperatures (`_pt_figure.MAX_PANELS`, `pick_temperatures`)."""
+
+    def __init__(self, combos: Combinations) -> None:
+        from ..forward._pt_figure import MAX_PANELS, pick_temperatures
+
+        self.tps = set(pick_temperatures(sorted(set(combos.numeric["potential_temperature"]))))
+        self.max_panels = MAX_PANELS
+        self.panels: dict[tuple, list[dict]] = {}
+        self.rows: list[dict] = []
+
+    def keep(self, rows: list[dict]) -> list[dict]:
+        for row in rows:
+            key = (row["parameterization"], row["water"], row["solidus_offset"],
+                   row["lithosphere_thickness"])
+            if key not in self.panels and len(self.panels) >= self.max_panels:
+                continue
+            self.panels.setdefault(key, [])
+            if row["potential_temperature"] in self.tps:
+                self.rows.append(row)
+        return rows
 
 
 def _check_plot(plot: str, *, force: bool) -> None:
@@ -242,17 +354,31 @@ def _check_plot(plot: str, *, force: bool) -> None:
 def run(args) -> int:
     if args.plot:
         _check_plot(args.plot, force=args.force)
-    rows = tabulate(args)
-    if args.plot:
-        from ..forward._pt_figure import write_column_figure
+    from ..inversion.fitting.progress import table_progress
 
-        write_column_figure(args.plot, rows, crust_density=args.crust_density,
-                            mantle_density=args.mantle_density)
-    sys.stdout.write(format_rows(rows, args.format) + "\n")
-    if args.plot:
-        print(f"P-T diagram written to {args.plot}", file=sys.stderr)
+    combos = Combinations(args)
+    plot = _PlotRows(combos) if args.plot else None
+    chunks = combos.chunks()
+    if plot is not None:
+        chunks = (plot.keep(rows) for rows in chunks)
+    with table_progress(quiet=False):  # stdout carries the rows; progress goes to stderr
+        try:
+            extremes = combos.corners() if len(combos) > CHUNK_ROWS else []
+            write_rows(chunks, args.format, sys.stdout, varying=combos.varying,
+                       extremes=extremes if args.format == "table" else [])
+            sys.stdout.flush()
+        except BrokenPipeError:  # the reader has seen enough (`| head`): stop quietly
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+            return 0
+        if plot is not None:
+            from ..forward._pt_figure import write_column_figure
+
+            write_column_figure(args.plot, plot.rows, crust_density=args.crust_density,
+                                mantle_density=args.mantle_density,
+                                panels=combos.panel_count())
+            print(f"P-T diagram written to {args.plot}", file=sys.stderr)
     return 0
 
 
-__all__ = ["INPUT_KEYS", "OUTPUT_KEYS", "add_arguments", "format_rows", "parse_values", "run",
-           "tabulate"]
+__all__ = ["CHUNK_ROWS", "INPUT_KEYS", "OUTPUT_KEYS", "Combinations", "add_arguments",
+           "format_rows", "parse_values", "run", "tabulate", "write_rows"]

@@ -15,8 +15,9 @@ DEFAULT_OUT = "lidmelt-demo"
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Options of ``lidmelt demo``."""
     parser.epilog = ("Fits the invented demo study shipped with lidmelt (an imaginary rift "
-                     "segment) in well under a minute and writes the same result folder as "
-                     "'lidmelt fit'.")
+                     "segment) and writes the same result folder as 'lidmelt fit'. The first "
+                     "run on a machine also builds the melting table across water content "
+                     "(minutes, once; a bar shows the time left).")
     parser.add_argument("--out", metavar="DIR", default=DEFAULT_OUT,
                         help=f"result folder to create (default: ./{DEFAULT_OUT})")
     _add_common(parser)

@@ -23,7 +23,7 @@ import os
 import re
 import time
 import warnings
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -54,6 +54,7 @@ _LABEL_CHARS = re.compile(r"[^A-Za-z0-9_.-]")
 _TABLE_NAME = re.compile(r"paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz")
 _LOCK_NAME = re.compile(r"\.(paths-[A-Za-z0-9_.-]+-[0-9a-f]{16}\.npz)\.lock")
 _STALE_PART_SECONDS = 3600.0  # a write in progress never takes this long
+_POLL_SECONDS = 0.25  # while another process builds: short against a build of seconds
 
 
 def cache_folder() -> Path | None:
@@ -142,13 +143,16 @@ def _entry(entry: os.DirEntry) -> CacheEntry:
 
 
 @contextlib.contextmanager
-def building(path: Path) -> Iterator[None]:
+def building(path: Path, *, waiting: Callable[[str], None] | None = None) -> Iterator[None]:
     """Hold an exclusive lock for building the table at ``path`` (one builder at a time).
 
     The lock is an advisory ``flock`` on ``.<name>.lock`` beside the table, released by
     the system if the process dies. The lock file is removed by its holder when done;
     where locking is unavailable (no ``fcntl``, a folder that cannot be written) the
-    block simply runs, and at worst two processes build the same table.
+    block simply runs, and at worst two processes build the same table. While another
+    process holds the lock, ``waiting("waiting")`` is called about every
+    `_POLL_SECONDS` (``progress.BuildClock`` throttles what it passes on), so a wait is
+    never silent.
     """
     lock = path.with_name(f".{path.name}.lock")
     try:
@@ -161,12 +165,26 @@ def building(path: Path) -> Iterator[None]:
         return
     try:
         with contextlib.suppress(OSError):
-            fcntl.flock(handle, fcntl.LOCK_EX)
+            _acquire(handle, fcntl, waiting)
         yield
     finally:
         with contextlib.suppress(OSError):
             lock.unlink()  # while held: a waiter then finds the finished table
         handle.close()
+
+
+def _acquire(handle, fcntl, waiting) -> None:
+    """Take the lock, polling (and saying so) while another process holds it."""
+    while True:
+        try:
+            fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            return
+        except BlockingIOError:
+            if waiting is None:
+                fcntl.flock(handle, fcntl.LOCK_EX)
+                return
+            waiting("waiting")
+            time.sleep(_POLL_SECONDS)
 
 
 def mark_used(path: Path) -> None:

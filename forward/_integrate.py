@@ -60,13 +60,15 @@ def rk4_step(param, u, state, h, water, shift):
 
 
 def integrate_paths(param, u_grid, onset_pressure, onset_sigma, melts, water, shift,
-                    sub_steps=2):
+                    sub_steps=2, on_node=None):
     """Integrate many paths from their onsets up to the surface on a common grid.
 
     ``u_grid`` ascends from 0 (surface) to sqrt(MAX_PRESSURE). Returns an array
     ``(3, n_paths, len(u_grid))`` of sigma, I1 and I2, where deeper than the onset
     sigma is the solid adiabat value (supplied by the caller as ``onset_sigma`` at
     the onset, the nodes below are filled by the caller) and the integrals are 0.
+    ``on_node(k)``, if given, is called after each of the ``len(u_grid) - 1`` node
+    intervals with the number done (a build's progress report).
     """
     n_nodes = len(u_grid)
     u0 = np.sqrt(onset_pressure)
@@ -86,4 +88,6 @@ def integrate_paths(param, u_grid, onset_pressure, onset_sigma, melts, water, sh
             state = np.where(active, rk4_step(param, u, state, h, water, shift), state)
             u = u + h
         out[:, :, j] = np.where(active, state, start)
+        if on_node is not None:
+            on_node(n_nodes - 1 - j)
     return out

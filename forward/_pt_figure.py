@@ -19,10 +19,11 @@ from .plotting import (
 )
 from .quantities import quantity
 
-__all__ = ["save_figure_atomically", "write_column_figure"]
+__all__ = ["MAX_PANELS", "MAX_PATHS", "pick_temperatures", "save_figure_atomically",
+           "write_column_figure"]
 
-_MAX_PANELS = 6
-_MAX_PATHS = 8
+MAX_PANELS = 6  # panels drawn; the note says how many there were
+MAX_PATHS = 8  # potential temperatures drawn per panel, spread over those given
 _NOTE = ("Thick line: melting path, from the ring where melting starts up to the lid base; "
          "dotted thin line: solid adiabat of the same Tp. Each panel has its own lid (dotted "
          "violet line, pale band above).\nScientific estimate: depends on the melting "
@@ -37,6 +38,12 @@ def _panels(rows):
                row["lithosphere_thickness"])
         groups.setdefault(key, []).append(row)
     return list(groups.items())
+
+
+def pick_temperatures(values):
+    """The potential temperatures a panel draws: at most `MAX_PATHS`, evenly spread
+    over the sorted `values`, ends included."""
+    return _pick(list(values), MAX_PATHS)
 
 
 def _pick(values, limit):
@@ -69,10 +76,11 @@ def _draw_panel(ax, key, rows, colors, frame):
     by_tp: dict[float, list[dict]] = {}
     for row in rows:
         by_tp.setdefault(row["potential_temperature"], []).append(row)
-    for tp in _pick(sorted(by_tp), _MAX_PATHS):
+    crust_lines = []
+    for tp in _pick(sorted(by_tp), MAX_PATHS):
         group = by_tp[tp]
-        crusts = ", ".join(f"{r['crustal_thickness']:.1f} km{_variant(r, group)}"
-                           for r in group)
+        crust_lines.append(f"{quantity('potential_temperature').with_value(tp)}: " + ", ".join(
+            f"{r['crustal_thickness']:.1f} km{_variant(r, group)}" for r in group))
         first = group[0]
         col = melt_column(tp, lid, water=water, parameterization=param,
                           melting_region=first["melting_region"],
@@ -80,15 +88,19 @@ def _draw_panel(ax, key, rows, colors, frame):
                           crust_density=frame["crust_density"],
                           mantle_density=frame["mantle_density"])
         draw_melting_path(ax, col, color=colors[tp], max_pressure=frame["max_pressure"],
-                          label=f"Tp {quantity('potential_temperature').with_value(tp)}: "
-                          f"crust {crusts}")
+                          label=f"Tp {quantity('potential_temperature').with_value(tp)}",
+                          adiabat_label=False)
     depth = add_depth_axis(ax, frame["mantle_density"])
     if not frame.get("last_in_row", True):
         depth.set_ylabel("")
     title = f"lid {lid:g} km" if lid > 0 else "no lid"
     ax.set_title(f"{title} · {param.title}, {water:g} ppm H$_2$O, solidus offset "
                  f"{shift:+g} °C".replace("-", "\N{MINUS SIGN}"), fontsize=9)
-    ax.legend(*visible_legend_entries(ax), fontsize=7, loc="lower left", framealpha=0.92)
+    # Crust made in this panel (it depends on the lid), in the corner below the solidus
+    # and left of the adiabats, which melting never reaches.
+    ax.text(0.02, 0.02, "Igneous crust\n" + "\n".join(crust_lines), transform=ax.transAxes,
+            ha="left", va="bottom", fontsize=7.5, linespacing=1.3, zorder=7,
+            bbox={"boxstyle": "round,pad=0.35", "fc": "white", "ec": "0.75", "alpha": 0.92})
     label_contours(ax)
 
 
@@ -104,20 +116,28 @@ def _frame(rows, crust_density, mantle_density) -> dict:
             "mantle_density": mantle_density}
 
 
-def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300.0):
-    """Draw one P-T panel per lid and melting-curve set and write a PNG atomically."""
+def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300.0,
+                        panels=None):
+    """Draw one P-T panel per lid and melting-curve set and write a PNG atomically.
+
+    ``rows`` are ``lidmelt column`` rows; ``panels`` is how many panels the whole table
+    has when ``rows`` hold only those drawn (default: counted from ``rows``).
+    """
     import matplotlib
 
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    panels = _panels(rows)
-    shown = panels[:_MAX_PANELS]
+    shown = _panels(rows)[:MAX_PANELS]
+    total = len(_panels(rows)) if panels is None else panels
     colors = style.temperature_colors(r["potential_temperature"] for r in rows)
     frame = _frame([r for _, group in shown for r in group], crust_density, mantle_density)
     ncols = min(len(shown), 3)
     nrows = -(-len(shown) // ncols)
-    fig = Figure(figsize=(5.6 * ncols, 5.4 * nrows + 0.7), layout="constrained")
+    legend_rows = -(-(len(_legend_entries_guess(shown)) + 3) // (ncols + 1))
+    below = 0.19 * legend_rows + 0.55  # inches: the legend's rows, then the note
+    height = 5.4 * nrows + below
+    fig = Figure(figsize=(5.6 * ncols, height), layout="constrained")
     axes = fig.subplots(nrows, ncols, squeeze=False, sharey=True).ravel()
     for i, (ax, (key, group)) in enumerate(zip(axes, shown, strict=False)):
         last = i % ncols == ncols - 1 or i == len(shown) - 1
@@ -126,13 +146,41 @@ def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300
             ax.set_ylabel("")
     for ax in axes[len(shown):]:
         ax.set_visible(False)
-    note = _NOTE if len(panels) <= _MAX_PANELS else (
-        f"First {_MAX_PANELS} of {len(panels)} panels shown. " + _NOTE)
-    bottom = (0.07 if ncols > 1 else 0.1) / nrows
+    note = _NOTE if total <= MAX_PANELS else (
+        f"First {MAX_PANELS} of {total} panels shown. " + _NOTE)
+    bottom = below / height
     fig.get_layout_engine().set(rect=(0, bottom, 1, 1 - bottom))
+    _figure_legend(fig, axes[: len(shown)], ncols, top=bottom)
     fig.text(0.01, 0.005, note.replace("\n", " "), fontsize=7.5, color="0.3", va="bottom",
              wrap=True)
     save_figure_atomically(fig, path)
+
+
+def _legend_entries_guess(shown) -> list:
+    """Legend entries before drawing, for the room under the panels: F contours, solidus,
+    lherzolite-out, liquidus, a wet solidus per water content, a path per Tp."""
+    waters = {key[1] for key, _ in shown if key[1] > 0}
+    tps = {r["potential_temperature"] for _, group in shown for r in group}
+    return [None] * (4 + len(waters) + min(len(tps), MAX_PATHS * len(shown)))
+
+
+def _figure_legend(fig, axes, ncols, *, top) -> None:
+    """One legend under the panels: every curve, path and symbol drawn in any panel,
+    once (the solid adiabats and the onset ring as one entry each, in grey)."""
+    from matplotlib.lines import Line2D
+
+    entries: dict[str, object] = {}
+    for ax in axes:
+        for handle, label in zip(*visible_legend_entries(ax), strict=True):
+            entries.setdefault(label, handle)
+    entries["solid adiabat of each Tp (no melting)"] = Line2D(
+        [], [], color="0.35", lw=0.9, ls=(0, (1, 2)))
+    entries["onset of melting"] = Line2D([], [], ls="none", marker="o", mfc="white",
+                                         mec="0.35", mew=1.8, ms=6)
+    entries["lid base (lid shaded)"] = Line2D([], [], **style.LID_LINE)
+    fig.legend(list(entries.values()), list(entries), loc="upper center",
+               bbox_to_anchor=(0.5, top), ncols=ncols + 1, fontsize=8, frameon=False,
+               borderaxespad=0.2, columnspacing=1.5, handlelength=2.5)
 
 
 def save_figure_atomically(fig, path, dpi=150):

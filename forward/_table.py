@@ -44,6 +44,7 @@ from ._coordinates import theta as theta_of
 from ._integrate import integrate_paths
 from ._path_facts import PathFacts, path_facts, remember
 from ._validation import PARAMETER_DOMAIN
+from .progress import BuildClock
 from .adiabat import MAX_PRESSURE, onset_state, solid_adiabat
 
 __all__ = ["PathTable", "path_table", "table_for"]
@@ -120,7 +121,9 @@ class PathTable:
         return values[..., 0], values[..., 1], values[..., 2]
 
 
-def _build(param, theta_axis, shift_axis, water_axis, u_axis):
+def _build(param, theta_axis, shift_axis, water_axis, u_axis, *, clock=None):
+    """Integrate every path of a table; ``clock(stage, done)`` hears the progress
+    (`progress.BuildClock`)."""
     theta, shift, water_q = np.meshgrid(theta_axis.nodes, shift_axis.nodes, water_axis.nodes,
                                         indexing="ij")
     theta, shift = theta.ravel(), shift.ravel()
@@ -129,7 +132,8 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     onset, sigma0, melts = onset_state(param, tp, water, shift)
     u = u_axis.nodes
     paths = _integrate_by_onset(param, u, onset, sigma0, melts, water, shift,
-                                sub_steps=max(2, round(_RK_STEPS / (u_axis.size - 1))))
+                                sub_steps=max(2, round(_RK_STEPS / (u_axis.size - 1))),
+                                clock=clock or (lambda stage, done=0.0: None))
     p = u[None, :] ** 2
     depression = param.water_depression(0.0, p, water[:, None])[0]
     sub_sigma = solid_adiabat(tp[:, None], p, param.thermo) + depression - shift[:, None]
@@ -143,22 +147,34 @@ def _build(param, theta_axis, shift_axis, water_axis, u_axis):
     return PathTable(theta_axis, shift_axis, water_axis, u_axis, state, onset.reshape(shape))
 
 
-def _integrate_by_onset(param, u, onset, sigma0, melts, water, shift, sub_steps):
+def _integrate_by_onset(param, u, onset, sigma0, melts, water, shift, sub_steps, clock):
     """``integrate_paths`` for groups of paths with similar onsets, each group from its
     deepest onset up: the same numbers for less work, since a path idles below its onset
-    and a path that never melts needs no integration at all."""
+    and a path that never melts needs no integration at all.
+
+    ``clock("building", done)`` hears the fraction of the work done (paths x node
+    intervals, which is what the time goes into) after every node interval.
+    """
     paths = np.zeros((3, onset.size, u.size))
     lanes = np.flatnonzero(melts)
     lanes = lanes[np.argsort(onset[lanes], kind="stable")]
-    groups = max(1, min(_ONSET_GROUPS, lanes.size // _LANES_PER_GROUP))
-    for group in np.array_split(lanes, groups):
-        if group.size == 0:
-            continue
-        deepest = int(min(np.searchsorted(u, np.sqrt(onset[group].max())), u.size - 1))
+    groups = [g for g in np.array_split(lanes, max(1, min(_ONSET_GROUPS,
+                                                          lanes.size // _LANES_PER_GROUP)))
+              if g.size]
+    deepest = [int(min(np.searchsorted(u, np.sqrt(onset[g].max())), u.size - 1))
+               for g in groups]
+    total = max(1, sum(g.size * d for g, d in zip(groups, deepest, strict=True)))
+    finished = 0
+    clock("building", 0.0)
+    for group, top in zip(groups, deepest, strict=True):
+        def on_node(k, before=finished, size=group.size):
+            clock("building", (before + size * k) / total)
+
         with np.errstate(all="ignore"):  # idle lanes are computed, then discarded
-            paths[:, group, : deepest + 1] = integrate_paths(
-                param, u[: deepest + 1], onset[group], sigma0[group], melts[group],
-                water[group], shift[group], sub_steps=sub_steps)
+            paths[:, group, : top + 1] = integrate_paths(
+                param, u[: top + 1], onset[group], sigma0[group], melts[group],
+                water[group], shift[group], sub_steps=sub_steps, on_node=on_node)
+        finished += group.size * top
     return paths  # below each onset the caller fills in the solid adiabat
 
 
@@ -207,18 +223,28 @@ def _load_or_build(param, label, theta, shift, water_axis, u_axis) -> PathTable:
     axes = (theta, shift, water_axis, u_axis)
     key = _table_key(param, axes)
     folder = _cache.cache_folder()
+    name = f"{param.name}-{label}"
     if folder is None:
-        return _build(param, *axes)
+        clock = BuildClock(name, None)
+        table = _build(param, *axes, clock=clock)
+        clock("done", 1.0)
+        return table
     digest = hashlib.sha256(key.encode()).hexdigest()
-    path = folder / _cache.table_name(f"{param.name}-{label}", digest)
+    path = folder / _cache.table_name(name, digest)
     stored = _read_cache(path, key, axes)
     if stored is None:
-        with _cache.building(path):
+        waited = BuildClock(name, path, interval=1.0)
+        with _cache.building(path, waiting=waited):
             stored = _read_cache(path, key, axes)  # another process may have built it
+            if stored is not None and waited.reported:
+                waited("done", 1.0)
             if stored is None:
-                table = _build(param, *axes)
+                clock = BuildClock(name, path)
+                table = _build(param, *axes, clock=clock)
+                clock("saving", 1.0)
                 if _write_cache(path, table, key, path_facts(param, table)):
                     _cache.prune(folder, keep=path)
+                clock("done", 1.0)
                 return table
     _cache.mark_used(path)
     state, onset, facts = stored

@@ -70,11 +70,12 @@ def add_depth_axis(ax, mantle_density=3300.0):
 
 
 def draw_melting_path(ax, column, index=(), *, color=None, label=None, max_pressure=5.0,
-                      adiabat=True):
+                      adiabat=True, adiabat_label=True):
     """Solid adiabat (thin, dotted) and melting path (thick) of one point of a column.
 
     The onset of melting is marked with a ring; `index` picks the point of an array
-    ``MeltColumn``.
+    ``MeltColumn``. With a `label`, the adiabat gets a legend entry of its own unless
+    ``adiabat_label`` is False (a figure that explains all adiabats in one entry).
     """
     color = style.MAP if color is None else color
     pressures = np.linspace(0.0, max_pressure, 400)
@@ -85,7 +86,8 @@ def draw_melting_path(ax, column, index=(), *, color=None, label=None, max_press
     if adiabat:
         ax.plot(solid_adiabat(tp, pressures, q.param.thermo), pressures, color=color,
                 lw=0.9, ls=(0, (1, 2)), zorder=3,
-                label=None if label is None else f"solid adiabat (no melting), Tp {tp:.0f} °C")
+                label=(f"solid adiabat (no melting), Tp {tp:.0f} °C"
+                       if label is not None and adiabat_label else None))
     top = float(np.asarray(column.top_pressure)[index])
     onset = float(np.asarray(column.onset_pressure)[index])
     melting = (pressures >= top) & (pressures <= onset)
@@ -104,10 +106,11 @@ def draw_lid(ax, pressure, *, label=None, text=None):
     """
     ax.axhspan(0.0, pressure, color=style.LID_FILL, lw=0, zorder=0)
     ax.axhline(pressure, label=label, zorder=2, **style.LID_LINE)
-    if text:
-        ax.annotate(text, xy=(0.99, pressure), xycoords=("axes fraction", "data"),
-                    xytext=(0, -3), textcoords="offset points", ha="right", va="top",
-                    fontsize=8, color=style.LID, zorder=6)
+    if text:  # at the left, inside the lid band: clear of the depth axis on the right
+        ax.annotate(text, xy=(0.01, pressure), xycoords=("axes fraction", "data"),
+                    xytext=(2, 3), textcoords="offset points", ha="left", va="bottom",
+                    fontsize=8, color=style.LID, zorder=6,
+                    bbox={"boxstyle": "square,pad=0.1", "fc": style.LID_FILL, "lw": 0})
     return ax
 
 
@@ -130,6 +133,8 @@ def label_contours(ax, *, fontsize=7.5, margin=0.07):
     dx, dy = margin * box.width, margin * box.height
     obstacles = [_display_points(line) for line in ax.get_lines()
                  if isinstance(line, Line2D) and len(line.get_xdata())]
+    obstacles += [_box_points(text.get_window_extent()) for text in ax.texts
+                  if text.get_visible() and text.get_text()]
     obstacles = np.concatenate(obstacles) if obstacles else np.empty((0, 2))
     for cs in sets:
         placed = []
@@ -165,6 +170,14 @@ def _display_points(line, spacing: float = 4.0) -> np.ndarray:
         n = int(min(np.hypot(*(b - a)) // spacing, 2000)) + 1
         pieces.append(a + (b - a) * np.linspace(0.0, 1.0, n + 1)[1:, None])
     return np.concatenate(pieces)
+
+
+def _box_points(box, spacing: float = 4.0) -> np.ndarray:
+    """A grid of display points `spacing` apart covering a text's box (labels keep off
+    text as they keep off lines)."""
+    xs = np.linspace(box.x0, box.x1, max(2, int(box.width // spacing) + 1))
+    ys = np.linspace(box.y0, box.y1, max(2, int(box.height // spacing) + 1))
+    return np.column_stack([g.ravel() for g in np.meshgrid(xs, ys)])
 
 
 def _nearest(points: np.ndarray, others: np.ndarray) -> np.ndarray:

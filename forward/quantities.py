@@ -15,8 +15,8 @@ Examples
 >>> q = quantity("potential_temperature")
 >>> q.unit, q.unit_text, q.format(1351.27)
 ('degC', '°C', '1351')
->>> q.axis_label()
-'Mantle potential temperature (°C)'
+>>> q.axis_label(), q.column
+('Mantle potential temperature (°C)', 'potential_temperature_c')
 >>> quantity("crust.model_error", unit="km").name
 'model error of crust'
 
@@ -83,6 +83,9 @@ def format_percent(share: float, decimals: int = 1) -> str:
     if value >= 100.0:
         return f"> {100.0 - step:.{decimals}f} %"
     return f"{value:.{decimals}f} %"
+#: Plain units -> the suffix of a table column (``<quantity>_<unit>``, the rule of the
+#: observation tables: ``thickness_km``, ``pressure_gpa``, ``temperature_c``).
+_UNIT_SUFFIX = {"degC": "c", "km": "km", "GPa": "gpa", "ppm": "ppm", "kg/m^3": "kg_m3"}
 
 
 def unit_text(unit: str) -> str:
@@ -139,6 +142,14 @@ class Quantity:
     def format(self, value: float, decimals: int | None = None) -> str:
         """`value` with this quantity's decimals (U+2212 minus sign for negatives)."""
         return format_signed(value, self.decimals if decimals is None else decimals)
+
+    @property
+    def column(self) -> str:
+        """Table column name ``<key>_<unit>`` (``"melt_thickness_km"``); the bare key for a
+        dimensionless quantity or a name (``"mean_melt_fraction"``, ``"melting_region"``).
+        """
+        suffix = _UNIT_SUFFIX.get(self.unit, "")
+        return f"{self.key}_{suffix}" if suffix else self.key
 
     def axis_label(self, *, short: bool = False) -> str:
         """Axis label with the unit in parentheses (dimensionless: no parentheses)."""

@@ -445,3 +445,41 @@ def test_processes_needing_the_same_table_build_it_once(folder, tiny_truth):
     assert sum(out.count("built") for out in outputs) == 1
     assert sorted(p.name for p in folder.iterdir()) == [_tiny_file(folder).name]  # no lock
     np.testing.assert_array_equal(_tiny().state, tiny_truth.state)
+
+
+def test_waiting_for_another_builder_is_said(tmp_path):
+    # Another holder of the build lock (flock locks conflict between open files, even in
+    # one process: Linux flock(2)) makes `building` report "waiting" until it lets go.
+    import fcntl
+    import threading
+
+    from lidmelt.forward import progress
+
+    path = tmp_path / "paths-x-0123456789abcdef.npz"
+    lock = tmp_path / f".{path.name}.lock"
+    holder = open(lock, "a+b")
+    fcntl.flock(holder, fcntl.LOCK_EX)
+    release = threading.Timer(0.8, lambda: (fcntl.flock(holder, fcntl.LOCK_UN),
+                                            holder.close()))
+    release.start()
+    events = []
+    clock = progress.BuildClock("x-wet", path, interval=0.0)
+    with progress.listening(events.append), _cache.building(path, waiting=clock):
+        entered = time.monotonic()
+    release.join()
+    assert events and {e.stage for e in events} == {"waiting"}
+    assert events[-1].elapsed >= 0.5 and events[-1].remaining is None
+    assert entered  # the block ran once the other holder let go
+
+
+def test_progress_goes_to_the_innermost_listener_only():
+    from lidmelt.forward import progress
+
+    outer, inner = [], []
+    event = progress.TableProgress("katz2003-wet", "building", 0.25, 30.0)
+    with progress.listening(outer.append):
+        with progress.listening(inner.append):
+            progress.report(event)
+        progress.report(event)
+    assert inner == [event] and outer == [event]
+    assert event.remaining == pytest.approx(90.0)  # 30 s for a quarter: 90 s to go

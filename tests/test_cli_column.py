@@ -14,8 +14,9 @@ def test_crust_against_tp_for_a_30_km_lid(capsys):
     assert main(["column", "--potential-temperature", "1300:1500:50",
                  "--lithosphere-thickness", "30", "--format", "csv"]) == 0
     rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
-    assert [float(r["potential_temperature"]) for r in rows] == [1300, 1350, 1400, 1450, 1500]
-    crust = [float(r["crustal_thickness"]) for r in rows]
+    assert [float(r["potential_temperature_c"]) for r in rows] == [1300, 1350, 1400, 1450,
+                                                                   1500]
+    crust = [float(r["crustal_thickness_km"]) for r in rows]
     assert crust == sorted(crust)
     # CSV keeps full precision: the printed number reads back to the same float.
     assert crust[2] == float(melt_column(1400.0, 30.0).crustal_thickness)
@@ -31,7 +32,11 @@ def test_all_combinations_and_json_with_the_csv_keys(capsys):
     rows = data["rows"]
     assert len(rows) == 8
     assert {r["melting_region"] for r in rows} == {"column", "triangle"}
-    assert list(rows[0]) == list(csv_rows[0])  # same keys, same order
+    # same quantities in the same order; the CSV column adds the unit (tables' rule)
+    assert [data["columns"][k] for k in rows[0]] == list(csv_rows[0])
+    assert list(csv_rows[0])[:3] == ["potential_temperature_c", "lithosphere_thickness_km",
+                                     "water_ppm"]
+    assert "mean_melting_pressure_gpa" in csv_rows[0] and "mean_melt_fraction" in csv_rows[0]
     grouped = [key for keys in data["groups"].values() for key in keys]
     assert grouped == list(rows[0])
     assert list(data["groups"])[1:] == ["where it melts", "how much", "what melt"]
@@ -85,3 +90,53 @@ def test_bad_values_exit_2_with_one_line(argv, message, capsys):
 def test_range_is_inclusive():
     assert parse_values("1300:1400:50", "x") == [1300.0, 1350.0, 1400.0]
     assert parse_values("0, 20,45", "x") == [0.0, 20.0, 45.0]
+
+
+def test_rows_stream_in_chunks_with_the_same_table(capsys, monkeypatch):
+    # Chunks of 2 rows must give the very text of one chunk: widths, order, every format.
+    from lidmelt.cli import column
+
+    argv = ["column", "--potential-temperature", "1300:1500:50", "--lithosphere-thickness",
+            "20,40"]
+    outputs = {}
+    whole = column.CHUNK_ROWS
+    for size in (whole, 2):
+        monkeypatch.setattr(column, "CHUNK_ROWS", size)
+        for fmt in ("table", "csv", "json"):
+            assert main([*argv, "--format", fmt]) == 0
+            outputs[size, fmt] = capsys.readouterr().out
+    for fmt in ("table", "csv", "json"):
+        assert outputs[2, fmt] == outputs[whole, fmt]
+    # a wider value in a later chunk (Tp varies slowest, hot rows come last) still aligns:
+    # the widths include the rows at the ends of every option
+    table = outputs[2, "table"].split("\n\n")[1].splitlines()
+    assert len({len(line) for line in table[1:]}) == 1
+    rows = json.loads(outputs[2, "json"])["rows"]
+    assert len(rows) == 10 and rows[1]["lithosphere_thickness"] == 40.0
+    assert rows[-2]["melt_thickness"] >= 10.0 > rows[0]["melt_thickness"]  # widths differ
+
+
+def test_json_rows_are_one_per_line(capsys):
+    assert main(["column", "--potential-temperature", "1300,1350,1400", "--format",
+                 "json"]) == 0
+    text = capsys.readouterr().out
+    lines = [line for line in text.splitlines() if line.lstrip().startswith('{"potential')]
+    assert len(lines) == 3
+    assert json.loads(lines[0].rstrip(","))["potential_temperature"] == 1300.0
+
+
+def test_a_table_build_is_never_silent(tmp_path, monkeypatch, capsys):
+    # A cold cache: the build shows a bar with the time left and says when it is done.
+    from lidmelt.forward import _table
+
+    monkeypatch.setenv("LIDMELT_CACHE", str(tmp_path))
+    _table.path_table.cache_clear()
+    try:
+        assert main(["column", "--parameterization", "mckenzie-bickle1988"]) == 0
+    finally:
+        _table.path_table.cache_clear()
+    err = capsys.readouterr().err
+    assert "building the mckenzie-bickle1988 melting table for a dry source" in err
+    assert "left" in err
+    assert "built the mckenzie-bickle1988 melting table for a dry source in" in err
+    assert str(tmp_path) in err

@@ -15,7 +15,7 @@ from lidmelt.inversion.results import report
 from lidmelt.inversion.fitting.convergence import converged_rhat, rhat_too_high, split_rhat
 from lidmelt.inversion.fitting.progress import SamplingProgress
 from lidmelt.inversion.fitting.log_posterior import DERIVED
-from lidmelt.inversion.fitting.sampler import ChainResult, _Rule, assess_chain
+from lidmelt.inversion.fitting.sampler import ChainResult, _Rule, assess_chain, still
 
 CAPPED = "walkers = 16\nseed = 4\nstart = \"map\"\ness_target = 300\ntau_multiple = 25\n" \
          "check_interval = 50\nmax_steps = 150\n"
@@ -84,7 +84,35 @@ def test_nan_tau_of_a_chain_that_never_moves_is_handled():
     assert np.isnan(result["tau"][0]) and np.isnan(result["ess"][0])
     assert not result["converged"]
     assert result["shortfalls"][0] == ("the autocorrelation time of tp cannot be estimated: "
-                                       "its chain does not vary")
+                                       "its chain does not vary (every value is 1)")
+
+
+def test_a_chain_spanning_degrees_is_never_said_not_to_vary():
+    # One walker that never moves makes emcee's tau NaN (its autocorrelation is 0/0),
+    # while the chain as a whole spans about +-7 degC: the words must say which it is.
+    rng = np.random.default_rng(3)
+    chain = 1400.0 + 7.0 * rng.standard_normal((400, 8, 1)) / 2.5
+    chain[:, 3, 0] = 1401.0
+    result = assess_chain(chain, tau_multiple=5, ess_target=10, names=["tp"])
+    assert np.isnan(result["tau"][0])
+    words = result["shortfalls"][0]
+    assert "does not vary" not in words
+    assert "1 of 8 walkers never move" in words and "its chain spans" in words
+
+
+def test_not_varying_is_judged_on_the_scale_of_the_values():
+    # Spread at float64 rounding level around 1400 (2.2e-16 relative; numpy's eps, a
+    # fact of the trade): not varying, even though emcee would estimate a tau from it.
+    rng = np.random.default_rng(4)
+    noise = rng.standard_normal((300, 8, 1))
+    rounding = 1400.0 + 1400.0 * 1e-14 * noise
+    result = assess_chain(rounding, tau_multiple=5, ess_target=10, names=["tp"])
+    assert np.isnan(result["tau"][0])
+    assert "its chain does not vary" in result["shortfalls"][0]
+    # A chain of +-7 degC, or of +-1e-6 around zero, varies.
+    assert not still(1400.0 + 7.0 * noise, axis=(0, 1))[0]
+    assert not still(1e-6 * noise, axis=(0, 1))[0]
+    assert still(np.zeros((5, 2, 1)), axis=(0, 1))[0]
 
 
 def test_progress_never_goes_back_and_shows_what_it_waits_for(capsys):

@@ -1,13 +1,17 @@
 """compare.png: the scenarios side by side.
 
-Top row: the posteriors of potential temperature and lid thickness of every scenario
-(solid) over their priors (dashed; a fixed value is a vertical line), the posterior
-probability of each scenario with its 68 % error bar, and the LOO difference from the
-best-predicting scenario with its standard error. Below: every observation (black,
-±1σ) against each scenario's posterior predictions (median, 68 % and 95 % ranges).
+Top rows: the posterior of every parameter that is free in some scenario or fixed at
+different values (model errors included), for every scenario (solid) over its prior
+(dashed; a fixed value is a dotted vertical line). Then the posterior probability of each
+scenario with its 68 % error bar, and the LOO difference from the best-predicting
+scenario with its standard error. Below: every observation (black, ±1σ) against each
+scenario's posterior predictions (median, 68 % and 95 % ranges). One legend, above the
+panels, names the scenarios' colours and the line styles.
 """
 
 from __future__ import annotations
+
+import textwrap
 
 import numpy as np
 from matplotlib.figure import Figure
@@ -24,7 +28,6 @@ __all__ = ["comparison_figure"]
 #: the ochre of priors and the near-black of observations (docs/figures.md).
 _COLOURS = (style.POSTERIOR, "#d0622f", "#7b4fa0", "#2a9d8f", "#b8322a", "#6b8e23",
             "#e377c2", "#8c6d31", "#17becf", "#7f7f7f")
-_SHOWN = ("potential_temperature", "lithosphere_thickness")
 _DRAWS = 200
 
 
@@ -33,17 +36,25 @@ def comparison_figure(comparison) -> Figure:
     results = comparison.results
     predictions = [_predictions(r, comparison.seed) for r in results]
     panels = len(predictions[0])
-    fig = Figure(figsize=(15.0, 4.2 + 2.7 * panels), layout="constrained")
-    grid = fig.add_gridspec(1 + panels, 4, height_ratios=[1.5] + [1.0] * panels)
-    for j, name in enumerate(_SHOWN):
-        _draw_marginals(fig.add_subplot(grid[0, j]), results, name)
-    _draw_probabilities(fig.add_subplot(grid[0, 2]), comparison)
-    _draw_loo(fig.add_subplot(grid[0, 3]), comparison)
+    shown = _parameters(results)
+    per_row = min(4, max(1, len(shown)))
+    marginal_rows = -(-len(shown) // per_row)
+    ranking_height = 1.6 + 0.35 * len(results)
+    heights = [3.0] * marginal_rows + [ranking_height] + [2.7] * panels
+    fig = Figure(figsize=(15.0, sum(heights) + 1.2), layout="constrained")
+    grid = fig.add_gridspec(len(heights), 12, height_ratios=heights)
+    width = 12 // per_row
+    for k, (name, unit) in enumerate(shown):
+        row, col = divmod(k, per_row)
+        _draw_marginals(fig.add_subplot(grid[row, col * width:(col + 1) * width]), results,
+                        name, unit)
+    _draw_probabilities(fig.add_subplot(grid[marginal_rows, :6]), comparison)
+    _draw_loo(fig.add_subplot(grid[marginal_rows, 6:]), comparison)
     for i in range(panels):
-        ax = fig.add_subplot(grid[1 + i, :])
-        _draw_predictive(ax, results, [p[i] for p in predictions], legend=i == 0)
-    fig.suptitle(f"{comparison.scenarios.base.name}: {len(results)} scenarios compared",
-                 fontsize=12)
+        ax = fig.add_subplot(grid[marginal_rows + 1 + i, :])
+        _draw_predictive(ax, results, [p[i] for p in predictions])
+    _legend(fig, results, title=f"{comparison.scenarios.base.name}: {len(results)} "
+            "scenarios compared")
     return fig
 
 
@@ -51,34 +62,80 @@ def _colour(k: int) -> str:
     return _COLOURS[k % len(_COLOURS)]
 
 
-def _draw_marginals(ax, results, name: str) -> None:
+#: Order of the model's parameters in the figure; free model errors follow.
+_ORDER = ("potential_temperature", "lithosphere_thickness", "water", "active_upwelling",
+          "solidus_offset")
+
+
+def _parameters(results) -> list[tuple[str, str]]:
+    """``(name, unit)`` of every parameter that differs between scenarios or is sampled
+    in any of them: free somewhere (model errors too), or fixed at different values."""
+    found: dict[str, str] = {}
+    fixed: dict[str, set] = {}
+    for r in results:
+        study = r.scenario.study
+        for name in study.priors:
+            found.setdefault(name, quantity(name).unit)
+        for error in study.error_parameters:
+            found.setdefault(error.name, error.unit)
+        for name, value in study.fixed.items():
+            fixed.setdefault(name, set()).add(value)
+    for name, values in fixed.items():
+        if len(values) > 1:
+            found.setdefault(name, quantity(name).unit)
+    rank = {name: k for k, name in enumerate(_ORDER)}
+    return sorted(found.items(), key=lambda item: rank.get(item[0], len(rank)))
+
+
+def _prior(study, name: str):
+    """The prior of `name` in `study` (a parameter or a free model error), or None."""
+    if name in study.priors:
+        return study.priors[name]
+    return next((e.prior for e in study.error_parameters if e.name == name), None)
+
+
+def _draw_marginals(ax, results, name: str, unit: str) -> None:
     low, high = _axis_range(results, name)
     x = np.linspace(low, high, 400)
-    priors = [r.scenario.study.priors.get(name) for r in results]
+    priors = [_prior(r.scenario.study, name) for r in results]
     shared = len({repr(p) for p in priors if p is not None}) == 1
-    for k, r in enumerate(results):
+    for k, (r, prior) in enumerate(zip(results, priors, strict=True)):
         study, colour = r.scenario.study, _colour(k)
         if name in study.fixed:
-            ax.axvline(study.fixed[name], color=colour, lw=2.0, ls=":",
-                       label=f"{r.name}: fixed at {study.fixed[name]:g}")
+            ax.axvline(study.fixed[name], color=colour, lw=2.0, ls=":")
             continue
-        ax.plot(x, np.exp(study.priors[name].logpdf(x)),
-                color=style.PRIOR if shared else colour,
+        if prior is None or r.posterior is None:
+            continue
+        ax.plot(x, np.exp(prior.logpdf(x)), color=style.PRIOR if shared else colour,
                 lw=1.0, ls="--", alpha=0.9)
         samples = r.posterior.samples[name].to_numpy()
         ax.hist(samples, bins=np.linspace(low, high, 90), density=True, histtype="step",
-                color=colour, lw=1.6, label=f"{r.name}: posterior")
-    free = sum(p is not None for p in priors)
-    words = ("prior" if free == 1 else "prior (scenario's colour)" if not shared
-             else "prior (all scenarios)" if free == len(results)
-             else "prior (where it is free)")
-    ax.plot([], [], color=style.PRIOR if shared else "0.4", lw=1.0, ls="--", label=words)
+                color=colour, lw=1.6)
+    q = quantity(name, unit=unit)
     ax.set_xlim(low, high)
-    ax.set_xlabel(quantity(name).axis_label())
-    ax.set_ylabel("probability density")
-    ax.set_title(f"{quantity(name).title}: posterior and prior", fontsize=9.5, loc="left")
-    ax.legend(fontsize=7, loc="upper right", frameon=True, framealpha=0.85,
-              edgecolor="none")
+    ax.set_xlabel(q.axis_label())
+    ax.set_ylabel(f"probability density (1/{q.unit_text})" if q.unit_text
+                  else "probability density")
+    ax.set_title(q.title if len(q.title) <= 34 else q.symbol, fontsize=9.5, loc="left")
+
+
+def _legend(fig, results, *, title: str) -> None:
+    """One legend for the whole figure, above the panels, so that none hides a curve; the
+    figure's title heads it (a separate title and an outside legend would overlap)."""
+    from matplotlib.lines import Line2D
+
+    handles = [Line2D([], [], color=_colour(k), lw=4.0) for k in range(len(results))]
+    labels = [f"scenario {r.name}" for r in results]
+    handles += [Line2D([], [], color=style.PRIOR, lw=1.0, ls="--"),
+                Line2D([], [], color="0.4", lw=2.0, ls=":"),
+                Line2D([], [], ls="none", marker=style.OBSERVED["fmt"],
+                       color=style.OBSERVED["color"], mfc=style.OBSERVED["mfc"],
+                       ms=style.OBSERVED["ms"])]
+    labels += ["prior (dashed; in the scenario's colour where priors differ)",
+               "fixed value (dotted)", "observed ± 1σ"]
+    fig.legend(handles, labels, loc="outside upper center", ncols=min(len(labels), 6),
+               fontsize=8.5, frameon=False, title=textwrap.fill(title, width=120),
+               title_fontsize=12)
 
 
 def _axis_range(results, name: str) -> tuple[float, float]:
@@ -87,13 +144,12 @@ def _axis_range(results, name: str) -> tuple[float, float]:
     edges = []
     for r in results:
         study = r.scenario.study
+        prior = _prior(study, name)
         if name in study.fixed:
             edges += [study.fixed[name]] * 2
-        else:
-            prior = study.priors[name]
+        elif prior is not None:
             edges += [float(prior.ppf(0.001)), float(prior.ppf(0.999))]
-            low, high = study.priors[name].bounds
-            edges += [b for b in (low, high) if np.isfinite(b)]
+            edges += [b for b in prior.bounds if np.isfinite(b)]
     low, high = min(edges), max(edges)
     pad = 0.03 * (high - low) if high > low else 1.0
     return low - pad, high + pad
@@ -110,9 +166,9 @@ def _draw_probabilities(ax, comparison) -> None:
         ax.text(min(pk + 0.03, 0.8), yk, _percent(pk), va="center", fontsize=8.5)
     ax.set_yticks(y, names)
     ax.set_xlim(0.0, 1.0)
-    ax.set_xlabel("posterior probability")
-    ax.set_title("Evidence: scenario probabilities\n(error bars: 68 % range from the "
-                 "ln Z errors)", fontsize=9.5, loc="left")
+    ax.set_xlabel("posterior probability of the scenario (dimensionless; bars: 68 % range "
+                  "from the ln Z errors)")
+    ax.set_title("Evidence: scenario probabilities", fontsize=9.5, loc="left")
     ax.grid(axis="x", alpha=0.3, lw=0.5)
 
 
@@ -138,9 +194,9 @@ def _draw_loo(ax, comparison) -> None:
         ax.set_xlim(-max(1.0, span) * 1.2, max(1.0, span) * 0.25)
     ax.set_yticks(y, names)
     ax.set_ylim(y.min() - 0.6, y.max() + 0.6)
-    ax.set_xlabel("elpd_loo minus the best" + (" (symmetric log axis)" if span > 20 else ""))
-    ax.set_title("Leave-one-out: predictive accuracy\n(0 = best; bars ±1 standard error of "
-                 "the difference)", fontsize=9.5, loc="left")
+    ax.set_xlabel("elpd_loo minus the best (nats; bars: ±1 standard error of the difference"
+                  + ("; symmetric log axis)" if span > 20 else ")"))
+    ax.set_title("Leave-one-out: predictive accuracy (0 = best)", fontsize=9.5, loc="left")
     ax.grid(axis="x", alpha=0.3, lw=0.5)
 
 
@@ -171,7 +227,7 @@ def _predictions(result, seed: int) -> list[dict]:
     return panels
 
 
-def _draw_predictive(ax, results, panels, *, legend: bool) -> None:
+def _draw_predictive(ax, results, panels) -> None:
     first = panels[0]
     x = np.arange(len(first["names"]))
     width = 0.8 / (len(results) + 1)  # slot 0: the observation, then one per scenario
@@ -187,15 +243,13 @@ def _draw_predictive(ax, results, panels, *, legend: bool) -> None:
     ax.set_xticks(x, first["names"], rotation=25, ha="right", fontsize=8)
     ax.set_xlim(-0.6, len(x) - 0.4)
     ax.set_ylabel(first["ylabel"])
-    ax.set_title(f"{first['title']}: observed against each scenario's posterior predictive "
-                 "(data simulated from its posterior; thick 68 %, thin 95 %, tick median)",
-                 fontsize=9.5, loc="left")
+    ax.set_title(textwrap.fill(f"{first['title']}: observed against each scenario's "
+                               "posterior predictive (data simulated from its posterior; "
+                               "thick 68 %, thin 95 %, tick median)", width=170),
+                 fontsize=9.5, loc="left")  # 170 characters of 9.5 pt fill the 15 in width
     ax.grid(axis="y", alpha=0.3, lw=0.5)
     if first.get("invert"):
         ax.invert_yaxis()
-    if legend:
-        ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.005, 1.0), frameon=False,
-                  title="scenario", title_fontsize=8)
 
 
 def _percent(p: float) -> str:

@@ -76,8 +76,21 @@ def compare(
     ComparisonWarning
         For every caveat in `Comparison.warnings`.
     """
+    from ..fitting.progress import table_progress
+
     found = _scenario_set(study, settings)
     seed = check_seed(found.base.sampler.seed if seed is None else seed)
+    with table_progress(quiet=quiet):
+        comparison = _compare(found, seed, out, resume=resume, force=force, quiet=quiet,
+                              progress=progress)
+    for message in comparison.warnings():
+        warnings.warn(ComparisonWarning(message), stacklevel=2)
+    return comparison
+
+
+def _compare(found, seed: int, out, *, resume: bool, force: bool, quiet: bool,
+             progress) -> Comparison:
+    """`compare` after its inputs are read: run every scenario, in `out` if given."""
     if out is None:
         if resume:
             raise InputError("resuming needs the result folder of the interrupted run",
@@ -97,8 +110,6 @@ def compare(
                     checkpoint.discard()
                 raise
             checkpoint.finish(comparison, force=force)
-    for message in comparison.warnings():
-        warnings.warn(ComparisonWarning(message), stacklevel=2)
     return comparison
 
 

@@ -15,13 +15,29 @@ speed for the current estimate (or until the step cap, whichever is first).
 
 from __future__ import annotations
 
+import contextlib
 import math
+import sys
 import time
 
 import numpy as np
-from tqdm.auto import tqdm
 
-__all__ = ["SamplingProgress", "expected_steps", "format_duration"]
+__all__ = ["SamplingProgress", "TablePrinter", "expected_steps", "format_duration",
+           "table_progress"]
+
+
+def _bar(*args, **kwargs):
+    """tqdm's bar, imported on first use (``lidmelt column`` starts without it)."""
+    from tqdm.auto import tqdm as bar
+
+    return bar(*args, **kwargs)
+
+
+def _write(line: str) -> None:
+    """A whole line on stderr that does not break a bar being drawn."""
+    from tqdm.auto import tqdm as bar
+
+    bar.write(line, file=sys.stderr)
 
 
 def expected_steps(assessment: dict, nwalkers: int, rule) -> int:
@@ -66,7 +82,7 @@ class SamplingProgress:
         self.first, self.started = start, time.monotonic()
         self.status = f"first convergence check at step {self._next_check(start)}"
         self.checks = 0
-        self.bar = tqdm(total=100, disable=quiet, leave=False,
+        self.bar = _bar(total=100, disable=quiet, leave=False,
                         bar_format="sampling {percentage:3.0f}%|{bar:20}| {desc}")
         self.step(start)
 
@@ -108,3 +124,75 @@ class SamplingProgress:
 
     def close(self) -> None:
         self.bar.close()
+
+
+def _table_words(table: str) -> str:
+    """``"katz2003-wet"`` -> ``"katz2003 melting table across water"``."""
+    name, _, kind = table.rpartition("-")
+    return f"{name} melting table {'across water' if kind == 'wet' else 'for a dry source'}"
+
+
+class TablePrinter:
+    """Shows `forward.progress.TableProgress` events on stderr: a bar with the time left
+    while a melting table is built, a line while another process builds it, and one line
+    when it is ready (how long it took, where it is kept)."""
+
+    def __init__(self) -> None:
+        self.bar = None
+        self.waited = None
+
+    def __call__(self, event) -> None:
+        if event.stage == "waiting":
+            self._waiting(event)
+        elif event.stage in ("building", "saving"):
+            self._building(event)
+        else:
+            self._done(event)
+
+    def _waiting(self, event) -> None:
+        if self.waited is None:
+            self.waited = _bar(total=None, leave=False, bar_format="{desc}")
+        self.waited.set_description_str(
+            f"lidmelt: waiting for another lidmelt process to build the "
+            f"{_table_words(event.table)} ({format_duration(event.elapsed)} so far)")
+
+    def _building(self, event) -> None:
+        if self.waited is not None:
+            self.waited.close()
+            self.waited = None
+        if self.bar is None:
+            self.bar = _bar(total=100, leave=False, bar_format=(
+                f"lidmelt: building the {_table_words(event.table)} (once per "
+                "lidmelt version) {percentage:3.0f}%|{bar:20}| {desc}"))
+        left = event.remaining
+        if event.stage == "saving":
+            words = "writing it to the cache"
+        elif left is None:
+            words = "time left known shortly"
+        else:
+            words = f"~{format_duration(left)} left"
+        self.bar.n = int(100 * event.done)
+        self.bar.set_description_str(words)  # refreshes
+
+    def _done(self, event) -> None:
+        for bar in (self.bar, self.waited):
+            if bar is not None:
+                bar.close()
+        if self.waited is not None and self.bar is None:
+            _write(f"lidmelt: another process built the {_table_words(event.table)}; "
+                   f"waited {format_duration(event.elapsed)}")
+        if self.bar is not None:
+            where = f"; kept in {event.path.parent}" if event.path is not None else ""
+            _write(f"lidmelt: built the {_table_words(event.table)} in "
+                   f"{format_duration(event.elapsed)}{where}")
+        self.bar = self.waited = None
+
+
+def table_progress(*, quiet: bool):
+    """Context manager: print table builds and waits on stderr (`TablePrinter`), unless
+    ``quiet`` or someone already listens (`forward.progress.listening`)."""
+    from ...forward import progress
+
+    if quiet or progress.has_listener():
+        return contextlib.nullcontext()
+    return progress.listening(TablePrinter())

@@ -32,6 +32,7 @@ from ..results.posterior import Posterior
 from . import start as _start
 from .checkpoint import CheckpointBackend, stored_steps
 from .log_posterior import LogPosterior
+from .progress import table_progress
 from .sampler import ChainResult, run_chain
 
 __all__ = ["fit"]
@@ -125,7 +126,17 @@ def fit(
 
 
 def _sample(study, seed: int, checkpoint, *, resume: bool, quiet: bool) -> ChainResult:
-    """Start the walkers (unless resuming) and run the sampler to its stopping rule."""
+    """Start the walkers (unless resuming) and run the sampler to its stopping rule.
+
+    A melting table built on the way (the first run of a lidmelt version) shows its
+    progress on stderr unless ``quiet`` (`progress.table_progress`).
+    """
+    with table_progress(quiet=quiet):
+        return _start_and_run(study, seed, checkpoint, resume=resume, quiet=quiet)
+
+
+def _start_and_run(study, seed: int, checkpoint, *, resume: bool,
+                          quiet: bool) -> ChainResult:
     settings = study.sampler
     logpost = LogPosterior(study)
     rng = generator(seed, "walker_start")

@@ -49,9 +49,9 @@ from ..errors import NotConvergedWarning
 from .progress import SamplingProgress
 
 __all__ = [
-    "STRAGGLER_FALSE_ALARM", "ChainResult", "assess_chain", "autocorrelation_time",
-    "chain_file_bytes", "default_moves", "read_chain", "run_chain", "stragglers",
-    "write_chain",
+    "STILL_SPREAD", "STRAGGLER_FALSE_ALARM", "ChainResult", "assess_chain",
+    "autocorrelation_time", "chain_file_bytes", "default_moves", "read_chain", "run_chain",
+    "still", "stragglers", "write_chain",
 ]
 
 _GROUP = "mcmc"
@@ -154,7 +154,8 @@ def assess_chain(
     PSIS-LOO all use the steps after this one burn-in (`Posterior.discard`).
     ESS = kept_steps * nwalkers / tau (Sokal 1997; emcee documentation). Walkers of an
     ensemble are not independent chains, so this is the standard emcee estimate, not an
-    exact count. A parameter whose chain does not vary has no tau (NaN) and no ESS.
+    exact count. A parameter whose chain does not vary (`still`: on the scale of its
+    values) has no tau (NaN) and no ESS; so has one with a walker that never moves.
     """
     nsteps, nwalkers, ndim = chain.shape
     names = list(names) if names is not None else [f"parameter {j}" for j in range(ndim)]
@@ -168,6 +169,9 @@ def assess_chain(
     stranded = [w for w, last in strays["walkers"] if last >= discard]
     kept = chain[discard:]
     tau = np.maximum(autocorrelation_time(kept), 1.0)  # tau < 1 would overstate the ESS
+    # Values that differ only by rounding have no autocorrelation time (emcee would
+    # estimate one from the rounding noise).
+    tau = np.where(still(kept, axis=(0, 1)), np.nan, tau)
     kept_steps = nsteps - discard
     ess = kept_steps * nwalkers / tau
     reached = kept_steps / float(np.max(tau)) if np.all(np.isfinite(tau)) else np.nan
@@ -181,7 +185,7 @@ def assess_chain(
         "straggler_threshold": strays["threshold"],
     }
     assessment["shortfalls"] = _shortfalls(assessment, names, nsteps, tau_multiple,
-                                           ess_target)
+                                           ess_target, kept)
     assessment["converged"] = not assessment["shortfalls"]
     return assessment
 
@@ -273,12 +277,42 @@ def autocorrelation_time(chain: np.ndarray) -> np.ndarray:
     return np.where(np.isfinite(tau) & (tau > 0), tau, np.nan)
 
 
-def _shortfalls(a: dict, names, nsteps, tau_multiple, ess_target) -> list[str]:
-    """Each unmet part of the stopping rule, in words."""
+#: Relative spread at or below which values count as not varying: far above float64
+#: rounding (2e-16), far below any spread a sampled parameter has (common practice).
+STILL_SPREAD = 1e-10
+
+
+def still(values: np.ndarray, axis) -> np.ndarray:
+    """Whether `values` do not vary along `axis`, on the scale of the values themselves:
+    max - min <= `STILL_SPREAD` x max |value| (so 1400 +- 1e-12 does not vary, while a
+    chain spanning +-7 degC, or +-1e-6 around 0, does)."""
+    values = np.asarray(values, float)
+    spread = np.ptp(values, axis=axis)
+    return spread <= STILL_SPREAD * np.max(np.abs(values), axis=axis)
+
+
+def _untimed(name: str, column: np.ndarray) -> str:
+    """Why the autocorrelation time of one parameter (kept chain (steps, walkers)) is
+    missing, in words: it does not vary, some walkers never move, or too little chain."""
+    low, high = np.min(column), np.max(column)
+    if still(column, axis=(0, 1)):
+        return (f"the autocorrelation time of {name} cannot be estimated: its chain does "
+                f"not vary (every value is {low:.6g})")
+    stuck = int(np.sum(still(column, axis=0)))
+    span = f"its chain spans {low:.4g} to {high:.4g}"
+    if stuck:
+        return (f"the autocorrelation time of {name} cannot be estimated: {stuck} of "
+                f"{column.shape[1]} walkers never move ({span}); a stuck walker usually "
+                "sits where the posterior drops to nothing around it")
+    return (f"the autocorrelation time of {name} cannot be estimated from "
+            f"{column.shape[0]} kept steps ({span})")
+
+
+def _shortfalls(a: dict, names, nsteps, tau_multiple, ess_target, kept) -> list[str]:
+    """Each unmet part of the stopping rule, in words (`kept`: the chain after burn-in)."""
     if nsteps < 4:
         return [f"the chain is too short to assess ({nsteps} steps)"]
-    out = [f"the autocorrelation time of {names[j]} cannot be estimated: its chain does "
-           "not vary" for j in np.flatnonzero(~np.isfinite(a["tau"]))]
+    out = [_untimed(names[j], kept[:, :, j]) for j in np.flatnonzero(~np.isfinite(a["tau"]))]
     if a["tau_multiple_reached"] < tau_multiple and not out:
         out.append(f"the kept chain is {a['tau_multiple_reached']:.1f} autocorrelation "
                    f"times long (the rule needs {tau_multiple:g})")

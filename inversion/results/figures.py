@@ -93,7 +93,8 @@ def corner_figure(posterior) -> Figure:
         axes[ndim - 1, k].xaxis.set_label_coords(0.5, -0.72 / cell_h)
     fig.legend(handles=_corner_legend(ndim), loc="upper right", fontsize=8, frameon=False,
                bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
-    fig.suptitle(f"{posterior.study.name}\nposterior of the free parameters",
+    fig.suptitle(textwrap.fill(posterior.study.name, width=int(7 * size))
+                 + "\nposterior of the free parameters",
                  fontsize=10, x=0.02, ha="left", y=1 - 0.12 / height, va="top")
     fig.text(0.02, 0.08 / height, _symbol_note(names, scales, width=int(17 * size)),
              fontsize=7.5, color=style.INK, ha="left", va="bottom")
@@ -193,8 +194,10 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
             span = slice(first, first + len(block_panels))
             placers.append(_draw_joint_panel(fig.add_subplot(grid[span, 3:]), block, **pt))
         first += len(block_panels)
-    fig.suptitle(f"{posterior.study.name}: observations against the posterior predictive "
-                 f"distribution ({column.melt_thickness.shape[0]} draws)", fontsize=11)
+    fig.suptitle(textwrap.fill(f"{posterior.study.name}: observations against the "
+                               "posterior predictive distribution "
+                               f"({column.melt_thickness.shape[0]} draws)", width=110),
+                 fontsize=11)
     if placers:  # sample labels are placed once the layout is fixed (one extra render)
         FigureCanvasAgg(fig).draw()
         for place in placers:
@@ -426,9 +429,16 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
     ax.legend(*plotting.visible_legend_entries(ax), loc="lower left", fontsize=7.5,
               framealpha=0.92)
     plotting.label_contours(ax)
-    ax.set_title(f"{study.name}: melting paths of {draws.shape[0]} posterior draws\n"
-                 + textwrap.fill(_curve_note(posterior, at_map), width=95), fontsize=9)
+    # Wrapped to the axes' width: a scenario's study name ("<study>: scenario <name>")
+    # is long enough to run off both edges.
+    ax.set_title(textwrap.fill(f"{study.name}: melting paths of {draws.shape[0]} posterior "
+                               "draws", width=_PT_TITLE_CHARS) + "\n"
+                 + textwrap.fill(_curve_note(posterior, at_map), width=_PT_TITLE_CHARS),
+                 fontsize=9)
     return fig
+
+
+_PT_TITLE_CHARS = 80  # characters of 9 pt text across the P-T axes (6.4 in)
 
 
 def _at_map(posterior) -> dict[str, float]:

@@ -108,6 +108,7 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     """
     plan = _Plan.build(study, sites, mode=mode, seed=seed, keep_chains=keep_chains)
     target = output_path(out, what="survey folder")
+    _prepare_table(plan.study, quiet=quiet)  # a long first build shows its progress here
     executor = make_executor(workers, scheduler)  # a bad option stops before any folder
     try:
         with output_lock(target):  # held for the whole run: no second run writes here
@@ -143,6 +144,19 @@ def _run(plan: _Plan, folder: SurveyFolder, executor, *, mode: str,
     result = SurveyResult(folder.path, summary, area_table, records)
     write_report(result, plan, folder, executor_name=executor.where)
     return result
+
+
+def _prepare_table(study, *, quiet: bool) -> None:
+    """Load (or build, showing its progress unless ``quiet``) the melting table the sites
+    need, here in the main process: worker processes then load the cached file instead
+    of building it where no progress can be shown."""
+    from ...forward import melt_column
+    from ..fitting.progress import table_progress
+
+    wet = "water" in study.priors or study.fixed.get("water", 0.0) > 0.0
+    with table_progress(quiet=quiet):
+        melt_column(1350.0, 0.0, water=1.0 if wet else 0.0,
+                    parameterization=study.model.parameterization)
 
 
 @dataclass(frozen=True)
