@@ -426,10 +426,10 @@ sys.path.insert(0, {tests!r})
 import test_cache
 
 slow_build = _table._build
-def build(*args):
+def build(*args, **kwargs):
     print("built", flush=True)
     time.sleep(3.0)  # long enough for the other process to arrive meanwhile
-    return slow_build(*args)
+    return slow_build(*args, **kwargs)
 
 _table._build = build
 test_cache._tiny()

@@ -140,7 +140,7 @@ def test_progress_never_goes_back_and_shows_what_it_waits_for(capsys):
 # ---- what a finished fit says ----------------------------------------------------------
 
 def test_a_stuck_chain_is_written_and_flagged_not_converged(tmp_path):
-    crust = "site,thickness_km,thickness_sigma_km\nAlpha line,6.5,0.000001\nBeta line,5.8,0.000001\n"
+    crust = "site,thickness_km,thickness_sigma_km\nAlpha line,6.5,0.001\nBeta line,5.8,0.001\n"
     path = small_study(tmp_path / "study", sampler=CAPPED, crust=crust)
     path.write_text(path.read_text().replace("model_error = 0.3", "model_error = 0.0"))
     with warnings.catch_warnings(record=True) as caught:
