@@ -26,7 +26,6 @@ with it and the top level against its own manifest, as the survey does for its s
 from __future__ import annotations
 
 import dataclasses
-import io
 import json
 import math
 import os
@@ -50,12 +49,18 @@ from ..outputs.folder import check_replaceable as check_flat_replaceable
 from ..fitting.sampler import assess_chain, read_chain
 
 __all__ = ["COMPARISON_FILES", "RECORD", "SCENARIO_FILE", "Checkpoint", "check_replaceable",
-           "save_comparison"]
+           "comparison_files", "save_comparison"]
 
 RECORD = "comparison.json"
 SCENARIO_FILE = "scenario.json"
 #: Files at the top of a comparison folder (besides the scenario folders).
 COMPARISON_FILES = ("evidence.csv", "compare.png", "report.md", RECORD, MANIFEST)
+
+
+def comparison_files(figure_format: str = "png") -> tuple[str, ...]:
+    """`COMPARISON_FILES` with the figure in `figure_format` (``compare.pdf`` ...)."""
+    return tuple(f"compare.{figure_format}" if name == "compare.png" else name
+                 for name in COMPARISON_FILES)
 _KIND = "comparison"
 _RUN_INFO = ("command_line", "sampling_seconds", "finished_utc", "resumed_from_step")
 
@@ -63,11 +68,13 @@ _RUN_INFO = ("command_line", "sampling_seconds", "finished_utc", "resumed_from_s
 class Checkpoint:
     """The ``DIR.partial`` folder of a running comparison (see the module docstring)."""
 
-    def __init__(self, out: Path, partial: Path, found) -> None:
+    def __init__(self, out: Path, partial: Path, found, figure_format: str = "png") -> None:
         self.out, self.partial, self.found = out, partial, found
+        self.figure_format = figure_format
 
     @classmethod
-    def open(cls, out: Path, found, seed: int, *, resume: bool, force: bool) -> Checkpoint:
+    def open(cls, out: Path, found, seed: int, *, resume: bool, force: bool,
+             figure_format: str = "png") -> Checkpoint:
         """Check the folder rules before any work and create (or reopen) the checkpoint.
 
         Call it while holding `output_lock` for `out`.
@@ -84,7 +91,7 @@ class Checkpoint:
         out = Path(out).absolute()
         partial = out.with_name(out.name + ".partial")
         inputs = _inputs(found)
-        record = _record(found, seed)
+        record = _record(found, seed, figure_format)
         _check_target(out, force=force, inputs=inputs)
         remove_stale_temporaries(out)
         if resume:
@@ -96,9 +103,9 @@ class Checkpoint:
             _remove(partial, check_replaceable(partial, inputs=inputs, what="checkpoint"))
         if not resume:
             partial.mkdir()
-            _write_top_manifest(partial)
+            _write_top_manifest(partial, figure_format)
             _write_json(partial / RECORD, record)
-        return cls(out, partial, found)
+        return cls(out, partial, found, figure_format)
 
     def load(self, scenario) -> tuple[dict, object] | None:
         """The stored record and posterior of a finished scenario, or None.
@@ -113,16 +120,17 @@ class Checkpoint:
 
     def store(self, result: ScenarioResult) -> None:
         """Write one finished scenario into the checkpoint, atomically."""
-        write_scenario(result, self.partial)
+        write_scenario(result, self.partial, figure_format=self.figure_format)
 
     def finish(self, comparison, *, force: bool) -> Path:
         """Add the summary files and move the checkpoint to the result folder."""
-        write_summary(comparison, self.partial)
+        write_summary(comparison, self.partial, figure_format=self.figure_format)
         _publish(self.partial, self.out, inputs=_inputs(self.found), replace=force)
         return self.out
 
 
-def save_comparison(comparison, directory: Path, *, force: bool = False) -> Path:
+def save_comparison(comparison, directory: Path, *, force: bool = False,
+                    figure_format: str = "png") -> Path:
     """Write a whole comparison folder at once (see `Comparison.save`)."""
     directory = Path(directory).absolute()
     inputs = _inputs(comparison.scenarios)
@@ -130,19 +138,21 @@ def save_comparison(comparison, directory: Path, *, force: bool = False) -> Path
         _check_target(directory, force=force, inputs=inputs)
         remove_stale_temporaries(directory)
         with staged_folder(directory) as staged:
-            _write_top_manifest(staged)
-            _write_json(staged / RECORD, _record(comparison.scenarios, comparison.seed))
+            _write_top_manifest(staged, figure_format)
+            _write_json(staged / RECORD, _record(comparison.scenarios, comparison.seed,
+                                                 figure_format))
             for result in comparison.results:
-                write_scenario(result, staged)
-            write_summary(comparison, staged)
+                write_scenario(result, staged, figure_format=figure_format)
+            write_summary(comparison, staged, figure_format=figure_format)
             _publish(staged, directory, inputs=inputs, replace=force)
     return directory
 
 
-def write_scenario(result: ScenarioResult, parent: Path) -> Path:
+def write_scenario(result: ScenarioResult, parent: Path, *,
+                   figure_format: str = "png") -> Path:
     """``parent/<name>/``: the fit outputs and scenario.json, renamed into place at once."""
     target = parent / result.name
-    files = _scenario_files(result)
+    files = _scenario_files(result, figure_format)
     remove_stale_temporaries(target)
     with staged_folder(target) as staged:
         _guarded(target, write_manifest, staged, files, kind="comparison scenario")
@@ -152,13 +162,13 @@ def write_scenario(result: ScenarioResult, parent: Path) -> Path:
     return target
 
 
-def _scenario_files(result: ScenarioResult) -> dict[str, bytes]:
+def _scenario_files(result: ScenarioResult, figure_format: str) -> dict[str, bytes]:
     """Name -> bytes of a scenario folder (built in memory before anything is written)."""
     files = {}
     if result.posterior is not None:
         from ..results.writers import _files as fit_files
 
-        files.update(fit_files(result.posterior))
+        files.update(fit_files(result.posterior, figure_format=figure_format))
     files[SCENARIO_FILE] = _json_bytes(result.to_dict())
     return files
 
@@ -183,22 +193,22 @@ def load_scenario(folder: Path, scenario) -> tuple[dict, object]:
     return data, posterior
 
 
-def write_summary(comparison, folder: Path) -> None:
-    """evidence.csv, compare.png, report.md and the final comparison.json."""
+def write_summary(comparison, folder: Path, *, figure_format: str = "png") -> None:
+    """evidence.csv, compare.png (or .pdf/.svg), report.md and the final comparison.json."""
+    from ...forward.figure_output import figure_bytes
     from .figure import comparison_figure
     from .report import render
 
     table = comparison.table().to_csv(index=False, float_format="%.6g", lineterminator="\n",
                                       na_rep="")
-    buffer = io.BytesIO()
-    comparison_figure(comparison).savefig(buffer, format="png", dpi=150,
-                                          metadata={"Software": None})
-    record = _record(comparison.scenarios, comparison.seed)
+    figure = figure_bytes(comparison_figure(comparison), figure_format, dpi=150)
+    record = _record(comparison.scenarios, comparison.seed, figure_format)
     record["finished_utc"] = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
     record["ranking"] = comparison.ranking()
     for name, data in (("evidence.csv", table.encode("utf-8")),
-                       ("compare.png", buffer.getvalue()),
-                       ("report.md", render(comparison).encode("utf-8")),
+                       (f"compare.{figure_format}", figure),
+                       ("report.md", render(comparison, figure_format=figure_format)
+                        .encode("utf-8")),
                        (RECORD, _json_bytes(record))):
         _guarded(folder / name, write_bytes, folder / name, data)
 
@@ -285,8 +295,8 @@ def _manifest_files(folder: Path) -> set[str] | None:
     return set(record.get("files", [])) | {MANIFEST}
 
 
-def _write_top_manifest(folder: Path) -> None:
-    _guarded(folder, write_manifest, folder, COMPARISON_FILES, kind=_KIND)
+def _write_top_manifest(folder: Path, figure_format: str) -> None:
+    _guarded(folder, write_manifest, folder, comparison_files(figure_format), kind=_KIND)
 
 
 # ---- provenance -------------------------------------------------------------------------
@@ -295,7 +305,7 @@ def _inputs(found) -> list[Path]:
     return study_inputs(found.base)
 
 
-def _record(found, seed: int) -> dict:
+def _record(found, seed: int, figure_format: str) -> dict:
     source = found.base.source
     return {
         "written_by": "lidmelt compare",
@@ -306,6 +316,7 @@ def _record(found, seed: int) -> dict:
         "seed": int(seed),
         "scenarios": list(found.names),
         "settings": dataclasses.asdict(found.settings),
+        "figure_format": figure_format,
     }
 
 
@@ -322,8 +333,8 @@ def _check_same_run(partial: Path, record: dict) -> None:
             raise OutputConflict(f"cannot resume: {Path(path).name} {what} since the "
                                  "interrupted comparison was started", reason="changed",
                                  file=partial)
-    for key in ("seed", "scenarios", "settings", "lidmelt_version"):
-        if stored.get(key) != record[key]:
+    for key in ("seed", "scenarios", "settings", "lidmelt_version", "figure_format"):
+        if stored.get(key, "png" if key == "figure_format" else None) != record[key]:
             raise OutputConflict(f"cannot resume: the interrupted comparison has {key} = "
                                  f"{stored.get(key)!r}, this run {record[key]!r}",
                                  reason="changed", file=partial)

@@ -12,6 +12,7 @@ import numpy as np
 
 from ..errors import InputError, NotConvergedWarning, PosteriorWarning
 from ..fitting.log_posterior import LogPosterior
+from ..outputs.formats import checked_figure_format
 from ..study.scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
 from ..study.file import Study
 from .checks import fit_check
@@ -36,6 +37,7 @@ def compare(
     force: bool = False,
     quiet: bool = True,
     progress: Callable[[str], None] | None = None,
+    figure_format: str = "png",
 ) -> Comparison:
     """Compare the scenarios of a study by their evidence and by PSIS-LOO.
 
@@ -65,6 +67,8 @@ def compare(
         Hide the samplers' progress bars.
     progress : callable, optional
         Called with a short message as each part of each scenario starts.
+    figure_format : {"png", "pdf", "svg"}
+        File format of compare.png and of every scenario's figures (with `out`).
 
     Returns
     -------
@@ -77,6 +81,7 @@ def compare(
     """
     found = _scenario_set(study, settings)
     seed = _check_seed(found.base.sampler.seed if seed is None else seed)
+    figure_format = checked_figure_format(figure_format)
     if out is None:
         if resume:
             raise InputError("resuming needs the result folder of the interrupted run",
@@ -88,7 +93,8 @@ def compare(
 
         out = Path(out).absolute()
         with output_lock(out):
-            checkpoint = Checkpoint.open(out, found, seed, resume=resume, force=force)
+            checkpoint = Checkpoint.open(out, found, seed, resume=resume, force=force,
+                                         figure_format=figure_format)
             comparison = _run(found, seed, checkpoint, quiet=quiet, progress=progress)
             checkpoint.finish(comparison, force=force)
     for message in comparison.warnings():

@@ -14,7 +14,7 @@ import sys
 from importlib import metadata
 from pathlib import Path
 
-__all__ = ["run_fingerprint", "run_record", "study_inputs"]
+__all__ = ["lidmelt_version", "run_fingerprint", "run_record", "study_inputs"]
 
 _PACKAGES = ("lidmelt", "numpy", "scipy", "pandas", "emcee", "h5py", "matplotlib", "corner",
              "tqdm")
@@ -79,6 +79,11 @@ def run_record(posterior) -> dict:
         "platform": platform.platform(),
         "versions": {name: _version(name) for name in _PACKAGES},
     }
+
+
+def lidmelt_version() -> str:
+    """The installed lidmelt version, or ``"0+unknown"`` when run from a source tree."""
+    return _version("lidmelt") or "0+unknown"
 
 
 def _version(name: str) -> str | None:

@@ -17,7 +17,6 @@ it is safe to call from scripts and tests (Agg backend).
 
 from __future__ import annotations
 
-import io
 import textwrap
 
 import corner
@@ -30,6 +29,7 @@ from matplotlib.patches import Patch
 from ... import forward
 from ...forward import figure_style as style
 from ...forward import plotting
+from ...forward.figure_output import figure_bytes, figure_name
 from ...forward.quantities import quantity, unit_text
 from ..study.priors import LogUniform
 from .report import decimals, estimate
@@ -41,15 +41,16 @@ _INCH_FOR_LABELS = 0.95  # room left and below the corner grid for tick and axis
 _INCH_FOR_CAPTION = 0.45  # below that: the caption naming each symbol
 
 
-def figure_files(posterior) -> dict[str, bytes]:
-    """The PNG bytes of corner.png, fit.png and pt.png of `posterior`, in that order."""
-    files = {}
-    for name, make in (("corner.png", corner_figure), ("fit.png", fit_figure),
-                       ("pt.png", pt_figure)):
-        buffer = io.BytesIO()
-        make(posterior).savefig(buffer, format="png", dpi=_DPI, metadata={"Software": None})
-        files[name] = buffer.getvalue()
-    return files
+def figure_files(posterior, *, figure_format: str = "png") -> dict[str, bytes]:
+    """The bytes of the corner, fit and P-T figures of `posterior`, in that order.
+
+    Keys are the file names (``corner.png`` ...; ``corner.pdf`` for ``"pdf"``); every
+    figure goes through `forward.figure_output.figure_bytes` (fonts embedded).
+    """
+    return {figure_name(stem, figure_format): figure_bytes(make(posterior), figure_format,
+                                                            dpi=_DPI)
+            for stem, make in (("corner", corner_figure), ("fit", fit_figure),
+                               ("pt", pt_figure))}
 
 
 # ---- corner -----------------------------------------------------------------------------

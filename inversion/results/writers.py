@@ -14,7 +14,8 @@ from pathlib import Path
 
 from ..._atomic import staged_folder, write_bytes
 from ..errors import WriteError
-from ..outputs.identity import run_record, study_inputs
+from ...forward.figure_output import DEFAULT_FIGURE_FORMAT, figure_name
+from ..outputs.identity import lidmelt_version, run_record, study_inputs
 from ..outputs.folder import (
     MANIFEST,
     check_output_folder,
@@ -26,25 +27,44 @@ from ..outputs.folder import (
 from ..fitting.log_posterior import DERIVED
 from ..fitting.sampler import chain_file_bytes
 
-__all__ = ["OUTPUT_FILES", "save_posterior"]
+__all__ = ["FIGURES", "OUTPUT_FILES", "output_files", "save_posterior"]
 
-#: Every file a saved result folder contains.
-OUTPUT_FILES = ("summary.csv", "derived.csv", "samples.csv", "chain.h5", "diagnostics.json",
-                "run.json", "corner.png", "fit.png", "pt.png", "report.md", MANIFEST)
+#: The figures of a result folder (file name stems; the suffix is the figure format).
+FIGURES = ("corner", "fit", "pt")
+
+
+def output_files(figure_format: str = DEFAULT_FIGURE_FORMAT) -> tuple[str, ...]:
+    """Every file a saved result folder contains, its figures in `figure_format`.
+
+    Examples
+    --------
+    >>> output_files("pdf")[6:9]
+    ('posterior.nc', 'corner.pdf', 'fit.pdf')
+    """
+    return ("summary.csv", "derived.csv", "samples.csv", "chain.h5", "diagnostics.json",
+            "run.json", "posterior.nc", *(figure_name(f, figure_format) for f in FIGURES),
+            "report.md", MANIFEST)
+
+
+#: Every file a saved result folder contains (figures as PNG, the default).
+OUTPUT_FILES = output_files()
 
 _CSV = {"index": False, "float_format": "%.6g", "lineterminator": "\n"}
 
 
-def save_posterior(posterior, directory: Path, *, force: bool = False) -> Path:
-    """Write all of `OUTPUT_FILES` for `posterior` to `directory` (see Posterior.save)."""
+def save_posterior(posterior, directory: Path, *, force: bool = False,
+                   figure_format: str = DEFAULT_FIGURE_FORMAT) -> Path:
+    """Write all of `output_files` for `posterior` to `directory` (see Posterior.save)."""
     directory = Path(directory).absolute()
     inputs = study_inputs(posterior.study)
     with output_lock(directory):
         check_output_folder(directory, force=force, inputs=inputs)
         remove_stale_temporaries(directory)
-        files = _files(posterior)  # built before the staging folder exists
+        # built before the staging folder exists
+        files = _files(posterior, figure_format=figure_format)
         with staged_folder(directory) as staged:
-            _written(directory / MANIFEST, write_manifest, staged, OUTPUT_FILES,
+            _written(directory / MANIFEST, write_manifest, staged,
+                     output_files(figure_format),
                      kind="fit result")
             for name, data in files.items():
                 _written(directory / name, write_bytes, staged / name, data)
@@ -61,10 +81,11 @@ def _written(shown: Path, write, *args, **kwargs) -> None:
         raise WriteError(shown, err) from err
 
 
-def _files(posterior) -> dict[str, bytes]:
+def _files(posterior, *, figure_format: str = DEFAULT_FIGURE_FORMAT) -> dict[str, bytes]:
     """Name -> bytes of every output file but the manifest, in writing order."""
     from . import figures
     from . import report
+    from .netcdf import NETCDF_FILE, inference_data_bytes
 
     return {
         "summary.csv": _csv(posterior.summary()),
@@ -73,8 +94,9 @@ def _files(posterior) -> dict[str, bytes]:
         "chain.h5": chain_file_bytes(posterior.result, meta=_chain_meta(posterior)),
         "diagnostics.json": _json(posterior.diagnostics),
         "run.json": _json(run_record(posterior)),
-        **figures.figure_files(posterior),
-        "report.md": report.render(posterior).encode("utf-8"),
+        NETCDF_FILE: inference_data_bytes(posterior, version=lidmelt_version()),
+        **figures.figure_files(posterior, figure_format=figure_format),
+        "report.md": report.render(posterior, figure_format=figure_format).encode("utf-8"),
     }
 
 
