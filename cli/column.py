@@ -59,8 +59,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--format", choices=("table", "csv", "json"), default="table",
                         help="output format: aligned table for people (default), or CSV / "
                         "JSON at full precision with the same keys")
-    parser.add_argument("--plot", metavar="FILE.png",
-                        help="also draw P-T diagrams (one panel per lid) to this PNG")
+    parser.add_argument("--plot", metavar="FILE",
+                        help="also draw P-T diagrams (one panel per lid) to this file "
+                        "(FILE.png; .pdf or .svg with --figure-format)")
+    from .fit import add_figure_format
+
+    add_figure_format(parser)
 
 
 def parse_values(text: str, option: str) -> list[float]:
@@ -224,8 +228,9 @@ def format_rows(rows: list[dict], fmt: str) -> str:
 
 def run(args) -> int:
     if args.plot:
-        if not args.plot.lower().endswith(".png"):
-            raise InputError(f"--plot: {args.plot!r} must end in .png")
+        if not args.plot.lower().endswith(f".{args.figure_format}"):
+            raise InputError(f"--plot: {args.plot!r} must end in .{args.figure_format} "
+                             "(the figure format)")
         if not Path(args.plot).absolute().parent.is_dir():
             raise InputError("--plot: the folder for the figure does not exist; create it "
                              "first", file=Path(args.plot).absolute().parent)
@@ -234,7 +239,8 @@ def run(args) -> int:
         from ..forward._pt_figure import write_column_figure
 
         write_column_figure(args.plot, rows, crust_density=args.crust_density,
-                            mantle_density=args.mantle_density)
+                            mantle_density=args.mantle_density,
+                            figure_format=args.figure_format)
     sys.stdout.write(format_rows(rows, args.format) + "\n")
     if args.plot:
         print(f"P-T diagram written to {args.plot}", file=sys.stderr)

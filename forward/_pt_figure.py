@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._atomic import replacing
 from . import figure_style as style
 from .adiabat import depth_per_pressure
 from .column import melt_column
+from .figure_output import save_figure
 from .parameterizations import get_parameterization
 from .plotting import (
     add_depth_axis,
@@ -104,8 +104,10 @@ def _frame(rows, crust_density, mantle_density) -> dict:
             "mantle_density": mantle_density}
 
 
-def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300.0):
-    """Draw one P-T panel per lid and melting-curve set and write a PNG atomically."""
+def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300.0,
+                        figure_format="png"):
+    """Draw one P-T panel per lid and melting-curve set; write it atomically as a PNG,
+    PDF or SVG (`figure_format`)."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -132,10 +134,9 @@ def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300
     fig.get_layout_engine().set(rect=(0, bottom, 1, 1 - bottom))
     fig.text(0.01, 0.005, note.replace("\n", " "), fontsize=7.5, color="0.3", va="bottom",
              wrap=True)
-    save_figure_atomically(fig, path)
+    save_figure_atomically(fig, path, figure_format=figure_format)
 
 
-def save_figure_atomically(fig, path, dpi=150):
-    """Write the figure as a PNG to a temporary file beside ``path``; rename it into place."""
-    with replacing(path) as tmp:
-        fig.savefig(tmp, dpi=dpi)
+def save_figure_atomically(fig, path, dpi=150, *, figure_format="png"):
+    """Write the figure to ``path`` atomically (`figure_output.save_figure`)."""
+    save_figure(fig, path, figure_format, dpi=dpi)

@@ -11,7 +11,8 @@ Layout::
         chain.h5 / grid.npz with --keep-chains: the emcee chain or the posterior grid
     DIR/sites_summary.csv   one row per site and parameter
     DIR/area.csv            joint mode: the area-wide posterior
-    DIR/profile.png, DIR/report.md
+    DIR/survey.nc           every site's posterior draws and the area posterior (NetCDF)
+    DIR/profile.png, DIR/report.md   (profile.pdf/.svg with figure_format)
 
 A resumed survey re-reads finished sites from their JSON files (floats round-trip
 exactly), so it gives the numbers of an uninterrupted one.
@@ -177,10 +178,10 @@ class SurveyFolder:
         write_atomic(self.path / name, text)
         return self.path / name
 
-    def write_figure(self, name: str, figure) -> Path:
-        buffer = io.BytesIO()
-        figure.savefig(buffer, format="png", dpi=130)
-        write_atomic(self.path / name, buffer.getvalue())
+    def write_figure(self, name: str, figure, figure_format: str = "png") -> Path:
+        from ...forward.figure_output import figure_bytes
+
+        write_atomic(self.path / name, figure_bytes(figure, figure_format, dpi=130))
         return self.path / name
 
 

@@ -20,6 +20,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ..errors import InputError
+from ..outputs.formats import checked_figure_format
 from ..fitting.log_posterior import UNITS
 from ..observations import THICKNESS_OF
 from . import joint
@@ -65,7 +66,7 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
            out: str | PathLike[str], mode: str = "independent", workers: int | None = None,
            scheduler: str | None = None, seed: int | None = None, resume: bool = False,
            force: bool = False, quiet: bool = False, keep_chains: bool = False,
-           ) -> SurveyResult:
+           figure_format: str = "png") -> SurveyResult:
     """Run a survey: every site of `sites` under the model and priors of `study`.
 
     Parameters
@@ -89,11 +90,14 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     resume, force, quiet, keep_chains : bool
         Continue the survey in `out`; replace a survey folder; no progress bar; keep each
         site's chain or grid.
+    figure_format : {"png", "pdf", "svg"}
+        File format of the profile figure.
 
     Returns
     -------
     SurveyResult
     """
+    figure_format = checked_figure_format(figure_format)
     plan = _Plan.build(study, sites, mode=mode, seed=seed, keep_chains=keep_chains)
     folder = SurveyFolder.open(out, plan.manifest, resume=resume, force=force,
                                protected=[Path(study).parent, Path(sites).parent])
@@ -116,7 +120,8 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     if area_table is not None:
         folder.write_table("area.csv", area_table)
     result = SurveyResult(folder.path, summary, area_table, records)
-    write_report(result, plan, folder, executor_name=executor.where)
+    write_report(result, plan, folder, executor_name=executor.where,
+                 figure_format=figure_format)
     return result
 
 
