@@ -28,7 +28,6 @@ from __future__ import annotations
 
 import io
 import re
-import time
 
 import numpy as np
 
@@ -81,8 +80,8 @@ def _group(nc, name: str, dims: dict[str, int]):
     for dim, size in dims.items():
         if dim in ("chain", "draw"):
             group.create_variable(dim, (dim,), data=np.arange(size, dtype=np.int64))
-    group.attrs.update({"created_at": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-                        "inference_library": "emcee"})
+    # no "created_at": the same run gives the same bytes (run.json holds the times)
+    group.attrs.update({"inference_library": "emcee"})
     return group
 
 
