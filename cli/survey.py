@@ -22,8 +22,7 @@ in km, pressure in GPa.
 
 Each site's result is written to DIR/sites/ as soon as it is done; after an interruption
 run the same command with --resume. Outputs: sites_summary.csv, area.csv (joint mode),
-survey.nc (every site's posterior draws, NetCDF), profile.png (.pdf or .svg with
---figure-format), report.md. Results are scientific estimates that depend on the chosen
+profile.png (.pdf or .svg with --figure-format), report.md. Results are scientific estimates that depend on the chosen
 melting parameterization.
 """
 

@@ -14,7 +14,6 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from ...forward import figure_style as style
-from ...forward.figure_output import DOUBLE_COLUMN
 from ...forward.quantities import quantity
 from .checks import replicate_data
 
@@ -33,7 +32,7 @@ def comparison_figure(comparison) -> Figure:
     results = comparison.results
     predictions = [_predictions(r, comparison.seed) for r in results]
     panels = len(predictions[0])
-    fig = Figure(figsize=(DOUBLE_COLUMN, 4.2 + 2.7 * panels), layout="constrained")
+    fig = Figure(figsize=(15.0, 4.2 + 2.7 * panels), layout="constrained")
     grid = fig.add_gridspec(1 + panels, 4, height_ratios=[1.5] + [1.0] * panels)
     for j, name in enumerate(_SHOWN):
         _draw_marginals(fig.add_subplot(grid[0, j]), results, name)

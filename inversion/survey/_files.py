@@ -26,7 +26,7 @@ __all__ = ["MANIFEST", "OWN_FILES", "SITE_FILES", "check_replaceable", "remove_o
 MANIFEST = "survey.json"
 #: Files and folders a survey writes at the top of its folder.
 OWN_FILES = (MANIFEST, "sites_summary.csv", "area.csv", "profile.png", "profile.pdf",
-             "profile.svg", "survey.nc", "report.md", "sites")
+             "profile.svg", "report.md", "sites")
 #: Files a survey writes in each site's folder.
 SITE_FILES = ("site.json", "summary.csv", "likelihood.json", "tp_likelihood.csv",
               "chain.h5", "grid.npz")

@@ -11,7 +11,6 @@ Layout::
         chain.h5 / grid.npz with --keep-chains: the emcee chain or the posterior grid
     DIR/sites_summary.csv   one row per site and parameter
     DIR/area.csv            joint mode: the area-wide posterior
-    DIR/survey.nc           every site's posterior draws and the area posterior (NetCDF)
     DIR/profile.png, DIR/report.md   (profile.pdf/.svg with figure_format)
 
 A resumed survey re-reads finished sites from their JSON files (floats round-trip

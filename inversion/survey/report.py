@@ -107,9 +107,8 @@ def render(result, plan, *, executor_name: str, figure_format: str = "png") -> s
         "## Files", "",
         "sites_summary.csv (one row per site and parameter), "
         + ("area.csv (the area-wide posterior), " if result.area is not None else "")
-        + f"profile.{figure_format} (sites against position), survey.nc (every site's "
-        "posterior draws and the area-wide posterior, NetCDF-4; `xarray.open_dataset`), "
-        "sites/ (one folder per site).", "",
+        + f"profile.{figure_format} (sites against position), sites/ (one folder per "
+        "site).", "",
         "## Caution", "", _CAUTION, "",
     ]
     return "\n".join(text)
