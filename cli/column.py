@@ -63,12 +63,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--format", choices=("table", "csv", "json"), default="table",
                         help="output format: aligned table for people (default), or CSV / "
                         "JSON at full precision with the same keys")
-    parser.add_argument("--plot", metavar="FILE.png",
-                        help="also draw P-T diagrams (one panel per lid) to this PNG "
-                        "(refused if it exists, see --force)")
+    parser.add_argument("--plot", metavar="FILE",
+                        help="also draw P-T diagrams (one panel per lid) to this file "
+                        "(FILE.png; .pdf or .svg with --figure-format; refused if it "
+                        "exists, see --force)")
     parser.add_argument("--force", action="store_true",
                         help="replace the --plot file if lidmelt wrote it (never another "
                         "file)")
+    from .fit import add_figure_format
+
+    add_figure_format(parser)
 
 
 def parse_values(text: str, option: str) -> list[float]:
@@ -337,13 +341,14 @@ class _PlotRows:
         return rows
 
 
-def _check_plot(plot: str, *, force: bool) -> None:
-    """The --plot file: a new .png, or with --force one lidmelt wrote (checked before work)."""
+def _check_plot(plot: str, *, force: bool, figure_format: str = "png") -> None:
+    """The --plot file: a new one, or with --force one lidmelt wrote (checked before work)."""
     from ..inversion.errors import OutputConflict
     from ..inversion.outputs.folder import check_output_file
 
-    if not plot.lower().endswith(".png"):
-        raise InputError(f"--plot: {plot!r} must end in .png")
+    if not plot.lower().endswith(f".{figure_format}"):
+        raise InputError(f"--plot: {plot!r} must end in .{figure_format} (the figure "
+                         "format)")
     try:
         check_output_file(plot, force=force, what="--plot file")
     except OutputConflict as err:
@@ -353,7 +358,7 @@ def _check_plot(plot: str, *, force: bool) -> None:
 
 def run(args) -> int:
     if args.plot:
-        _check_plot(args.plot, force=args.force)
+        _check_plot(args.plot, force=args.force, figure_format=args.figure_format)
     from ..inversion.fitting.progress import table_progress
 
     combos = Combinations(args)
@@ -375,7 +380,8 @@ def run(args) -> int:
 
             write_column_figure(args.plot, plot.rows, crust_density=args.crust_density,
                                 mantle_density=args.mantle_density,
-                                panels=combos.panel_count())
+                                panels=combos.panel_count(),
+                                figure_format=args.figure_format)
             print(f"P-T diagram written to {args.plot}", file=sys.stderr)
     return 0
 

@@ -18,8 +18,9 @@ standard error (nested sampling, checked by quadrature up to 3 free parameters),
 the posterior as 'lidmelt fit' does and computes the leave-one-out predictive accuracy
 (PSIS-LOO).
 
-DIR gets evidence.csv, compare.png, report.md, comparison.json and one folder per
-scenario. Finished scenarios are kept in DIR.partial/ while the others run; after an
+DIR gets evidence.csv, compare.png (.pdf or .svg with --figure-format), report.md,
+comparison.json and one folder per scenario (what 'lidmelt fit' writes, posterior.nc
+included). Finished scenarios are kept in DIR.partial/ while the others run; after an
 interruption, --resume continues with the unfinished ones (refused if the study file or
 its tables changed). Units: potential temperature in degC, lid thickness in km; ln Z,
 ln B and elpd_loo in natural-log units. Results are scientific estimates that depend on
@@ -83,7 +84,7 @@ def _compare(args, out: Path):
             print(f"[{index}/{total}] {message}", file=sys.stderr, flush=True)
 
     return compare(found, seed=args.seed, out=out, resume=args.resume, force=args.force,
-                   quiet=args.quiet, progress=progress)
+                   quiet=args.quiet, progress=progress, figure_format=args.figure_format)
 
 
 def _require_optional_packages() -> None:

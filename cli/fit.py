@@ -9,7 +9,7 @@ import threading
 import warnings
 from pathlib import Path
 
-__all__ = ["add_arguments", "print_result", "run", "run_fit"]
+__all__ = ["add_arguments", "add_figure_format", "print_result", "run", "run_fit"]
 
 _EPILOG = """\
 Units: potential temperature and solidus offset in degC, lid (lithosphere) thickness and
@@ -18,8 +18,9 @@ crust thickness in km, water in ppm H2O of the bulk source, pressure in GPa.
 The chain is checkpointed in DIR.partial/ while the sampler runs; after an interruption
 (Ctrl-C, SIGTERM, a full disk) continue it with --resume. All outputs are written at the
 end, at once: summary.csv, derived.csv, samples.csv, chain.h5, diagnostics.json,
-run.json, corner.png, fit.png, pt.png, report.md and lidmelt-files.json (the list of
-files lidmelt wrote, which --force relies on). Exit codes: 0 done (read the warnings),
+run.json, posterior.nc (ArviZ InferenceData), corner.png, fit.png, pt.png (.pdf or .svg
+with --figure-format), report.md and lidmelt-files.json (the list of files lidmelt
+wrote, which --force relies on). Exit codes: 0 done (read the warnings),
 1 a write failed or an internal error, 2 bad input or a folder in the way, 130
 interrupted. Results are scientific estimates that depend on the chosen melting
 parameterization.
@@ -47,6 +48,17 @@ def _add_common(parser: argparse.ArgumentParser) -> None:
                         help="replace a result folder or checkpoint that lidmelt wrote "
                         "(never a folder holding other files or the study's inputs)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
+    add_figure_format(parser)
+
+
+def add_figure_format(parser: argparse.ArgumentParser) -> None:
+    """``--figure-format``: the same option, the same words, on every command that draws."""
+    from ..forward.figure_output import DEFAULT_FIGURE_FORMAT, FIGURE_FORMATS
+
+    parser.add_argument("--figure-format", choices=FIGURE_FORMATS,
+                        default=DEFAULT_FIGURE_FORMAT, metavar="FORMAT",
+                        help="file format of the figures: png (default), pdf or svg "
+                        "(vector, fonts embedded, sized for a journal column)")
 
 
 def _seed(text: str) -> int:
@@ -103,7 +115,8 @@ def _fit(study, args, out: Path):
     from ..inversion.fitting.run import fit
 
     return fit(study, seed=args.seed, out=out, resume=args.resume, quiet=args.quiet,
-               force=args.force, provenance={"command_line": list(args.argv)})
+               force=args.force, provenance={"command_line": list(args.argv)},
+               figure_format=args.figure_format)
 
 
 def _print_warnings(caught, posterior=None) -> None:

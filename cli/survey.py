@@ -23,7 +23,7 @@ in km, pressure in GPa.
 
 Each site's result is written to DIR/sites/ as soon as it is done; after an interruption
 run the same command with --resume. Outputs: sites_summary.csv, area.csv (joint mode),
-profile.png, report.md. Results are scientific estimates that depend on the chosen
+profile.png (.pdf or .svg with --figure-format), report.md. Results are scientific estimates that depend on the chosen
 melting parameterization.
 """
 
@@ -31,6 +31,8 @@ melting parameterization.
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Options of ``lidmelt survey``."""
     from .fit import _seed
+    from .fit import add_figure_format
+
     parser.formatter_class = argparse.RawDescriptionHelpFormatter
     parser.epilog = _EPILOG
     parser.add_argument("study", metavar="STUDY", help="study file (TOML) with [survey]")
@@ -57,6 +59,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--keep-chains", action="store_true",
                         help="keep every site's chain (emcee) or posterior grid")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
+    add_figure_format(parser)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -69,7 +72,7 @@ def run(args: argparse.Namespace) -> int:
         result = survey(args.study, args.sites, out=args.out, mode=args.mode,
                         workers=args.workers, scheduler=args.scheduler, seed=args.seed,
                         resume=args.resume, force=args.force, quiet=args.quiet,
-                        keep_chains=args.keep_chains)
+                        keep_chains=args.keep_chains, figure_format=args.figure_format)
     except KeyboardInterrupt:
         print(f"lidmelt survey: interrupted; finished sites are kept in {args.out}/ - "
               "continue by running the same command with --resume", file=sys.stderr)

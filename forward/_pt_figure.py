@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._atomic import PNG_MARK, replacing
 from . import figure_style as style
 from .adiabat import depth_per_pressure
 from .column import melt_column
+from .figure_output import save_figure
 from .parameterizations import get_parameterization
 from .plotting import (
     add_depth_axis,
@@ -117,8 +117,9 @@ def _frame(rows, crust_density, mantle_density) -> dict:
 
 
 def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300.0,
-                        panels=None):
-    """Draw one P-T panel per lid and melting-curve set and write a PNG atomically.
+                        panels=None, figure_format="png"):
+    """Draw one P-T panel per lid and melting-curve set; write it atomically as a PNG,
+    PDF or SVG (`figure_format`).
 
     ``rows`` are ``lidmelt column`` rows; ``panels`` is how many panels the whole table
     has when ``rows`` hold only those drawn (default: counted from ``rows``).
@@ -153,7 +154,7 @@ def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300
     _figure_legend(fig, axes[: len(shown)], ncols, top=bottom)
     fig.text(0.01, 0.005, note.replace("\n", " "), fontsize=7.5, color="0.3", va="bottom",
              wrap=True)
-    save_figure_atomically(fig, path)
+    save_figure_atomically(fig, path, figure_format=figure_format)
 
 
 def _legend_entries_guess(shown) -> list:
@@ -183,11 +184,6 @@ def _figure_legend(fig, axes, ncols, *, top) -> None:
                borderaxespad=0.2, columnspacing=1.5, handlelength=2.5)
 
 
-def save_figure_atomically(fig, path, dpi=150):
-    """Write the figure as a PNG to a temporary file beside ``path``; rename it into place.
-
-    The PNG is marked as lidmelt's (``Software`` = `_atomic.PNG_MARK`), so a later run may
-    replace it with ``--force``.
-    """
-    with replacing(path) as tmp:
-        fig.savefig(tmp, dpi=dpi, metadata={"Software": PNG_MARK})
+def save_figure_atomically(fig, path, dpi=150, *, figure_format="png"):
+    """Write the figure to ``path`` atomically (`figure_output.save_figure`)."""
+    save_figure(fig, path, figure_format, dpi=dpi)

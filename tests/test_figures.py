@@ -132,8 +132,10 @@ def test_title_offset_is_the_one_of_the_bold_path(demo):
 def test_path_panel_shows_the_melt_weighted_spread_not_a_mean(demo):
     fig = figures.fit_figure(demo)
     block = next(b for b in demo.study.observations if b.kind == "melting_pressure")
-    panel = next(ax for ax in fig.axes if ax.get_title(loc="left").startswith(
-        f"{block.name}: melting pressure"))
+    # each panel's title heads its legend (fit_figure)
+    panel = next(ax for ax in fig.axes if ax.get_legend() is not None
+                 and ax.get_legend().get_title().get_text().startswith(
+                     f"{block.name}: melting pressure"))
     wide = max(panel.patches, key=lambda p: p.get_height())  # the 95 % band
     column = demo.logpost.column(demo.predictive_draws(200))
     path = column.path(num=block.path_points)
@@ -156,7 +158,7 @@ def test_weighted_quantiles_match_numpy_for_equal_weights():
 def test_column_plot_draws_each_path_against_its_own_lid(tmp_path, monkeypatch):
     seen = []
     monkeypatch.setattr("lidmelt.forward._pt_figure.save_figure_atomically",
-                        lambda fig, path: seen.append(fig))
+                        lambda fig, path, **options: seen.append(fig))
     rows = []
     for lid in (0.0, 40.0, 70.0):
         col = melt_column(1450.0, lid)

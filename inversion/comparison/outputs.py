@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
-import io
 import json
 import math
 import os
@@ -59,12 +58,19 @@ from ..outputs.identity import (
 from ..fitting.sampler import assess_chain, read_chain
 
 __all__ = ["COMPARISON_FILES", "KIND", "RECORD", "SCENARIO_FILE", "Checkpoint",
-           "save_comparison"]
+           "comparison_files", "save_comparison"]
 
 RECORD = "comparison.json"
 SCENARIO_FILE = "scenario.json"
 #: Files at the top of a comparison folder (besides the scenario folders).
 COMPARISON_FILES = ("evidence.csv", "compare.png", "report.md", RECORD, MANIFEST)
+
+
+def comparison_files(figure_format: str = "png") -> tuple[str, ...]:
+    """`COMPARISON_FILES` with the figure in `figure_format` (``compare.pdf`` ...)."""
+    return tuple(f"compare.{figure_format}" if name == "compare.png" else name
+                 for name in COMPARISON_FILES)
+
 #: The manifest kind of a comparison folder (and of its checkpoint ``DIR.partial``).
 KIND = "comparison"
 _WHAT = "comparison folder"
@@ -74,11 +80,13 @@ _RUN_INFO = ("command_line", "sampling_seconds", "finished_utc", "resumed_from_s
 class Checkpoint:
     """The ``DIR.partial`` folder of a running comparison (see the module docstring)."""
 
-    def __init__(self, out: Path, partial: Path, found) -> None:
+    def __init__(self, out: Path, partial: Path, found, figure_format: str = "png") -> None:
         self.out, self.partial, self.found = out, partial, found
+        self.figure_format = figure_format
 
     @classmethod
-    def open(cls, out: Path, found, seed: int, *, resume: bool, force: bool) -> Checkpoint:
+    def open(cls, out: Path, found, seed: int, *, resume: bool, force: bool,
+             figure_format: str = "png") -> Checkpoint:
         """Check the folder rules before any work and create (or reopen) the checkpoint.
 
         Call it while holding `output_lock` for `out`.
@@ -95,7 +103,7 @@ class Checkpoint:
         out = output_path(out, what=_WHAT)
         partial = out.with_name(out.name + ".partial")
         inputs = _inputs(found)
-        record = _record(found, seed)
+        record = _record(found, seed, figure_format)
         check_output_folder(out, force=force, inputs=inputs, what=_WHAT, kind=KIND)
         remove_stale_temporaries(out)
         if resume:
@@ -106,10 +114,10 @@ class Checkpoint:
                                "stored here")
             remove_stale_temporaries(partial)
             with staged_folder(partial) as staged:
-                _write_top_manifest(staged, found.names)
+                _write_top_manifest(staged, found.names, figure_format)
                 _write_json(staged / RECORD, record)
                 written(partial, os.rename, staged, partial)
-        return cls(out, partial, found)
+        return cls(out, partial, found, figure_format)
 
     def discard(self) -> None:
         """Remove the checkpoint (a fresh run that stopped on bad input), by the rule."""
@@ -129,17 +137,18 @@ class Checkpoint:
 
     def store(self, result: ScenarioResult) -> None:
         """Write one finished scenario into the checkpoint, atomically."""
-        write_scenario(result, self.partial)
+        write_scenario(result, self.partial, figure_format=self.figure_format)
 
     def finish(self, comparison, *, force: bool) -> Path:
         """Add the summary files and move the checkpoint to the result folder."""
-        write_summary(comparison, self.partial)
+        write_summary(comparison, self.partial, figure_format=self.figure_format)
         written(self.out, publish_folder, self.partial, self.out, inputs=_inputs(self.found),
                 replace=force, kind=KIND, what=_WHAT)
         return self.out
 
 
-def save_comparison(comparison, directory: Path, *, force: bool = False) -> Path:
+def save_comparison(comparison, directory: Path, *, force: bool = False,
+                    figure_format: str = "png") -> Path:
     """Write a whole comparison folder at once (see `Comparison.save`)."""
     directory = output_path(directory, what=_WHAT)
     inputs = _inputs(comparison.scenarios)
@@ -147,20 +156,22 @@ def save_comparison(comparison, directory: Path, *, force: bool = False) -> Path
         check_output_folder(directory, force=force, inputs=inputs, what=_WHAT, kind=KIND)
         remove_stale_temporaries(directory)
         with staged_folder(directory) as staged:
-            _write_top_manifest(staged, comparison.scenarios.names)
-            _write_json(staged / RECORD, _record(comparison.scenarios, comparison.seed))
+            _write_top_manifest(staged, comparison.scenarios.names, figure_format)
+            _write_json(staged / RECORD, _record(comparison.scenarios, comparison.seed,
+                                                 figure_format))
             for result in comparison.results:
-                write_scenario(result, staged)
-            write_summary(comparison, staged)
+                write_scenario(result, staged, figure_format=figure_format)
+            write_summary(comparison, staged, figure_format=figure_format)
             written(directory, publish_folder, staged, directory, inputs=inputs,
                     replace=force, kind=KIND, what=_WHAT)
     return directory
 
 
-def write_scenario(result: ScenarioResult, parent: Path) -> Path:
+def write_scenario(result: ScenarioResult, parent: Path, *,
+                   figure_format: str = "png") -> Path:
     """``parent/<name>/``: the fit outputs and scenario.json, renamed into place at once."""
     target = parent / result.name
-    files = _scenario_files(result)
+    files = _scenario_files(result, figure_format)
     remove_stale_temporaries(target)
     with staged_folder(target) as staged:
         write_staged(staged, files, kind="comparison scenario", shown=target)
@@ -168,13 +179,13 @@ def write_scenario(result: ScenarioResult, parent: Path) -> Path:
     return target
 
 
-def _scenario_files(result: ScenarioResult) -> dict[str, bytes]:
+def _scenario_files(result: ScenarioResult, figure_format: str) -> dict[str, bytes]:
     """Name -> bytes of a scenario folder (built in memory before anything is written)."""
     files = {}
     if result.posterior is not None:
         from ..results.writers import _files as fit_files
 
-        files.update(fit_files(result.posterior))
+        files.update(fit_files(result.posterior, figure_format=figure_format))
     files[SCENARIO_FILE] = _json_bytes(result.to_dict())
     return files
 
@@ -200,28 +211,29 @@ def load_scenario(folder: Path, scenario) -> tuple[dict, object]:
     return data, posterior
 
 
-def write_summary(comparison, folder: Path) -> None:
-    """evidence.csv, compare.png, report.md and the final comparison.json."""
+def write_summary(comparison, folder: Path, *, figure_format: str = "png") -> None:
+    """evidence.csv, compare.png (or .pdf/.svg), report.md and the final comparison.json."""
+    from ...forward.figure_output import figure_bytes
     from .figure import comparison_figure
     from .report import render
 
     table = comparison.table().to_csv(index=False, float_format="%.6g", lineterminator="\n",
                                       na_rep="")
-    buffer = io.BytesIO()
-    comparison_figure(comparison).savefig(buffer, format="png", dpi=150,
-                                          metadata={"Software": None})
-    record = _record(comparison.scenarios, comparison.seed)
+    figure = figure_bytes(comparison_figure(comparison), figure_format, dpi=150)
+    record = _record(comparison.scenarios, comparison.seed, figure_format)
     record["finished_utc"] = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
     record["ranking"] = comparison.ranking()
     for name, data in (("evidence.csv", table.encode("utf-8")),
-                       ("compare.png", buffer.getvalue()),
-                       ("report.md", render(comparison).encode("utf-8")),
+                       (f"compare.{figure_format}", figure),
+                       ("report.md", render(comparison, figure_format=figure_format)
+                        .encode("utf-8")),
                        (RECORD, _json_bytes(record))):
         written(folder / name, write_bytes, folder / name, data)
 
 
-def _write_top_manifest(folder: Path, scenarios) -> None:
-    written(folder, write_manifest, folder, COMPARISON_FILES, kind=KIND, folders=scenarios)
+def _write_top_manifest(folder: Path, scenarios, figure_format: str = "png") -> None:
+    written(folder, write_manifest, folder, comparison_files(figure_format), kind=KIND,
+            folders=scenarios)
 
 
 # ---- provenance -------------------------------------------------------------------------
@@ -230,7 +242,7 @@ def _inputs(found) -> list[Path]:
     return study_inputs(found.base)
 
 
-def _record(found, seed: int) -> dict:
+def _record(found, seed: int, figure_format: str) -> dict:
     source = found.base.source
     return {
         "written_by": "lidmelt compare",
@@ -241,11 +253,12 @@ def _record(found, seed: int) -> dict:
         "seed": int(seed),
         "scenarios": list(found.names),
         "settings": dataclasses.asdict(found.settings),
-        "fingerprint": _fingerprint(found, seed),
+        "figure_format": figure_format,
+        "fingerprint": _fingerprint(found, seed, figure_format),
     }
 
 
-def _fingerprint(found, seed: int) -> dict[str, str]:
+def _fingerprint(found, seed: int, figure_format: str) -> dict[str, str]:
     """What a resumed comparison must share with the stored one (`check_same_run`)."""
     return with_version({
         **files_fingerprint(found.input_hashes, study_file=found.base.source),
@@ -253,6 +266,7 @@ def _fingerprint(found, seed: int) -> dict[str, str]:
         "the scenarios": digest(json.dumps(list(found.names))),
         "the comparison settings": digest(json.dumps(_plain(
             dataclasses.asdict(found.settings)), sort_keys=True)),
+        "the figure format": figure_format,
     })
 
 

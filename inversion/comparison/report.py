@@ -26,8 +26,8 @@ COMPARISON_CAUTION = (
 )
 
 
-def render(comparison) -> str:
-    """Markdown text of the comparison report."""
+def render(comparison, *, figure_format: str = "png") -> str:
+    """Markdown text of the comparison report (its figure named in `figure_format`)."""
     parts = [
         f"# {comparison.scenarios.base.name}: which scenario do the data favour?\n",
         _headline(comparison),
@@ -39,7 +39,7 @@ def render(comparison) -> str:
         _estimates_section(comparison),
         "## Caution\n",
         f"{CAUTION} {COMPARISON_CAUTION}\n",
-        _files_section(comparison),
+        _files_section(comparison, figure_format),
     ]
     return "\n".join(parts)
 
@@ -297,13 +297,14 @@ def _estimates_section(comparison) -> str:
     return "\n".join(lines)
 
 
-def _files_section(comparison) -> str:
+def _files_section(comparison, figure_format: str) -> str:
     names = ", ".join(f"{r.name}/" for r in comparison.results)
     return ("## Files\n\n"
             "evidence.csv (one row per scenario: evidence, Bayes factor, probability, LOO), "
-            "compare.png (posteriors, predictions, probabilities), comparison.json "
+            f"compare.{figure_format} (posteriors, predictions, probabilities), "
+            "comparison.json "
             "(inputs with their sha256, seed, settings), and one folder per scenario "
-            f"({names}) with what `lidmelt fit` writes plus scenario.json.\n")
+            f"({names}) with what `lidmelt fit` writes (posterior.nc included) plus scenario.json.\n")
 
 
 def _pct(p: float) -> str:

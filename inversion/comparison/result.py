@@ -178,7 +178,8 @@ class Comparison:
                     "to shrink the error.")
         return out
 
-    def save(self, directory: str | PathLike[str], *, force: bool = False) -> Path:
+    def save(self, directory: str | PathLike[str], *, force: bool = False,
+             figure_format: str = "png") -> Path:
         """Write evidence.csv, compare.png, report.md, comparison.json and one folder per
         scenario (what ``lidmelt fit`` writes, plus scenario.json) to `directory`,
         atomically.
@@ -189,14 +190,18 @@ class Comparison:
             Must not exist, unless `force` and it is a comparison folder lidmelt wrote.
         force : bool
             Replace such a folder.
+        figure_format : {"png", "pdf", "svg"}
+            File format of the figures (compare.png and each scenario's).
 
         Returns
         -------
         pathlib.Path
         """
+        from ..outputs.formats import checked_figure_format
         from .outputs import save_comparison
 
-        return save_comparison(self, Path(directory), force=force)
+        return save_comparison(self, Path(directory), force=force,
+                               figure_format=checked_figure_format(figure_format))
 
     def __repr__(self) -> str:
         best = self.ranking()[0]

@@ -12,6 +12,7 @@ import numpy as np
 
 from ..errors import InputError, NotConvergedWarning, PosteriorWarning
 from ..fitting.log_posterior import LogPosterior
+from ..outputs.formats import checked_figure_format
 from ..study.scenarios import ComparisonSettings, Scenario, ScenarioSet, read_scenarios
 from ..study.file import Study
 from ..study.seeds import check_seed, generator, integer_seed
@@ -37,6 +38,7 @@ def compare(
     force: bool = False,
     quiet: bool = True,
     progress: Callable[[str], None] | None = None,
+    figure_format: str = "png",
 ) -> Comparison:
     """Compare the scenarios of a study by their evidence and by PSIS-LOO.
 
@@ -66,6 +68,8 @@ def compare(
         Hide the samplers' progress bars.
     progress : callable, optional
         Called with a short message as each part of each scenario starts.
+    figure_format : {"png", "pdf", "svg"}
+        File format of compare.png and of every scenario's figures (with `out`).
 
     Returns
     -------
@@ -80,16 +84,17 @@ def compare(
 
     found = _scenario_set(study, settings)
     seed = check_seed(found.base.sampler.seed if seed is None else seed)
+    figure_format = checked_figure_format(figure_format)
     with table_progress(quiet=quiet):
         comparison = _compare(found, seed, out, resume=resume, force=force, quiet=quiet,
-                              progress=progress)
+                              progress=progress, figure_format=figure_format)
     for message in comparison.warnings():
         warnings.warn(ComparisonWarning(message), stacklevel=2)
     return comparison
 
 
 def _compare(found, seed: int, out, *, resume: bool, force: bool, quiet: bool,
-             progress) -> Comparison:
+             progress, figure_format: str) -> Comparison:
     """`compare` after its inputs are read: run every scenario, in `out` if given."""
     if out is None:
         if resume:
@@ -102,7 +107,8 @@ def _compare(found, seed: int, out, *, resume: bool, force: bool, quiet: bool,
 
         out = output_path(out, what="comparison folder")
         with output_lock(out):
-            checkpoint = Checkpoint.open(out, found, seed, resume=resume, force=force)
+            checkpoint = Checkpoint.open(out, found, seed, resume=resume, force=force,
+                                         figure_format=figure_format)
             try:
                 comparison = _run(found, seed, checkpoint, quiet=quiet, progress=progress)
             except InputError:

@@ -26,6 +26,7 @@ from ..outputs.folder import (
     output_path,
     remove_stale_temporaries,
 )
+from ..outputs.formats import checked_figure_format
 from ..outputs.identity import run_fingerprint, study_inputs
 from ..study.seeds import check_seed, generator, integer_seed
 from ..results.posterior import Posterior
@@ -47,6 +48,7 @@ def fit(
     quiet: bool = False,
     force: bool = False,
     provenance: Mapping | None = None,
+    figure_format: str = "png",
 ) -> Posterior:
     """Sample the posterior of a study's free parameters.
 
@@ -71,6 +73,8 @@ def fit(
         them (see `inversion.outputs.folder.check_replaceable`).
     provenance : mapping, optional
         Extra entries for run.json (the command line passes its arguments).
+    figure_format : {"png", "pdf", "svg"}
+        File format of the figures in `out` (checked before sampling starts).
 
     Returns
     -------
@@ -95,6 +99,7 @@ def fit(
         One per entry of `Posterior.warnings` about the posterior itself.
     """
     seed = check_seed(study.sampler.seed if seed is None else seed)
+    figure_format = checked_figure_format(figure_format)
     if not study.priors:  # a scenario may fix everything (inversion.study.scenarios)
         raise InputError("every parameter is fixed, so there is nothing to sample; give "
                          "at least one a prior", key="parameters")
@@ -117,7 +122,7 @@ def fit(
             raise
         posterior = _finish(study, seed, result, started, provenance)
         try:
-            posterior.save(out, force=force)
+            posterior.save(out, force=force, figure_format=figure_format)
         except WriteError as err:
             raise WriteError(err.path, err.cause, kept_steps=stored_steps(partial),
                              checkpoint=partial) from err.cause

@@ -25,7 +25,7 @@ from pathlib import Path
 from ..errors import OutputConflict
 
 __all__ = ["LIDMELT_VERSION", "check_same_run", "digest", "files_fingerprint",
-           "package_version", "run_fingerprint", "run_record", "study_inputs",
+           "lidmelt_version", "package_version", "run_fingerprint", "run_record", "study_inputs",
            "with_version"]
 
 #: The fingerprint label of the lidmelt version.
@@ -155,3 +155,8 @@ def run_record(posterior) -> dict:
         "platform": platform.platform(),
         "versions": {name: package_version(name) for name in _PACKAGES},
     }
+
+
+def lidmelt_version() -> str:
+    """The installed lidmelt version, or ``"0+unknown"`` when run from a source tree."""
+    return package_version("lidmelt") or "0+unknown"

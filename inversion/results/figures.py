@@ -17,7 +17,6 @@ it is safe to call from scripts and tests (Agg backend).
 
 from __future__ import annotations
 
-import io
 import textwrap
 
 import corner
@@ -30,6 +29,7 @@ from matplotlib.patches import Patch
 from ... import forward
 from ...forward import figure_style as style
 from ...forward import plotting
+from ...forward.figure_output import DOUBLE_COLUMN, figure_bytes, figure_name
 from ...forward.quantities import quantity, unit_text
 from ..study.priors import LogUniform
 from .report import decimals, estimate
@@ -41,15 +41,16 @@ _INCH_FOR_LABELS = 0.95  # room left and below the corner grid for tick and axis
 _INCH_FOR_CAPTION = 0.45  # below that: the caption naming each symbol
 
 
-def figure_files(posterior) -> dict[str, bytes]:
-    """The PNG bytes of corner.png, fit.png and pt.png of `posterior`, in that order."""
-    files = {}
-    for name, make in (("corner.png", corner_figure), ("fit.png", fit_figure),
-                       ("pt.png", pt_figure)):
-        buffer = io.BytesIO()
-        make(posterior).savefig(buffer, format="png", dpi=_DPI, metadata={"Software": None})
-        files[name] = buffer.getvalue()
-    return files
+def figure_files(posterior, *, figure_format: str = "png") -> dict[str, bytes]:
+    """The bytes of the corner, fit and P-T figures of `posterior`, in that order.
+
+    Keys are the file names (``corner.png`` ...; ``corner.pdf`` for ``"pdf"``); every
+    figure goes through `forward.figure_output.figure_bytes` (fonts embedded).
+    """
+    return {figure_name(stem, figure_format): figure_bytes(make(posterior), figure_format,
+                                                            dpi=_DPI)
+            for stem, make in (("corner", corner_figure), ("fit", fit_figure),
+                               ("pt", pt_figure))}
 
 
 # ---- corner -----------------------------------------------------------------------------
@@ -59,7 +60,8 @@ def corner_figure(posterior) -> Figure:
     names, units = posterior.names, posterior.logpost.units
     ndim = len(names)
     kept = posterior.chain[posterior.discard:: posterior.thin].reshape(-1, ndim)
-    size = max(5.0, 2.3 * ndim + _INCH_FOR_LABELS + 0.3)
+    # at most a journal page's width; fewer parameters, a smaller square
+    size = min(DOUBLE_COLUMN, max(5.0, 2.3 * ndim + _INCH_FOR_LABELS + 0.3))
     fig = Figure(figsize=(size, size + 0.5 + _INCH_FOR_CAPTION))
     # A log-uniform prior spans decades: bin and draw that parameter on a log axis.
     scales = ["log" if isinstance(prior, LogUniform) else "linear"
@@ -171,33 +173,34 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
 
     One row per `Panel` of each block (`ObservationSet.panels`); a block that observes
     pressures with temperatures (`ObservationSet.pt_observed`) also gets a P-T panel
-    beside its rows, with each sample's 1-sigma error ellipse.
+    below its rows, with each sample's 1-sigma error ellipse. The figure is a journal
+    page wide (`DOUBLE_COLUMN`), so every panel takes the full width.
     """
     column = posterior.logpost.column(posterior.predictive_draws(ndraws))
     blocks = list(posterior.study.observations)
     errors = _median_errors(posterior)
     panels = [block.panels() for block in blocks]
     joint = [_joint_data(block, column, e) for block, e in zip(blocks, errors, strict=True)]
-    rows = sum(len(p) for p in panels)
-    wide = any(j is not None for j in joint)
-    fig = Figure(figsize=(13.0 if wide else 10.0, 0.9 + 3.3 * rows), layout="constrained")
-    grid = fig.add_gridspec(rows, 5 if wide else 1)
+    heights = []
+    for block_panels, pt in zip(panels, joint, strict=True):
+        heights += [1.0] * len(block_panels) + ([1.6] if pt is not None else [])
+    fig = Figure(figsize=(DOUBLE_COLUMN, 1.0 + 3.0 * sum(heights)), layout="constrained")
+    grid = fig.add_gridspec(len(heights), 1, height_ratios=heights)
     first, placers = 0, []
     for block, block_panels, pt, block_errors in zip(blocks, panels, joint, errors,
                                                      strict=True):
-        for k, panel in enumerate(block_panels):
-            ax = fig.add_subplot(grid[first + k, :3] if pt is not None else grid[first + k, :])
-            _draw_fit_panel(ax, **_fit_panel(block, panel, column, block_errors,
-                                             model=posterior.study.model),
-                            legend_columns=2 if wide else 4)
+        for panel in block_panels:
+            _draw_fit_panel(fig.add_subplot(grid[first, 0]),
+                            **_fit_panel(block, panel, column, block_errors,
+                                         model=posterior.study.model),
+                            legend_columns=2)
+            first += 1
         if pt is not None:
-            span = slice(first, first + len(block_panels))
-            placers.append(_draw_joint_panel(fig.add_subplot(grid[span, 3:]), block, **pt))
-        first += len(block_panels)
-    fig.suptitle(textwrap.fill(f"{posterior.study.name}: observations against the "
-                               "posterior predictive distribution "
-                               f"({column.melt_thickness.shape[0]} draws)", width=110),
-                 fontsize=11)
+            placers.append(_draw_joint_panel(fig.add_subplot(grid[first, 0]), block, **pt))
+            first += 1
+    fig.suptitle(textwrap.fill(
+        f"{posterior.study.name}: observations against the posterior predictive "
+        f"distribution ({column.melt_thickness.shape[0]} draws)", width=80), fontsize=10)
     if placers:  # sample labels are placed once the layout is fixed (one extra render)
         FigureCanvasAgg(fig).draw()
         for place in placers:
@@ -283,13 +286,15 @@ def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, ba
     ax.set_xticks(x, names, rotation=30, ha="right", fontsize=8)
     ax.set_xlim(-0.7, len(names) - 0.3)
     ax.set_ylabel(ylabel)
-    ax.set_title(title, fontsize=9, loc="left")
     ax.grid(axis="y", alpha=0.3, lw=0.5)
     if invert:
         ax.invert_yaxis()
-    ax.legend(handles=handles, fontsize=7.5, loc="lower left", bbox_to_anchor=(0.0, 1.06),
-              ncols=legend_columns,
-              frameon=False)
+    for handle in handles:  # two legend columns in a journal page's width
+        handle.set_label(textwrap.fill(handle.get_label(), width=52))
+    # The panel title heads its legend, so the two never overlap.
+    ax.legend(handles=handles, fontsize=7, loc="lower left", bbox_to_anchor=(0.0, 1.0),
+              ncols=legend_columns, frameon=False, title=textwrap.fill(title, width=100),
+              title_fontsize=8.5, alignment="left", borderaxespad=0.2)
 
 
 def _joint_data(block, column, errors, *, per_draw: int = 40) -> dict | None:
@@ -410,7 +415,7 @@ def pt_figure(posterior, *, ndraws: int = 120, num: int = 48) -> Figure:
     path = column.path(num=num)
     at_map = _at_map(posterior)
     max_p = _max_pressure(column, study.observations)
-    fig = Figure(figsize=(7.8, 6.8), layout="constrained")
+    fig = Figure(figsize=(DOUBLE_COLUMN, 6.4), layout="constrained")
     ax = fig.subplots()
     plotting.draw_pt_diagram(ax, study.model.parameterization, water=at_map["water"],
                              solidus_offset=at_map["solidus_offset"], max_pressure=max_p,

@@ -161,11 +161,13 @@ class Posterior:
         return [f"NOT converged within the step cap ({steps} steps): {line}"
                 for line in self.result.assessment["shortfalls"]] + self.posterior_warnings
 
-    def save(self, directory: str | PathLike[str], *, force: bool = False) -> Path:
+    def save(self, directory: str | PathLike[str], *, force: bool = False,
+             figure_format: str = "png") -> Path:
         """Write every output file to `directory` atomically.
 
         Files: summary.csv, derived.csv, samples.csv, chain.h5, diagnostics.json,
-        run.json, corner.png, fit.png, pt.png, report.md and the manifest
+        run.json, posterior.nc (ArviZ InferenceData, `inversion.results.netcdf`),
+        corner.png, fit.png, pt.png (or .pdf/.svg), report.md and the manifest
         lidmelt-files.json. They are written to a temporary folder beside `directory`,
         which is then renamed into place.
 
@@ -176,15 +178,19 @@ class Posterior:
         force : bool
             Replace an existing folder, if lidmelt wrote it and it holds nothing else
             (see `inversion.outputs.folder.check_replaceable`).
+        figure_format : {"png", "pdf", "svg"}
+            File format of the figures (PDF fonts embedded; docs/figures.md).
 
         Returns
         -------
         pathlib.Path
             The result folder.
         """
+        from ..outputs.formats import checked_figure_format
         from .writers import save_posterior
 
-        return save_posterior(self, Path(directory), force=force)
+        return save_posterior(self, Path(directory), force=force,
+                              figure_format=checked_figure_format(figure_format))
 
     def predictive_draws(self, n: int = 200) -> np.ndarray:
         """A reproducible subset of `n` kept positions, shape (n, ndim), for plots."""

@@ -30,8 +30,8 @@ CAUTION = (
 _NEGATIVE = re.compile(r"(?<![\w.])-(?=\d)")
 
 
-def render(posterior) -> str:
-    """Markdown text of the report for `posterior`."""
+def render(posterior, *, figure_format: str = "png") -> str:
+    """Markdown text of the report for `posterior` (figures named in `figure_format`)."""
     study = posterior.study
     parts = [
         f"# {study.name}: posterior estimates of mantle temperature and lid thickness\n",
@@ -49,7 +49,7 @@ def render(posterior) -> str:
         _convergence_section(posterior),
         "## Caution\n",
         CAUTION + "\n",
-        _files_section(),
+        _files_section(figure_format),
     ]
     return _NEGATIVE.sub(MINUS, "\n".join(parts))
 
@@ -232,13 +232,16 @@ def _extreme(values: dict, pick) -> float | None:
     return pick(finite) if finite else None
 
 
-def _files_section() -> str:
+def _files_section(figure_format: str) -> str:
+    figures = ", ".join(f"{stem}.{figure_format}" for stem in ("corner", "fit", "pt"))
     return (
         "## Files\n\n"
         "summary.csv and derived.csv (these tables), samples.csv (posterior draws after "
-        "burn-in, thinned), chain.h5 (every step, emcee HDF5 layout), diagnostics.json, "
-        "run.json (versions, seed, study-file hash, command line, times), corner.png, "
-        "fit.png, pt.png, lidmelt-files.json (the files lidmelt wrote here).\n"
+        "burn-in, thinned), chain.h5 (every step, emcee HDF5 layout), posterior.nc (the "
+        "posterior, pointwise log-likelihood, observations and prior draws as an ArviZ "
+        "InferenceData file, NetCDF-4: `arviz.from_netcdf`), diagnostics.json, "
+        "run.json (versions, seed, study-file hash, command line, times), "
+        f"{figures}, lidmelt-files.json (the files lidmelt wrote here).\n"
     )
 
 

@@ -13,7 +13,8 @@ import json
 from pathlib import Path
 
 from ..._atomic import staged_folder
-from ..outputs.identity import run_record, study_inputs
+from ...forward.figure_output import DEFAULT_FIGURE_FORMAT, figure_name
+from ..outputs.identity import lidmelt_version, run_record, study_inputs
 from ..outputs.folder import (
     MANIFEST,
     check_output_folder,
@@ -27,26 +28,44 @@ from ..outputs.folder import (
 from ..fitting.log_posterior import DERIVED
 from ..fitting.sampler import chain_file_bytes
 
-__all__ = ["KIND", "OUTPUT_FILES", "save_posterior"]
+__all__ = ["FIGURES", "KIND", "OUTPUT_FILES", "output_files", "save_posterior"]
 
 #: The manifest kind of a fit's result folder.
 KIND = "fit result"
 
-#: Every file a saved result folder contains.
-OUTPUT_FILES = ("summary.csv", "derived.csv", "samples.csv", "chain.h5", "diagnostics.json",
-                "run.json", "corner.png", "fit.png", "pt.png", "report.md", MANIFEST)
+#: The figures of a result folder (file name stems; the suffix is the figure format).
+FIGURES = ("corner", "fit", "pt")
+
+
+def output_files(figure_format: str = DEFAULT_FIGURE_FORMAT) -> tuple[str, ...]:
+    """Every file a saved result folder contains, its figures in `figure_format`.
+
+    Examples
+    --------
+    >>> output_files("pdf")[6:9]
+    ('posterior.nc', 'corner.pdf', 'fit.pdf')
+    """
+    return ("summary.csv", "derived.csv", "samples.csv", "chain.h5", "diagnostics.json",
+            "run.json", "posterior.nc", *(figure_name(f, figure_format) for f in FIGURES),
+            "report.md", MANIFEST)
+
+
+#: Every file a saved result folder contains (figures as PNG, the default).
+OUTPUT_FILES = output_files()
 
 _CSV = {"index": False, "float_format": "%.6g", "lineterminator": "\n"}
 
 
-def save_posterior(posterior, directory: Path, *, force: bool = False) -> Path:
-    """Write all of `OUTPUT_FILES` for `posterior` to `directory` (see Posterior.save)."""
+def save_posterior(posterior, directory: Path, *, force: bool = False,
+                   figure_format: str = DEFAULT_FIGURE_FORMAT) -> Path:
+    """Write all of `output_files` for `posterior` to `directory` (see Posterior.save)."""
     directory = output_path(directory)
     inputs = study_inputs(posterior.study)
     with output_lock(directory):
         check_output_folder(directory, force=force, inputs=inputs, kind=KIND)
         remove_stale_temporaries(directory)
-        files = _files(posterior)  # built before the staging folder exists
+        # built before the staging folder exists
+        files = _files(posterior, figure_format=figure_format)
         with staged_folder(directory) as staged:
             write_staged(staged, files, kind=KIND, shown=directory)
             written(directory, publish_folder, staged, directory, inputs=inputs,
@@ -54,10 +73,11 @@ def save_posterior(posterior, directory: Path, *, force: bool = False) -> Path:
     return directory
 
 
-def _files(posterior) -> dict[str, bytes]:
+def _files(posterior, *, figure_format: str = DEFAULT_FIGURE_FORMAT) -> dict[str, bytes]:
     """Name -> bytes of every output file but the manifest, in writing order."""
     from . import figures
     from . import report
+    from .netcdf import NETCDF_FILE, inference_data_bytes
 
     return {
         "summary.csv": _csv(posterior.summary()),
@@ -66,8 +86,9 @@ def _files(posterior) -> dict[str, bytes]:
         "chain.h5": chain_file_bytes(posterior.result, meta=_chain_meta(posterior)),
         "diagnostics.json": _json(posterior.diagnostics),
         "run.json": _json(run_record(posterior)),
-        **figures.figure_files(posterior),
-        "report.md": report.render(posterior).encode("utf-8"),
+        NETCDF_FILE: inference_data_bytes(posterior, version=lidmelt_version()),
+        **figures.figure_files(posterior, figure_format=figure_format),
+        "report.md": report.render(posterior, figure_format=figure_format).encode("utf-8"),
     }
 
 

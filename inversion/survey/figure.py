@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 
 from ...forward import get_parameterization
+from ...forward.figure_output import DOUBLE_COLUMN
 from .job import TP
 
 __all__ = ["profile_figure"]
@@ -106,7 +107,7 @@ def profile_figure(result, plan):
     n = len(table)
     x, xlabel = _positions(result, table)
     failed = np.array([r["status"] != "ok" for r in result.records])
-    fig, axes = plt.subplots(3, 1, figsize=(11.5, 9.5), sharex=True, layout="constrained")
+    fig, axes = plt.subplots(3, 1, figsize=(DOUBLE_COLUMN, 8.0), sharex=True, layout="constrained")
     has_pressure = np.array([s.has_pressure for s in table.sites])
     _area_band(axes[0], result.area)
     _alone(axes[0], x, result.records)

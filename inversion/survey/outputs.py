@@ -11,7 +11,7 @@ Layout::
         chain.h5 / grid.npz with --keep-chains: the emcee chain or the posterior grid
     DIR/sites_summary.csv   one row per site and parameter
     DIR/area.csv            joint mode: the area-wide posterior
-    DIR/profile.png, DIR/report.md
+    DIR/profile.png, DIR/report.md   (profile.pdf/.svg with figure_format)
 
 Each folder carries lidmelt's manifest (`inversion.outputs.folder.MANIFEST`): the top one
 lists the files above and ``sites/``, whose manifest lists every site folder of the sites
@@ -64,7 +64,8 @@ KIND = "survey"
 #: What was run: the inputs' hashes, the settings and the resume fingerprint.
 RECORD = "survey.json"
 #: Files a survey writes at the top of its folder.
-TOP_FILES = (RECORD, "sites_summary.csv", "area.csv", "profile.png", "report.md")
+TOP_FILES = (RECORD, "sites_summary.csv", "area.csv", "profile.png", "profile.pdf",
+             "profile.svg", "report.md")  # the profile in whichever figure format
 #: Files a survey writes in each site's folder.
 SITE_FILES = ("site.json", "summary.csv", "likelihood.json", "tp_likelihood.csv",
               "chain.h5", "grid.npz")
@@ -231,10 +232,10 @@ class SurveyFolder:
         _write(self.path / name, text)
         return self.path / name
 
-    def write_figure(self, name: str, figure) -> Path:
-        buffer = io.BytesIO()
-        figure.savefig(buffer, format="png", dpi=130)
-        _write(self.path / name, buffer.getvalue())
+    def write_figure(self, name: str, figure, figure_format: str = "png") -> Path:
+        from ...forward.figure_output import figure_bytes
+
+        _write(self.path / name, figure_bytes(figure, figure_format, dpi=130))
         return self.path / name
 
 

@@ -19,18 +19,20 @@ _CAUTION = (
     "hazard or resource decisions.")
 
 
-def write_report(result, plan, folder, *, executor_name: str) -> None:
-    """Write profile.png and report.md into the survey folder."""
+def write_report(result, plan, folder, *, executor_name: str,
+                 figure_format: str = "png") -> None:
+    """Write profile.png (or .pdf/.svg) and report.md into the survey folder."""
     import matplotlib.pyplot as plt
 
     from .figure import profile_figure
 
     figure = profile_figure(result, plan)
     try:
-        folder.write_figure("profile.png", figure)
+        folder.write_figure(f"profile.{figure_format}", figure, figure_format)
     finally:
         plt.close(figure)
-    folder.write_text("report.md", render(result, plan, executor_name=executor_name))
+    folder.write_text("report.md", render(result, plan, executor_name=executor_name,
+                                          figure_format=figure_format))
 
 
 def _interval(row) -> str:
@@ -120,7 +122,7 @@ def _failed(result) -> list[str]:
     return lines
 
 
-def render(result, plan, *, executor_name: str) -> str:
+def render(result, plan, *, executor_name: str, figure_format: str = "png") -> str:
     """The text of report.md."""
     methods = sorted({r["method"] for r in result.records if r["method"]})
     mode = plan.mode + (" (hierarchical)" if plan.mode == "joint"
@@ -142,7 +144,8 @@ def render(result, plan, *, executor_name: str) -> str:
         "## Files", "",
         "sites_summary.csv (one row per site and parameter), "
         + ("area.csv (the area-wide posterior), " if result.area is not None else "")
-        + "profile.png (sites against position), sites/ (one folder per site).", "",
+        + f"profile.{figure_format} (sites against position), sites/ (one folder per "
+        "site).", "",
         "## Caution", "", _CAUTION, "",
     ]
     return "\n".join(text)

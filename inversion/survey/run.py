@@ -21,6 +21,7 @@ from tqdm.auto import tqdm
 
 from ..errors import InputError
 from ..outputs.folder import output_lock, output_path
+from ..outputs.formats import checked_figure_format
 from ..fitting.log_posterior import UNITS
 from ..observations import THICKNESS_OF
 from ..study.seeds import check_seed, integer_seed
@@ -77,7 +78,7 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
            out: str | PathLike[str], mode: str = "independent", workers: int | None = None,
            scheduler: str | None = None, seed: int | None = None, resume: bool = False,
            force: bool = False, quiet: bool = False, keep_chains: bool = False,
-           ) -> SurveyResult:
+           figure_format: str = "png") -> SurveyResult:
     """Run a survey: every site of `sites` under the model and priors of `study`.
 
     Parameters
@@ -101,11 +102,14 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     resume, force, quiet, keep_chains : bool
         Continue the survey in `out`; replace a survey folder; no progress bar; keep each
         site's chain or grid.
+    figure_format : {"png", "pdf", "svg"}
+        File format of the profile figure.
 
     Returns
     -------
     SurveyResult
     """
+    figure_format = checked_figure_format(figure_format)
     plan = _Plan.build(study, sites, mode=mode, seed=seed, keep_chains=keep_chains)
     target = output_path(out, what="survey folder")
     _prepare_table(plan.study, quiet=quiet)  # a long first build shows its progress here
@@ -116,7 +120,8 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
                                        inputs=[Path(study), Path(sites)],
                                        site_names=[s.name for s in plan.table.sites])
             try:
-                return _run(plan, folder, executor, mode=mode, quiet=quiet)
+                return _run(plan, folder, executor, mode=mode, quiet=quiet,
+                            figure_format=figure_format)
             except InputError:
                 if not resume:  # bad input found late: leave no half folder behind
                     folder.discard()
@@ -126,7 +131,7 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
 
 
 def _run(plan: _Plan, folder: SurveyFolder, executor, *, mode: str,
-         quiet: bool) -> SurveyResult:
+         quiet: bool, figure_format: str = "png") -> SurveyResult:
     """Run the sites, combine them (joint mode), write the tables and the report."""
     with _sigterm_as_interrupt():
         if mode == "independent":
@@ -142,7 +147,8 @@ def _run(plan: _Plan, folder: SurveyFolder, executor, *, mode: str,
     if area_table is not None:
         folder.write_table("area.csv", area_table)
     result = SurveyResult(folder.path, summary, area_table, records)
-    write_report(result, plan, folder, executor_name=executor.where)
+    write_report(result, plan, folder, executor_name=executor.where,
+                 figure_format=figure_format)
     return result
 
 
