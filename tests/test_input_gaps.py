@@ -80,7 +80,7 @@ def test_a_bad_seed_names_the_option_and_the_range(tmp_path, capsys, seed):
 def test_plot_into_a_missing_folder_is_refused_and_not_created(tmp_path, capsys):
     target = tmp_path / "figures" / "pt.png"
     err = _refused(capsys, "column", "--plot", str(target))
-    assert "the folder for the figure does not exist" in err
+    assert "the folder for the --plot file does not exist" in err
     assert not (tmp_path / "figures").exists()
 
 

@@ -137,10 +137,12 @@ def test_save_refuses_existing_folder_unless_forced(quick, tmp_path):
     target.mkdir()
     with pytest.raises(inversion.InputError, match="already exists; choose another folder"):
         quick.save(target)
-    with pytest.raises(inversion.InputError, match="not written by lidmelt"):
-        quick.save(target, force=True)  # an empty folder of the user's is not ours either
-    target.rmdir()
-    quick.save(target)
+    quick.save(target, force=True)  # an empty folder: replacing it removes nothing of theirs
+    (target / "notes.txt").write_text("mine")
+    with pytest.raises(inversion.InputError, match="did not write"):
+        quick.save(target, force=True)  # a file of the user's: never
+    (target / "notes.txt").unlink()
+    quick.save(target, force=True)
     quick.save(target, force=True)
     assert pd.read_csv(target / "summary.csv").shape[0] == len(quick.names)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["result"]
@@ -177,7 +179,7 @@ def test_report_states_every_sampler_setting_used(quick):
     # README's defaults are max_steps 20000 and seed 1.
     for item in ("`walkers` = 16;", "`seed` = 1 (default);", "`ess_target` = 300;",
                  "`tau_multiple` = 20;", "`max_steps` = 20000 (default);",
-                 "`check_interval` = 50;", '`start` = "map".'):
+                 "`check_interval` = 50;", '`start` = "map"'):
         assert item in section, (item, section)
 
 

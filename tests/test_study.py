@@ -348,7 +348,7 @@ def test_bad_table_row_is_named_through_the_study(make_study):
     (path.parent / "crust.csv").write_text(table)
     with pytest.raises(InputError,
                        match=r"crust.csv, line 3, column 'thickness_sigma_km': "
-                             r"value -0.3 must be > 0 km"):
+                             r"value -0.3 must be >= 0.001 km"):
         Study.from_file(path)
 
 
