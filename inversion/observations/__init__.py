@@ -14,6 +14,7 @@ from .pressure import (
     TEMPERATURE_RANGE,
     MeltingPressure,
 )
+from .rare_earths import RATIOS, RareEarthRatios
 from .tables import ColumnRule, Table, read_table, validate_frame
 
 __all__ = [
@@ -22,6 +23,8 @@ __all__ = [
     "KINDS",
     "NO_MELT_SLOPE",
     "PRESSURE_RANGE",
+    "RATIOS",
+    "RareEarthRatios",
     "TEMPERATURE_RANGE",
     "ColumnRule",
     "CrustalThickness",
@@ -39,4 +42,5 @@ __all__ = [
 KINDS: dict[str, type[ObservationSet]] = {
     CrustalThickness.kind: CrustalThickness,
     MeltingPressure.kind: MeltingPressure,
+    RareEarthRatios.kind: RareEarthRatios,
 }
