@@ -88,3 +88,29 @@ def test_fast_route_matches_the_interval_route(region, tolerance):
     np.testing.assert_allclose(fast.melt, fine.melt, rtol=tolerance)
     m = fast.melt_mass[..., None]  # mass balance holds exactly in the fast route too
     np.testing.assert_allclose(m * fast.melt + (1 - m) * fast.residue, fast.source, rtol=1e-9)
+
+
+def test_recovery_with_rare_earths_and_crust():
+    # simulate crust + REE ratios from a known Tp and lid, fit, and the 95 % intervals
+    # cover the truth (cheap sampler settings as in tests/test_recovery.py)
+    from lidmelt import demo_data, inversion
+    from lidmelt.inversion.observations import CrustalThickness
+
+    study = inversion.Study.from_file(demo_data.study_path()).with_sampler(
+        ess_target=400, tau_multiple=40, walkers=32, check_interval=100)
+    crust = [b for b in study.observations if isinstance(b, CrustalThickness)]
+    ree = RareEarthRatios.from_frame(pd.DataFrame({
+        "sample": [f"s{k}" for k in range(6)], "la_yb_cn": np.full(6, 1.0),
+        "la_yb_sigma_cn": np.full(6, 0.1), "sm_yb_cn": np.full(6, 1.0),
+        "sm_yb_sigma_cn": np.full(6, 0.1)}), model_error=0.05)
+    truth = (1400.0, 46.0, 0.0)
+    base = study.with_observations([*crust, ree])
+    column = inversion.LogPosterior(base).column(np.array([truth]))
+    rng = np.random.default_rng(77)
+    simulated = base.with_observations(b.simulate(column, rng) for b in base.observations)
+    posterior = inversion.fit(simulated, seed=3, quiet=True)
+    summary = posterior.summary().set_index("parameter")
+    for name, value in zip(("potential_temperature", "lithosphere_thickness"), truth[:2],
+                           strict=True):
+        row = summary.loc[name]
+        assert row["q2.5"] <= value <= row["q97.5"], (name, row.to_dict())
