@@ -44,7 +44,7 @@ __all__ = ["fast_trace_elements"]
 
 _CUTS = 2  # X read at the transition's ends and middle: quadratic in P across it
 _TRANSITION_NODES = 3  # Gauss nodes per half of the transition
-_TRIANGLE_NODES = 3  # Gauss nodes in each of the triangle's spinel and garnet ranges
+_TRIANGLE_NODES = 3  # Gauss nodes in the triangle's spinel range
 _GARNET_NODES = 6  # Gauss nodes in the triangle's garnet range
 
 
