@@ -12,6 +12,7 @@ from .melting import (
     melt_along_path,
     pooled_trace_elements,
 )
+from .fast import fast_trace_elements
 from .tables import ELEMENTS, MINERALS, SOURCES, chondrite, source_composition
 
 __all__ = [
@@ -22,6 +23,7 @@ __all__ = [
     "SOURCES",
     "TraceElements",
     "chondrite",
+    "fast_trace_elements",
     "melt_along_path",
     "pooled_trace_elements",
     "source_composition",

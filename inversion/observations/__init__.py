@@ -15,6 +15,7 @@ from .pressure import (
     TEMPERATURE_RANGE,
     MeltingPressure,
 )
+from .rare_earths import RATIOS, RareEarthRatios
 from .tables import ColumnRule, Table, read_table, validate_frame
 
 __all__ = [
@@ -24,6 +25,8 @@ __all__ = [
     "KINDS",
     "NO_MELT_SLOPE",
     "PRESSURE_RANGE",
+    "RATIOS",
+    "RareEarthRatios",
     "TEMPERATURE_RANGE",
     "ColumnRule",
     "CrustalThickness",
@@ -42,4 +45,5 @@ KINDS: dict[str, type[ObservationSet]] = {
     CrustalThickness.kind: CrustalThickness,
     MeltingPressure.kind: MeltingPressure,
     BasaltAnalyses.kind: BasaltAnalyses,
+    RareEarthRatios.kind: RareEarthRatios,
 }
