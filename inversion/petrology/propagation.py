@@ -224,11 +224,9 @@ def estimate_monte_carlo(analysis: ArrayLike, *, fe3_fraction: ArrayLike,
     -------
     PTEstimate
     """
-    method = _method(method)
-    unc = Uncertainties() if uncertainties is None else uncertainties
-    analysis, base = _central(analysis, h2o, fe3_fraction, target_fo)
+    method, base, sigma = _inputs(analysis, h2o, fe3_fraction, target_fo, method,
+                                  uncertainties)
     n = len(base)
-    sigma = unc.input_sigma(analysis, n)
     x = base[:, None, :] + sigma[:, None, :] * rng.standard_normal((n, n_draws, 14))
     if np.ndim(fe3_fraction) == 2:
         x[..., 11] = np.broadcast_to(fe3_fraction, (n, n_draws))
@@ -249,6 +247,13 @@ def estimate_monte_carlo(analysis: ArrayLike, *, fe3_fraction: ArrayLike,
     reason = _run(base, **opts)[3]
     return _finish(mean_p, mean_t, cov, frac_mean, count / n_draws, reason, method,
                    "monte_carlo", calibration)
+
+
+def _inputs(analysis, h2o, fe3_fraction, target_fo, method, uncertainties):
+    """The method, the central inputs (n, 14) and their 1-sigma (n, 14)."""
+    unc = Uncertainties() if uncertainties is None else uncertainties
+    analysis, base = _central(analysis, h2o, fe3_fraction, target_fo)
+    return _method(method), base, unc.input_sigma(analysis, len(base))
 
 
 def estimate_linearised(analysis: ArrayLike, *, fe3_fraction: ArrayLike,
@@ -280,11 +285,9 @@ def estimate_linearised(analysis: ArrayLike, *, fe3_fraction: ArrayLike,
     -------
     PTEstimate
     """
-    method = _method(method)
-    unc = Uncertainties() if uncertainties is None else uncertainties
-    analysis, base = _central(analysis, h2o, fe3_fraction, target_fo)
+    method, base, sigma = _inputs(analysis, h2o, fe3_fraction, target_fo, method,
+                                  uncertainties)
     n = len(base)
-    sigma = unc.input_sigma(analysis, n)
     h = relative_step * sigma                                   # (n, 14)
     eye = np.eye(14)
     x = np.concatenate([base[:, None, :], base[:, None, :] + h[:, None, :] * eye,
