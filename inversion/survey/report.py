@@ -4,8 +4,12 @@ from __future__ import annotations
 
 import numpy as np
 
+from ...forward import get_parameterization
+from ...forward.quantities import format_signed, quantity, unit_text
 from ..observations.crust import thickness_reading
-from .job import TP
+from ..results.report import decimals
+from ..study.priors import Prior
+from .job import MISFIT_SIGMA, TP
 
 __all__ = ["render", "write_report"]
 
@@ -36,10 +40,13 @@ def write_report(result, plan, folder, *, executor_name: str,
 
 
 def _interval(row) -> str:
+    """Median and intervals at the fit report's precision (a tenth of the 68 % spread)."""
     if row["median"] is None or not np.isfinite(float(row["median"])):
         return "—"
-    return (f"{row['median']:.4g} (68 %: {row['q16']:.4g}–{row['q84']:.4g}; "
-            f"95 %: {row['q2.5']:.4g}–{row['q97.5']:.4g})")
+    d = decimals((float(row["q84"]) - float(row["q16"])) / 2.0)
+    f = lambda v: format_signed(float(v), d)  # noqa: E731
+    return (f"{f(row['median'])} (68 %: {f(row['q16'])} to {f(row['q84'])}; "
+            f"95 %: {f(row['q2.5'])} to {f(row['q97.5'])})")
 
 
 def _area_section(result, plan) -> list[str]:
@@ -122,6 +129,52 @@ def _failed(result) -> list[str]:
     return lines
 
 
+def _setting(value, unit: str) -> str:
+    """A fixed value with its unit, or a prior's description."""
+    if isinstance(value, Prior):
+        return f"free, {value.describe(unit=unit_text(unit))}"
+    return f"{format_signed(float(value))} {unit_text(unit)}".strip()
+
+
+def _methods_section(plan) -> list[str]:
+    """What every site was fitted with: model, priors, fixed values, comparison choices."""
+    model, settings, study = plan.study.model, plan.settings, plan.study
+    lines = [f"- Melting model: {get_parameterization(model.parameterization).title}, "
+             f"melting region '{model.melting_region}', crust density "
+             f"{model.crust_density:g} kg/m³, mantle density {model.mantle_density:g} kg/m³."]
+    for name, prior in study.priors.items():
+        lines.append(f"- {quantity(name).title} ({name}): prior "
+                     f"{prior.describe(unit=quantity(name).unit_text)}.")
+    for name, value in study.fixed.items():
+        lines.append(f"- {quantity(name).title} ({name}): fixed at "
+                     f"{_setting(value, quantity(name).unit)}.")
+    lines.append(f"- Model errors: crust {_setting(settings.crust_model_error, 'km')}; "
+                 f"pressure {_setting(settings.pressure_model_error, 'GPa')}; "
+                 f"temperature {_setting(settings.temperature_model_error, 'degC')}.")
+    where = settings.equilibration or "no melting pressures in the sites file"
+    lines.append(f"- Melting pressures equilibrated: {where}"
+                 + (f" ({settings.path_points} path points)." if where == "path" else "."))
+    return lines
+
+
+def _fit_section(result) -> list[str]:
+    """Goodness of fit: each site's thickness against what its own posterior predicts."""
+    z = [(r["site"], r["thickness_z"]) for r in result.records
+         if r.get("thickness_z") is not None and np.isfinite(r["thickness_z"])]
+    if not z:
+        return ["No site has a posterior predictive check of its thickness."]
+    far = [(site, v) for site, v in z if abs(v) > 2.0]
+    worst = max(z, key=lambda item: abs(item[1]))
+    lines = [f"Each site's measured thickness is compared with what its own posterior "
+             f"predicts, in predictive standard deviations (z). {len(z) - len(far)} of "
+             f"{len(z)} sites lie within 2 (about {0.95 * len(z):.0f} would by chance); the "
+             f"largest |z| is {abs(worst[1]):.1f} ({worst[0]}). A site beyond "
+             f"{MISFIT_SIGMA:g} fails as one the model cannot fit."]
+    if far:
+        lines += ["", *[f"- **{site}**: z = {format_signed(v, 1)}" for site, v in far]]
+    return lines
+
+
 def render(result, plan, *, executor_name: str, figure_format: str = "png") -> str:
     """The text of report.md."""
     methods = sorted({r["method"] for r in result.records if r["method"]})
@@ -137,9 +190,11 @@ def render(result, plan, *, executor_name: str, figure_format: str = "png") -> s
         "mcmc = emcee); each site's method is in sites_summary.csv.", "",
         thickness_reading(plan.settings.thickness_of, plan.study.model.crust_density,
                           plan.study.model.mantle_density), "",
+        "## Model, priors and comparison choices", "", *_methods_section(plan), "",
         "## Area-wide answer", "", *_area_section(result, plan), "",
         *_tension_section(result, plan),
         "## Sites", "", *_site_table(result), "",
+        "## Goodness of fit", "", *_fit_section(result), "",
         "## Failed sites", "", *_failed(result), "",
         "## Files", "",
         "sites_summary.csv (one row per site and parameter), "
