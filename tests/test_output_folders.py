@@ -221,7 +221,7 @@ def test_a_running_survey_keeps_its_folder(survey_inputs, tmp_path, capsys):
 
 def test_bad_options_of_a_survey_leave_no_folder(survey_inputs, tmp_path, capsys):
     out = tmp_path / "out"
-    assert "--workers 0 must be at least 1" in _refused(
+    assert "workers = 0 must be at least 1" in _refused(
         capsys, *_survey(*survey_inputs, out)[:-2], "--workers", "0")
     with pytest.raises(SystemExit) as stop:  # the seed is checked while parsing
         main(list(_survey(*survey_inputs, out, "--seed", "-1")))

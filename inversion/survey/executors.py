@@ -49,7 +49,7 @@ class LocalExecutor:
 
     def __init__(self, workers: int) -> None:
         if workers < 1:
-            raise InputError(f"--workers {workers} must be at least 1", key="workers")
+            raise InputError(f"workers = {workers} must be at least 1", key="workers")
         self.workers = int(workers)
         self.where = f"{self.workers} local process{'es' if self.workers > 1 else ''}"
         self._executor = None
@@ -102,13 +102,13 @@ class DaskExecutor:
         try:
             from dask.distributed import Client
         except ImportError:
-            raise InputError("--scheduler needs Dask: pip install 'lidmelt[cluster]'",
+            raise InputError("a Dask scheduler needs Dask installed: pip install 'lidmelt[cluster]'",
                              key="scheduler") from None
         address = check_scheduler(address)
         try:
             self.client = Client(address, timeout="10s", set_as_default=False)
         except Exception as err:  # anything the handshake raises becomes one line
-            raise InputError(f"--scheduler {address}: the Dask client could not connect "
+            raise InputError(f"scheduler {address}: the Dask client could not connect "
                              f"({type(err).__name__}: {err}); {_EXPECTED}",
                              key="scheduler") from None
         self.address = address
@@ -168,23 +168,23 @@ def check_scheduler(address: str, *, timeout: float = CONNECT_TIMEOUT) -> str:
     host = host.strip("[]")
     if scheme not in ("tcp", "tls") or not host or not port_text.isdigit() \
             or not 0 < int(port_text) < 65536:
-        raise InputError(f"--scheduler {text!r} is not a scheduler address; {_EXPECTED}",
+        raise InputError(f"scheduler {text!r} is not a scheduler address; {_EXPECTED}",
                          key="scheduler")
     full = f"{scheme}://{rest}"
     try:
         connection = socket.create_connection((host, int(port_text)), timeout=timeout)
     except socket.gaierror:
-        raise InputError(f"--scheduler {full}: unknown host {host!r}; {_EXPECTED}",
+        raise InputError(f"scheduler {full}: unknown host {host!r}; {_EXPECTED}",
                          key="scheduler") from None
     except (TimeoutError, socket.timeout):
-        raise InputError(f"--scheduler {full}: no answer within {timeout:g} s; {_EXPECTED}",
+        raise InputError(f"scheduler {full}: no answer within {timeout:g} s; {_EXPECTED}",
                          key="scheduler") from None
     except OSError as err:
-        raise InputError(f"--scheduler {full}: cannot connect ({err.strerror or err}); "
+        raise InputError(f"scheduler {full}: cannot connect ({err.strerror or err}); "
                          f"{_EXPECTED}", key="scheduler") from None
     with connection:
         if scheme == "tcp" and not _greets_like_dask(connection):
-            raise InputError(f"--scheduler {full}: something listens there but it is not "
+            raise InputError(f"scheduler {full}: something listens there but it is not "
                              "a Dask scheduler (it did not send the Dask handshake; a web "
                              f"dashboard port?); {_EXPECTED}", key="scheduler")
     return full
@@ -270,7 +270,7 @@ def make_executor(workers: int | None = None, scheduler: str | None = None):
     `workers` defaults to the number of cores.
     """
     if scheduler is not None and workers is not None:
-        raise InputError("give --workers or --scheduler, not both", key="scheduler")
+        raise InputError("give workers or scheduler, not both", key="scheduler")
     if scheduler is not None:
         return DaskExecutor(scheduler)
     return LocalExecutor((os.cpu_count() or 1) if workers is None else workers)

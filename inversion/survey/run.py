@@ -241,11 +241,11 @@ def _check_combination(study, settings, table, mode: str, study_path: Path) -> N
         if len(free) > GRID_MAX_FREE:
             raise InputError(f"joint mode integrates each site's own parameters on a grid, "
                              f"so at most {GRID_MAX_FREE} free parameters ({len(free)} "
-                             f"given: {', '.join(free)}); fix some or use --mode "
-                             "independent", file=study_path, key="parameters")
+                             f"given: {', '.join(free)}); fix some or use the independent "
+                             "mode", file=study_path, key="parameters")
     elif settings.hierarchical:
-        raise InputError("tp_spread is used by --mode joint only; remove it or use --mode "
-                         "joint", file=study_path, key=f"survey.{SPREAD}")
+        raise InputError("tp_spread is used by the joint mode only; remove it or use "
+                         "the joint mode", file=study_path, key=f"survey.{SPREAD}")
 
 
 def _run_phase(plan: _Plan, folder: SurveyFolder, executor, kind: str, phase: str, *,
