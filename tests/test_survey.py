@@ -436,3 +436,36 @@ def test_workers_end_when_the_survey_is_killed(inputs, tmp_path):
         for pid in _session_processes(child.pid):  # never leave them, even on failure
             os.kill(pid, signal.SIGKILL)
     assert not left, f"workers outlived the survey: {left}"
+
+
+def test_a_study_object_gives_the_survey_of_its_file(inputs, tmp_path):
+    import lidmelt
+
+    _, study_path, sites = inputs
+    study = lidmelt.Study.from_file(study_path)  # a [survey] table is read and kept
+    assert study.survey == {"equilibration": "top"}
+    by_path = lidmelt.survey(study_path, sites, out=tmp_path / "path", workers=1,
+                             quiet=True)
+    by_object = lidmelt.survey(study, sites, out=tmp_path / "object", workers=1,
+                               quiet=True)
+    assert _summary_text(tmp_path / "path") == _summary_text(tmp_path / "object")
+    assert [r["rows"] for r in by_path.records] == [r["rows"] for r in by_object.records]
+    record = json.loads((tmp_path / "object" / "survey.json").read_text())
+    assert record["fingerprint"] == json.loads(
+        (tmp_path / "path" / "survey.json").read_text())["fingerprint"]
+    # the object resumes the folder of the path call (same run), a changed study not
+    lidmelt.survey(study, sites, out=tmp_path / "path", workers=1, quiet=True,
+                   resume=True)
+    hotter = study.with_overrides({"water": 0.0})
+    with pytest.raises(InputError, match="changed"):
+        lidmelt.survey(hotter, sites, out=tmp_path / "path", workers=1, quiet=True,
+                       resume=True)
+
+
+def test_study_from_file_names_a_bad_survey_key_with_its_line(tmp_path):
+    from lidmelt.inversion import Study
+
+    path = write_study(tmp_path, extra_survey="grid_pints = 500")
+    with pytest.raises(InputError, match="grid_pints") as caught:
+        Study.from_file(path)
+    assert caught.value.line == 14
