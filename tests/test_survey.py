@@ -469,3 +469,33 @@ def test_study_from_file_names_a_bad_survey_key_with_its_line(tmp_path):
     with pytest.raises(InputError, match="grid_pints") as caught:
         Study.from_file(path)
     assert caught.value.line == 14
+
+
+_SCRIPT = """\
+import lidmelt
+
+{call}
+"""
+
+
+@pytest.mark.parametrize("guarded", [False, True])
+def test_a_script_without_a_main_guard_gets_one_clear_line(inputs, tmp_path, guarded):
+    _, study, sites = inputs
+    call = (f"lidmelt.survey({str(study)!r}, {str(sites)!r}, out={str(tmp_path / 'out')!r}, "
+            "workers=2, quiet=True)")
+    if guarded:
+        call = 'if __name__ == "__main__":\n    ' + call
+    script = tmp_path / "run_area.py"
+    script.write_text(_SCRIPT.format(call=call), encoding="utf-8")
+    done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                          timeout=300, env={**os.environ, "PYTHONPATH": os.pathsep.join(
+                              p for p in sys.path if p)})
+    if guarded:
+        assert done.returncode == 0, done.stderr
+        assert (tmp_path / "out" / "sites_summary.csv").is_file()
+        return
+    assert done.returncode != 0
+    last = done.stderr.strip().splitlines()[-1]
+    assert "run_area.py, line 3" in last and "if __name__ ==" in last and "workers=1" in last
+    assert "BrokenProcessPool" not in done.stderr and done.stderr.count("main guard") == 1
+    assert not (tmp_path / "out").exists()  # refused before any folder was made

@@ -314,11 +314,18 @@ def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
     """A worker-level exception (a lost worker, a broken pool) as a failed record."""
     from .job import SiteOutcome, _base_record
 
+    from concurrent.futures.process import BrokenProcessPool
+
+    from .executors import GUARD_ADVICE
+
     if isinstance(outcome, SiteOutcome):
         return outcome
     record = _base_record(plan.task(kind, k))
     record.update(status=f"failed: the worker running this site failed: "
                   f"{type(outcome).__name__}: {outcome}", seconds=None)
+    if isinstance(outcome, BrokenProcessPool):  # most often a script without a guard
+        record["status"] = ("failed: the local worker processes stopped (from a script "
+                            f"that is the usual cause: {GUARD_ADVICE})")
     return SiteOutcome(record)
 
 
