@@ -499,3 +499,18 @@ def test_a_script_without_a_main_guard_gets_one_clear_line(inputs, tmp_path, gua
     assert "run_area.py, line 3" in last and "if __name__ ==" in last and "workers=1" in last
     assert "BrokenProcessPool" not in done.stderr and done.stderr.count("main guard") == 1
     assert not (tmp_path / "out").exists()  # refused before any folder was made
+
+
+def test_resume_runs_again_the_sites_whose_worker_failed(inputs, tmp_path):
+    _, study, sites = inputs
+    out = tmp_path / "run"
+    first = survey(study, sites, out=out, workers=1, quiet=True)
+    record_path = next((out / "sites").glob("0002-*/site.json"))
+    record = json.loads(record_path.read_text())
+    # what a broken pool leaves behind (run._as_outcome): no answer about the site
+    record.update(status="failed: the local worker processes stopped", worker_failed=True,
+                  rows=[{**row, "median": None} for row in record["rows"]])
+    record_path.write_text(json.dumps(record), encoding="utf-8")
+    resumed = survey(study, sites, out=out, workers=1, quiet=True, resume=True)
+    assert not resumed.failed
+    assert [r["rows"] for r in resumed.records] == [r["rows"] for r in first.records]

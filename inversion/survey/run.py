@@ -113,6 +113,21 @@ def survey(study: Study | str | PathLike[str], sites: str | PathLike[str], *,
     Returns
     -------
     SurveyResult
+
+    Raises
+    ------
+    InputError
+        Bad input (file, line, key), an existing folder without `resume`/`force`, and a
+        call from a script outside its ``if __name__ == "__main__":`` guard with more
+        than one local worker (`executors.check_main_guard`).
+
+    Notes
+    -----
+    Local workers start by importing the calling script again, so a script (also one a
+    batch scheduler runs) calls `survey` under ``if __name__ == "__main__":`` or passes
+    ``workers=1``. A folder left by an interrupted or failed run is continued with
+    ``resume=True`` (finished sites are kept; sites whose worker process failed run
+    again) or replaced with ``force=True``.
     """
     figure_format = checked_figure_format(figure_format)
     plan = _Plan.build(study, sites, mode=mode, seed=seed, keep_chains=keep_chains)
@@ -300,7 +315,12 @@ _RECORD_KEYS = ("site", "index", "line", "position_km", "seed", "phase", "method
 
 
 def _usable(record: dict | None, area_key: str | None) -> bool:
+    """Whether a stored record is kept on resume: complete, made from the same sites
+    (`area_key`), and not failed by its worker (a lost process or a broken pool is no
+    answer about the site, so the site runs again)."""
     if not isinstance(record, dict) or any(key not in record for key in _RECORD_KEYS):
+        return False
+    if record.get("worker_failed"):
         return False
     if record["phase"] != "likelihood" and not isinstance(record.get("rows"), list):
         return False
@@ -322,7 +342,7 @@ def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
         return outcome
     record = _base_record(plan.task(kind, k))
     record.update(status=f"failed: the worker running this site failed: "
-                  f"{type(outcome).__name__}: {outcome}", seconds=None)
+                  f"{type(outcome).__name__}: {outcome}", seconds=None, worker_failed=True)
     if isinstance(outcome, BrokenProcessPool):  # most often a script without a guard
         record["status"] = ("failed: the local worker processes stopped (from a script "
                             f"that is the usual cause: {GUARD_ADVICE})")
