@@ -514,3 +514,43 @@ def test_resume_runs_again_the_sites_whose_worker_failed(inputs, tmp_path):
     resumed = survey(study, sites, out=out, workers=1, quiet=True, resume=True)
     assert not resumed.failed
     assert [r["rows"] for r in resumed.records] == [r["rows"] for r in first.records]
+
+
+def _median_agrees(draws: np.ndarray, median: float) -> bool:
+    # the large-sample standard error of a sample median is sqrt(pi/2) sd / sqrt(n)
+    # (common practice); 4 of them make a false failure about 1 in 16 000
+    n = draws.size
+    return abs(float(np.median(draws)) - median) <= 4 * 1.2533 * np.std(draws) / np.sqrt(n)
+
+
+def test_survey_nc_holds_every_site_and_opens_in_arviz(inputs, tmp_path):
+    import warnings
+
+    az = pytest.importorskip("arviz")
+    xr = pytest.importorskip("xarray")
+    from lidmelt.inversion.survey.job import SITE_DRAWS
+
+    _, study, sites = inputs
+    result = survey(study, sites, out=tmp_path / "run", workers=1, quiet=True)
+    path = tmp_path / "run" / "survey.nc"
+    from lidmelt.inversion.outputs.folder import read_manifest
+
+    assert "survey.nc" in json.dumps(read_manifest(tmp_path / "run"))  # lidmelt's own file
+    with xr.open_dataset(path, group="posterior") as post:
+        assert post.sizes["site"] == 4 and post.sizes["draw"] == SITE_DRAWS
+        assert list(post["site"].values) == list(result.summary["site"].unique())
+        assert post["potential_temperature"].attrs["units"] == "degC"
+        assert "survey_site_draws" in post.attrs["resampling"]
+        summary = result.summary.set_index(["site", "parameter"])
+        for site in post["site"].values:
+            for name in ("potential_temperature", "lithosphere_thickness"):
+                draws = post[name].sel(site=site).values.ravel()
+                assert _median_agrees(draws, summary.loc[(site, name), "median"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no complaint from ArviZ about the layout
+        idata = az.from_netcdf(path)
+    assert {"posterior", "constant_data"} <= set(idata.groups())
+    assert idata.posterior["lithosphere_thickness"].dims == ("chain", "draw", "site")
+    assert list(idata.constant_data["site_seed"].values) == [r["seed"] for r in
+                                                             result.records]
+    assert "survey.nc" in (tmp_path / "run" / "report.md").read_text(encoding="utf-8")

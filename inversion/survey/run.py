@@ -167,6 +167,9 @@ def _run(plan: _Plan, folder: SurveyFolder, executor, *, mode: str,
     area_table = None if area is None else area_frame(area)
     if area_table is not None:
         folder.write_table("area.csv", area_table)
+    from .netcdf import SURVEY_NETCDF, survey_dataset_bytes
+
+    folder.write_bytes(SURVEY_NETCDF, survey_dataset_bytes(plan, folder, records, area))
     result = SurveyResult(folder.path, summary, area_table, records)
     write_report(result, plan, folder, executor_name=executor.where,
                  figure_format=figure_format)
@@ -287,7 +290,7 @@ def _run_phase(plan: _Plan, folder: SurveyFolder, executor, kind: str, phase: st
     for k in indices:
         site = plan.table.sites[k]
         record = folder.read_record(k, site.name, phase)
-        if _usable(record, area_key):
+        if _usable(record, area_key) and _has_draws(folder, record, phase):
             records[k] = record
         else:
             todo.append(k)
@@ -328,6 +331,14 @@ def _usable(record: dict | None, area_key: str | None) -> bool:
             record.get("tp_log_likelihood"), list):
         return False
     return area_key is None or record.get("area_key") == area_key
+
+
+def _has_draws(folder: SurveyFolder, record: dict, phase: str) -> bool:
+    """A final record with a result keeps its draws for survey.nc (a folder written
+    without them runs the site again on resume)."""
+    if phase != "final" or record["status"].startswith("failed"):
+        return True
+    return (folder.site_dir(record["index"], record["site"]) / "draws.npz").is_file()
 
 
 def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
