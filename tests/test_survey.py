@@ -19,7 +19,7 @@ from lidmelt.cli import main
 from lidmelt.inversion import InputError
 from lidmelt.inversion.survey import read_sites, survey
 
-from survey_helpers import truth_table, write_sites, write_study
+from survey_helpers import check_survey_nc, truth_table, write_sites, write_study
 
 _SITES = "site,position_km,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma_gpa\n"
 
@@ -86,6 +86,10 @@ def test_mcmc_sites_match_between_local_and_dask(tmp_path, dask_cluster):
         "0001-*/chain.h5")), read_only=True)  # --keep-chains: emcee reads it
     assert chain.get_chain().shape[1:] == (16, 4)
     assert _summary_text(tmp_path / "local") == _summary_text(tmp_path / "remote")
+    # survey.nc: emcee sites are resampled too; same bytes from both executors
+    assert (tmp_path / "local" / "survey.nc").read_bytes() == (
+        tmp_path / "remote" / "survey.nc").read_bytes()
+    check_survey_nc(tmp_path / "local", local)
 
 
 def test_a_site_with_bad_data_fails_alone(tmp_path, capsys):
@@ -516,19 +520,10 @@ def test_resume_runs_again_the_sites_whose_worker_failed(inputs, tmp_path):
     assert [r["rows"] for r in resumed.records] == [r["rows"] for r in first.records]
 
 
-def _median_agrees(draws: np.ndarray, median: float) -> bool:
-    # the large-sample standard error of a sample median is sqrt(pi/2) sd / sqrt(n)
-    # (common practice); 4 of them make a false failure about 1 in 16 000
-    n = draws.size
-    return abs(float(np.median(draws)) - median) <= 4 * 1.2533 * np.std(draws) / np.sqrt(n)
-
-
 def test_survey_nc_holds_every_site_and_opens_in_arviz(inputs, tmp_path):
     import warnings
 
     az = pytest.importorskip("arviz")
-    xr = pytest.importorskip("xarray")
-    from lidmelt.inversion.survey.job import SITE_DRAWS
 
     _, study, sites = inputs
     result = survey(study, sites, out=tmp_path / "run", workers=1, quiet=True)
@@ -536,16 +531,7 @@ def test_survey_nc_holds_every_site_and_opens_in_arviz(inputs, tmp_path):
     from lidmelt.inversion.outputs.folder import read_manifest
 
     assert "survey.nc" in json.dumps(read_manifest(tmp_path / "run"))  # lidmelt's own file
-    with xr.open_dataset(path, group="posterior") as post:
-        assert post.sizes["site"] == 4 and post.sizes["draw"] == SITE_DRAWS
-        assert list(post["site"].values) == list(result.summary["site"].unique())
-        assert post["potential_temperature"].attrs["units"] == "degC"
-        assert "survey_site_draws" in post.attrs["resampling"]
-        summary = result.summary.set_index(["site", "parameter"])
-        for site in post["site"].values:
-            for name in ("potential_temperature", "lithosphere_thickness"):
-                draws = post[name].sel(site=site).values.ravel()
-                assert _median_agrees(draws, summary.loc[(site, name), "median"])
+    check_survey_nc(tmp_path / "run", result)
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # no complaint from ArviZ about the layout
         idata = az.from_netcdf(path)

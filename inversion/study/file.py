@@ -377,7 +377,7 @@ class Study:
             blocks = []  # a survey's sites bring the data
         observations = _parse_observations(blocks, Path(base_dir))
         if survey is not None:
-            from ..survey.settings import parse_survey_table  # a survey file only
+            from .survey_table import parse_survey_table  # a survey file only
 
             parse_survey_table(survey)  # a bad [survey] key is named here, with its line
         return cls(name=name, source=source, model=model, priors=priors, fixed=fixed,

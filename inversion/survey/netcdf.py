@@ -45,7 +45,7 @@ _RESAMPLING = (f"{SITE_DRAWS} draws per site from its own posterior, seeded by t
                "sites_summary.csv within about 1.25 sd / sqrt(draws)")
 
 
-def survey_dataset_bytes(plan, folder, records: list[dict], area) -> bytes:
+def survey_dataset_bytes(plan, folder, records: list[dict], area, units: dict) -> bytes:
     """The bytes of survey.nc (see the module docstring).
 
     Parameters
@@ -58,6 +58,9 @@ def survey_dataset_bytes(plan, folder, records: list[dict], area) -> bytes:
         Final site records, in site order.
     area : joint.AreaPosterior or None
         Joint mode's area-wide posterior.
+    units : dict of str to str
+        Every free parameter of a site and its unit, in column order
+        (`run.site_units`).
 
     Returns
     -------
@@ -71,7 +74,7 @@ def survey_dataset_bytes(plan, folder, records: list[dict], area) -> bytes:
     buffer = io.BytesIO()
     with h5netcdf.File(buffer, "w") as nc:
         nc.attrs.update(_root_attributes(plan, lidmelt_version()))
-        _posterior_group(nc, plan, folder, records)
+        _posterior_group(nc, folder, records, units)
         _constant_group(nc, plan, records)
         if area is not None:
             _area_group(nc, area)
@@ -85,10 +88,7 @@ def _strings(group, name: str, dims: tuple, values) -> None:
                           data=np.asarray([str(v) for v in values], dtype=object))
 
 
-def _posterior_group(nc, plan, folder, records: list[dict]) -> None:
-    from .run import site_units
-
-    units = site_units(plan.study, plan.settings, plan.table.has_pressures)
+def _posterior_group(nc, folder, records: list[dict], units: dict) -> None:
     n = len(records)
     group = nc.create_group("posterior")
     group.dimensions = {"chain": 1, "draw": SITE_DRAWS, "site": n}

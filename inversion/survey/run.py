@@ -169,7 +169,9 @@ def _run(plan: _Plan, folder: SurveyFolder, executor, *, mode: str,
         folder.write_table("area.csv", area_table)
     from .netcdf import SURVEY_NETCDF, survey_dataset_bytes
 
-    folder.write_bytes(SURVEY_NETCDF, survey_dataset_bytes(plan, folder, records, area))
+    units = site_units(plan.study, plan.settings, plan.table.has_pressures)
+    folder.write_bytes(SURVEY_NETCDF, survey_dataset_bytes(plan, folder, records, area,
+                                                           units))
     result = SurveyResult(folder.path, summary, area_table, records)
     write_report(result, plan, folder, executor_name=executor.where,
                  figure_format=figure_format)
