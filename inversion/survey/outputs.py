@@ -65,9 +65,9 @@ AREA_COLUMNS = ("parameter", "unit", "meaning", "median", "mean", "q2.5", "q16",
 KIND = "survey"
 #: What was run: the inputs' hashes, the settings and the resume fingerprint.
 RECORD = "survey.json"
-#: Files a survey writes at the top of its folder.
+#: Files a survey writes at the top of its folder (the profile in one figure format).
 TOP_FILES = (RECORD, "sites_summary.csv", "area.csv", "survey.nc", "profile.png",
-             "profile.pdf", "profile.svg", "report.md")  # the profile in whichever figure format
+             "profile.pdf", "profile.svg", "report.md")
 #: Files a survey writes in each site's folder.
 SITE_FILES = ("site.json", "summary.csv", "likelihood.json", "tp_likelihood.csv",
               "draws.npz", "chain.h5", "grid.npz")
