@@ -155,6 +155,16 @@ def test_hierarchical_recovers_a_known_spread(tmp_path):
     site_tp = result.summary[result.summary["parameter"] == "potential_temperature"]
     inside = (site_tp["q2.5"].to_numpy() < tps) & (tps < site_tp["q97.5"].to_numpy())
     assert inside.sum() >= 12  # 95 % intervals: about 13.3 of 14 expected
+    import xarray as xr
+
+    with xr.open_dataset(tmp_path / "out" / "survey.nc", group="area_posterior") as grid:
+        assert grid["probability"].dims == ("potential_temperature", "tp_spread")
+        # the spread's marginal on the nodes: its median within two node spacings of
+        # area.csv's (which interpolates linearly within each cell)
+        nodes = grid["tp_spread"].values
+        cdf = np.cumsum(grid["probability"].sum("potential_temperature").values)
+        assert np.interp(0.5, cdf, nodes) == pytest.approx(
+            spread["median"], abs=2 * np.diff(nodes).max())
 
 
 def test_a_site_that_cannot_be_fitted_is_left_out_of_the_area(joint_run, tmp_path, capsys):
