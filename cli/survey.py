@@ -23,7 +23,8 @@ in km, pressure in GPa.
 
 Each site's result is written to DIR/sites/ as soon as it is done; after an interruption
 run the same command with --resume. Outputs: sites_summary.csv, area.csv (joint mode),
-profile.png (.pdf or .svg with --figure-format), report.md. Results are scientific estimates that depend on the chosen
+survey.nc (every site's posterior draws; ArviZ/xarray), profile.png (.pdf or .svg with
+--figure-format), report.md. Results are scientific estimates that depend on the chosen
 melting parameterization.
 """
 

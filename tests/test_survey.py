@@ -19,7 +19,7 @@ from lidmelt.cli import main
 from lidmelt.inversion import InputError
 from lidmelt.inversion.survey import read_sites, survey
 
-from survey_helpers import truth_table, write_sites, write_study
+from survey_helpers import check_survey_nc, truth_table, write_sites, write_study
 
 _SITES = "site,position_km,thickness_km,thickness_sigma_km,pressure_gpa,pressure_sigma_gpa\n"
 
@@ -86,6 +86,10 @@ def test_mcmc_sites_match_between_local_and_dask(tmp_path, dask_cluster):
         "0001-*/chain.h5")), read_only=True)  # --keep-chains: emcee reads it
     assert chain.get_chain().shape[1:] == (16, 4)
     assert _summary_text(tmp_path / "local") == _summary_text(tmp_path / "remote")
+    # survey.nc: emcee sites are resampled too; same bytes from both executors
+    assert (tmp_path / "local" / "survey.nc").read_bytes() == (
+        tmp_path / "remote" / "survey.nc").read_bytes()
+    check_survey_nc(tmp_path / "local", local)
 
 
 def test_a_site_with_bad_data_fails_alone(tmp_path, capsys):
@@ -436,3 +440,103 @@ def test_workers_end_when_the_survey_is_killed(inputs, tmp_path):
         for pid in _session_processes(child.pid):  # never leave them, even on failure
             os.kill(pid, signal.SIGKILL)
     assert not left, f"workers outlived the survey: {left}"
+
+
+def test_a_study_object_gives_the_survey_of_its_file(inputs, tmp_path):
+    import lidmelt
+
+    _, study_path, sites = inputs
+    study = lidmelt.Study.from_file(study_path)  # a [survey] table is read and kept
+    assert study.survey == {"equilibration": "top"}
+    by_path = lidmelt.survey(study_path, sites, out=tmp_path / "path", workers=1,
+                             quiet=True)
+    by_object = lidmelt.survey(study, sites, out=tmp_path / "object", workers=1,
+                               quiet=True)
+    assert _summary_text(tmp_path / "path") == _summary_text(tmp_path / "object")
+    assert [r["rows"] for r in by_path.records] == [r["rows"] for r in by_object.records]
+    record = json.loads((tmp_path / "object" / "survey.json").read_text())
+    assert record["fingerprint"] == json.loads(
+        (tmp_path / "path" / "survey.json").read_text())["fingerprint"]
+    # the object resumes the folder of the path call (same run), a changed study not
+    lidmelt.survey(study, sites, out=tmp_path / "path", workers=1, quiet=True,
+                   resume=True)
+    hotter = study.with_overrides({"water": 0.0})
+    with pytest.raises(InputError, match="changed"):
+        lidmelt.survey(hotter, sites, out=tmp_path / "path", workers=1, quiet=True,
+                       resume=True)
+
+
+def test_study_from_file_names_a_bad_survey_key_with_its_line(tmp_path):
+    from lidmelt.inversion import Study
+
+    path = write_study(tmp_path, extra_survey="grid_pints = 500")
+    with pytest.raises(InputError, match="grid_pints") as caught:
+        Study.from_file(path)
+    assert caught.value.line == 14
+
+
+_SCRIPT = """\
+import lidmelt
+
+{call}
+"""
+
+
+@pytest.mark.parametrize("guarded", [False, True])
+def test_a_script_without_a_main_guard_gets_one_clear_line(inputs, tmp_path, guarded):
+    _, study, sites = inputs
+    call = (f"lidmelt.survey({str(study)!r}, {str(sites)!r}, out={str(tmp_path / 'out')!r}, "
+            "workers=2, quiet=True)")
+    if guarded:
+        call = 'if __name__ == "__main__":\n    ' + call
+    script = tmp_path / "run_area.py"
+    script.write_text(_SCRIPT.format(call=call), encoding="utf-8")
+    done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                          timeout=300, env={**os.environ, "PYTHONPATH": os.pathsep.join(
+                              p for p in sys.path if p)})
+    if guarded:
+        assert done.returncode == 0, done.stderr
+        assert (tmp_path / "out" / "sites_summary.csv").is_file()
+        return
+    assert done.returncode != 0
+    last = done.stderr.strip().splitlines()[-1]
+    assert "run_area.py, line 3" in last and "if __name__ ==" in last and "workers=1" in last
+    assert "BrokenProcessPool" not in done.stderr and done.stderr.count("main guard") == 1
+    assert not (tmp_path / "out").exists()  # refused before any folder was made
+
+
+def test_resume_runs_again_the_sites_whose_worker_failed(inputs, tmp_path):
+    _, study, sites = inputs
+    out = tmp_path / "run"
+    first = survey(study, sites, out=out, workers=1, quiet=True)
+    record_path = next((out / "sites").glob("0002-*/site.json"))
+    record = json.loads(record_path.read_text())
+    # what a broken pool leaves behind (run._as_outcome): no answer about the site
+    record.update(status="failed: the local worker processes stopped", worker_failed=True,
+                  rows=[{**row, "median": None} for row in record["rows"]])
+    record_path.write_text(json.dumps(record), encoding="utf-8")
+    resumed = survey(study, sites, out=out, workers=1, quiet=True, resume=True)
+    assert not resumed.failed
+    assert [r["rows"] for r in resumed.records] == [r["rows"] for r in first.records]
+
+
+def test_survey_nc_holds_every_site_and_opens_in_arviz(inputs, tmp_path):
+    import warnings
+
+    az = pytest.importorskip("arviz")
+
+    _, study, sites = inputs
+    result = survey(study, sites, out=tmp_path / "run", workers=1, quiet=True)
+    path = tmp_path / "run" / "survey.nc"
+    from lidmelt.inversion.outputs.folder import read_manifest
+
+    assert "survey.nc" in json.dumps(read_manifest(tmp_path / "run"))  # lidmelt's own file
+    check_survey_nc(tmp_path / "run", result)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no complaint from ArviZ about the layout
+        idata = az.from_netcdf(path)
+    assert {"posterior", "constant_data"} <= set(idata.groups())
+    assert idata.posterior["lithosphere_thickness"].dims == ("chain", "draw", "site")
+    assert list(idata.constant_data["site_seed"].values) == [r["seed"] for r in
+                                                             result.records]
+    assert "survey.nc" in (tmp_path / "run" / "report.md").read_text(encoding="utf-8")

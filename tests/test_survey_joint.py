@@ -19,7 +19,7 @@ from lidmelt.inversion.survey import (
 )
 from lidmelt.inversion.survey.sites import site_observations
 
-from survey_helpers import truth_table, write_sites, write_study
+from survey_helpers import check_survey_nc, truth_table, write_sites, write_study
 
 # Eight schools (Rubin 1981; Gelman et al. 2013, Bayesian Data Analysis, Table 5.2)
 SCHOOLS_Y = np.array([28.0, 8.0, -3.0, 7.0, -1.0, 1.0, 18.0, 12.0])
@@ -155,6 +155,16 @@ def test_hierarchical_recovers_a_known_spread(tmp_path):
     site_tp = result.summary[result.summary["parameter"] == "potential_temperature"]
     inside = (site_tp["q2.5"].to_numpy() < tps) & (tps < site_tp["q97.5"].to_numpy())
     assert inside.sum() >= 12  # 95 % intervals: about 13.3 of 14 expected
+    import xarray as xr
+
+    with xr.open_dataset(tmp_path / "out" / "survey.nc", group="area_posterior") as grid:
+        assert grid["probability"].dims == ("potential_temperature", "tp_spread")
+        # the spread's marginal on the nodes: its median within two node spacings of
+        # area.csv's (which interpolates linearly within each cell)
+        nodes = grid["tp_spread"].values
+        cdf = np.cumsum(grid["probability"].sum("potential_temperature").values)
+        assert np.interp(0.5, cdf, nodes) == pytest.approx(
+            spread["median"], abs=2 * np.diff(nodes).max())
 
 
 def test_a_site_that_cannot_be_fitted_is_left_out_of_the_area(joint_run, tmp_path, capsys):
@@ -229,3 +239,21 @@ def test_tension_p_of_gaussian_sites_is_the_normal_difference_test():
         assert area.tension[i] == pytest.approx(exact, abs=1e-3, rel=1e-2)
     assert area.tension[-1] < 0.003 and min(area.tension[:-1]) > 0.003
     assert tension_p(np.zeros(5), np.zeros(5)) == pytest.approx(1.0)
+
+
+def test_survey_nc_holds_the_area_grid_and_the_joint_site_posteriors(joint_run):
+    import xarray as xr
+
+
+    _, _, result = joint_run
+    check_survey_nc(result.folder, result)
+    with xr.open_dataset(result.folder / "survey.nc", group="area_posterior") as area:
+        nodes = area["potential_temperature"].values
+        probability = area["probability"].values
+        assert probability.sum() == pytest.approx(1.0, rel=1e-9)
+        # median from the nodes' cumulative probability: off by at most about one
+        # node spacing from area.csv's (which is linear within each cell)
+        cdf = np.cumsum(probability)
+        median = float(np.interp(0.5, cdf, nodes))
+        row = result.area.set_index("parameter").loc["potential_temperature"]
+        assert median == pytest.approx(row["median"], abs=2 * np.diff(nodes).max())

@@ -66,6 +66,13 @@ class LogPosterior:
     """
 
     def __init__(self, study) -> None:
+        if not study.observations:  # e.g. a survey study file: its sites bring the data
+            from ..errors import InputError
+
+            raise InputError("the study has no observations to fit; add [[observations]] "
+                             "blocks (a study for `lidmelt survey` gets its data from the "
+                             "sites table: run that instead)", file=study.source,
+                             key="observations")
         self.study = study
         self.physical = tuple(study.free_parameters)
         self.block_parameters = tuple(study.block_parameters)

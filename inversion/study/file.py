@@ -13,6 +13,7 @@ of `PARAMETERS`. Tp and lid thickness must be given; the others default to fixed
 
 from __future__ import annotations
 
+import copy
 import dataclasses
 import hashlib
 import math
@@ -59,6 +60,8 @@ _REQUIRED = ("potential_temperature", "lithosphere_thickness")
 _TOP_KEYS = ("study", "model", "parameters", "observations", "sampler")
 # Read by inversion.study.scenarios (`lidmelt compare`); a plain fit ignores them.
 _COMPARISON_KEYS = ("scenarios", "comparison")
+# Read by inversion.survey (`lidmelt survey`); kept on the study as `Study.survey`.
+_SURVEY_KEY = "survey"
 _STUDY_KEYS = ("name", "description")
 _START = ("prior", "map")
 
@@ -241,6 +244,9 @@ class Study:
         sha256 (hex) of the study file bytes, for provenance.
     description : str
         Free text from ``[study] description``.
+    survey : dict or None
+        The ``[survey]`` table as written (validated by `inversion.survey`), None when
+        the file has none; `inversion.survey.survey` reads its settings from it.
 
     Examples
     --------
@@ -262,9 +268,12 @@ class Study:
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
     file_hash: str | None = None
     description: str = ""
+    survey: dict | None = None
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "priors", dict(self.priors))
+        if self.survey is not None:
+            object.__setattr__(self, "survey", copy.deepcopy(dict(self.survey)))
         object.__setattr__(self, "fixed", {k: float(v) for k, v in dict(self.fixed).items()})
         object.__setattr__(self, "observations", tuple(self.observations))
         file = self.source
@@ -332,7 +341,8 @@ class Study:
         Parameters
         ----------
         config : mapping
-            Tables ``study``, ``model``, ``parameters``, ``observations``, ``sampler``.
+            Tables ``study``, ``model``, ``parameters``, ``observations``, ``sampler``
+            (and, read by other commands, ``scenarios``, ``comparison``, ``survey``).
         base_dir : str or path-like
             Folder that observation ``file`` paths are relative to.
         source : str or path-like, optional
@@ -340,7 +350,8 @@ class Study:
         file_hash : str, optional
             Recorded in `Study.file_hash`.
         """
-        check_keys(config, _TOP_KEYS + _COMPARISON_KEYS, "", what="section")
+        check_keys(config, _TOP_KEYS + _COMPARISON_KEYS + (_SURVEY_KEY,), "",
+                   what="section")
         study_tbl = _table(config, "study")
         check_keys(study_tbl, _STUDY_KEYS, "study")
         source = None if source is None else Path(source)
@@ -360,10 +371,18 @@ class Study:
         if not priors:  # a scenario may fix everything (inversion.study.scenarios), a study not
             raise InputError("every parameter is fixed; give at least one a prior to infer "
                              "it", key="parameters")
-        observations = _parse_observations(config.get("observations"), Path(base_dir))
+        survey = config.get(_SURVEY_KEY)
+        blocks = config.get("observations")
+        if blocks is None and survey is not None:
+            blocks = []  # a survey's sites bring the data
+        observations = _parse_observations(blocks, Path(base_dir))
+        if survey is not None:
+            from .survey_table import parse_survey_table  # a survey file only
+
+            parse_survey_table(survey)  # a bad [survey] key is named here, with its line
         return cls(name=name, source=source, model=model, priors=priors, fixed=fixed,
                    observations=observations, sampler=sampler, file_hash=file_hash,
-                   description=description)
+                   description=description, survey=survey)
 
     # ---- views and variants ------------------------------------------------------------
 

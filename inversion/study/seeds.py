@@ -25,6 +25,8 @@ ranking_spread       8    the spread of scenario probabilities (`comparison.rank
 survey_site          9, k the seed of site k of a survey (`survey.run`)
 site_grid_draws      10   draws from a site's grid posterior (`survey.job`; the site's seed)
 netcdf_prior_draws   11   the prior group of posterior.nc (`results.netcdf`)
+survey_site_draws    12   a site's posterior draws kept for survey.nc (`survey.job`; the
+                          site's seed)
 ==================== ==== ===============================================================
 
 A new use gets a new name at the end of the table; never reuse or renumber a key, or
@@ -57,6 +59,7 @@ STREAMS = {
     "survey_site": 9,
     "site_grid_draws": 10,
     "netcdf_prior_draws": 11,
+    "survey_site_draws": 12,
 }
 
 

@@ -26,7 +26,13 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 
 from ..errors import InputError
 
-__all__ = ["DaskExecutor", "LocalExecutor", "check_scheduler", "make_executor"]
+__all__ = ["GUARD_ADVICE", "DaskExecutor", "LocalExecutor", "check_main_guard",
+           "check_scheduler", "make_executor"]
+
+#: What to do when local workers cannot start (`check_main_guard`).
+GUARD_ADVICE = ("put the call under 'if __name__ == \"__main__\":' (local worker "
+                "processes import the script again and must not rerun it), or pass "
+                "workers=1")
 
 #: Seconds to open a TCP connection to a scheduler, and to wait for its greeting.
 CONNECT_TIMEOUT = 5.0
@@ -51,6 +57,8 @@ class LocalExecutor:
         if workers < 1:
             raise InputError(f"workers = {workers} must be at least 1", key="workers")
         self.workers = int(workers)
+        if self.workers > 1:
+            check_main_guard()
         self.where = f"{self.workers} local process{'es' if self.workers > 1 else ''}"
         self._executor = None
 
@@ -205,6 +213,64 @@ def _greets_like_dask(connection: socket.socket) -> bool:
         return False
     length, frames = struct.unpack("<QQ", data)
     return 0 < length < 2**24 and 0 < frames < 2**10
+
+
+def check_main_guard() -> None:
+    """Refuse local workers for a call made while a script runs outside its main guard.
+
+    Worker processes start with ``forkserver`` or ``spawn``, which import the main
+    script again (as ``__mp_main__``): an unguarded call there would start the survey
+    once more in every worker, and every site would fail with a broken pool. The call is
+    unguarded when the frame of the ``__main__`` module on the stack is at a top-level
+    statement of its file that is not ``if __name__ == "__main__":``. Interactive
+    sessions, notebooks and ``lidmelt survey`` have no such frame (or no file) and pass.
+
+    Raises
+    ------
+    InputError
+        One line naming the script, its line and `GUARD_ADVICE`.
+    """
+    import ast
+
+    main = sys.modules.get("__main__")
+    path = getattr(main, "__file__", None)
+    spec = getattr(getattr(main, "__spec__", None), "name", None) or ""
+    if spec == "__main__" or spec.endswith(".__main__"):
+        return  # a package's __main__ (python -m lidmelt.cli): workers do not rerun it
+    frame = sys._getframe(1)
+    while frame is not None and not (frame.f_globals is getattr(main, "__dict__", None)
+                                     and frame.f_code.co_name == "<module>"):
+        frame = frame.f_back
+    if frame is None or not path:
+        return
+    try:
+        with open(path, encoding="utf-8") as handle:
+            tree = ast.parse(handle.read())
+    except (OSError, SyntaxError, ValueError):
+        return  # cannot tell: let the workers start
+    line = frame.f_lineno
+    for statement in tree.body:
+        if statement.lineno <= line <= (statement.end_lineno or statement.lineno):
+            if _is_main_guard(statement) and any(
+                    s.lineno <= line <= (s.end_lineno or s.lineno) for s in statement.body):
+                return
+            raise InputError("lidmelt.survey with local workers was called outside the "
+                             f"script's main guard; {GUARD_ADVICE}", file=path, line=line)
+
+
+def _is_main_guard(statement) -> bool:
+    """Whether `statement` is ``if __name__ == "__main__":`` (either order)."""
+    import ast
+
+    if not isinstance(statement, ast.If) or not isinstance(statement.test, ast.Compare):
+        return False
+    test = statement.test
+    if len(test.ops) != 1 or not isinstance(test.ops[0], ast.Eq):
+        return False
+    sides = [test.left, test.comparators[0]]
+    names = [s.id for s in sides if isinstance(s, ast.Name)]
+    texts = [s.value for s in sides if isinstance(s, ast.Constant)]
+    return names == ["__name__"] and texts == ["__main__"]
 
 
 _WATCH_SECONDS = 0.5  # how often a worker checks that the survey process still lives

@@ -47,7 +47,8 @@ from ..study.seeds import generator
 from .settings import SurveySettings
 from .sites import Site, site_observations
 
-__all__ = ["GRID_MAX_FREE", "QUANTILES", "TP", "SiteOutcome", "SiteTask", "run_site"]
+__all__ = ["GRID_MAX_FREE", "QUANTILES", "SITE_DRAWS", "TP", "SiteOutcome", "SiteTask",
+           "run_site"]
 
 #: Sites with at most this many free parameters get a grid posterior, others emcee.
 GRID_MAX_FREE = 3
@@ -58,6 +59,8 @@ QUANTILES = {"median": 0.5, "q2.5": 0.025, "q16": 0.16, "q84": 0.84, "q97.5": 0.
 #: Largest accepted quadrature error of a log-likelihood or ln Z (nats).
 LOG_TOLERANCE = 0.05
 _DRAWS = 4000  # posterior draws for the predicted thickness and the melt check
+#: Posterior draws of every site kept for survey.nc (stream ``survey_site_draws``).
+SITE_DRAWS = 1000
 _MIN_MELT_SHARE = 0.5  # below it a site that records melt "cannot make melt"
 #: A site "cannot be fitted" when its thickness lies more than this many total sigma
 #: (stated sigma and model error in quadrature) from the posterior's predicted thickness
@@ -168,6 +171,8 @@ def _grid_outcome(task, logpost, post, outcome: SiteOutcome, *, method: str) -> 
                                     f"{error:.3g} > {LOG_TOLERANCE:g}; raise "
                                     "survey.grid_points")
     _finish(task, logpost, rows, draws, outcome)
+    kept = post.sample(generator(task.seed, "survey_site_draws"), SITE_DRAWS)
+    outcome.arrays["draws"] = dict(zip(logpost.names, kept.T, strict=True))
     if task.keep_chains:
         outcome.arrays["grid"] = {**{f"axis_{a.name}": a.values for a in post.grid.axes},
                                   "log_likelihood": post.log_likelihood}
@@ -192,6 +197,10 @@ def _mcmc_outcome(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -
             f"not converged: emcee stopped at the step cap ({posterior.chain.shape[0]} "
             f"steps, smallest ESS {np.min(posterior.ess):.0f}); raise sampler.max_steps")
     _finish(task, logpost, rows, posterior.predictive_draws(_DRAWS), outcome)
+    flat = posterior.chain[posterior.discard:].reshape(-1, logpost.ndim)
+    pick = generator(task.seed, "survey_site_draws").choice(
+        flat.shape[0], SITE_DRAWS, replace=flat.shape[0] < SITE_DRAWS)
+    outcome.arrays["draws"] = dict(zip(logpost.names, flat[pick].T, strict=True))
     if task.keep_chains:
         outcome.arrays["chain"] = posterior.result
 

@@ -8,9 +8,11 @@ Layout::
         summary.csv         the site's rows of sites_summary.csv
         likelihood.json     joint mode: the site's Tp likelihood (machine form)
         tp_likelihood.csv   joint mode: the same as a table
+        draws.npz           the site's posterior draws kept for survey.nc
         chain.h5 / grid.npz with --keep-chains: the emcee chain or the posterior grid
     DIR/sites_summary.csv   one row per site and parameter
     DIR/area.csv            joint mode: the area-wide posterior
+    DIR/survey.nc           every site's posterior draws (and the area grid), NetCDF-4
     DIR/profile.png, DIR/report.md   (profile.pdf/.svg with figure_format)
 
 Each folder carries lidmelt's manifest (`inversion.outputs.folder.MANIFEST`): the top one
@@ -63,12 +65,12 @@ AREA_COLUMNS = ("parameter", "unit", "meaning", "median", "mean", "q2.5", "q16",
 KIND = "survey"
 #: What was run: the inputs' hashes, the settings and the resume fingerprint.
 RECORD = "survey.json"
-#: Files a survey writes at the top of its folder.
-TOP_FILES = (RECORD, "sites_summary.csv", "area.csv", "profile.png", "profile.pdf",
-             "profile.svg", "report.md")  # the profile in whichever figure format
+#: Files a survey writes at the top of its folder (the profile in one figure format).
+TOP_FILES = (RECORD, "sites_summary.csv", "area.csv", "survey.nc", "profile.png",
+             "profile.pdf", "profile.svg", "report.md")
 #: Files a survey writes in each site's folder.
 SITE_FILES = ("site.json", "summary.csv", "likelihood.json", "tp_likelihood.csv",
-              "chain.h5", "grid.npz")
+              "draws.npz", "chain.h5", "grid.npz")
 _TOOL = "lidmelt survey"
 _WHAT = "survey folder"
 _RECORD_FILES = {"likelihood": "likelihood.json", "final": "site.json"}
@@ -211,8 +213,23 @@ class SurveyFolder:
         _write(folder / _RECORD_FILES[phase], text)
         return json.loads(text)
 
+    def read_draws(self, index: int, name: str) -> dict | None:
+        """A finished site's kept posterior draws (parameter -> array), or None."""
+        path = self.site_dir(index, name) / "draws.npz"
+        if not path.is_file():
+            return None
+        try:
+            with np.load(path) as stored:
+                return {key: stored[key] for key in stored.files}
+        except (OSError, ValueError):
+            return None
+
     @staticmethod
     def _write_arrays(folder: Path, arrays: dict) -> None:
+        if "draws" in arrays:
+            buffer = io.BytesIO()
+            np.savez(buffer, **arrays["draws"])  # float64: draws round-trip exactly
+            _write(folder / "draws.npz", buffer.getvalue())
         if "grid" in arrays:
             buffer = io.BytesIO()
             np.savez_compressed(buffer, **arrays["grid"])
@@ -226,6 +243,10 @@ class SurveyFolder:
 
     def write_table(self, name: str, frame: pd.DataFrame) -> Path:
         _write(self.path / name, csv_text(frame))
+        return self.path / name
+
+    def write_bytes(self, name: str, data: bytes) -> Path:
+        _write(self.path / name, data)
         return self.path / name
 
     def write_text(self, name: str, text: str) -> Path:

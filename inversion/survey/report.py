@@ -199,6 +199,9 @@ def render(result, plan, *, executor_name: str, figure_format: str = "png") -> s
         "## Files", "",
         "sites_summary.csv (one row per site and parameter), "
         + ("area.csv (the area-wide posterior), " if result.area is not None else "")
+        + "survey.nc (every site's posterior draws"
+        + (" and the area-wide posterior on its grid" if result.area is not None else "")
+        + "; NetCDF-4, opens with ArviZ and xarray), "
         + f"profile.{figure_format} (sites against position), sites/ (one folder per "
         "site).", "",
         "## Caution", "", _CAUTION, "",

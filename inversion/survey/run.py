@@ -29,7 +29,8 @@ from . import joint
 from .executors import make_executor
 from .job import GRID_MAX_FREE, QUANTILES, TP, SiteTask, run_site
 from .outputs import AREA_COLUMNS, SurveyFolder, identity, summary_rows
-from .settings import SPREAD, load_survey_study
+from ..study.file import Study
+from .settings import SPREAD, load_survey_study, survey_study
 from .sites import read_sites
 
 __all__ = ["MODES", "SurveyResult", "survey"]
@@ -74,7 +75,7 @@ class SurveyResult:
         return [r for r in self.usable if r.get("in_tension")]
 
 
-def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
+def survey(study: Study | str | PathLike[str], sites: str | PathLike[str], *,
            out: str | PathLike[str], mode: str = "independent", workers: int | None = None,
            scheduler: str | None = None, seed: int | None = None, resume: bool = False,
            force: bool = False, quiet: bool = False, keep_chains: bool = False,
@@ -83,8 +84,12 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
 
     Parameters
     ----------
-    study : str or path-like
-        Study file with a ``[survey]`` table (its own observations are not used).
+    study : Study, str or path-like
+        Study file with a ``[survey]`` table (its own observations are not used), or a
+        `Study` such as ``Study.from_file(path)`` of that file: its ``[survey]`` table
+        (`Study.survey`; the defaults when it has none) is used and its observations
+        are not. An unchanged study read from a file gives the survey of the file
+        itself (same numbers, and either call resumes the other's folder).
     sites : str or path-like
         Sites table (see `inversion.survey.sites`).
     out : str or path-like
@@ -108,16 +113,32 @@ def survey(study: str | PathLike[str], sites: str | PathLike[str], *,
     Returns
     -------
     SurveyResult
+
+    Raises
+    ------
+    InputError
+        Bad input (file, line, key), an existing folder without `resume`/`force`, and a
+        call from a script outside its ``if __name__ == "__main__":`` guard with more
+        than one local worker (`executors.check_main_guard`).
+
+    Notes
+    -----
+    Local workers start by importing the calling script again, so a script (also one a
+    batch scheduler runs) calls `survey` under ``if __name__ == "__main__":`` or passes
+    ``workers=1``. A folder left by an interrupted or failed run is continued with
+    ``resume=True`` (finished sites are kept; sites whose worker process failed run
+    again) or replaced with ``force=True``.
     """
     figure_format = checked_figure_format(figure_format)
     plan = _Plan.build(study, sites, mode=mode, seed=seed, keep_chains=keep_chains)
+    study_inputs = [] if plan.study.source is None else [Path(plan.study.source)]
     target = output_path(out, what="survey folder")
     _prepare_table(plan.study, quiet=quiet)  # a long first build shows its progress here
     executor = make_executor(workers, scheduler)  # a bad option stops before any folder
     try:
         with output_lock(target):  # held for the whole run: no second run writes here
             folder = SurveyFolder.open(target, plan.manifest, resume=resume, force=force,
-                                       inputs=[Path(study), Path(sites)],
+                                       inputs=[*study_inputs, Path(sites)],
                                        site_names=[s.name for s in plan.table.sites])
             try:
                 return _run(plan, folder, executor, mode=mode, quiet=quiet,
@@ -146,6 +167,11 @@ def _run(plan: _Plan, folder: SurveyFolder, executor, *, mode: str,
     area_table = None if area is None else area_frame(area)
     if area_table is not None:
         folder.write_table("area.csv", area_table)
+    from .netcdf import SURVEY_NETCDF, survey_dataset_bytes
+
+    units = site_units(plan.study, plan.settings, plan.table.has_pressures)
+    folder.write_bytes(SURVEY_NETCDF, survey_dataset_bytes(plan, folder, records, area,
+                                                           units))
     result = SurveyResult(folder.path, summary, area_table, records)
     write_report(result, plan, folder, executor_name=executor.where,
                  figure_format=figure_format)
@@ -179,22 +205,27 @@ class _Plan:
     manifest: dict
 
     @classmethod
-    def build(cls, study_path, sites_path, *, mode, seed, keep_chains) -> _Plan:
+    def build(cls, given, sites_path, *, mode, seed, keep_chains) -> _Plan:
         if mode not in MODES:
             raise InputError(f"unknown mode {mode!r}; choose 'independent' or 'joint'",
                              key="mode")
-        study, settings = load_survey_study(study_path)
+        if isinstance(given, Study):
+            study, settings, study_hash = survey_study(given)
+        else:
+            study, settings = load_survey_study(given)
+            study_hash = study.file_hash
+        study_path = None if study.source is None else Path(study.source)
         table = read_sites(sites_path)
         if all(site.error is not None for site in table.sites):  # nothing could run
             raise InputError(f"no site could be used: every row has a bad value; the "
                              f"first, '{table.sites[0].name}': {table.sites[0].error}")
-        _check_combination(study, settings, table, mode, Path(study_path))
+        _check_combination(study, settings, table, mode, study_path)
         seed = check_seed(study.sampler.seed if seed is None else seed)
         seeds = tuple(integer_seed(seed, "survey_site", k) for k in range(len(table)))
         run = {"mode": mode, "seed": seed, "keep_chains": keep_chains,
                "survey": settings.record()}
-        manifest = identity(study.file_hash, table.sha256, run)
-        manifest.update(study_file=str(Path(study_path).resolve()),
+        manifest = identity(study_hash, table.sha256, run)
+        manifest.update(study_file=study_path and str(study_path.resolve()),
                         sites_file=str(Path(sites_path).resolve()), sites=len(table))
         return cls(study, settings, table, mode, seed, seeds, keep_chains, manifest)
 
@@ -227,7 +258,7 @@ def site_units(study, settings, has_pressures: bool) -> dict:
     return {name: logpost.units.get(name) or UNITS.get(name) for name in logpost.names}
 
 
-def _check_combination(study, settings, table, mode: str, study_path: Path) -> None:
+def _check_combination(study, settings, table, mode: str, study_path: Path | None) -> None:
     free = tuple(site_units(study, settings, table.has_pressures))
     if table.has_pressures and settings.equilibration is None:
         raise InputError("the sites carry melting pressures: set equilibration = \"top\", "
@@ -261,7 +292,7 @@ def _run_phase(plan: _Plan, folder: SurveyFolder, executor, kind: str, phase: st
     for k in indices:
         site = plan.table.sites[k]
         record = folder.read_record(k, site.name, phase)
-        if _usable(record, area_key):
+        if _usable(record, area_key) and _has_draws(folder, record, phase):
             records[k] = record
         else:
             todo.append(k)
@@ -289,7 +320,12 @@ _RECORD_KEYS = ("site", "index", "line", "position_km", "seed", "phase", "method
 
 
 def _usable(record: dict | None, area_key: str | None) -> bool:
+    """Whether a stored record is kept on resume: complete, made from the same sites
+    (`area_key`), and not failed by its worker (a lost process or a broken pool is no
+    answer about the site, so the site runs again)."""
     if not isinstance(record, dict) or any(key not in record for key in _RECORD_KEYS):
+        return False
+    if record.get("worker_failed"):
         return False
     if record["phase"] != "likelihood" and not isinstance(record.get("rows"), list):
         return False
@@ -299,15 +335,30 @@ def _usable(record: dict | None, area_key: str | None) -> bool:
     return area_key is None or record.get("area_key") == area_key
 
 
+def _has_draws(folder: SurveyFolder, record: dict, phase: str) -> bool:
+    """A final record with a result keeps its draws for survey.nc (a folder written
+    without them runs the site again on resume)."""
+    if phase != "final" or record["status"].startswith("failed"):
+        return True
+    return (folder.site_dir(record["index"], record["site"]) / "draws.npz").is_file()
+
+
 def _as_outcome(outcome, plan: _Plan, k: int, kind: str):
     """A worker-level exception (a lost worker, a broken pool) as a failed record."""
     from .job import SiteOutcome, _base_record
+
+    from concurrent.futures.process import BrokenProcessPool
+
+    from .executors import GUARD_ADVICE
 
     if isinstance(outcome, SiteOutcome):
         return outcome
     record = _base_record(plan.task(kind, k))
     record.update(status=f"failed: the worker running this site failed: "
-                  f"{type(outcome).__name__}: {outcome}", seconds=None)
+                  f"{type(outcome).__name__}: {outcome}", seconds=None, worker_failed=True)
+    if isinstance(outcome, BrokenProcessPool):  # most often a script without a guard
+        record["status"] = ("failed: the local worker processes stopped (from a script "
+                            f"that is the usual cause: {GUARD_ADVICE})")
     return SiteOutcome(record)
 
 

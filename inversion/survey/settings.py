@@ -1,88 +1,27 @@
-"""The ``[survey]`` table of a study file, and loading a study for a survey.
+"""Loading a study for a survey: the study without observations and its ``[survey]``.
 
-A survey study file is an ordinary study file (model, priors, sampler) plus a
-``[survey]`` table; its own ``[[observations]]`` blocks are not used, because every
-site's data come from the sites table. Keys of ``[survey]``:
-
-``equilibration``
-    ``"top"``, ``"pooled"`` or ``"path"``: where the sites' melting pressures are
-    compared with the model (see ``inversion.observations.pressure``). Required when the
-    sites table has pressures.
-``tp_spread``
-    Optional prior table, e.g. ``{ prior = "uniform", min = 0, max = 150 }`` (degC).
-    With it, ``--mode joint`` is hierarchical: each site's potential temperature is drawn
-    from a normal distribution around the area mean with this spread.
-``thickness_of``
-    ``"crust"`` (default) or ``"melt"``: what the sites' thickness is compared with.
-``crust_model_error``, ``pressure_model_error``, ``temperature_model_error``
-    Added in quadrature to every site's sigma (km, GPa, degC; default 0). Each is a
-    number or, as in a study's observation blocks, a prior such as
-    ``{ prior = "log-uniform", min = 0.05, max = 2.0 }``: then it is a free parameter of
-    every site (its own value per site), sampled or integrated with the site's other
-    parameters and reported in its rows.
-``path_points``
-    Path intervals for ``"path"`` and ``"pooled"`` temperatures (default 64).
-``grid_points``
-    Size of each site's posterior grid (default 40 000 nodes, 200 per axis in 2-D).
-``tp_nodes``
-    Nodes of the potential-temperature axis shared by all sites in joint mode
-    (default 351, equally spaced over the prior).
+The keys of ``[survey]`` and their checks are in `inversion.study.survey_table`.
 """
 
 from __future__ import annotations
 
 import hashlib
-from dataclasses import dataclass
 from os import PathLike
 from pathlib import Path
 
-from ..errors import InputError, suggest
-from ..observations import EQUILIBRATION, THICKNESS_OF
-from ..observations.model_error import parse_error_setting
-from ..study.priors import Prior, prior_from_spec
+from ..errors import InputError
 from ..study.file import Study
 from ..study.keys import key_line, read_study_file
+from ..study.survey_table import SPREAD, SurveySettings, parse_survey_table
 
-__all__ = ["SPREAD", "SurveySettings", "load_survey_study"]
-
-#: Name of the hierarchical spread of site potential temperatures (degC).
-SPREAD = "tp_spread"
-_SPREAD_DOMAIN = (0.0, 1000.0)  # degC; a spread beyond the whole melting range is no model
-_KEYS = ("equilibration", "tp_spread", "thickness_of", "crust_model_error",
-         "pressure_model_error", "temperature_model_error", "path_points", "grid_points",
-         "tp_nodes")
-
-
-@dataclass(frozen=True)
-class SurveySettings:
-    """Validated content of ``[survey]`` (see the module docstring for each key)."""
-
-    equilibration: str | None = None
-    tp_spread: Prior | None = None
-    thickness_of: str = "crust"
-    crust_model_error: float | Prior = 0.0
-    pressure_model_error: float | Prior = 0.0
-    temperature_model_error: float | Prior = 0.0
-    path_points: int = 64
-    grid_points: int = 40_000
-    tp_nodes: int = 351
-
-    @property
-    def hierarchical(self) -> bool:
-        """Whether joint mode draws site temperatures around the area mean."""
-        return self.tp_spread is not None
-
-    def record(self) -> dict:
-        """Plain-value form for the run manifest (and its settings hash)."""
-        out = {}
-        for key in _KEYS:
-            value = getattr(self, key)
-            out[key] = value.describe() if isinstance(value, Prior) else value
-        return out
+__all__ = ["SPREAD", "SurveySettings", "load_survey_study", "parse_survey_table",
+           "survey_study"]
 
 
 def load_survey_study(path: str | PathLike[str]) -> tuple[Study, SurveySettings]:
     """Read a survey study file: the study (without observations) and its ``[survey]``.
+
+    The study keeps the ``[survey]`` table (`Study.survey`), as `Study.from_file` does.
 
     Raises
     ------
@@ -91,56 +30,42 @@ def load_survey_study(path: str | PathLike[str]) -> tuple[Study, SurveySettings]
     """
     path = Path(path)
     raw, text, config = read_study_file(path)
-    table = config.pop("survey", {})
     config["observations"] = []  # every site brings its own data
     try:
-        settings = parse_survey_table(table)
         study = Study.from_mapping(config, base_dir=path.parent, source=path,
                                    file_hash=hashlib.sha256(raw).hexdigest())
+        settings = parse_survey_table(study.survey or {})
     except InputError as err:
         raise InputError(err.message, file=path, key=err.key,
                          line=err.line or key_line(text, err.key)) from None
     return study, settings
 
 
-def parse_survey_table(table) -> SurveySettings:
-    """Validate the ``[survey]`` mapping; every `InputError` names its ``survey.*`` key."""
-    if not isinstance(table, dict):
-        raise InputError(f"'survey' must be a table written [survey], got {table!r}",
-                         key="survey")
-    for key in table:
-        if key not in _KEYS:
-            raise InputError(f"unknown key '{key}'" + suggest(str(key), _KEYS),
-                             key=f"survey.{key}")
-    values = {}
-    choices = (("equilibration", EQUILIBRATION), ("thickness_of", tuple(THICKNESS_OF)))
-    for key, valid in choices:
-        if key in table:
-            if table[key] not in valid:
-                raise InputError(f"unknown value {table[key]!r}" + suggest(str(table[key]),
-                                 valid), key=f"survey.{key}")
-            values[key] = table[key]
-    for key in ("crust_model_error", "pressure_model_error", "temperature_model_error"):
-        if key in table:
-            values[key] = parse_error_setting(table[key], f"survey.{key}")
-    for key, low, high in (("path_points", 8, 1024), ("grid_points", 1_000, 4_000_000),
-                           ("tp_nodes", 41, 4_001)):
-        if key in table:
-            values[key] = _whole(table[key], low, high, f"survey.{key}")
-    if SPREAD in table:
-        values[SPREAD] = _spread_prior(table[SPREAD])
-    return SurveySettings(**values)
+def survey_study(study: Study) -> tuple[Study, SurveySettings, str]:
+    """A `Study` object for a survey: it without observations, its ``[survey]``
+    settings (`Study.survey`; defaults when it has none) and the study's sha256.
 
+    The sha256 (the resume fingerprint's "study file") is the file's when the study is
+    the unchanged content of its source file, so the object and the file path give the
+    same survey; otherwise a digest of the study's content.
 
-def _spread_prior(spec) -> Prior:
-    prior = prior_from_spec(SPREAD, spec, where=f"survey.{SPREAD}", domain=_SPREAD_DOMAIN)
-    if not isinstance(prior, Prior):
-        raise InputError("the spread must be free: give a prior, not a value (for no "
-                         "spread leave tp_spread out)", key=f"survey.{SPREAD}")
-    return prior
-
-
-def _whole(value, low: int, high: int, key: str) -> int:
-    if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
-        raise InputError(f"{value!r} must be a whole number from {low} to {high}", key=key)
-    return int(value)
+    Raises
+    ------
+    InputError
+        A bad ``[survey]`` key (naming the study's source file, if any).
+    """
+    try:
+        settings = parse_survey_table(study.survey or {})
+    except InputError as err:
+        raise InputError(err.message, file=study.source, key=err.key) from None
+    bare = study.with_observations(())
+    if study.source is not None and study.file_hash is not None:
+        try:
+            fresh, _ = load_survey_study(study.source)
+        except InputError:
+            fresh = None  # the file went away or broke: the study stands on its own
+        if fresh == bare:
+            return fresh, settings, study.file_hash
+    content = repr((bare.name, bare.model, sorted(bare.priors.items()),
+                    sorted(bare.fixed.items()), bare.sampler, settings.record()))
+    return bare, settings, "content-" + hashlib.sha256(content.encode()).hexdigest()
