@@ -223,7 +223,7 @@ def _predictions(result, seed: int) -> list[dict]:
                 "names": list(block.ids), "obs": observed[panel.key],
                 "sigma": observed[panel.sigma_key], "simulated": simulated,
                 "ylabel": panel.label, "title": f"{block.name}: {panel.title}",
-                "invert": panel.invert})
+                "invert": panel.invert, "log": panel.log})
     return panels
 
 
@@ -248,6 +248,8 @@ def _draw_predictive(ax, results, panels) -> None:
                                "thick 68 %, thin 95 %, tick median)", width=170),
                  fontsize=9.5, loc="left")  # 170 characters of 9.5 pt fill the 15 in width
     ax.grid(axis="y", alpha=0.3, lw=0.5)
+    if first.get("log"):
+        ax.set_yscale("log")
     if first.get("invert"):
         ax.invert_yaxis()
 

@@ -178,6 +178,9 @@ class Panel:
         The block's model-error setting included in the error bars (``"model_error"``).
     invert : bool
         Draw the axis increasing downwards (pressure and depth, as in the earth).
+    log : bool
+        Draw the value axis logarithmic (positive quantities spanning factors, such as
+        chondrite-normalised ratios).
     """
 
     key: str
@@ -188,6 +191,7 @@ class Panel:
     unit: str
     error_option: str = "model_error"
     invert: bool = False
+    log: bool = False
 
 
 class ObservationSet(ABC):

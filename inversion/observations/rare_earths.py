@@ -175,7 +175,7 @@ class RareEarthRatios(ObservationSet):
         return self._replace_values(new, source=self.source, transition=self.transition)
 
     def panels(self) -> tuple[Panel, ...]:
-        """One panel per ratio in the table."""
+        """One panel per ratio in the table, on a log axis (ratios span factors)."""
         out = []
         for k in self.ratios:
             num, den = RATIOS[k]
@@ -183,7 +183,8 @@ class RareEarthRatios(ObservationSet):
             out.append(Panel(key, "sigma" if key == "value" else f"{key}_sigma",
                              label=f"({num}/{den})$_N$ (cn)",
                              title=f"chondrite-normalised {num}/{den} of the pooled melt",
-                             model=f"model {num}/{den}", unit="cn"))
+                             model=f"model {num}/{den} (posterior draws)", unit="cn",
+                             log=True))
         return tuple(out)
 
     def describe(self) -> str:

@@ -240,7 +240,7 @@ def _fit_panel(block, panel, column, errors: dict[str, float], *, model=None) ->
     return dict(names=list(block.ids), obs=observed[panel.key],
                 sigma=observed[panel.sigma_key], points=points, weights=weights,
                 ylabel=panel.label, bar_label=_bar_label(block, panel, errors),
-                model_label=panel.model, invert=panel.invert,
+                model_label=panel.model, invert=panel.invert, log=panel.log,
                 title=f"{block.name}: {panel.title}"
                 + _reading_note(getattr(block, "thickness_of", None), model))
 
@@ -270,7 +270,7 @@ def _weighted_quantiles(points, weights, qs) -> np.ndarray:
 
 
 def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, bar_label,
-                    model_label, invert=False, legend_columns=4):
+                    model_label, invert=False, log=False, legend_columns=4):
     x = np.arange(len(names))
     lo95, lo68, med, hi68, hi95 = _weighted_quantiles(points, weights,
                                                       [0.025, 0.16, 0.5, 0.84, 0.975])
@@ -287,6 +287,8 @@ def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, ba
     ax.set_xlim(-0.7, len(names) - 0.3)
     ax.set_ylabel(ylabel)
     ax.grid(axis="y", alpha=0.3, lw=0.5)
+    if log:
+        ax.set_yscale("log")
     if invert:
         ax.invert_yaxis()
     for handle in handles:  # two legend columns in a journal page's width
