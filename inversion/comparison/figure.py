@@ -18,6 +18,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from ...forward import figure_style as style
+from ...forward.plotting import plain_log_axis
 from ...forward.quantities import format_percent, format_signed, quantity
 from .checks import replicate_data
 from ..study.seeds import generator
@@ -249,7 +250,7 @@ def _draw_predictive(ax, results, panels) -> None:
                  fontsize=9.5, loc="left")  # 170 characters of 9.5 pt fill the 15 in width
     ax.grid(axis="y", alpha=0.3, lw=0.5)
     if first.get("log"):
-        ax.set_yscale("log")
+        plain_log_axis(ax)
     if first.get("invert"):
         ax.invert_yaxis()
 
