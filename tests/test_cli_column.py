@@ -162,7 +162,7 @@ def test_trace_elements_adds_the_pooled_melts_ratios(capsys):
         for key, num in (("la_yb_cn", "La"), ("sm_yb_cn", "Sm"), ("dy_yb_cn", "Dy")):
             expected = (melt[num] / ci[num]) / (melt["Yb"] / ci["Yb"])
             # 2 %: the fast route's stated accuracy against the interval route
-            # (docs/model.md, "The fast route"); the CI values agree with the file to 0.5 %
+            # (docs/model.md, "The fast route"); the CI values above are those of the file
             assert float(row[key]) == pytest.approx(expected, rel=0.02)
     la_yb = {(r["potential_temperature_c"], r["lithosphere_thickness_km"]): r["la_yb_cn"]
              for r in rows}
