@@ -38,6 +38,8 @@ INPUT_KEYS = (*_NUMERIC, "parameterization", "melting_region", "crust_density",
 OUTPUT_KEYS = ("onset_depth", "top_depth", "melt_thickness", "crustal_thickness",
                "mean_melt_fraction", "max_melt_fraction", "top_melt_fraction",
                "mean_melting_pressure")
+#: With --trace-elements: chondrite-normalised ratios of the pooled melt (key -> elements).
+TRACE_KEYS = {"la_yb": ("La", "Yb"), "sm_yb": ("Sm", "Yb"), "dy_yb": ("Dy", "Yb")}
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -60,6 +62,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         parser.add_argument(f"--{name.replace('_', '-')}", type=float, default=default,
                             metavar="RHO", help=f"{quantity(name).name} "
                             f"({quantity(name).unit_text}; default {default:g})")
+    parser.add_argument("--trace-elements", action="store_true",
+                        help="also give the pooled melt's chondrite-normalised La/Yb, Sm/Yb "
+                        "and Dy/Yb (fractional melting of a Workman & Hart 2005 source, "
+                        "spinel-garnet transition 2.5-3.0 GPa; Sun & McDonough 1989 CI "
+                        "chondrite; empty where nothing melts)")
     parser.add_argument("--format", choices=("table", "csv", "json"), default="table",
                         help="output format: aligned table for people (default), or CSV / "
                         "JSON at full precision with the same keys")
@@ -133,6 +140,9 @@ class Combinations:
         self.densities = {"crust_density": args.crust_density,
                           "mantle_density": args.mantle_density}
         self.shape = tuple(len(v) for v in self.numeric.values())
+        self.trace = bool(getattr(args, "trace_elements", False))
+        #: Output keys of every row, in table order.
+        self.outputs = (*OUTPUT_KEYS, *(TRACE_KEYS if self.trace else ()))
 
     def __len__(self) -> int:
         return len(self.params) * len(self.regions) * math.prod(self.shape)
@@ -158,12 +168,13 @@ class Combinations:
         ends = {k: sorted({min(v), max(v)}) for k, v in self.numeric.items()}
         probe = argparse.Namespace(**{k: ",".join(repr(x) for x in v) for k, v in ends.items()},
                                    melting_region=",".join(self.regions),
-                                   parameterization=",".join(self.params), **self.densities)
+                                   parameterization=",".join(self.params),
+                                   trace_elements=self.trace, **self.densities)
         return [row for chunk in Combinations(probe).chunks() for row in chunk]
 
     def chunks(self, size: int | None = None) -> Iterator[list[dict]]:
         """Lists of at most `size` rows (default `CHUNK_ROWS`), each row a dict of
-        `INPUT_KEYS` and `OUTPUT_KEYS`."""
+        `INPUT_KEYS` and `outputs`."""
         size = CHUNK_ROWS if size is None else size
         n = math.prod(self.shape)
         values = [np.asarray(v, float) for v in self.numeric.values()]
@@ -176,11 +187,29 @@ class Combinations:
                 columns = {k: v.tolist() for k, v in inputs.items()}
                 columns |= {k: np.broadcast_to(getattr(res, k), index[0].shape).tolist()
                             for k in OUTPUT_KEYS}
+                if self.trace:
+                    columns |= _trace_columns(res)
                 fixed = {"parameterization": param, "melting_region": region,
                          **self.densities}
                 yield [{**{k: columns[k][i] for k in _NUMERIC}, **fixed,
-                        **{k: columns[k][i] for k in OUTPUT_KEYS}}
+                        **{k: columns[k][i] for k in self.outputs}}
                        for i in range(index[0].size)]
+
+
+def _trace_columns(res) -> dict[str, list]:
+    """`TRACE_KEYS` of the pooled melt of `res` (fast route), None where nothing melts.
+
+    Ratios of chondrite-normalised concentrations (Sun & McDonough 1989), from
+    `forward.trace.fast_trace_elements` with its defaults (docs/model.md, "Rare-earth
+    elements along the melting path").
+    """
+    from ..forward.trace import fast_trace_elements
+
+    pooled = fast_trace_elements(res)
+    melts = np.asarray(res.melt_thickness) > 0.0
+    return {key: [float(v) if m else None for v, m in zip(
+                np.ravel(pooled.ratio(*pair, normalised=True)), np.ravel(melts), strict=True)]
+            for key, pair in TRACE_KEYS.items()}
 
 
 def tabulate(args) -> list[dict]:
@@ -189,7 +218,9 @@ def tabulate(args) -> list[dict]:
 
 
 def _cell(key: str, value) -> str:
-    return quantity(key).format(value) if isinstance(value, float) else str(value)
+    if value is None or isinstance(value, float):  # None: no value (nothing melts)
+        return quantity(key).format(value)
+    return str(value)
 
 
 def _constant_line(first: dict, varying: list[str]) -> str:
@@ -264,7 +295,8 @@ def _csv_cell(value):
 
 
 def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
-               varying: list[str], extremes: list[dict] = ()) -> None:
+               varying: list[str], extremes: list[dict] = (),
+               outputs: tuple[str, ...] = OUTPUT_KEYS) -> None:
     """Write the rows chunk by chunk: an aligned table for people, or CSV / JSON at full
     precision (floats written by ``repr``, which reads back to the same number).
 
@@ -276,8 +308,10 @@ def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
     name. The table prints the inputs shared by every row once, above it, with units in
     a header line and a legend below; `varying` are the inputs that differ between rows.
     Its column widths come from the first chunk and the `extremes` rows (not written).
+    `outputs` are the output keys of the rows (`Combinations.outputs`); a missing value
+    (None) is an empty CSV cell, JSON null and the table's missing mark.
     """
-    keys = [*INPUT_KEYS, *OUTPUT_KEYS]
+    keys = [*INPUT_KEYS, *outputs]
     if fmt == "csv":
         writer = csv.writer(out, lineterminator="\n")
         writer.writerow([quantity(k).column for k in keys])
@@ -286,7 +320,7 @@ def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
         return
     if fmt == "json":
         groups = {GROUPS["input"]: list(INPUT_KEYS)}
-        for key in OUTPUT_KEYS:
+        for key in outputs:
             groups.setdefault(GROUPS[quantity(key).group], []).append(key)
         head = {"units": {k: quantity(k).unit for k in keys if quantity(k).unit},
                 "groups": groups, "columns": {k: quantity(k).column for k in keys}}
@@ -298,7 +332,7 @@ def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
                 separator = ",\n    "
         out.write("\n  ]\n}\n")
         return
-    shown = [*varying, *OUTPUT_KEYS]
+    shown = [*varying, *outputs]
     layout = None
     for rows in chunks:
         if layout is None:
@@ -313,7 +347,8 @@ def format_rows(rows: list[dict], fmt: str) -> str:
     """The rows as one string, in the format of `write_rows`."""
     buffer = io.StringIO()
     varying = [k for k in INPUT_KEYS if len({r[k] for r in rows}) > 1]
-    write_rows([rows], fmt, buffer, varying=varying)
+    outputs = (*OUTPUT_KEYS, *(k for k in TRACE_KEYS if rows and k in rows[0]))
+    write_rows([rows], fmt, buffer, varying=varying, outputs=outputs)
     return buffer.getvalue().rstrip("\n")
 
 
@@ -370,7 +405,8 @@ def run(args) -> int:
         try:
             extremes = combos.corners() if len(combos) > CHUNK_ROWS else []
             write_rows(chunks, args.format, sys.stdout, varying=combos.varying,
-                       extremes=extremes if args.format == "table" else [])
+                       extremes=extremes if args.format == "table" else [],
+                       outputs=combos.outputs)
             sys.stdout.flush()
         except BrokenPipeError:  # the reader has seen enough (`| head`): stop quietly
             os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
@@ -386,5 +422,5 @@ def run(args) -> int:
     return 0
 
 
-__all__ = ["CHUNK_ROWS", "INPUT_KEYS", "OUTPUT_KEYS", "Combinations", "add_arguments",
+__all__ = ["CHUNK_ROWS", "INPUT_KEYS", "OUTPUT_KEYS", "TRACE_KEYS", "Combinations", "add_arguments",
            "format_rows", "parse_values", "run", "tabulate", "write_rows"]

@@ -14,7 +14,7 @@ from .parameterizations import get_parameterization
 from .quantities import quantity
 
 __all__ = ["add_depth_axis", "draw_lid", "draw_melting_path", "draw_pt_diagram",
-           "label_contours", "visible_legend_entries"]
+           "label_contours", "plain_log_axis", "visible_legend_entries"]
 
 
 def _melt_fraction_grid(param, temps, pressures, water, shift):
@@ -203,3 +203,29 @@ def visible_legend_entries(ax):
         keep_h.append(handle)
         keep_l.append(label)
     return keep_h, keep_l
+
+
+def plain_log_axis(ax) -> None:
+    """Make the y-axis logarithmic with plain numbers (0.3, 1, 20), not powers of ten.
+
+    Call it after drawing. When the axis spans less than a factor of 10, minor ticks at
+    1.5, 2, 3, ... 9 times a power of ten are labelled too, and each limit is moved out
+    to the next of them when that widens the axis by less than a factor of 1.25.
+    """
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    ax.set_yscale("log")
+    plain = FuncFormatter(lambda value, _: f"{value:g}")
+    ax.yaxis.set_major_formatter(plain)
+    low, high = sorted(ax.get_ylim())  # sorted: the axis may already be inverted
+    if high / low >= 10.0:
+        ax.yaxis.set_minor_formatter(NullFormatter())
+        return
+    subs = np.array([1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0, 10.0])
+    ax.yaxis.set_minor_locator(LogLocator(subs=subs[1:-1]))
+    ax.yaxis.set_minor_formatter(plain)
+    step_low, step_high = (10.0 ** np.floor(np.log10(v)) for v in (low, high))
+    below = subs[subs <= low / step_low][-1] * step_low
+    above = subs[subs >= high / step_high][0] * step_high
+    limits = (below if low / below < 1.25 else low, above if above / high < 1.25 else high)
+    ax.set_ylim(limits[::-1] if ax.yaxis_inverted() else limits)

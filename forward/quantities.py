@@ -85,7 +85,8 @@ def format_percent(share: float, decimals: int = 1) -> str:
     return f"{value:.{decimals}f} %"
 #: Plain units -> the suffix of a table column (``<quantity>_<unit>``, the rule of the
 #: observation tables: ``thickness_km``, ``pressure_gpa``, ``temperature_c``).
-_UNIT_SUFFIX = {"degC": "c", "km": "km", "GPa": "gpa", "ppm": "ppm", "kg/m^3": "kg_m3"}
+_UNIT_SUFFIX = {"degC": "c", "km": "km", "GPa": "gpa", "ppm": "ppm", "kg/m^3": "kg_m3",
+                "cn": "cn"}
 
 
 def unit_text(unit: str) -> str:
@@ -210,6 +211,13 @@ _ALL = (
        "$F_{top}$"),
     _q("mean_melting_pressure", "GPa", "P mean", "mean melting pressure", 2, "melt",
        r"$\bar P$"),
+    # rare-earth ratios of the pooled melt ("cn": of chondrite-normalised concentrations)
+    _q("la_yb", "cn", "La/Yb", "chondrite-normalised La/Yb of the pooled melt", 3, "melt",
+       "(La/Yb)$_N$"),
+    _q("sm_yb", "cn", "Sm/Yb", "chondrite-normalised Sm/Yb of the pooled melt", 3, "melt",
+       "(Sm/Yb)$_N$"),
+    _q("dy_yb", "cn", "Dy/Yb", "chondrite-normalised Dy/Yb of the pooled melt", 3, "melt",
+       "(Dy/Yb)$_N$"),
     # axes and observed quantities
     _q("pressure", "GPa", "P", "pressure", 2, "data"),
     _q("temperature", "degC", "T", "temperature", 0, "data"),

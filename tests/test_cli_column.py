@@ -140,3 +140,41 @@ def test_a_table_build_is_never_silent(tmp_path, monkeypatch, capsys):
     assert "left" in err
     assert "built the mckenzie-bickle1988 melting table for a dry source in" in err
     assert str(tmp_path) in err
+
+
+def test_trace_elements_adds_the_pooled_melts_ratios(capsys):
+    from lidmelt.forward.trace import ELEMENTS, pooled_trace_elements
+
+    argv = ["column", "--potential-temperature", "1250,1400", "--lithosphere-thickness",
+            "46,100", "--water", "150", "--trace-elements"]
+    assert main([*argv, "--format", "csv"]) == 0
+    rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
+    assert list(rows[0])[-3:] == ["la_yb_cn", "sm_yb_cn", "dy_yb_cn"]
+    # CI chondrite, Sun & McDonough 1989, Table 1 (ppm; value from memory)
+    ci = {"La": 0.237, "Sm": 0.153, "Dy": 0.254, "Yb": 0.170}
+    for row in rows:
+        tp, lid = float(row["potential_temperature_c"]), float(row["lithosphere_thickness_km"])
+        res = melt_column(tp, lid, water=150.0)
+        if res.melt_thickness == 0.0:  # nothing melts: no ratios, empty cells
+            assert row["la_yb_cn"] == row["sm_yb_cn"] == row["dy_yb_cn"] == ""
+            continue
+        melt = dict(zip(ELEMENTS, pooled_trace_elements(res).melt, strict=True))
+        for key, num in (("la_yb_cn", "La"), ("sm_yb_cn", "Sm"), ("dy_yb_cn", "Dy")):
+            expected = (melt[num] / ci[num]) / (melt["Yb"] / ci["Yb"])
+            # 2 %: the fast route's stated accuracy against the interval route
+            # (docs/model.md, "The fast route"); the CI values above are those of the file
+            assert float(row[key]) == pytest.approx(expected, rel=0.02)
+    la_yb = {(r["potential_temperature_c"], r["lithosphere_thickness_km"]): r["la_yb_cn"]
+             for r in rows}
+    # A thicker lid stops melting deeper, in garnet, where Yb stays in the residue:
+    # the pooled melt's La/Yb rises (common practice)
+    assert float(la_yb["1400.0", "100.0"]) > 3 * float(la_yb["1400.0", "46.0"])
+    assert main([*argv, "--format", "json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["units"]["la_yb"] == "cn" and data["columns"]["la_yb"] == "la_yb_cn"
+    assert sum(r["la_yb"] is None for r in data["rows"]) == sum(r["la_yb_cn"] == ""
+                                                                for r in rows) == 1
+    assert main(argv) == 0
+    assert "La/Yb" in capsys.readouterr().out
+    assert main(argv[:-1] + ["--format", "csv"]) == 0  # without the option: no ratio columns
+    assert "la_yb_cn" not in capsys.readouterr().out

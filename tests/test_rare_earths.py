@@ -114,3 +114,37 @@ def test_recovery_with_rare_earths_and_crust():
                            strict=True):
         row = summary.loc[name]
         assert row["q2.5"] <= value <= row["q97.5"], (name, row.to_dict())
+
+
+def test_fit_panels_draw_ratios_on_a_plain_log_axis_and_the_pattern_band():
+    from lidmelt.inversion.results import figures
+    from matplotlib.figure import Figure
+
+    block = RareEarthRatios.from_frame(_frame(dy_yb_cn=[1.1, 1.3], dy_yb_sigma_cn=[0.1, 0.1]),
+                                       model_error=0.1)
+    rng = np.random.default_rng(5)
+    column = melt_column(rng.uniform(1350.0, 1450.0, 40), rng.uniform(30.0, 70.0, 40))
+    assert [p.key for p in block.panels()] == ["value", "dy_yb"]
+    fig = Figure()
+    for panel in block.panels():
+        ax = fig.add_subplot()
+        figures._draw_fit_panel(ax, **figures._fit_panel(block, panel, column, {}))
+        assert ax.get_yscale() == "log"
+        labels = [t.get_text() for t in ax.get_yticklabels(minor=True)
+                  + ax.get_yticklabels()]
+        assert labels and not any("10^" in t or "times" in t for t in labels)
+        legend = [t.get_text() for t in ax.get_legend().get_texts()]
+        assert any("model error 10 % (relative)" in t for t in legend)  # not "0.1 cn"
+    (pattern,) = block.pattern_panels(column)
+    assert pattern.items == ("La", "Ce", "Nd", "Sm", "Eu", "Gd", "Dy", "Er", "Yb", "Lu")
+    # CI chondrite, Sun & McDonough 1989, Table 1 (ppm; value from memory)
+    ci = np.array([0.237, 0.612, 0.467, 0.153, 0.058, 0.2055, 0.254, 0.1655, 0.170, 0.0254])
+    melt = fast_trace_elements(column).melt
+    np.testing.assert_allclose(pattern.draws, melt / ci, rtol=1e-9)
+    ax = fig.add_subplot()
+    figures._draw_pattern_panel(ax, pattern, title="pattern")
+    median = ax.get_lines()[0].get_ydata()
+    np.testing.assert_allclose(median, np.median(melt / ci, axis=0), rtol=1e-12)
+    assert ax.get_yscale() == "log"
+    # Light REE depleted relative to heavy in melts of a depleted source (common practice)
+    assert median[0] < median[-1]

@@ -540,3 +540,28 @@ def test_survey_nc_holds_every_site_and_opens_in_arviz(inputs, tmp_path):
     assert list(idata.constant_data["site_seed"].values) == [r["seed"] for r in
                                                              result.records]
     assert "survey.nc" in (tmp_path / "run" / "report.md").read_text(encoding="utf-8")
+def test_sites_table_reads_rare_earth_ratios_with_their_kinds_rules(tmp_path):
+    from lidmelt.forward import melt_column
+    from lidmelt.inversion.observations import CrustalThickness, RareEarthRatios
+    from lidmelt.inversion.survey import SurveySettings
+    from lidmelt.inversion.survey.sites import site_observations
+    from scipy import stats
+
+    path = tmp_path / "s.csv"
+    path.write_text("site,thickness_km,thickness_sigma_km,la_yb_cn,la_yb_sigma_cn\n"
+                    "A,6,0.5,1.5,0.15\nB,6,0.5,,\nC,6,0.5,0,0.1\n", encoding="utf-8")
+    table = read_sites(path)
+    a, b, c = table.sites
+    assert a.error is None and b.error is None
+    # the ratio rule of the rare_earths table (> 0), with file, line and column
+    assert c.error.startswith(f"{path}, line 4, column 'la_yb_cn': value 0 must be > 0")
+    sets = site_observations(a, SurveySettings(rare_earth_model_error=0.1))
+    assert [type(s) for s in sets] == [CrustalThickness, RareEarthRatios]
+    assert [type(s) for s in site_observations(b, SurveySettings())] == [CrustalThickness]
+    column = melt_column(np.array([1400.0]), np.array([40.0]))
+    model = sets[1].predict(column)["value"][0, 0]
+    # log-normal with log sd sqrt(0.1^2 + 0.1^2) (relative sigma 0.15/1.5 and the
+    # survey's relative model error), as scipy.stats.lognorm
+    expected = stats.lognorm(np.hypot(0.1, 0.1), scale=model).logpdf(1.5)
+    np.testing.assert_allclose(sets[1].pointwise_log_likelihood(column)[0, 0], expected,
+                               rtol=1e-10)

@@ -231,7 +231,11 @@ def _triangle(column, top, onset, ends, x_ends, log_cuts, first):
     return melt, residue, mass
 
 
+@cache
 def _gauss(nodes):
-    """Gauss-Legendre nodes and weights on [0, 1]."""
+    """Gauss-Legendre nodes and weights on [0, 1] (computed once per size, read-only)."""
     t, g = np.polynomial.legendre.leggauss(nodes)
-    return 0.5 * (t + 1.0), 0.5 * g
+    out = 0.5 * (t + 1.0), 0.5 * g
+    for a in out:
+        a.flags.writeable = False
+    return out

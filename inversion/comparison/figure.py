@@ -18,6 +18,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from ...forward import figure_style as style
+from ...forward.plotting import plain_log_axis
 from ...forward.quantities import format_percent, format_signed, quantity
 from .checks import replicate_data
 from ..study.seeds import generator
@@ -223,7 +224,7 @@ def _predictions(result, seed: int) -> list[dict]:
                 "names": list(block.ids), "obs": observed[panel.key],
                 "sigma": observed[panel.sigma_key], "simulated": simulated,
                 "ylabel": panel.label, "title": f"{block.name}: {panel.title}",
-                "invert": panel.invert})
+                "invert": panel.invert, "log": panel.log})
     return panels
 
 
@@ -248,6 +249,8 @@ def _draw_predictive(ax, results, panels) -> None:
                                "thick 68 %, thin 95 %, tick median)", width=170),
                  fontsize=9.5, loc="left")  # 170 characters of 9.5 pt fill the 15 in width
     ax.grid(axis="y", alpha=0.3, lw=0.5)
+    if first.get("log"):
+        plain_log_axis(ax)
     if first.get("invert"):
         ax.invert_yaxis()
 

@@ -7,7 +7,7 @@ through every part of the interface.
 """
 
 from .basalt_analyses import BasaltAnalyses
-from .base import NO_MELT_SLOPE, ObservationSet, Panel, gaussian_logpdf, melting_distance
+from .base import NO_MELT_SLOPE, ObservationSet, Panel, PatternPanel, gaussian_logpdf, melting_distance
 from .crust import THICKNESS_OF, CrustalThickness
 from .pressure import (
     EQUILIBRATION,
@@ -33,6 +33,7 @@ __all__ = [
     "MeltingPressure",
     "ObservationSet",
     "Panel",
+    "PatternPanel",
     "Table",
     "gaussian_logpdf",
     "melting_distance",

@@ -53,6 +53,7 @@ __all__ = [
     "NO_MELT_SLOPE",
     "ObservationSet",
     "Panel",
+    "PatternPanel",
     "bivariate_logpdf",
     "gaussian_logpdf",
     "melting_distance",
@@ -178,6 +179,12 @@ class Panel:
         The block's model-error setting included in the error bars (``"model_error"``).
     invert : bool
         Draw the axis increasing downwards (pressure and depth, as in the earth).
+    log : bool
+        Draw the value axis logarithmic (positive quantities spanning factors, such as
+        chondrite-normalised ratios).
+    relative_error : bool
+        The model error `error_option` is relative (a fraction, shown in %), not in
+        `unit`.
     """
 
     key: str
@@ -188,6 +195,41 @@ class Panel:
     unit: str
     error_option: str = "model_error"
     invert: bool = False
+    log: bool = False
+    relative_error: bool = False
+
+
+@dataclass(frozen=True)
+class PatternPanel:
+    """A pattern over named items (such as the rare-earth elements La...Lu) of the model.
+
+    The fit figure draws one panel per entry of `ObservationSet.pattern_panels` below the
+    block's `Panel` rows: the posterior predictive median of each item joined by a line,
+    with its 68 % and 95 % bands. Nothing observed is drawn (a kind whose table holds
+    only some items, such as ratios, has no observed pattern).
+
+    Attributes
+    ----------
+    items : tuple of str
+        Names along the x-axis, in order (m,).
+    draws : numpy.ndarray, shape (n, m)
+        The model's value of each item in each of n posterior draws.
+    label : str
+        Y-axis label with its unit.
+    title : str
+        What the panel shows, in words.
+    model : str
+        What the line and bands are, for the legend.
+    log : bool
+        Draw the y-axis logarithmic.
+    """
+
+    items: tuple[str, ...]
+    draws: np.ndarray
+    label: str
+    title: str
+    model: str
+    log: bool = False
 
 
 class ObservationSet(ABC):
@@ -447,6 +489,16 @@ class ObservationSet(ABC):
         """
         return (Panel("value", "sigma", label=f"{self.quantity.capitalize()} ({self.unit})",
                       title=self.quantity, model=f"model {self.quantity}", unit=self.unit),)
+
+    def pattern_panels(self, column) -> tuple[PatternPanel, ...]:
+        """Model patterns the fit figure draws below this block's rows (default: none).
+
+        Parameters
+        ----------
+        column : forward.MeltColumn
+            Melting columns of n posterior draws.
+        """
+        return ()
 
     def panel_draws(self, column, key: str) -> tuple[np.ndarray, np.ndarray]:
         """The model's distribution of a panel's quantity, per draw and row.

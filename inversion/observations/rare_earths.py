@@ -36,6 +36,7 @@ from .base import (
     NO_MELT_SLOPE,
     ObservationSet,
     Panel,
+    PatternPanel,
     describe_errors,
     gaussian_logpdf,
     melting_distance,
@@ -175,7 +176,7 @@ class RareEarthRatios(ObservationSet):
         return self._replace_values(new, source=self.source, transition=self.transition)
 
     def panels(self) -> tuple[Panel, ...]:
-        """One panel per ratio in the table."""
+        """One panel per ratio in the table, on a log axis (ratios span factors)."""
         out = []
         for k in self.ratios:
             num, den = RATIOS[k]
@@ -183,8 +184,24 @@ class RareEarthRatios(ObservationSet):
             out.append(Panel(key, "sigma" if key == "value" else f"{key}_sigma",
                              label=f"({num}/{den})$_N$ (cn)",
                              title=f"chondrite-normalised {num}/{den} of the pooled melt",
-                             model=f"model {num}/{den}", unit="cn"))
+                             model=f"model {num}/{den} (posterior draws)", unit="cn",
+                             log=True, relative_error=True))
         return tuple(out)
+
+    def pattern_panels(self, column) -> tuple[PatternPanel, ...]:
+        """The pooled melt's chondrite-normalised pattern La...Lu over the draws.
+
+        The table holds ratios only, so this is the model's pattern alone: what the
+        fitted ratios imply for the whole pattern (Sun & McDonough 1989 CI chondrite).
+        """
+        pooled = fast_trace_elements(column, source=self.source, transition=self.transition)
+        draws = np.reshape(pooled.normalised, (-1, len(pooled.elements)))
+        return (PatternPanel(tuple(pooled.elements), draws,
+                             label="melt / CI chondrite",
+                             title=f"chondrite-normalised pattern of the pooled melt implied "
+                             f"by the fit ({self.source} source; model only, the table "
+                             "holds ratios)",
+                             model="model pooled melt (posterior draws)", log=True),)
 
     def describe(self) -> str:
         rows = "1 sample" if len(self) == 1 else f"{len(self)} samples"

@@ -180,20 +180,26 @@ def fit_figure(posterior, *, ndraws: int = 200) -> Figure:
     blocks = list(posterior.study.observations)
     errors = _median_errors(posterior)
     panels = [block.panels() for block in blocks]
+    patterns = [block.pattern_panels(column) for block in blocks]
     joint = [_joint_data(block, column, e) for block, e in zip(blocks, errors, strict=True)]
     heights = []
-    for block_panels, pt in zip(panels, joint, strict=True):
-        heights += [1.0] * len(block_panels) + ([1.6] if pt is not None else [])
+    for block_panels, block_patterns, pt in zip(panels, patterns, joint, strict=True):
+        heights += [1.0] * (len(block_panels) + len(block_patterns))
+        heights += [1.6] if pt is not None else []
     fig = Figure(figsize=(DOUBLE_COLUMN, 1.0 + 3.0 * sum(heights)), layout="constrained")
     grid = fig.add_gridspec(len(heights), 1, height_ratios=heights)
     first, placers = 0, []
-    for block, block_panels, pt, block_errors in zip(blocks, panels, joint, errors,
-                                                     strict=True):
+    for block, block_panels, block_patterns, pt, block_errors in zip(
+            blocks, panels, patterns, joint, errors, strict=True):
         for panel in block_panels:
             _draw_fit_panel(fig.add_subplot(grid[first, 0]),
                             **_fit_panel(block, panel, column, block_errors,
                                          model=posterior.study.model),
                             legend_columns=2)
+            first += 1
+        for pattern in block_patterns:
+            _draw_pattern_panel(fig.add_subplot(grid[first, 0]), pattern,
+                                title=f"{block.name}: {pattern.title}")
             first += 1
         if pt is not None:
             placers.append(_draw_joint_panel(fig.add_subplot(grid[first, 0]), block, **pt))
@@ -220,11 +226,16 @@ def _median_errors(posterior) -> list[dict[str, float]]:
 def _bar_label(block, panel, errors: dict[str, float]) -> str:
     unit = unit_text(panel.unit)
     option = panel.error_option
+
+    def size(value: float, digits: str) -> str:
+        return (f"{100 * value:{digits}} % (relative)" if panel.relative_error
+                else f"{value:{digits}} {unit}")
+
     if option in errors:
-        return (f"observed ± 1σ, incl. model error {errors[option]:.2g} {unit} "
+        return (f"observed ± 1σ, incl. model error {size(errors[option], '.2g')} "
                 "(free; posterior median)")
     if getattr(block, option, 0.0):
-        return f"observed ± 1σ, incl. model error {getattr(block, option):g} {unit}"
+        return f"observed ± 1σ, incl. model error {size(getattr(block, option), 'g')}"
     return "observed ± 1σ (measurement only; no model error)"
 
 
@@ -240,7 +251,7 @@ def _fit_panel(block, panel, column, errors: dict[str, float], *, model=None) ->
     return dict(names=list(block.ids), obs=observed[panel.key],
                 sigma=observed[panel.sigma_key], points=points, weights=weights,
                 ylabel=panel.label, bar_label=_bar_label(block, panel, errors),
-                model_label=panel.model, invert=panel.invert,
+                model_label=panel.model, invert=panel.invert, log=panel.log,
                 title=f"{block.name}: {panel.title}"
                 + _reading_note(getattr(block, "thickness_of", None), model))
 
@@ -270,7 +281,7 @@ def _weighted_quantiles(points, weights, qs) -> np.ndarray:
 
 
 def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, bar_label,
-                    model_label, invert=False, legend_columns=4):
+                    model_label, invert=False, log=False, legend_columns=4):
     x = np.arange(len(names))
     lo95, lo68, med, hi68, hi95 = _weighted_quantiles(points, weights,
                                                       [0.025, 0.16, 0.5, 0.84, 0.975])
@@ -287,6 +298,8 @@ def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, ba
     ax.set_xlim(-0.7, len(names) - 0.3)
     ax.set_ylabel(ylabel)
     ax.grid(axis="y", alpha=0.3, lw=0.5)
+    if log:
+        plotting.plain_log_axis(ax)
     if invert:
         ax.invert_yaxis()
     for handle in handles:  # two legend columns in a journal page's width
@@ -294,6 +307,29 @@ def _draw_fit_panel(ax, *, names, obs, sigma, points, weights, ylabel, title, ba
     # The panel title heads its legend, so the two never overlap.
     ax.legend(handles=handles, fontsize=7, loc="lower left", bbox_to_anchor=(0.0, 1.0),
               ncols=legend_columns, frameon=False, title=textwrap.fill(title, width=100),
+              title_fontsize=8.5, alignment="left", borderaxespad=0.2)
+
+
+def _draw_pattern_panel(ax, pattern, *, title: str) -> None:
+    """A model pattern over named items: median line with 68 % and 95 % bands."""
+    x = np.arange(len(pattern.items))
+    lo95, lo68, med, hi68, hi95 = np.quantile(pattern.draws,
+                                              [0.025, 0.16, 0.5, 0.84, 0.975], axis=0)
+    handles = [
+        ax.fill_between(x, lo95, hi95, color=style.POSTERIOR, alpha=0.18, lw=0,
+                        label=f"{pattern.model}: 95 % range"),
+        ax.fill_between(x, lo68, hi68, color=style.POSTERIOR, alpha=0.4, lw=0,
+                        label="68 % range"),
+        ax.plot(x, med, "-o", color=style.POSTERIOR, lw=2.0, ms=3.5, label="median")[0],
+    ]
+    ax.set_xticks(x, pattern.items, fontsize=8)
+    ax.set_xlim(-0.5, len(x) - 0.5)
+    ax.set_ylabel(pattern.label)
+    ax.grid(axis="y", alpha=0.3, lw=0.5)
+    if pattern.log:
+        plotting.plain_log_axis(ax)
+    ax.legend(handles=handles, fontsize=7, loc="lower left", bbox_to_anchor=(0.0, 1.0),
+              ncols=3, frameon=False, title=textwrap.fill(title, width=100),
               title_fontsize=8.5, alignment="left", borderaxespad=0.2)
 
 

@@ -17,8 +17,10 @@ site's data come from the sites table. Keys of ``[survey]``:
     from a normal distribution around the area mean with this spread.
 ``thickness_of``
     ``"crust"`` (default) or ``"melt"``: what the sites' thickness is compared with.
-``crust_model_error``, ``pressure_model_error``, ``temperature_model_error``
-    Added in quadrature to every site's sigma (km, GPa, degC; default 0). Each is a
+``crust_model_error``, ``pressure_model_error``, ``temperature_model_error``,
+``rare_earth_model_error``
+    Added in quadrature to every site's sigma (km, GPa, degC, and for the rare-earth
+    ratios a relative error in log units, 0.1 = 10 %; default 0). Each is a
     number or, as in a study's observation blocks, a prior such as
     ``{ prior = "log-uniform", min = 0.05, max = 2.0 }``: then it is a free parameter of
     every site (its own value per site), sampled or integrated with the site's other
@@ -47,8 +49,8 @@ __all__ = ["SPREAD", "SurveySettings", "parse_survey_table"]
 SPREAD = "tp_spread"
 _SPREAD_DOMAIN = (0.0, 1000.0)  # degC; a spread beyond the whole melting range is no model
 _KEYS = ("equilibration", "tp_spread", "thickness_of", "crust_model_error",
-         "pressure_model_error", "temperature_model_error", "path_points", "grid_points",
-         "tp_nodes")
+         "pressure_model_error", "temperature_model_error", "rare_earth_model_error",
+         "path_points", "grid_points", "tp_nodes")
 
 
 @dataclass(frozen=True)
@@ -61,6 +63,7 @@ class SurveySettings:
     crust_model_error: float | Prior = 0.0
     pressure_model_error: float | Prior = 0.0
     temperature_model_error: float | Prior = 0.0
+    rare_earth_model_error: float | Prior = 0.0
     path_points: int = 64
     grid_points: int = 40_000
     tp_nodes: int = 351
@@ -96,7 +99,8 @@ def parse_survey_table(table) -> SurveySettings:
                 raise InputError(f"unknown value {table[key]!r}" + suggest(str(table[key]),
                                  valid), key=f"survey.{key}")
             values[key] = table[key]
-    for key in ("crust_model_error", "pressure_model_error", "temperature_model_error"):
+    for key in ("crust_model_error", "pressure_model_error", "temperature_model_error",
+                "rare_earth_model_error"):
         if key in table:
             values[key] = parse_error_setting(table[key], f"survey.{key}")
     for key, low, high in (("path_points", 8, 1024), ("grid_points", 1_000, 4_000_000),

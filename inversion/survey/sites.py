@@ -5,7 +5,10 @@ Columns: ``site`` (name), then the columns of each observation kind a survey rea
 (`ObservationSet.site_columns`): ``thickness_km`` (0-60 km) and ``thickness_sigma_km``
 (> 0), required; optional ``pressure_gpa`` with ``pressure_sigma_gpa``, ``temperature_c``
 with ``temperature_sigma_c`` (only beside a pressure) and ``pt_correlation`` (only beside
-a temperature); optional ``position_km`` (distance along the study area, for the profile
+a temperature); optional ``la_yb_cn`` with ``la_yb_sigma_cn`` and, beside them,
+``sm_yb_cn``/``sm_yb_sigma_cn`` and ``dy_yb_cn``/``dy_yb_sigma_cn`` (chondrite-normalised
+rare-earth ratios, kind ``rare_earths``, default source and transition); optional
+``position_km`` (distance along the study area, for the profile
 figure). Columns starting with ``note`` are remarks; any other column is refused. A line
 whose first non-blank character is ``#`` is a comment and skipped, so a site name must not
 start with ``#``; a name that CSV tools read as a missing value (``nan``, ``NA``, ...) is
@@ -33,7 +36,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..observations import CrustalThickness, MeltingPressure
+from ..observations import CrustalThickness, MeltingPressure, RareEarthRatios
 from ..observations.tables import (
     ColumnRule,
     check_row,
@@ -45,7 +48,7 @@ from ..observations.tables import (
 __all__ = ["SURVEY_KINDS", "Site", "SiteTable", "read_sites", "site_observations"]
 
 #: The observation kinds a sites file holds, in column order; every site needs the first.
-SURVEY_KINDS = (CrustalThickness, MeltingPressure)
+SURVEY_KINDS = (CrustalThickness, MeltingPressure, RareEarthRatios)
 _NAME = ColumnRule("site", numeric=False)
 _POSITION = (ColumnRule("position_km", unit="km"),)
 _KIND_GROUPS = tuple(kind.site_columns() for kind in SURVEY_KINDS)
@@ -88,6 +91,12 @@ class Site:
     temperature_c: float | None = None
     temperature_sigma_c: float | None = None
     pt_correlation: float | None = None
+    la_yb_cn: float | None = None
+    la_yb_sigma_cn: float | None = None
+    sm_yb_cn: float | None = None
+    sm_yb_sigma_cn: float | None = None
+    dy_yb_cn: float | None = None
+    dy_yb_sigma_cn: float | None = None
     error: str | None = None
     file: Path | None = None
 
@@ -256,7 +265,8 @@ def site_observations(site: Site, settings) -> list:
                MeltingPressure: dict(model_error=settings.pressure_model_error,
                                      equilibration=settings.equilibration,
                                      path_points=settings.path_points,
-                                     temperature_model_error=settings.temperature_model_error)}
+                                     temperature_model_error=settings.temperature_model_error),
+               RareEarthRatios: dict(model_error=settings.rare_earth_model_error)}
     sets = []
     for kind, groups in zip(SURVEY_KINDS, _KIND_GROUPS, strict=True):
         values = {rule.name: getattr(site, rule.name) for group in groups for rule in group
