@@ -38,6 +38,10 @@ __all__ = ["NETCDF_FILE", "PRIOR_DRAWS", "inference_data_bytes", "pointwise_log_
 NETCDF_FILE = "posterior.nc"
 #: Draws from the prior written to the ``prior`` group.
 PRIOR_DRAWS = 2000
+#: The caution every NetCDF file lidmelt writes carries in its attributes.
+CAUTION = ("Scientific estimates that depend on the chosen melting parameterization and "
+           "assumptions (docs/model.md); no basis on their own for hazard or resource "
+           "decisions.")
 _CHUNK = 4096  # draws per pointwise log-likelihood evaluation (bounded memory)
 
 
@@ -55,16 +59,24 @@ def inference_data_bytes(posterior, *, version: str | None = None) -> bytes:
     bytes
         A NetCDF-4 (HDF5) file, to be written atomically by the caller.
     """
-    import h5netcdf  # noqa: PLC0415  (h5py underneath: loaded only when writing)
-
-    buffer = io.BytesIO()
-    with h5netcdf.File(buffer, "w") as nc:
+    def fill(nc) -> None:
         nc.attrs.update(_root_attributes(posterior, version))
         kept = _kept_draws(posterior)
         _posterior_group(nc, posterior, kept)
         _log_likelihood_group(nc, posterior, kept)
         _observed_group(nc, posterior)
         _prior_group(nc, posterior)
+
+    return netcdf_bytes(fill)
+
+
+def netcdf_bytes(fill) -> bytes:
+    """The bytes of a NetCDF-4 file that ``fill(nc)`` writes into (an h5netcdf File)."""
+    import h5netcdf  # noqa: PLC0415  (h5py underneath: loaded only when writing)
+
+    buffer = io.BytesIO()
+    with h5netcdf.File(buffer, "w") as nc:
+        fill(nc)
     return buffer.getvalue()
 
 
@@ -73,18 +85,34 @@ def _kept_draws(posterior) -> np.ndarray:
     return np.swapaxes(posterior.chain[posterior.discard:], 0, 1)
 
 
-def _group(nc, name: str, dims: dict[str, int]):
+def new_group(nc, name: str, dims: dict[str, int], attrs: dict | None = None):
+    """A group with its dimensions, index coordinates for ``chain`` and ``draw``, attrs.
+
+    No "created_at": the same run gives the same bytes (run.json holds the times).
+    """
     group = nc.create_group(name)
     group.dimensions = dims
     for dim, size in dims.items():
         if dim in ("chain", "draw"):
             group.create_variable(dim, (dim,), data=np.arange(size, dtype=np.int64))
-    # no "created_at": the same run gives the same bytes (run.json holds the times)
-    group.attrs.update({"inference_library": "emcee"})
+    group.attrs.update(attrs or {})
     return group
 
 
-def _variable(group, name: str, dims: tuple, data, unit: str | None = None) -> None:
+def _group(nc, name: str, dims: dict[str, int]):
+    return new_group(nc, name, dims, {"inference_library": "emcee"})
+
+
+def write_strings(group, name: str, dims: tuple, values) -> None:
+    """A variable of text labels (site names, row labels)."""
+    import h5py  # noqa: PLC0415
+
+    group.create_variable(name, dims, dtype=h5py.string_dtype(),
+                          data=np.asarray([str(v) for v in values], dtype=object))
+
+
+def write_variable(group, name: str, dims: tuple, data, unit: str | None = None) -> None:
+    """A numeric variable, with its unit as the ``units`` attribute when it has one."""
     variable = group.create_variable(name, dims, data=np.asarray(data))
     if unit is not None:
         variable.attrs["units"] = unit
@@ -95,10 +123,10 @@ def _posterior_group(nc, posterior, kept: np.ndarray) -> None:
     group = _group(nc, "posterior", {"chain": chains, "draw": draws})
     units = posterior.logpost.units
     for j, name in enumerate(posterior.names):
-        _variable(group, name, ("chain", "draw"), kept[..., j], units.get(name))
+        write_variable(group, name, ("chain", "draw"), kept[..., j], units.get(name))
     derived = np.swapaxes(posterior.derived_chain[posterior.discard:], 0, 1)
     for j, name in enumerate(DERIVED):
-        _variable(group, name, ("chain", "draw"), derived[..., j], UNITS.get(name))
+        write_variable(group, name, ("chain", "draw"), derived[..., j], UNITS.get(name))
 
 
 def _row_dimension(block_name: str) -> str:
@@ -133,16 +161,13 @@ def _log_likelihood_group(nc, posterior, kept: np.ndarray) -> None:
     for block in blocks:
         row_dim = _row_dimension(block.name)
         _row_labels(group, row_dim, block.ids)
-        _variable(group, block.name, ("chain", "draw", row_dim),
+        write_variable(group, block.name, ("chain", "draw", row_dim),
                   pointwise[..., start:start + len(block)])
         start += len(block)
 
 
 def _row_labels(group, row_dim: str, ids) -> None:
-    import h5py  # noqa: PLC0415
-
-    group.create_variable(row_dim, (row_dim,), dtype=h5py.string_dtype(),
-                          data=np.asarray(ids, dtype=object))
+    write_strings(group, row_dim, (row_dim,), ids)
 
 
 def _observed_group(nc, posterior) -> None:
@@ -154,7 +179,7 @@ def _observed_group(nc, posterior) -> None:
         for key, values in block.observed().items():
             name = block.name if key == "value" else f"{block.name}.{key}"
             unit = block.unit if key in ("value", "sigma") else None
-            _variable(group, name, (row_dim,), np.asarray(values, float), unit)
+            write_variable(group, name, (row_dim,), np.asarray(values, float), unit)
 
 
 def _prior_group(nc, posterior) -> None:
@@ -164,7 +189,7 @@ def _prior_group(nc, posterior) -> None:
     group = _group(nc, "prior", {"chain": 1, "draw": PRIOR_DRAWS})
     units = posterior.logpost.units
     for name, prior in zip(posterior.names, posterior.logpost.priors, strict=True):
-        _variable(group, name, ("chain", "draw"),
+        write_variable(group, name, ("chain", "draw"),
                   prior.sample(rng, PRIOR_DRAWS)[None, :], units.get(name))
 
 
@@ -179,7 +204,5 @@ def _root_attributes(posterior, version: str | None) -> dict:
         "melting_region": model.melting_region,
         "converged": int(posterior.converged),
         "burn_in_steps": int(posterior.discard),
-        "caution": "Scientific estimates that depend on the chosen melting "
-                   "parameterization and assumptions (docs/model.md); no basis on their "
-                   "own for hazard or resource decisions.",
+        "caution": CAUTION,
     }

@@ -28,10 +28,15 @@ Groups:
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
 
+from ..results.netcdf import (
+    CAUTION,
+    netcdf_bytes,
+    new_group,
+    write_strings,
+    write_variable,
+)
 from .job import SITE_DRAWS
 
 __all__ = ["SURVEY_NETCDF", "survey_dataset_bytes"]
@@ -67,34 +72,24 @@ def survey_dataset_bytes(plan, folder, records: list[dict], area, units: dict) -
     bytes
         A NetCDF-4 (HDF5) file, to be written atomically by the caller.
     """
-    import h5netcdf  # noqa: PLC0415  (h5py underneath: loaded only when writing)
-
     from ..outputs.identity import lidmelt_version
 
-    buffer = io.BytesIO()
-    with h5netcdf.File(buffer, "w") as nc:
+    def fill(nc) -> None:
         nc.attrs.update(_root_attributes(plan, lidmelt_version()))
         _posterior_group(nc, folder, records, units)
         _constant_group(nc, plan, records)
         if area is not None:
             _area_group(nc, area)
-    return buffer.getvalue()
 
-
-def _strings(group, name: str, dims: tuple, values) -> None:
-    import h5py  # noqa: PLC0415
-
-    group.create_variable(name, dims, dtype=h5py.string_dtype(),
-                          data=np.asarray([str(v) for v in values], dtype=object))
+    return netcdf_bytes(fill)
 
 
 def _posterior_group(nc, folder, records: list[dict], units: dict) -> None:
     n = len(records)
-    group = nc.create_group("posterior")
-    group.dimensions = {"chain": 1, "draw": SITE_DRAWS, "site": n}
-    group.create_variable("chain", ("chain",), data=np.arange(1, dtype=np.int64))
-    group.create_variable("draw", ("draw",), data=np.arange(SITE_DRAWS, dtype=np.int64))
-    _strings(group, "site", ("site",), [r["site"] for r in records])
+    group = new_group(nc, "posterior", {"chain": 1, "draw": SITE_DRAWS, "site": n}, {
+        "inference_library": "lidmelt (grid quadrature or emcee per site)",
+        "resampling": _RESAMPLING})
+    write_strings(group, "site", ("site",), [r["site"] for r in records])
     values = {name: np.full((1, SITE_DRAWS, n), np.nan) for name in units}
     for k, record in enumerate(records):
         draws = None if record["status"].startswith("failed") else folder.read_draws(
@@ -103,31 +98,24 @@ def _posterior_group(nc, folder, records: list[dict], units: dict) -> None:
             if name in values and column.shape == (SITE_DRAWS,):
                 values[name][0, :, k] = column
     for name, unit in units.items():
-        variable = group.create_variable(name, ("chain", "draw", "site"), data=values[name])
-        if unit is not None:
-            variable.attrs["units"] = unit
-    # no "created_at": the same survey gives the same bytes (survey.json holds the run)
-    group.attrs.update({"inference_library": "lidmelt (grid quadrature or emcee per site)",
-                        "resampling": _RESAMPLING})
+        write_variable(group, name, ("chain", "draw", "site"), values[name], unit)
 
 
 def _constant_group(nc, plan, records: list[dict]) -> None:
     n = len(records)
-    group = nc.create_group("constant_data")
-    group.dimensions = {"site": n}
-    _strings(group, "site", ("site",), [r["site"] for r in records])
+    group = new_group(nc, "constant_data", {"site": n})
+    write_strings(group, "site", ("site",), [r["site"] for r in records])
     position = [np.nan if r["position_km"] is None else float(r["position_km"])
                 for r in records]
-    group.create_variable("position_km", ("site",), data=np.asarray(position, float))
-    group["position_km"].attrs["units"] = "km"
+    write_variable(group, "position_km", ("site",), np.asarray(position, float), "km")
     group.create_variable("site_seed", ("site",),
                           data=np.asarray([r["seed"] for r in records], np.int64))
     group.create_variable("converged", ("site",),
                           data=np.asarray([bool(r["converged"]) for r in records], np.int8))
     group.create_variable("line", ("site",),
                           data=np.asarray([int(r["line"]) for r in records], np.int64))
-    _strings(group, "status", ("site",), [r["status"] for r in records])
-    _strings(group, "method", ("site",), [r["method"] or "" for r in records])
+    write_strings(group, "status", ("site",), [r["status"] for r in records])
+    write_strings(group, "method", ("site",), [r["method"] or "" for r in records])
 
 
 def _area_group(nc, area) -> None:
@@ -161,7 +149,5 @@ def _root_attributes(plan, version: str) -> dict:
         "thickness_of": plan.settings.thickness_of,
         "draws_per_site": SITE_DRAWS,
         "resampling": _RESAMPLING,
-        "caution": "Scientific estimates that depend on the chosen melting "
-                   "parameterization and assumptions (docs/model.md); no basis on their "
-                   "own for hazard or resource decisions.",
+        "caution": CAUTION,
     }
