@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import contextlib
 import errno
 import os
 import shutil
+import signal
 from pathlib import Path
 
 from lidmelt import _atomic, demo_data
@@ -71,3 +73,18 @@ def assert_same_outputs(folder: Path, reference: Path) -> None:
     for name in OUTPUT_FILES:
         if name != "run.json":
             assert (folder / name).read_bytes() == (reference / name).read_bytes(), name
+
+
+@contextlib.contextmanager
+def own_signal_handlers():
+    """Python's own Ctrl-C handler for SIGINT and SIGTERM, whatever the test process
+    inherited (a background or ``nohup`` pytest ignores SIGINT; an xdist worker may have
+    its own); the inherited ones come back afterwards."""
+    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
+    signal.signal(signal.SIGINT, signal.default_int_handler)
+    signal.signal(signal.SIGTERM, signal.default_int_handler)
+    try:
+        yield
+    finally:
+        for number, handler in previous.items():
+            signal.signal(number, handler)

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import own_signal_handlers
 from lidmelt.inversion.comparison import nested_evidence
 from lidmelt.inversion.study.priors import Normal
 from toys import GaussianToy
@@ -31,14 +32,9 @@ pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
 
 
 @pytest.fixture(autouse=True)
-def own_signal_handlers():
-    """Python's own handlers, whatever the test process inherited (nohup, xdist)."""
-    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
-    signal.signal(signal.SIGINT, signal.default_int_handler)
-    signal.signal(signal.SIGTERM, signal.default_int_handler)
-    yield
-    for number, handler in previous.items():
-        signal.signal(number, handler)
+def python_signal_handlers():
+    with own_signal_handlers():  # whatever the test process inherited (nohup, xdist)
+        yield
 
 
 def _toy():

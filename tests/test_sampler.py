@@ -12,6 +12,7 @@ import emcee
 import h5py
 import numpy as np
 import pytest
+from helpers import own_signal_handlers
 from scipy import stats
 
 from lidmelt.inversion import InputError, NotConvergedWarning
@@ -26,15 +27,9 @@ from lidmelt.inversion.fitting.sampler import assess_chain, read_chain, run_chai
 
 
 @pytest.fixture(autouse=True)
-def own_signal_handlers():
-    """Python's own Ctrl-C handler for each test, whatever the process inherited (a
-    background or ``nohup`` pytest ignores SIGINT; an xdist worker may have its own)."""
-    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
-    signal.signal(signal.SIGINT, signal.default_int_handler)
-    signal.signal(signal.SIGTERM, signal.default_int_handler)
-    yield
-    for number, handler in previous.items():
-        signal.signal(number, handler)
+def python_signal_handlers():
+    with own_signal_handlers():  # whatever the test process inherited (nohup, xdist)
+        yield
 
 
 class LinearGaussian:
