@@ -88,3 +88,14 @@ def own_signal_handlers():
     finally:
         for number, handler in previous.items():
             signal.signal(number, handler)
+
+
+def cli_refused(capsys, *argv) -> str:
+    """Run the command line; assert exit 2 with one stderr line and no traceback."""
+    from lidmelt.cli import main
+
+    code = main(list(argv))
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err, err
+    return err

@@ -7,7 +7,7 @@ import errno
 from pathlib import Path
 
 import pytest
-from helpers import small_study
+from helpers import small_study, cli_refused
 from lidmelt import inversion
 from lidmelt.cli import fit as cli_fit
 from lidmelt.cli import main
@@ -15,12 +15,7 @@ from lidmelt.cli import main
 CRUST_HEAD = "site,thickness_km,thickness_sigma_km\n"
 
 
-def _refused(capsys, *argv) -> str:
-    code = main(list(argv))
-    err = capsys.readouterr().err
-    assert code == 2, err
-    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err, err
-    return err
+_refused = cli_refused  # exit 2, one line, no traceback
 
 
 @pytest.mark.parametrize("which", ["study.toml", "crust.csv"])

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import small_study
+from helpers import small_study, cli_refused
 from lidmelt.cli import main
 from lidmelt.inversion import InputError
 from lidmelt.inversion.outputs.folder import (
@@ -36,12 +36,7 @@ def _snapshot(folder: Path) -> dict:
     return {p: (p.read_bytes() if p.is_file() else None) for p in sorted(folder.rglob("*"))}
 
 
-def _refused(capsys, *argv) -> str:
-    code = main(list(argv))
-    err = capsys.readouterr().err
-    assert code == 2, err
-    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err, err
-    return err
+_refused = cli_refused  # exit 2, one line, no traceback
 
 
 @pytest.fixture
