@@ -516,9 +516,10 @@ def _draw_lid_band(ax, posterior, mantle_density) -> None:
         if lid > 0:
             plotting.draw_lid(ax, lid / km, label=f"lid base {lid:g} km (fixed)")
         return
-    lid = posterior.samples["lithosphere_thickness"].to_numpy()
-    lo, med, hi = np.quantile(lid, [0.16, 0.5, 0.84])
-    d = decimals(float(np.std(lid)))
+    # the numbers of summary.csv and report.md (every kept step, not the thinned samples)
+    row = posterior.summary().set_index("parameter").loc["lithosphere_thickness"]
+    lo, med, hi = (float(row[q]) for q in ("q16", "median", "q84"))
+    d = decimals(float(row["sd"]))
     ax.axhspan(lo / km, hi / km, color=style.LID, alpha=0.16, lw=0, zorder=1,
                label=f"lid base, 68 % range {lo:.{d}f} to {hi:.{d}f} km")
     plotting.draw_lid(ax, med / km, label=f"lid base, posterior median {med:.{d}f} km")
