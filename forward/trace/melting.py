@@ -74,8 +74,8 @@ class TraceElements:
 
     @cached_property
     def normalised(self) -> np.ndarray:
-        """The melt over CI chondrite (Sun & McDonough 1989), shape (..., 10)."""
-        return self.melt / chondrite()
+        """The melt over CI chondrite (Sun & McDonough 1989), shape (..., e)."""
+        return self.melt / chondrite()[[ELEMENTS.index(e) for e in self.elements]]
 
     @property
     def la_yb(self) -> np.ndarray:

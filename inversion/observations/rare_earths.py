@@ -127,7 +127,10 @@ class RareEarthRatios(ObservationSet):
         return combine_sigma(self._log_stated[key], self.model_error, "model_error", errors)
 
     def _model(self, column) -> dict[str, np.ndarray]:
-        pooled = fast_trace_elements(column, source=self.source, transition=self.transition)
+        # only the elements of the table's ratios: each element is computed on its own
+        used = {e for k in self.ratios for e in RATIOS[k]}
+        pooled = fast_trace_elements(column, source=self.source, transition=self.transition,
+                                     elements=tuple(used))
         return {k: pooled.ratio(*RATIOS[k], normalised=True) for k in self.ratios}
 
     def pointwise_log_likelihood(self, column, *, parameters: Mapping | None = None,
