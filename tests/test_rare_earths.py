@@ -137,7 +137,8 @@ def test_fit_panels_draw_ratios_on_a_plain_log_axis_and_the_pattern_band():
         assert any("model error 10 % (relative)" in t for t in legend)  # not "0.1 cn"
     (pattern,) = block.pattern_panels(column)
     assert pattern.items == ("La", "Ce", "Nd", "Sm", "Eu", "Gd", "Dy", "Er", "Yb", "Lu")
-    # CI chondrite, Sun & McDonough 1989, Table 1 (ppm; value from memory)
+    # CI chondrite, Sun & McDonough 1989, Table 1 (ppm), as quoted by the reference
+    # libraries pyrolite (Chondrite_SM89) and georefdatar
     ci = np.array([0.237, 0.612, 0.467, 0.153, 0.058, 0.2055, 0.254, 0.1655, 0.170, 0.0254])
     melt = fast_trace_elements(column).melt
     np.testing.assert_allclose(pattern.draws, melt / ci, rtol=1e-9)

@@ -61,7 +61,7 @@ def test_default_intervals_converged(region):
 def test_garnet_signature_grows_with_the_lid():
     # common practice: once the lid cuts off the spinel field, the pooled melt comes
     # more and more from garnet lherzolite, which holds back Yb (D_gt(Yb) = 4.03, McKenzie
-    # & O'Nions 1991), so Dy/Yb and Sm/Yb rise with the lid
+    # & O'Nions 1991, value from memory), so Dy/Yb and Sm/Yb rise with the lid
     lids = np.array([50.0, 60.0, 70.0, 78.0, 84.0])
     for region in REGIONS:
         out = pooled_trace_elements(melt_column(1350.0, lids, melting_region=region))

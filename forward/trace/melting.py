@@ -23,9 +23,9 @@ from .tables import ELEMENTS, chondrite, partition_coefficients, source_composit
 __all__ = ["DEFAULT_INTERVALS", "DEFAULT_TRANSITION", "TraceElements",
            "melt_along_path", "pooled_trace_elements"]
 
-# Spinel to garnet lherzolite, GPa: garnet-in near 2.8 GPa at the solidus of fertile
-# peridotite (Robinson & Wood 1998) and a divariant interval of a few tenths of a GPa
-# (Klemme & O'Neill 2000); docs/model.md.
+# Spinel to garnet lherzolite, GPa (value from memory): near-solidus transition in CMAS
+# at 2.6-2.7 GPa at 1500 degC (Klemme & O'Neill 2000, abstract); garnet-in near 2.8 GPa
+# at the solidus of fertile peridotite (Robinson & Wood 1998, not checked); docs/model.md.
 DEFAULT_TRANSITION = (2.5, 3.0)
 # equal-pressure intervals of the path: the convergence test (tests/test_trace_melting.py)
 # puts every pooled concentration within 0.5 % of a 1024-interval path for Tp 1250-1650
