@@ -149,3 +149,40 @@ def test_fit_panels_draw_ratios_on_a_plain_log_axis_and_the_pattern_band():
     assert ax.get_yscale() == "log"
     # Light REE depleted relative to heavy in melts of a depleted source (common practice)
     assert median[0] < median[-1]
+
+
+@pytest.mark.parametrize("region", ["column", "triangle"])
+def test_fast_route_blocks_subsets_and_shapes_agree_with_one_pass(region):
+    # more points than one block (1024), in a 2-D shape: the blocks, an element subset
+    # and the sigma-only table read give the numbers of the whole set, element by element
+    from lidmelt.forward import _aligned
+    from lidmelt.forward.trace import fast
+
+    rng = np.random.default_rng(11)
+    tp, lid = rng.uniform(1250.0, 1650.0, (3, 700)), rng.uniform(0.0, 150.0, (3, 700))
+    res = melt_column(tp, lid, water=rng.choice([0.0, 400.0], (3, 700)),
+                      melting_region=region)
+    whole = fast_trace_elements(res)
+    assert whole.melt.shape == (3, 700, 10) and whole.melt_mass.shape == (3, 700)
+    # a few points on their own (one block) give the same as within the blocks (the
+    # third row's lie in the second block)
+    alone = fast_trace_elements(melt_column(tp[:, :5], lid[:, :5], water=res.water[:, :5],
+                                            melting_region=region))
+    np.testing.assert_allclose(alone.melt, whole.melt[:, :5], rtol=1e-12)
+    np.testing.assert_allclose(alone.residue, whole.residue[:, :5], rtol=1e-9, atol=1e-15)
+    some = fast_trace_elements(res, elements=("Yb", "La"))
+    assert some.elements == ("La", "Yb")  # ELEMENTS order, whatever the order asked
+    np.testing.assert_allclose(some.melt, whole.melt[..., [0, 8]], rtol=1e-12)
+    np.testing.assert_allclose(some.ratio("La", "Yb", normalised=True),
+                               whole.ratio("La", "Yb", normalised=True), rtol=1e-12)
+    # the sigma-only read equals F from the full corner states
+    points = fast._Points.of(res)
+    pressure = np.linspace(points.top, np.maximum(points.onset, points.top), 5)
+    c = _aligned.corner_states(points.param, points.table,
+                               (points.flats[:, None], points.weights[:, None]),
+                               points.onset, np.minimum(pressure, points.onset))
+    full = np.einsum("k...,k...->...", c.weights,
+                     points.param.dry_fraction(c.sigma, c.pressure)) * points.trust
+    np.testing.assert_allclose(points.fractions(pressure), full, rtol=0, atol=1e-15)
+    with pytest.raises(ValueError, match="elements"):
+        fast_trace_elements(res, elements=("La", "Pr"))
