@@ -41,6 +41,7 @@ from .tables import ELEMENTS, partition_coefficients
 __all__ = ["fast_trace_elements"]
 
 _CUTS = 2  # X read at the transition's ends and middle: quadratic in P across it
+_CUT_SHARES = np.linspace(0.0, 1.0, _CUTS + 1)[:, None]
 _TRANSITION_NODES = 3  # Gauss nodes per half of the transition
 _TRIANGLE_NODES = 3  # Gauss nodes in the triangle's spinel range
 _GARNET_NODES = 6  # Gauss nodes in the triangle's garnet range
@@ -237,7 +238,8 @@ def _pooled(points: _Points, region, lo, hi, picked):
     """Pooled melt and residue over C0, (e, N), and melt mass (N,) of some points."""
     top, onset = points.top, np.maximum(points.onset, points.top)
     # the transition's ends and _CUTS - 1 pressures between, clipped to the path
-    ends = np.linspace(np.clip(lo, top, onset), np.clip(hi, top, onset), _CUTS + 1)
+    shallow = np.clip(lo, top, onset)
+    ends = shallow + (np.clip(hi, top, onset) - shallow) * _CUT_SHARES
     pressure = ends if region == "column" else np.concatenate(
         [ends, _triangle_nodes(top, onset, ends)])  # read the table once
     f = points.fractions(pressure)
