@@ -186,3 +186,46 @@ def test_fast_route_blocks_subsets_and_shapes_agree_with_one_pass(region):
     np.testing.assert_allclose(points.fractions(pressure), full, rtol=0, atol=1e-15)
     with pytest.raises(ValueError, match="elements"):
         fast_trace_elements(res, elements=("La", "Pr"))
+
+
+def test_user_given_source_from_a_study_file(tmp_path):
+    # a source given as a TOML table of the ten elements in ppm is the model's source:
+    # each element melts on its own and linearly in C0, so the pooled La/Yb scales with
+    # the source's La/Yb exactly (linearity of Shaw 1970 fractional melting)
+    from lidmelt import inversion
+    from lidmelt.forward.trace import ELEMENTS, source_composition
+
+    dmm = {e: float(v) for e, v in zip(ELEMENTS, source_composition("workman_hart_2005"),
+                                       strict=True)}
+    given = dmm | {"La": 2.0 * dmm["La"]}
+    (tmp_path / "crust.csv").write_text("site,thickness_km,thickness_sigma_km\nA,7.0,0.5\n")
+    (tmp_path / "ree.csv").write_text("sample,la_yb_cn,la_yb_sigma_cn\na,1.5,0.1\n")
+    table = ", ".join(f"{e} = {v!r}" for e, v in given.items())
+    (tmp_path / "study.toml").write_text(
+        '[study]\nname = "t"\n[parameters]\npotential_temperature = { value = 1400.0 }\n'
+        'lithosphere_thickness = { prior = "uniform", min = 10.0, max = 100.0 }\n'
+        '[[observations]]\nkind = "crustal_thickness"\nfile = "crust.csv"\n'
+        f'[[observations]]\nkind = "rare_earths"\nfile = "ree.csv"\nsource = {{ {table} }}\n')
+    study = inversion.Study.from_file(tmp_path / "study.toml")
+    block = study.observations[1]
+    assert block.source == given and "user-given source: La 0.384" in block.describe()
+    reference = RareEarthRatios.from_frame(block.data, model_error=0.1)
+    column = melt_column(np.array([1350.0, 1450.0]), np.array([10.0, 60.0]))
+    np.testing.assert_allclose(block.predict(column)["value"],
+                               2.0 * reference.predict(column)["value"], rtol=1e-12)
+
+
+@pytest.mark.parametrize("source, message", [
+    ({"La": 0.2}, "gives no value for Ce, Nd"),
+    ({"La": 0.2, "Pr": 0.1}, "unknown element 'Pr'"),
+    ("dmm", "unknown source 'dmm'"),
+    (3.0, "must be a source name"),
+])
+def test_user_given_source_is_checked(source, message):
+    from lidmelt.forward.trace import ELEMENTS
+
+    with pytest.raises(InputError, match=message):
+        RareEarthRatios.from_frame(_frame(), source=source)
+    full = {e: 0.1 for e in ELEMENTS} | {"Yb": -1.0}
+    with pytest.raises(InputError, match="Yb must be a concentration > 0"):
+        RareEarthRatios.from_frame(_frame(), source=full)

@@ -18,7 +18,8 @@ errors mostly relative, so the likelihood is log-normal:
 
 with ``model_error`` a relative (log-unit) error of the model ratios (0.1: 10 %), fixed
 or free. Block options: ``source`` (a packaged source composition, default
-"workman_hart_2005", Workman & Hart 2005 DMM) and ``transition`` ([p_lo, p_hi] GPa,
+"workman_hart_2005", Workman & Hart 2005 DMM, or a table of the ten elements in ppm) and
+``transition`` ([p_lo, p_hi] GPa,
 default [2.5, 3.0]: garnet-in near 2.8 GPa, Robinson & Wood 1998; Klemme & O'Neill 2000).
 Rows also get the no-melt penalty of `inversion.observations.base` (an analysed basalt
 records melt).
@@ -30,7 +31,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from ...forward.trace import DEFAULT_TRANSITION, SOURCES, fast_trace_elements
+from ...forward.trace import DEFAULT_TRANSITION, ELEMENTS, SOURCES, fast_trace_elements
 from ..errors import InputError, suggest
 from .base import (
     NO_MELT_SLOPE,
@@ -70,8 +71,9 @@ class RareEarthRatios(ObservationSet):
     file, lines : as for every kind.
     model_error : float or Prior
         Relative error of the model ratios (log units), added in quadrature in log space.
-    source : str
-        A packaged source composition (``forward.trace.SOURCES``).
+    source : str or mapping
+        A packaged source composition (``forward.trace.SOURCES``), or the ten elements
+        La ... Lu in ppm (a mapping, e.g. a TOML table in the study file).
     transition : (float, float)
         GPa, the spinel-garnet transition interval (0 <= p_lo < p_hi).
     """
@@ -85,10 +87,12 @@ class RareEarthRatios(ObservationSet):
     option_keys = ("source", "transition")
 
     def __init__(self, data, *, file=None, model_error=0.0, lines=None,
-                 source: str = "workman_hart_2005",
+                 source: str | Mapping[str, float] = "workman_hart_2005",
                  transition: tuple[float, float] = DEFAULT_TRANSITION) -> None:
         super().__init__(data, file=file, model_error=model_error, lines=lines)
-        self.source, self.transition = source, tuple(float(v) for v in transition)
+        self.source = source if isinstance(source, str) else {e: float(source[e])
+                                                              for e in ELEMENTS}
+        self.transition = tuple(float(v) for v in transition)
         self.ratios = tuple(k for k in RATIOS if f"{k}_cn" in data.columns)
         observed = {k: np.asarray(data[f"{k}_cn"], float) for k in self.ratios}
         stated = {k: np.asarray(data[f"{k}_sigma_cn"], float) / observed[k]
@@ -108,10 +112,7 @@ class RareEarthRatios(ObservationSet):
 
     @classmethod
     def _parse_options(cls, spec: Mapping, where: str) -> dict:
-        source = spec.get("source", "workman_hart_2005")
-        if source not in SOURCES:
-            raise InputError(f"unknown source {source!r}" + suggest(str(source), SOURCES),
-                             key=f"{where}.source")
+        source = _parsed_source(spec.get("source", "workman_hart_2005"), f"{where}.source")
         transition = spec.get("transition", list(DEFAULT_TRANSITION))
         try:
             lo, hi = (float(v) for v in transition)
@@ -122,6 +123,17 @@ class RareEarthRatios(ObservationSet):
             raise InputError(f"must be [p_lo, p_hi] GPa with 0 <= p_lo < p_hi <= 10, not "
                              f"[{lo:g}, {hi:g}]", key=f"{where}.transition")
         return {"source": source, "transition": (lo, hi)}
+
+    @property
+    def source_label(self) -> str:
+        """The source's name, or "user-given source: La ... ppm" for given values."""
+        if isinstance(self.source, str):
+            return f"{self.source} source"
+        values = ", ".join(f"{e} {self.source[e]:.4g}" for e in ELEMENTS)
+        return f"user-given source: {values} ppm"
+
+    def _short_source(self) -> str:
+        return self.source_label if isinstance(self.source, str) else "user-given source"
 
     def _log_sd(self, key: str, errors: Mapping | None) -> np.ndarray:
         return combine_sigma(self._log_stated[key], self.model_error, "model_error", errors)
@@ -202,7 +214,7 @@ class RareEarthRatios(ObservationSet):
         return (PatternPanel(tuple(pooled.elements), draws,
                              label="melt / CI chondrite",
                              title=f"chondrite-normalised pattern of the pooled melt implied "
-                             f"by the fit ({self.source} source; model only, the table "
+                             f"by the fit ({self._short_source()}; model only, the table "
                              "holds ratios)",
                              model="model pooled melt (posterior draws)", log=True),)
 
@@ -210,5 +222,34 @@ class RareEarthRatios(ObservationSet):
         rows = "1 sample" if len(self) == 1 else f"{len(self)} samples"
         names = ", ".join("/".join(RATIOS[k]) for k in self.ratios)
         return (f"{rows} of chondrite-normalised {names} from {self.name}, compared with "
-                f"the pooled fractional melt ({self.source} source)"
+                f"the pooled fractional melt ({self.source_label})"
                 + describe_errors(self, {"model_error": "(relative)"}))
+
+
+def _parsed_source(source, key: str) -> str | dict[str, float]:
+    """A packaged source's name, or a table of the ten elements in ppm (checked)."""
+    if isinstance(source, str):
+        if source not in SOURCES:
+            raise InputError(f"unknown source {source!r}" + suggest(source, SOURCES)
+                             + "; or give a table of La ... Lu in ppm", key=key)
+        return source
+    if not isinstance(source, Mapping):
+        raise InputError(f"must be a source name ({', '.join(SOURCES)}) or a table of "
+                         f"{', '.join(ELEMENTS)} in ppm", key=key)
+    for name in source:
+        if name not in ELEMENTS:
+            raise InputError(f"unknown element {name!r}" + suggest(str(name), ELEMENTS),
+                             key=key)
+    missing = [e for e in ELEMENTS if e not in source]
+    if missing:
+        raise InputError(f"gives no value for {', '.join(missing)}: a source gives all of "
+                         f"{', '.join(ELEMENTS)} in ppm", key=key)
+    values = {}
+    for e in ELEMENTS:
+        value = source[e]
+        if isinstance(value, bool) or not isinstance(value, (int, float)) \
+                or not np.isfinite(value) or value <= 0.0:
+            raise InputError(f"{e} must be a concentration > 0 in ppm, not {value!r}",
+                             key=f"{key}.{e}")
+        values[e] = float(value)
+    return values
