@@ -565,3 +565,27 @@ def test_sites_table_reads_rare_earth_ratios_with_their_kinds_rules(tmp_path):
     expected = stats.lognorm(np.hypot(0.1, 0.1), scale=model).logpdf(1.5)
     np.testing.assert_allclose(sets[1].pointwise_log_likelihood(column)[0, 0], expected,
                                rtol=1e-10)
+
+
+def test_survey_rare_earth_source_and_transition_reach_every_site(tmp_path):
+    # [survey] rare_earth_source / rare_earth_transition are the sites' block options,
+    # checked as a rare_earths block's are
+    from lidmelt.forward.trace import ELEMENTS
+    from lidmelt.inversion import InputError
+    from lidmelt.inversion.study.survey_table import parse_survey_table
+    from lidmelt.inversion.survey.sites import site_observations
+
+    path = tmp_path / "s.csv"
+    path.write_text("site,thickness_km,thickness_sigma_km,la_yb_cn,la_yb_sigma_cn\n"
+                    "A,6,0.5,1.5,0.15\n", encoding="utf-8")
+    source = {e: 0.1 * (k + 1) for k, e in enumerate(ELEMENTS)}
+    settings = parse_survey_table({"rare_earth_source": source,
+                                   "rare_earth_transition": [2.2, 2.9]})
+    (site,) = read_sites(path).sites
+    ree = site_observations(site, settings)[1]
+    assert ree.source == source and ree.transition == (2.2, 2.9)
+    assert parse_survey_table({}).rare_earth_source == "workman_hart_2005"
+    with pytest.raises(InputError, match="survey.rare_earth_source.*unknown source"):
+        parse_survey_table({"rare_earth_source": "nope"})
+    with pytest.raises(InputError, match="survey.rare_earth_transition"):
+        parse_survey_table({"rare_earth_transition": [3.0, 2.0]})

@@ -46,7 +46,7 @@ from .base import (
 from .model_error import combine_sigma
 from .tables import ColumnRule
 
-__all__ = ["RATIOS", "RareEarthRatios"]
+__all__ = ["RATIOS", "RareEarthRatios", "parse_source", "parse_transition"]
 
 #: Ratio key -> (numerator, denominator); the first is required in every table.
 RATIOS = {"la_yb": ("La", "Yb"), "sm_yb": ("Sm", "Yb"), "dy_yb": ("Dy", "Yb")}
@@ -112,17 +112,10 @@ class RareEarthRatios(ObservationSet):
 
     @classmethod
     def _parse_options(cls, spec: Mapping, where: str) -> dict:
-        source = _parsed_source(spec.get("source", "workman_hart_2005"), f"{where}.source")
-        transition = spec.get("transition", list(DEFAULT_TRANSITION))
-        try:
-            lo, hi = (float(v) for v in transition)
-        except (TypeError, ValueError):
-            raise InputError("must be two pressures [p_lo, p_hi] in GPa",
-                             key=f"{where}.transition") from None
-        if not (np.isfinite(lo) and np.isfinite(hi) and 0.0 <= lo < hi <= 10.0):
-            raise InputError(f"must be [p_lo, p_hi] GPa with 0 <= p_lo < p_hi <= 10, not "
-                             f"[{lo:g}, {hi:g}]", key=f"{where}.transition")
-        return {"source": source, "transition": (lo, hi)}
+        source = parse_source(spec.get("source", "workman_hart_2005"), f"{where}.source")
+        transition = parse_transition(spec.get("transition", list(DEFAULT_TRANSITION)),
+                                      f"{where}.transition")
+        return {"source": source, "transition": transition}
 
     @property
     def source_label(self) -> str:
@@ -226,7 +219,7 @@ class RareEarthRatios(ObservationSet):
                 + describe_errors(self, {"model_error": "(relative)"}))
 
 
-def _parsed_source(source, key: str) -> str | dict[str, float]:
+def parse_source(source, key: str) -> str | dict[str, float]:
     """A packaged source's name, or a table of the ten elements in ppm (checked)."""
     if isinstance(source, str):
         if source not in SOURCES:
@@ -253,3 +246,15 @@ def _parsed_source(source, key: str) -> str | dict[str, float]:
                              key=f"{key}.{e}")
         values[e] = float(value)
     return values
+
+
+def parse_transition(transition, key: str) -> tuple[float, float]:
+    """The spinel-garnet transition [p_lo, p_hi] in GPa, checked (0 <= p_lo < p_hi <= 10)."""
+    try:
+        lo, hi = (float(v) for v in transition)
+    except (TypeError, ValueError):
+        raise InputError("must be two pressures [p_lo, p_hi] in GPa", key=key) from None
+    if not (np.isfinite(lo) and np.isfinite(hi) and 0.0 <= lo < hi <= 10.0):
+        raise InputError(f"must be [p_lo, p_hi] GPa with 0 <= p_lo < p_hi <= 10, not "
+                         f"[{lo:g}, {hi:g}]", key=key)
+    return lo, hi

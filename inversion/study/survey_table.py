@@ -25,6 +25,10 @@ site's data come from the sites table. Keys of ``[survey]``:
     ``{ prior = "log-uniform", min = 0.05, max = 2.0 }``: then it is a free parameter of
     every site (its own value per site), sampled or integrated with the site's other
     parameters and reported in its rows.
+``rare_earth_source``, ``rare_earth_transition``
+    The source and the spinel-garnet transition of every site's rare-earth ratios, as the
+    ``source`` and ``transition`` of a ``rare_earths`` block (default
+    ``"workman_hart_2005"`` and ``[2.5, 3.0]`` GPa).
 ``path_points``
     Path intervals for ``"path"`` and ``"pooled"`` temperatures (default 64).
 ``grid_points``
@@ -40,7 +44,9 @@ from dataclasses import dataclass
 
 from ..errors import InputError, suggest
 from ..observations import EQUILIBRATION, THICKNESS_OF
+from ...forward.trace import DEFAULT_TRANSITION
 from ..observations.model_error import parse_error_setting
+from ..observations.rare_earths import parse_source, parse_transition
 from .priors import Prior, prior_from_spec
 
 __all__ = ["SPREAD", "SurveySettings", "parse_survey_table"]
@@ -50,7 +56,8 @@ SPREAD = "tp_spread"
 _SPREAD_DOMAIN = (0.0, 1000.0)  # degC; a spread beyond the whole melting range is no model
 _KEYS = ("equilibration", "tp_spread", "thickness_of", "crust_model_error",
          "pressure_model_error", "temperature_model_error", "rare_earth_model_error",
-         "path_points", "grid_points", "tp_nodes")
+         "rare_earth_source", "rare_earth_transition", "path_points", "grid_points",
+         "tp_nodes")
 
 
 @dataclass(frozen=True)
@@ -64,6 +71,8 @@ class SurveySettings:
     pressure_model_error: float | Prior = 0.0
     temperature_model_error: float | Prior = 0.0
     rare_earth_model_error: float | Prior = 0.0
+    rare_earth_source: str | dict = "workman_hart_2005"
+    rare_earth_transition: tuple[float, float] = DEFAULT_TRANSITION
     path_points: int = 64
     grid_points: int = 40_000
     tp_nodes: int = 351
@@ -107,6 +116,12 @@ def parse_survey_table(table) -> SurveySettings:
                            ("tp_nodes", 41, 4_001)):
         if key in table:
             values[key] = _whole(table[key], low, high, f"survey.{key}")
+    if "rare_earth_source" in table:
+        values["rare_earth_source"] = parse_source(table["rare_earth_source"],
+                                                   "survey.rare_earth_source")
+    if "rare_earth_transition" in table:
+        values["rare_earth_transition"] = parse_transition(table["rare_earth_transition"],
+                                                           "survey.rare_earth_transition")
     if SPREAD in table:
         values[SPREAD] = _spread_prior(table[SPREAD])
     return SurveySettings(**values)

@@ -7,7 +7,7 @@ Columns: ``site`` (name), then the columns of each observation kind a survey rea
 with ``temperature_sigma_c`` (only beside a pressure) and ``pt_correlation`` (only beside
 a temperature); optional ``la_yb_cn`` with ``la_yb_sigma_cn`` and, beside them,
 ``sm_yb_cn``/``sm_yb_sigma_cn`` and ``dy_yb_cn``/``dy_yb_sigma_cn`` (chondrite-normalised
-rare-earth ratios, kind ``rare_earths``, default source and transition); optional
+rare-earth ratios, kind ``rare_earths``, with the ``[survey]`` source and transition); optional
 ``position_km`` (distance along the study area, for the profile
 figure). Columns starting with ``note`` are remarks; any other column is refused. A line
 whose first non-blank character is ``#`` is a comment and skipped, so a site name must not
@@ -266,7 +266,9 @@ def site_observations(site: Site, settings) -> list:
                                      equilibration=settings.equilibration,
                                      path_points=settings.path_points,
                                      temperature_model_error=settings.temperature_model_error),
-               RareEarthRatios: dict(model_error=settings.rare_earth_model_error)}
+               RareEarthRatios: dict(model_error=settings.rare_earth_model_error,
+                                     source=settings.rare_earth_source,
+                                     transition=settings.rare_earth_transition)}
     sets = []
     for kind, groups in zip(SURVEY_KINDS, _KIND_GROUPS, strict=True):
         values = {rule.name: getattr(site, rule.name) for group in groups for rule in group
