@@ -617,3 +617,29 @@ def test_partial_rare_earth_rows_fail_their_site_with_line_and_column(tmp_path):
     block = site_observations(sites["F"], SurveySettings())[1]
     assert isinstance(block, RareEarthRatios) and block.ratios == ("la_yb", "dy_yb")
     assert site_observations(sites["G"], SurveySettings())[1:] == []
+
+
+#: What lidmelt itself writes on standard error: its own lines and its progress bars.
+_OWN_STDERR = re.compile(r"^(lidmelt( survey)?: |(sites|Tp likelihoods|site posteriors): "
+                         r"+\d+%\|)")
+
+
+@pytest.mark.parametrize("mode", ["independent", "joint"])
+def test_survey_stderr_holds_only_lidmelt_lines(tmp_path, mode):
+    # a fresh interpreter with Python's default warning filters, as a user runs it (the
+    # test process's own filters would hide or record a raw warning); two workers, a
+    # site with a pressure and one failing on a bad value, progress bars on
+    study = write_study(tmp_path, extra_survey="grid_points = 4000\ntp_nodes = 61")
+    sites = tmp_path / "sites.csv"
+    sites.write_text(_SITES + "A,0,9.6,0.4,0.57,0.1\nB,10,7.8,0.4,,\nC,20,5.1,0.4,1.2,0.1\n"
+                     "D,30,6.0,-0.4,,\n", encoding="utf-8")
+    run = subprocess.run([sys.executable, "-m", "lidmelt.cli", "survey", str(study),
+                          "--sites", str(sites), "--out", str(tmp_path / "out"),
+                          "--mode", mode, "--workers", "2"],
+                         capture_output=True, text=True, timeout=300)
+    assert run.returncode == 0, run.stderr
+    lines = [line for line in re.split(r"[\r\n]+", run.stderr) if line.strip()]
+    assert any(line.startswith("lidmelt survey: site 'D': failed:") for line in lines)
+    for word in ("Warning", "Traceback"):
+        assert word not in run.stderr, run.stderr
+    assert all(_OWN_STDERR.match(line) for line in lines), run.stderr
