@@ -95,10 +95,10 @@ def run_fit(load_study, args: argparse.Namespace) -> int:
         warnings.simplefilter("always")
         try:
             posterior = _fit(load_study(), args, out)
-        except KeyboardInterrupt:
+        except KeyboardInterrupt as stop:
             interrupts.silence()
             _print_warnings(caught)
-            _say_interrupted(out)
+            _say_interrupted(out, stop)
             return 130
         except WriteError as err:
             _print_warnings(caught)
@@ -136,9 +136,14 @@ def _print_warnings(caught, posterior=None) -> None:
         print(f"lidmelt: warning: {line}", file=sys.stderr)
 
 
-def _say_interrupted(out: Path) -> None:
+def _say_interrupted(out: Path, stop: KeyboardInterrupt) -> None:
+    from ..inversion.errors import InterruptedWhenComplete
     from ..inversion.fitting.checkpoint import stored_steps
 
+    if isinstance(stop, InterruptedWhenComplete):
+        print(f"lidmelt: interrupted as the results were finished; {stop.folder}/ is "
+              "complete and nothing is left to resume", file=sys.stderr)
+        return
     partial = out.with_name(out.name + ".partial")
     steps = stored_steps(partial)
     if steps:

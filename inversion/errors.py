@@ -12,8 +12,8 @@ import difflib
 from collections.abc import Iterable
 from os import PathLike
 
-__all__ = ["InputError", "NotConvergedWarning", "OutputConflict", "PosteriorWarning",
-           "WriteError", "suggest"]
+__all__ = ["InputError", "InterruptedWhenComplete", "NotConvergedWarning", "OutputConflict",
+           "PosteriorWarning", "WriteError", "suggest"]
 
 
 class InputError(ValueError):
@@ -120,6 +120,24 @@ class OutputConflict(InputError):
         self.problem = " ".join(str(problem).split())
         self.reason = reason
         super().__init__(f"{self.problem}; {self.REMEDIES[reason]}", file=file)
+
+
+class InterruptedWhenComplete(KeyboardInterrupt):
+    """Ctrl-C or SIGTERM that arrived while a finished result folder was put in place.
+
+    The signal was held until the folder was complete (and a fit's checkpoint removed),
+    then delivered as this KeyboardInterrupt: the run stops, but nothing is left to
+    resume.
+
+    Parameters
+    ----------
+    folder : str or path-like
+        The complete result folder.
+    """
+
+    def __init__(self, folder) -> None:
+        self.folder = str(folder)
+        super().__init__(f"interrupted after {self.folder} was complete")
 
 
 class WriteError(OSError):

@@ -315,3 +315,66 @@ def test_repeated_ctrl_c_is_one_line_and_resume_is_byte_identical(tmp_path, caps
     assert run["resumed_from_step"] == kept  # it really continued the stored chain
     assert "resumed_from_step" not in json.loads((out_dir / "diagnostics.json").read_text())
     assert_same_outputs(out_dir, tmp_path / "ref")
+
+
+class _TermWhileWriting:
+    """Stand-in for lidmelt's low-level writer: the first write of `name` stores half its
+    bytes, then SIGTERM arrives (what a job scheduler sends at its time limit)."""
+
+    def __init__(self, name: str) -> None:
+        from lidmelt import _atomic
+
+        self.name, self.real, self.sent = name, _atomic._write_all, False
+
+    def __call__(self, handle, data: bytes) -> None:
+        from lidmelt import _atomic
+
+        if not self.sent and _atomic.temporary_target(Path(handle.name).name) == self.name:
+            self.sent = True
+            handle.write(data[: len(data) // 2])
+            os.kill(os.getpid(), signal.SIGTERM)
+        self.real(handle, data)
+
+
+def _term_after(real):
+    """`real`, then SIGTERM to this process."""
+    def call(*args, **kwargs):
+        result = real(*args, **kwargs)
+        os.kill(os.getpid(), signal.SIGTERM)
+        return result
+    return call
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="SIGTERM to the test process")
+def test_sigterm_while_the_results_are_written(tmp_path, capsys, monkeypatch):
+    # Sampling has finished; SIGTERM comes (1) while posterior.nc is half written in the
+    # staging folder, (2) as the finished folder is moved into place. Neither may leave a
+    # half-written file under a final name or a state the same command cannot finish.
+    from helpers import own_signal_handlers
+    from lidmelt import _atomic
+    from lidmelt.inversion.results import writers
+
+    study = _small_study(tmp_path / "study", sampler=(
+        "walkers = 16\nseed = 4\nstart = \"prior\"\nmax_steps = 100\ncheck_interval = 50\n"))
+    argv = ["fit", str(study), "--quiet"]
+    with own_signal_handlers():
+        with monkeypatch.context() as patch:
+            patch.setattr(_atomic, "_write_all", _TermWhileWriting("posterior.nc"))
+            code, _, err = _fit(capsys, *argv, "--out", str(tmp_path / "a"))
+        assert code == 130, err
+        assert "up to step 100 is kept" in err and "--resume" in err
+        assert sorted(p.name for p in tmp_path.iterdir()) == ["a.partial", "study"]
+
+        with monkeypatch.context() as patch:
+            patch.setattr(writers, "publish_folder", _term_after(writers.publish_folder))
+            code, _, err = _fit(capsys, *argv, "--out", str(tmp_path / "b"))
+        assert code == 130, err
+        assert len(err.strip().splitlines()) == 1 and "complete" in err, err
+        # the results are whole and the checkpoint is gone: nothing is left to resume
+        assert not (tmp_path / "b.partial").exists()
+        assert not list(tmp_path.glob(".b.*")) and not list(tmp_path.glob(".a.*"))
+
+    code, _, err = _fit(capsys, *argv, "--out", str(tmp_path / "a"), "--resume")
+    assert code == 0, err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a", "b", "study"]
+    assert_same_outputs(tmp_path / "a", tmp_path / "b")

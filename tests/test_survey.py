@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -589,3 +590,80 @@ def test_survey_rare_earth_source_and_transition_reach_every_site(tmp_path):
         parse_survey_table({"rare_earth_source": "nope"})
     with pytest.raises(InputError, match="survey.rare_earth_transition"):
         parse_survey_table({"rare_earth_transition": [3.0, 2.0]})
+
+
+def test_extra_rare_earth_ratios_need_la_yb_in_the_header(tmp_path, capsys):
+    # kind rare_earths takes Sm/Yb and Dy/Yb only beside La/Yb, its main ratio (its own
+    # table requires la_yb_cn, DEVELOPERS.md "Adding an observation kind"): a sites file
+    # with a Sm/Yb column and no La/Yb column can never give a usable ratio, so it stops
+    # at its header line with exit 2 instead of failing every site that has a ratio
+    study = write_study(tmp_path)
+    for extra in ("sm_yb", "dy_yb"):
+        path = tmp_path / f"{extra}.csv"
+        path.write_text(f"site,thickness_km,thickness_sigma_km,{extra}_cn,{extra}_sigma_cn\n"
+                        "A,6,0.5,1.5,0.1\nB,6,0.5,,\n", encoding="utf-8")
+        with pytest.raises(InputError, match=rf"^{re.escape(str(path))}, line 1, column '{extra}_cn': "
+                           r".*la_yb_cn and la_yb_sigma_cn"):
+            read_sites(path)
+        code = main(["survey", str(study), "--sites", str(path), "--out",
+                     str(tmp_path / "out"), "--quiet"])
+        err = capsys.readouterr().err
+        assert code == 2 and err.count("\n") == 1 and "line 1, column" in err
+        assert not (tmp_path / "out").exists()
+
+
+def test_partial_rare_earth_rows_fail_their_site_with_line_and_column(tmp_path):
+    from lidmelt.inversion.observations import RareEarthRatios
+    from lidmelt.inversion.survey import SurveySettings
+    from lidmelt.inversion.survey.sites import site_observations
+
+    path = tmp_path / "s.csv"
+    path.write_text("site,thickness_km,thickness_sigma_km,la_yb_cn,la_yb_sigma_cn,"
+                    "sm_yb_cn,sm_yb_sigma_cn,dy_yb_cn,dy_yb_sigma_cn\n"
+                    "A,6,0.5,,,1.5,0.1,,\n"          # Sm/Yb without La/Yb
+                    "B,6,0.5,,,,,1.2,0.1\n"          # Dy/Yb without La/Yb
+                    "C,6,0.5,2.0,,,,,\n"             # La/Yb without its sigma
+                    "D,6,0.5,,0.2,,,,\n"             # a sigma without its La/Yb
+                    "E,6,0.5,2.0,0.2,1.5,,,\n"       # Sm/Yb without its sigma
+                    "F,6,0.5,2.0,0.2,,,1.2,0.1\n"    # La/Yb and Dy/Yb: usable
+                    "G,6,0.5,,,,,,\n", encoding="utf-8")  # no ratio: crust only
+    sites = {s.name: s for s in read_sites(path).sites}
+    expect = {"A": (2, "sm_yb_cn", "give la_yb_cn and la_yb_sigma_cn too"),
+              "B": (3, "dy_yb_cn", "give la_yb_cn and la_yb_sigma_cn too"),
+              "C": (4, "la_yb_sigma_cn", "empty cell beside la_yb_cn"),
+              "D": (5, "la_yb_cn", "empty cell beside la_yb_sigma_cn"),
+              "E": (6, "sm_yb_sigma_cn", "empty cell beside sm_yb_cn")}
+    for name, (line, column, rule) in expect.items():
+        error = sites[name].error
+        assert error.startswith(f"{path}, line {line}, column '{column}': "), error
+        assert rule in error and "\n" not in error
+    assert sites["F"].error is None and sites["G"].error is None
+    block = site_observations(sites["F"], SurveySettings())[1]
+    assert isinstance(block, RareEarthRatios) and block.ratios == ("la_yb", "dy_yb")
+    assert site_observations(sites["G"], SurveySettings())[1:] == []
+
+
+#: What lidmelt itself writes on standard error: its own lines and its progress bars.
+_OWN_STDERR = re.compile(r"^(lidmelt( survey)?: |(sites|Tp likelihoods|site posteriors): "
+                         r"+\d+%\|)")
+
+
+@pytest.mark.parametrize("mode", ["independent", "joint"])
+def test_survey_stderr_holds_only_lidmelt_lines(tmp_path, mode):
+    # a fresh interpreter with Python's default warning filters, as a user runs it (the
+    # test process's own filters would hide or record a raw warning); two workers, a
+    # site with a pressure and one failing on a bad value, progress bars on
+    study = write_study(tmp_path, extra_survey="grid_points = 4000\ntp_nodes = 61")
+    sites = tmp_path / "sites.csv"
+    sites.write_text(_SITES + "A,0,9.6,0.4,0.57,0.1\nB,10,7.8,0.4,,\nC,20,5.1,0.4,1.2,0.1\n"
+                     "D,30,6.0,-0.4,,\n", encoding="utf-8")
+    run = subprocess.run([sys.executable, "-m", "lidmelt.cli", "survey", str(study),
+                          "--sites", str(sites), "--out", str(tmp_path / "out"),
+                          "--mode", mode, "--workers", "2"],
+                         capture_output=True, text=True, timeout=300)
+    assert run.returncode == 0, run.stderr
+    lines = [line for line in re.split(r"[\r\n]+", run.stderr) if line.strip()]
+    assert any(line.startswith("lidmelt survey: site 'D': failed:") for line in lines)
+    for word in ("Warning", "Traceback"):
+        assert word not in run.stderr, run.stderr
+    assert all(_OWN_STDERR.match(line) for line in lines), run.stderr

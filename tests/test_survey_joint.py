@@ -257,3 +257,31 @@ def test_survey_nc_holds_the_area_grid_and_the_joint_site_posteriors(joint_run):
         median = float(np.interp(0.5, cdf, nodes))
         row = result.area.set_index("parameter").loc["potential_temperature"]
         assert median == pytest.approx(row["median"], abs=2 * np.diff(nodes).max())
+
+
+def test_second_pass_with_a_free_model_error_gives_every_site_a_result(tmp_path):
+    # Joint mode, second pass: the other sites squeeze Tp (here a Gaussian factor of sd
+    # 8 degC on the shared axis standing for them) while a free crust model error is a
+    # third axis of the site's grid. On survey.grid_points = 8000 (20 nodes per axis) the
+    # half-resolution check of ln Z missed its tolerance at every site, so each one came
+    # out "not converged" and left the area-wide answer; the grid is now refined instead.
+    from lidmelt.inversion.survey.job import LOG_TOLERANCE, SiteTask, run_site
+
+    study_path = write_study(tmp_path, extra_survey=(
+        'crust_model_error = { prior = "log-uniform", min = 0.05, max = 2.0 }\n'
+        "grid_points = 8000"))
+    study, settings = load_survey_study(study_path)
+    sites = tmp_path / "sites.csv"
+    sites.write_text("site,thickness_km,thickness_sigma_km\nA,6.5,0.4\nB,4.0,0.4\n"
+                     "C,8.0,0.4\n", encoding="utf-8")
+    nodes = np.linspace(1250.0, 1600.0, 41)
+    factor = stats.norm.logpdf(nodes, 1400.0, 8.0)
+    for site in read_sites(sites).sites:
+        record = run_site(SiteTask("conditional", study, settings, site, seed=1,
+                                   tp_factor=(nodes, factor), tp_box=(1250.0, 1600.0))).record
+        assert record["status"] == "ok" and record["converged"], record["status"]
+        assert record["diagnostics"]["log_evidence_error"] <= LOG_TOLERANCE
+        rows = {row["parameter"]: row for row in record["rows"]}
+        assert "crustal_thickness.model_error" in rows
+        # the factor dominates Tp: the median lies within 3 of its sd of 1400 degC
+        assert abs(rows["potential_temperature"]["median"] - 1400.0) < 24.0

@@ -121,12 +121,12 @@ def fit(
                 CheckpointBackend(partial).remove()  # nothing worth keeping
             raise
         posterior = _finish(study, seed, result, started, provenance)
-        try:
-            posterior.save(out, force=force, figure_format=figure_format)
+        try:  # the checkpoint goes in the same held step as the folder is published
+            posterior.save(out, force=force, figure_format=figure_format,
+                           after_publish=CheckpointBackend(partial).remove)
         except WriteError as err:
             raise WriteError(err.path, err.cause, kept_steps=stored_steps(partial),
                              checkpoint=partial) from err.cause
-        CheckpointBackend(partial).remove()
     return posterior
 
 

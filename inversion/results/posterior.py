@@ -162,7 +162,7 @@ class Posterior:
                 for line in self.result.assessment["shortfalls"]] + self.posterior_warnings
 
     def save(self, directory: str | PathLike[str], *, force: bool = False,
-             figure_format: str = "png") -> Path:
+             figure_format: str = "png", after_publish=None) -> Path:
         """Write every output file to `directory` atomically.
 
         Files: summary.csv, derived.csv, samples.csv, chain.h5, diagnostics.json,
@@ -180,6 +180,11 @@ class Posterior:
             (see `inversion.outputs.folder.check_replaceable`).
         figure_format : {"png", "pdf", "svg"}
             File format of the figures (PDF fonts embedded; docs/figures.md).
+        after_publish : callable, optional
+            Called without arguments right after the folder is in place; Ctrl-C and
+            SIGTERM are held across both steps and one caught there is raised as
+            `inversion.errors.InterruptedWhenComplete` (`fit` removes its checkpoint
+            here, so a complete folder never stands beside one).
 
         Returns
         -------
@@ -190,7 +195,8 @@ class Posterior:
         from .writers import save_posterior
 
         return save_posterior(self, Path(directory), force=force,
-                              figure_format=checked_figure_format(figure_format))
+                              figure_format=checked_figure_format(figure_format),
+                              after_publish=after_publish)
 
     def predictive_draws(self, n: int = 200) -> np.ndarray:
         """A reproducible subset of `n` kept positions, shape (n, ndim), for plots."""

@@ -10,6 +10,7 @@ left by a killed run is marked as lidmelt's and is tidied by the next run.
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from pathlib import Path
 
 from ..._atomic import staged_folder
@@ -25,6 +26,8 @@ from ..outputs.folder import (
     write_staged,
     written,
 )
+from ..errors import InterruptedWhenComplete
+from ..fitting.interrupts import signals_held
 from ..fitting.log_posterior import DERIVED
 from ..fitting.sampler import chain_file_bytes
 
@@ -57,8 +60,15 @@ _CSV = {"index": False, "float_format": "%.6g", "lineterminator": "\n"}
 
 
 def save_posterior(posterior, directory: Path, *, force: bool = False,
-                   figure_format: str = DEFAULT_FIGURE_FORMAT) -> Path:
-    """Write all of `output_files` for `posterior` to `directory` (see Posterior.save)."""
+                   figure_format: str = DEFAULT_FIGURE_FORMAT,
+                   after_publish: Callable[[], None] | None = None) -> Path:
+    """Write all of `output_files` for `posterior` to `directory` (see Posterior.save).
+
+    Ctrl-C and SIGTERM are held (`fitting.interrupts.signals_held`) from the moment the
+    staging folder is complete until it is in place and `after_publish` has run; one
+    caught there is delivered as `InterruptedWhenComplete`. Before that moment a signal
+    stops the writing and the staging folder is removed.
+    """
     directory = output_path(directory)
     inputs = study_inputs(posterior.study)
     with output_lock(directory):
@@ -68,9 +78,23 @@ def save_posterior(posterior, directory: Path, *, force: bool = False,
         files = _files(posterior, figure_format=figure_format)
         with staged_folder(directory) as staged:
             write_staged(staged, files, kind=KIND, shown=directory)
+            _publish(staged, directory, inputs=inputs, force=force,
+                     after_publish=after_publish)
+    return directory
+
+
+def _publish(staged: Path, directory: Path, *, inputs, force: bool,
+             after_publish: Callable[[], None] | None) -> None:
+    """Move `staged` into place and run `after_publish`, one step for Ctrl-C and SIGTERM
+    (so a fit's complete folder never stands beside its checkpoint)."""
+    try:
+        with signals_held():
             written(directory, publish_folder, staged, directory, inputs=inputs,
                     replace=force, kind=KIND)
-    return directory
+            if after_publish is not None:
+                after_publish()
+    except KeyboardInterrupt as stop:  # only the held signal, delivered on leaving
+        raise InterruptedWhenComplete(directory) from stop
 
 
 def _files(posterior, *, figure_format: str = DEFAULT_FIGURE_FORMAT) -> dict[str, bytes]:

@@ -32,7 +32,9 @@ site's data come from the sites table. Keys of ``[survey]``:
 ``path_points``
     Path intervals for ``"path"`` and ``"pooled"`` temperatures (default 64).
 ``grid_points``
-    Size of each site's posterior grid (default 40 000 nodes, 200 per axis in 2-D).
+    Size of each site's posterior grid (default 40 000 nodes, 200 per axis in 2-D); a
+    site whose ln Z error exceeds 0.05 nats on it is computed again with the nodes per
+    axis doubled, at most twice.
 ``tp_nodes``
     Nodes of the potential-temperature axis shared by all sites in joint mode
     (default 351, equally spaced over the prior).

@@ -35,6 +35,7 @@ from ..fitting.grid import (
     MASS_CUT,
     Axis,
     Grid,
+    GridPosterior,
     coordinate,
     evaluate,
     grid_posterior,
@@ -150,11 +151,33 @@ def _base_record(task: SiteTask) -> dict:
 
 def _posterior(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) -> None:
     if logpost.ndim <= GRID_MAX_FREE:
-        post = grid_posterior(logpost.log_likelihood, logpost.names, logpost.priors,
-                              max_points=task.settings.grid_points)
+        post = _site_grid(logpost.log_likelihood, logpost, task.settings)
         _grid_outcome(task, logpost, post, outcome, method="grid")
     else:
         _mcmc_outcome(task, logpost, outcome)
+
+
+def _site_grid(log_like, logpost: LogPosterior, settings: SurveySettings, *,
+               box=None) -> GridPosterior:
+    """The site's grid posterior on ``survey.grid_points`` points, and again with the
+    nodes per axis doubled (at most `_REFINEMENTS` times, as in the likelihood pass)
+    while its ln Z error (`GridPosterior.log_evidence_error`) exceeds `LOG_TOLERANCE`.
+
+    A free model error gives a site's posterior long tails, so the box that holds the
+    mass (`inversion.fitting.grid.find_box`) is wide; in joint mode the other sites then
+    squeeze Tp into a core a few cells wide on that box, which the half-resolution check
+    cannot resolve.
+    """
+    points = settings.grid_points
+    post = grid_posterior(log_like, logpost.names, logpost.priors, box=box,
+                          max_points=points)
+    for _ in range(_REFINEMENTS):
+        if post.log_evidence_error <= LOG_TOLERANCE:
+            break
+        points *= 2 ** logpost.ndim
+        post = grid_posterior(log_like, logpost.names, logpost.priors, box=box,
+                              max_points=points)
+    return post
 
 
 def _grid_outcome(task, logpost, post, outcome: SiteOutcome, *, method: str) -> None:
@@ -408,8 +431,7 @@ def _conditional(task: SiteTask, logpost: LogPosterior, outcome: SiteOutcome) ->
         return logpost.log_likelihood(theta) + extra
 
     start = [tuple(task.tp_box) if name == TP else None for name in logpost.names]
-    post = grid_posterior(log_like, logpost.names, logpost.priors, box=start,
-                          max_points=task.settings.grid_points)
+    post = _site_grid(log_like, logpost, task.settings, box=start)
     _grid_outcome(task, logpost, post, outcome, method="grid")
 
 

@@ -7,7 +7,13 @@ Columns: ``site`` (name), then the columns of each observation kind a survey rea
 with ``temperature_sigma_c`` (only beside a pressure) and ``pt_correlation`` (only beside
 a temperature); optional ``la_yb_cn`` with ``la_yb_sigma_cn`` and, beside them,
 ``sm_yb_cn``/``sm_yb_sigma_cn`` and ``dy_yb_cn``/``dy_yb_sigma_cn`` (chondrite-normalised
+<<<<<<< HEAD
 rare-earth ratios, kind ``rare_earths``, with the ``[survey]`` source and transition); optional
+=======
+rare-earth ratios, kind ``rare_earths``, default source and transition; the kind fits
+Sm/Yb and Dy/Yb only beside La/Yb, so a header with them and no ``la_yb_cn`` is refused,
+and so is a row giving them without La/Yb); optional
+>>>>>>> survfix
 ``position_km`` (distance along the study area, for the profile
 figure). Columns starting with ``note`` are remarks; any other column is refused. A line
 whose first non-blank character is ``#`` is a comment and skipped, so a site name must not
@@ -136,8 +142,8 @@ def read_sites(path: str | PathLike[str], *, progress: bool = True) -> SiteTable
     Raises
     ------
     InputError
-        Missing file, bad header, a missing column (or half of a column pair), wrong
-        field counts, an empty site name, a name used twice or read as a missing value.
+        Missing file, bad header, a missing column (or half of a column pair, or a
+        kind's extra columns without its main measurement's columns), wrong field counts, an empty site name, a name used twice or read as a missing value.
     """
     path = Path(path)
     if not path.is_file():
@@ -145,6 +151,7 @@ def read_sites(path: str | PathLike[str], *, progress: bool = True) -> SiteTable
         raise InputError(f"sites file {why}; check the path", file=path)
     header, header_line, rows, lines = read_rows(path)
     rules = header_rules(header, header_line, _REQUIRED, _GROUPS, path)
+    _check_kind_headers(header, header_line, path)
     present = [group for group in _GROUPS if group[0] in rules]
     frame = pd.DataFrame(rows, columns=header, dtype=object)
     _check_names([str(name).strip() for name in frame["site"]], lines, path)
@@ -167,6 +174,24 @@ def read_sites(path: str | PathLike[str], *, progress: bool = True) -> SiteTable
     return SiteTable(path, tuple(sites), hashlib.sha256(path.read_bytes()).hexdigest(),
                      has_positions=_POSITION in present,
                      has_pressures=_KIND_GROUPS[1][0] in present)
+
+
+def _check_kind_headers(header, line: int, path: Path) -> None:
+    """Refuse a kind's extra columns in a header without that kind's main measurement.
+
+    A kind reads its extras only beside its main measurement in the same row
+    (`ObservationSet.site_columns`), so such a file could never give that kind a row.
+    """
+    for kind, groups in zip(SURVEY_KINDS, _KIND_GROUPS, strict=True):
+        main = [rule.name for rule in groups[0]]
+        missing = [name for name in main if name not in header]
+        extra = next((rule.name for group in groups[1:] for rule in group
+                      if rule.name in header), None)
+        if missing and extra is not None:
+            raise InputError(f"'{extra}' is read only beside the main measurement of kind "
+                             f"{kind.kind}; add columns " + " and ".join(missing)
+                             + " (left blank where a site has none) or remove " + extra,
+                             file=path, row=line, column=extra)
 
 
 def _fast_values(frame: pd.DataFrame, groups) -> tuple[dict, np.ndarray]:
