@@ -33,6 +33,7 @@ from ...forward.figure_output import DOUBLE_COLUMN, figure_bytes, figure_name
 from ...forward.quantities import quantity, unit_text
 from ..study.priors import LogUniform
 from .report import decimals, estimate
+from .sample_labels import place_labels
 
 __all__ = ["corner_figure", "figure_files", "fit_figure", "pt_figure"]
 
@@ -354,7 +355,7 @@ def _draw_joint_panel(ax, block, *, observed, p, t):
     Returns the function that places the sample labels once the layout is fixed.
     """
     ax.plot(t, p, ".", color=style.POSTERIOR, ms=2, alpha=0.12, zorder=1)
-    _draw_pt_ellipses(ax, observed, label=None)
+    outlines, markers = _draw_pt_ellipses(ax, observed, label=None)
     ax.invert_yaxis()
     ax.set_xlabel(quantity("temperature").axis_label())
     ax.set_ylabel(quantity("pressure").axis_label())
@@ -367,52 +368,7 @@ def _draw_joint_panel(ax, block, *, observed, p, t):
                           fontsize=6.5, color=style.INK)
               for name, tx, py in zip(block.ids, observed["temperature"],
                                       observed["pressure"], strict=True)]
-    return lambda renderer: _place_labels(ax, labels, renderer)
-
-
-#: Offsets (points) and alignments tried for a sample label, nearest first.
-_LABEL_SPOTS = [((4, 3), "left", "bottom"), ((4, -3), "left", "top"),
-                ((-4, 3), "right", "bottom"), ((-4, -3), "right", "top"),
-                ((0, 7), "center", "bottom"), ((0, -7), "center", "top"),
-                ((10, 0), "left", "center"), ((-10, 0), "right", "center"),
-                ((12, 12), "left", "bottom"), ((-12, -12), "right", "top"),
-                ((12, -12), "left", "top"), ((-12, 12), "right", "bottom")]
-
-
-def _place_labels(ax, labels, renderer) -> None:
-    """Move each label to the first spot where it overlaps no placed label (greedy).
-
-    Labels are placed from the top of the axes down; a label with no free spot keeps
-    the spot of least overlap, so every sample stays named.
-    """
-    placed = []
-    inside = ax.get_window_extent(renderer)
-    order = sorted(labels, key=lambda a: -ax.transData.transform(a.xy)[1])
-    for label in order:
-        best, best_cost = None, np.inf
-        for offset, ha, va in _LABEL_SPOTS:
-            label.set_position(offset)
-            label.set_ha(ha)
-            label.set_va(va)
-            box = label.get_window_extent(renderer).expanded(1.08, 1.15)
-            cost = sum(_overlap(box, other) for other in placed)
-            cost += 4 * (box.width * box.height - _overlap(box, inside))  # outside the axes
-            if cost < best_cost:
-                best, best_cost = (offset, ha, va, box), cost
-            if cost == 0:
-                break
-        offset, ha, va, box = best
-        label.set_position(offset)
-        label.set_ha(ha)
-        label.set_va(va)
-        placed.append(box)
-
-
-def _overlap(a, b) -> float:
-    """Area (display units) shared by two bounding boxes."""
-    w = min(a.x1, b.x1) - max(a.x0, b.x0)
-    h = min(a.y1, b.y1) - max(a.y0, b.y0)
-    return max(w, 0.0) * max(h, 0.0)
+    return lambda renderer: place_labels(ax, labels, outlines, markers, renderer)
 
 
 def _ellipse_xy(x, y, sx, sy, rho, num: int = 64) -> tuple[np.ndarray, np.ndarray]:
@@ -427,18 +383,23 @@ def _ellipse_xy(x, y, sx, sy, rho, num: int = 64) -> tuple[np.ndarray, np.ndarra
     return x + sx * u, y + sy * (rho * u + np.sqrt(1.0 - rho * rho) * v)
 
 
-def _draw_pt_ellipses(ax, observed, *, label: str | None) -> None:
-    """Each observed P-T point with its 1-sigma error ellipse (correlation included)."""
+def _draw_pt_ellipses(ax, observed, *, label: str | None) -> tuple[list, Line2D]:
+    """Each observed P-T point with its 1-sigma error ellipse (correlation included).
+
+    Returns the ellipse outlines (one Line2D per sample) and the markers (one Line2D).
+    """
     rho = observed.get("correlation", np.zeros_like(observed["pressure"]))
+    outlines = []
     for k, (t, p, st, sp, r) in enumerate(zip(
             observed["temperature"], observed["pressure"], observed["temperature_sigma"],
             observed["pressure_sigma"], rho, strict=True)):
         ex, ey = _ellipse_xy(t, p, st, sp, r)
         ax.fill(ex, ey, color=style.INK, alpha=0.07, lw=0, zorder=5)
-        ax.plot(ex, ey, color=style.INK, lw=0.9, zorder=5,
-                label=label if k == 0 else None)
-    ax.plot(observed["temperature"], observed["pressure"], ls="", marker="D", ms=4.5,
-            mfc="white", mec=style.INK, mew=1.0, zorder=6)
+        outlines += ax.plot(ex, ey, color=style.INK, lw=0.9, zorder=5,
+                            label=label if k == 0 else None)
+    markers, = ax.plot(observed["temperature"], observed["pressure"], ls="", marker="D",
+                       ms=4.5, mfc="white", mec=style.INK, mew=1.0, zorder=6)
+    return outlines, markers
 
 
 # ---- P-T --------------------------------------------------------------------------------
