@@ -94,8 +94,9 @@ def corner_figure(posterior) -> Figure:
     for k in range(ndim):
         axes[k, 0].yaxis.set_label_coords(-0.75 / cell_w, 0.5)
         axes[ndim - 1, k].xaxis.set_label_coords(0.5, -0.72 / cell_h)
-    fig.legend(handles=_corner_legend(ndim), loc="upper right", fontsize=8, frameon=False,
-               bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
+    handles, labels, handler_map = _corner_legend(ndim)
+    fig.legend(handles, labels, handler_map=handler_map, loc="upper right", fontsize=8,
+               frameon=False, bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
     fig.suptitle(textwrap.fill(posterior.study.name, width=int(7 * size))
                  + "\nposterior of the free parameters",
                  fontsize=10, x=0.02, ha="left", y=1 - 0.12 / height, va="top")
@@ -144,6 +145,11 @@ _QUANTILE = dict(color=style.INK, lw=0.9, ls=(0, (3, 2)))
 
 
 def _corner_legend(ndim: int):
+    """The corner figure's legend: each thing drawn is named once (the MAP by both its
+    markers, the triangle of the 1-D panels and the diamond of the 2-D ones)."""
+    from matplotlib.legend_handler import HandlerTuple
+
+    top = Line2D([], [], color=style.MAP, marker="v", ls="", ms=7)
     handles = [
         Patch(facecolor="none", edgecolor=style.POSTERIOR, lw=1.3,
               label="posterior (histogram of the samples)"),
@@ -153,16 +159,14 @@ def _corner_legend(ndim: int):
                label="posterior median (vertical line)"),
         Line2D([], [], marker="|", ls="", ms=11, mew=0.9, color=_QUANTILE["color"],
                label="16 and 84 % quantiles (dashed vertical lines)"),
-        Line2D([], [], color=style.MAP, marker="v", ls="", ms=7, label="MAP (top edge)"),
     ]
-    if ndim > 1:
-        handles += [
-            Patch(color=style.POSTERIOR, alpha=0.6, label="39 % and 86 % regions "
-                  "(1σ, 2σ in 2-D)"),
-            Line2D([], [], color=style.MAP, marker="D", ls="", mec="white", ms=6,
-                   label="MAP"),
-        ]
-    return handles
+    if ndim == 1:
+        return handles + [top], [h.get_label() for h in handles] + ["MAP (top edge)"], {}
+    handles.append(Patch(color=style.POSTERIOR, alpha=0.6,
+                         label="39 % and 86 % regions (1σ, 2σ in 2-D)"))
+    diamond = Line2D([], [], color=style.MAP, marker="D", ls="", mec="white", ms=6)
+    labels = [h.get_label() for h in handles] + ["MAP (on the top edge in 1-D; a point in 2-D)"]
+    return handles + [(top, diamond)], labels, {tuple: HandlerTuple(ndivide=None, pad=0.6)}
 
 
 # ---- fit --------------------------------------------------------------------------------
