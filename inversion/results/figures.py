@@ -165,7 +165,8 @@ def _corner_legend(ndim: int):
     handles.append(Patch(color=style.POSTERIOR, alpha=0.6,
                          label="39 % and 86 % regions (1σ, 2σ in 2-D)"))
     diamond = Line2D([], [], color=style.MAP, marker="D", ls="", mec="white", ms=6)
-    labels = [h.get_label() for h in handles] + ["MAP (on the top edge in 1-D; a point in 2-D)"]
+    labels = [h.get_label() for h in handles]
+    labels.append("MAP (on the top edge in 1-D; a point in 2-D)")
     return handles + [(top, diamond)], labels, {tuple: HandlerTuple(ndivide=None, pad=0.6)}
 
 
