@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 
 from . import figure_style as style
 from .adiabat import depth_per_pressure
 from .column import melt_column
-from .figure_output import save_figure
+from .figure_output import DOUBLE_COLUMN, save_figure
 from .parameterizations import get_parameterization
 from .plotting import (
     add_depth_axis,
@@ -24,6 +26,13 @@ __all__ = ["MAX_PANELS", "MAX_PATHS", "pick_temperatures", "save_figure_atomical
 
 MAX_PANELS = 6  # panels drawn; the note says how many there were
 MAX_PATHS = 8  # potential temperatures drawn per panel, spread over those given
+# A journal page wide (docs/figures.md): two panels a row, each wide enough for its
+# pressure and depth axes; one panel alone takes the whole width.
+_COLUMNS = 2
+_PANEL_HEIGHT = {1: 4.6, 2: 3.9}  # inches, by panels a row
+_TITLE_CHARS = {1: 95, 2: 50}  # characters of 8.5 pt text over a panel (measured)
+_LEGEND_COLUMNS = 3  # legend columns across the page at 7.5 pt
+_NOTE_CHARS = 120  # characters of 7 pt text across the page (measured)
 _NOTE = ("Thick line: melting path, from the ring where melting starts up to the lid base; "
          "dotted thin line: solid adiabat of the same Tp. Each panel has its own lid (dotted "
          "violet line, pale band above).\nScientific estimate: depends on the melting "
@@ -94,8 +103,9 @@ def _draw_panel(ax, key, rows, colors, frame):
     if not frame.get("last_in_row", True):
         depth.set_ylabel("")
     title = f"lid {lid:g} km" if lid > 0 else "no lid"
-    ax.set_title(f"{title} · {param.title}, {water:g} ppm H$_2$O, solidus offset "
-                 f"{shift:+g} °C".replace("-", "\N{MINUS SIGN}"), fontsize=9)
+    ax.set_title(textwrap.fill(f"{title} · {param.title}, {water:g} ppm H$_2$O, solidus "
+                               f"offset {shift:+g} °C", width=frame["title_chars"])
+                 .replace("-", "\N{MINUS SIGN}"), fontsize=8.5)
     # Crust made in this panel (it depends on the lid), in the corner below the solidus
     # and left of the adiabats, which melting never reaches.
     ax.text(0.02, 0.02, "Igneous crust\n" + "\n".join(crust_lines), transform=ax.transAxes,
@@ -133,28 +143,38 @@ def write_column_figure(path, rows, *, crust_density=2900.0, mantle_density=3300
     total = len(_panels(rows)) if panels is None else panels
     colors = style.temperature_colors(r["potential_temperature"] for r in rows)
     frame = _frame([r for _, group in shown for r in group], crust_density, mantle_density)
-    ncols = min(len(shown), 3)
-    nrows = -(-len(shown) // ncols)
-    legend_rows = -(-(len(_legend_entries_guess(shown)) + 3) // (ncols + 1))
-    below = 0.19 * legend_rows + 0.55  # inches: the legend's rows, then the note
-    height = 5.4 * nrows + below
-    fig = Figure(figsize=(5.6 * ncols, height), layout="constrained")
+    ncols, nrows, below = _layout(shown)
+    height = _PANEL_HEIGHT[ncols] * nrows + below
+    fig = Figure(figsize=(DOUBLE_COLUMN, height), layout="constrained")
     axes = fig.subplots(nrows, ncols, squeeze=False, sharey=True).ravel()
     for i, (ax, (key, group)) in enumerate(zip(axes, shown, strict=False)):
         last = i % ncols == ncols - 1 or i == len(shown) - 1
-        _draw_panel(ax, key, group, colors, frame | {"last_in_row": last})
+        _draw_panel(ax, key, group, colors, frame | {"last_in_row": last,
+                                                     "title_chars": _TITLE_CHARS[ncols]})
         if i % ncols:
             ax.set_ylabel("")
     for ax in axes[len(shown):]:
-        ax.set_visible(False)
+        ax.axis("off")  # kept in the layout: the legend goes into the first such cell
     note = _NOTE if total <= MAX_PANELS else (
         f"First {MAX_PANELS} of {total} panels shown. " + _NOTE)
     bottom = below / height
     fig.get_layout_engine().set(rect=(0, bottom, 1, 1 - bottom))
-    _figure_legend(fig, axes[: len(shown)], ncols, top=bottom)
-    fig.text(0.01, 0.005, note.replace("\n", " "), fontsize=7.5, color="0.3", va="bottom",
-             wrap=True)
+    _figure_legend(fig, axes[: len(shown)], spare=axes[len(shown):], top=bottom)
+    fig.text(0.01, 0.005, textwrap.fill(note.replace("\n", " "), width=_NOTE_CHARS),
+             fontsize=7, color="0.3", va="bottom")
     save_figure_atomically(fig, path, figure_format=figure_format)
+
+
+def _layout(shown) -> tuple[int, int, float]:
+    """Panels a row, rows, and the inches kept under the panels (the note, and the
+    legend unless a grid cell is left over for it)."""
+    ncols = min(len(shown), _COLUMNS)
+    nrows = -(-len(shown) // ncols)
+    below = 0.5  # the note
+    if nrows * ncols == len(shown):
+        entries = len(_legend_entries_guess(shown)) + 3
+        below += 0.17 * -(-entries // _LEGEND_COLUMNS) + 0.15
+    return ncols, nrows, below
 
 
 def _legend_entries_guess(shown) -> list:
@@ -165,9 +185,10 @@ def _legend_entries_guess(shown) -> list:
     return [None] * (4 + len(waters) + min(len(tps), MAX_PATHS * len(shown)))
 
 
-def _figure_legend(fig, axes, ncols, *, top) -> None:
-    """One legend under the panels: every curve, path and symbol drawn in any panel,
-    once (the solid adiabats and the onset ring as one entry each, in grey)."""
+def _figure_legend(fig, axes, *, spare, top) -> None:
+    """One legend, in the first `spare` (empty) grid cell or else under the panels (below
+    `top`, a figure fraction): every curve, path and symbol drawn in any panel, once (the
+    solid adiabats and the onset ring as one entry each, in grey)."""
     from matplotlib.lines import Line2D
 
     entries: dict[str, object] = {}
@@ -179,9 +200,14 @@ def _figure_legend(fig, axes, ncols, *, top) -> None:
     entries["onset of melting"] = Line2D([], [], ls="none", marker="o", mfc="white",
                                          mec="0.35", mew=1.8, ms=6)
     entries["lid base (lid shaded)"] = Line2D([], [], **style.LID_LINE)
+    options = dict(fontsize=7.5, frameon=False, borderaxespad=0.2, columnspacing=1.2,
+                   handlelength=2.5)
+    if len(spare):  # the empty cell of the grid holds it, one column (two if long)
+        spare[0].legend(list(entries.values()), list(entries), loc="center",
+                        ncols=1 if len(entries) <= 16 else 2, **options)
+        return
     fig.legend(list(entries.values()), list(entries), loc="upper center",
-               bbox_to_anchor=(0.5, top), ncols=ncols + 1, fontsize=8, frameon=False,
-               borderaxespad=0.2, columnspacing=1.5, handlelength=2.5)
+               bbox_to_anchor=(0.5, top), ncols=_LEGEND_COLUMNS, **options)
 
 
 def save_figure_atomically(fig, path, dpi=150, *, figure_format="png"):

@@ -4,6 +4,7 @@ embedded, listed in its manifest; and posterior.nc in every result folder."""
 from __future__ import annotations
 
 import json
+import re
 import shutil
 import xml.etree.ElementTree as ElementTree
 from pathlib import Path
@@ -15,7 +16,7 @@ from helpers import small_study
 from survey_helpers import truth_table, write_sites, write_study
 
 from lidmelt.cli import main
-from lidmelt.forward.figure_output import FIGURE_FORMATS, figure_bytes
+from lidmelt.forward.figure_output import DOUBLE_COLUMN, FIGURE_FORMATS, figure_bytes
 from lidmelt.inversion.results.writers import output_files
 
 DATA = Path(__file__).parent / "data"
@@ -25,6 +26,13 @@ def _is_pdf_with_embedded_truetype(data: bytes) -> bool:
     # PDF 1.7 reference, 5.5.4 and 5.8: a PDF starts "%PDF"; an embedded TrueType font
     # program is a /FontFile2 stream (Type 3 fonts, matplotlib's default, have none)
     return data.startswith(b"%PDF") and b"/FontFile2" in data and b"/Type3" not in data
+
+
+def _pdf_width_inches(data: bytes) -> float:
+    # PDF 1.7 reference, 3.8.4 and 10.10.1: /MediaBox [x0 y0 x1 y1] in units of 1/72 inch
+    x0, _, x1, _ = (float(v) for v in re.search(rb"/MediaBox\s*\[([^\]]+)\]", data)
+                    .group(1).split())
+    return (x1 - x0) / 72.0
 
 
 def _manifest(folder: Path) -> set[str]:
@@ -87,6 +95,9 @@ def test_column_pdf(tmp_path):
     assert main(["column", "--lithosphere-thickness", "0,50", "--plot", str(out),
                  "--figure-format", "pdf"]) == 0
     assert _is_pdf_with_embedded_truetype(out.read_bytes())
+    # a journal page wide: 178 mm (docs/figures.md); matplotlib writes the figure size
+    assert _pdf_width_inches(out.read_bytes()) == pytest.approx(178 / 25.4, abs=1e-3)
+    assert DOUBLE_COLUMN == pytest.approx(178 / 25.4)
 
 
 def test_survey_with_pdf_figure(tmp_path, capsys):
@@ -116,6 +127,9 @@ def compared(tmp_path_factory):
 
 def test_compare_writes_pdfs_listed_in_the_manifests(compared):
     assert _is_pdf_with_embedded_truetype((compared / "compare.pdf").read_bytes())
+    # a journal page wide: 178 mm (docs/figures.md)
+    assert _pdf_width_inches((compared / "compare.pdf").read_bytes()) == pytest.approx(
+        178 / 25.4, abs=1e-3)
     assert "compare.pdf" in _manifest(compared)
     assert "compare.pdf" in (compared / "report.md").read_text()
     record = json.loads((compared / "comparison.json").read_text())

@@ -178,5 +178,91 @@ def test_column_plot_draws_each_path_against_its_own_lid(tmp_path, monkeypatch):
         assert y[np.isfinite(x)].min() == pytest.approx(top, abs=0.02)  # 400-point grid
 
 
+def _column_figure(monkeypatch, lids, temperatures):
+    seen = []
+    monkeypatch.setattr("lidmelt.forward._pt_figure.save_figure_atomically",
+                        lambda fig, path, **options: seen.append(fig))
+    rows = []
+    for lid in lids:
+        for tp in temperatures:
+            col = melt_column(tp, lid)
+            rows.append({"potential_temperature": tp, "lithosphere_thickness": lid,
+                         "water": 0.0, "active_upwelling": 1.0, "solidus_offset": 0.0,
+                         "parameterization": "katz2003", "melting_region": "column",
+                         "onset_depth": float(col.onset_depth),
+                         "crustal_thickness": float(col.crustal_thickness)})
+    write_column_figure(Path("pt.png"), rows)
+    fig = seen[0]
+    FigureCanvasAgg(fig).draw()
+    return fig
+
+
+@pytest.mark.parametrize("lids", [(30.0,), (0.0, 30.0, 60.0)])
+def test_column_plot_is_page_wide_with_everything_inside(monkeypatch, lids):
+    fig = _column_figure(monkeypatch, lids, (1300.0, 1400.0, 1500.0))
+    assert fig.get_figwidth() == pytest.approx(178 / 25.4)  # docs/figures.md
+    # one legend: under the panels, or in the grid's empty cell
+    legend, = fig.legends + [ax.get_legend() for ax in fig.axes if ax.get_legend()]
+    panels = [ax for ax in fig.axes if ax.get_visible() and ax.get_lines()]
+    assert _inside(fig, legend)
+    assert not any(legend.get_window_extent().overlaps(ax.get_tightbbox()) for ax in panels)
+    for ax in panels:
+        assert _inside(fig, ax.title) and _inside(fig, ax.xaxis.label)
+        # the title fits over its own panel: it does not run into its neighbour's
+        assert ax.title.get_window_extent().width <= ax.get_window_extent().width * 1.05
+
+
 def _rgb(color: str):
     return tuple(int(color[i:i + 2], 16) / 255 for i in (1, 3, 5))
+
+
+def test_corner_legend_names_each_thing_once(two):
+    fig = figures.corner_figure(two)
+    texts = [t.get_text() for legend in fig.legends for t in legend.get_texts()]
+    # what each entry names, without its "(where it is drawn)" note
+    things = [re.sub(r"\s*\(.*\)", "", t) for t in texts]
+    assert len(things) == len(set(things)), texts
+    assert sum(t.startswith("MAP") for t in texts) == 1
+
+
+def _crowded_pt_panel(correlation: float, step: float):
+    """Eight samples whose 1σ ellipses overlap their neighbours', on a diagonal with free
+    room on both sides, as the joint P-T panel of fit.png draws them (invented data)."""
+    from types import SimpleNamespace
+
+    k = np.arange(8)
+    observed = {"temperature": 1330.0 + 14.0 * k, "pressure": 1.75 + step * k,
+                "temperature_sigma": np.full(8, 16.0), "pressure_sigma": np.full(8, 0.1),
+                "correlation": np.full(8, correlation)}
+    block = SimpleNamespace(name="crowded", ids=[f"SMP-{i:02d}" for i in k])
+    fig = Figure(figsize=(figures.DOUBLE_COLUMN, 4.2), layout="constrained")
+    ax = fig.subplots()
+    # model dots spanning a wider box, so that there is room beside the diagonal
+    t, p = np.meshgrid(np.linspace(1250.0, 1520.0, 12), np.linspace(0.9, 2.6, 12))
+    place = figures._draw_joint_panel(ax, block, observed=observed, p=p.ravel(),
+                                      t=t.ravel())
+    FigureCanvasAgg(fig).draw()
+    place(fig.canvas.get_renderer())
+    fig.canvas.draw()
+    return fig, ax
+
+
+# step < 0: the samples climb to the right on the screen (pressure down), into the
+# default spot of each label, up and to the right of its point
+@pytest.mark.parametrize(("correlation", "step"), [(0.0, -0.09), (-0.6, -0.09), (0.6, 0.09)])
+def test_sample_labels_keep_off_other_samples_ellipses(correlation, step):
+    fig, ax = _crowded_pt_panel(correlation, step)
+    renderer = fig.canvas.get_renderer()
+    outlines = [ln for ln in ax.get_lines() if ln.get_linewidth() == pytest.approx(0.9)]
+    labels = [t for t in ax.texts if t.get_text().startswith("SMP-")]
+    assert len(outlines) == len(labels) == 8
+    frame = ax.get_window_extent(renderer)
+    boxes = [t.get_window_extent(renderer) for t in labels]
+    for i, box in enumerate(boxes):
+        # the room beside the diagonal holds every label: none need touch another
+        # sample's ellipse (its path's extent on the screen), another label or the frame
+        for j, outline in enumerate(outlines):
+            if j != i:
+                assert not box.overlaps(outline.get_window_extent(renderer)), (i, j)
+        assert not any(box.overlaps(other) for other in boxes[i + 1:]), i
+        assert frame.contains(box.x0, box.y0) and frame.contains(box.x1, box.y1), i

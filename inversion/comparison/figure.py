@@ -18,6 +18,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter
 
 from ...forward import figure_style as style
+from ...forward.figure_output import DOUBLE_COLUMN
 from ...forward.plotting import plain_log_axis
 from ...forward.quantities import format_percent, format_signed, quantity
 from .checks import replicate_data
@@ -30,6 +31,12 @@ __all__ = ["comparison_figure"]
 _COLOURS = (style.POSTERIOR, "#d0622f", "#7b4fa0", "#2a9d8f", "#b8322a", "#6b8e23",
             "#e377c2", "#8c6d31", "#17becf", "#7f7f7f")
 _DRAWS = 200
+#: A journal page wide (docs/figures.md): two parameter panels a row, 9 pt titles and
+#: labels, wrapped to the width of their panel (characters per line, measured).
+_PER_ROW = 2
+_TITLE = 9
+_HALF_CHARS = 34  # characters of 9 pt text under half the page
+_FULL_CHARS = 85  # characters of 9 pt text across the page
 
 
 def comparison_figure(comparison) -> Figure:
@@ -38,19 +45,18 @@ def comparison_figure(comparison) -> Figure:
     predictions = [_predictions(r, comparison.seed) for r in results]
     panels = len(predictions[0])
     shown = _parameters(results)
-    per_row = min(4, max(1, len(shown)))
+    per_row = min(_PER_ROW, max(1, len(shown)))
     marginal_rows = -(-len(shown) // per_row)
-    ranking_height = 1.6 + 0.35 * len(results)
-    heights = [3.0] * marginal_rows + [ranking_height] + [2.7] * panels
-    fig = Figure(figsize=(15.0, sum(heights) + 1.2), layout="constrained")
-    grid = fig.add_gridspec(len(heights), 12, height_ratios=heights)
-    width = 12 // per_row
+    ranking_height = 1.7 + 0.3 * len(results)
+    heights = [2.3] * marginal_rows + [ranking_height] + [2.2] * panels
+    fig = Figure(figsize=(DOUBLE_COLUMN, sum(heights) + 1.3), layout="constrained")
+    grid = fig.add_gridspec(len(heights), _PER_ROW, height_ratios=heights)
     for k, (name, unit) in enumerate(shown):
         row, col = divmod(k, per_row)
-        _draw_marginals(fig.add_subplot(grid[row, col * width:(col + 1) * width]), results,
-                        name, unit)
-    _draw_probabilities(fig.add_subplot(grid[marginal_rows, :6]), comparison)
-    _draw_loo(fig.add_subplot(grid[marginal_rows, 6:]), comparison)
+        cells = grid[row, col] if per_row == _PER_ROW else grid[row, :]
+        _draw_marginals(fig.add_subplot(cells), results, name, unit)
+    _draw_probabilities(fig.add_subplot(grid[marginal_rows, 0]), comparison)
+    _draw_loo(fig.add_subplot(grid[marginal_rows, 1]), comparison)
     for i in range(panels):
         ax = fig.add_subplot(grid[marginal_rows + 1 + i, :])
         _draw_predictive(ax, results, [p[i] for p in predictions])
@@ -114,10 +120,10 @@ def _draw_marginals(ax, results, name: str, unit: str) -> None:
                 color=colour, lw=1.6)
     q = quantity(name, unit=unit)
     ax.set_xlim(low, high)
-    ax.set_xlabel(q.axis_label())
+    ax.set_xlabel(q.axis_label(), fontsize=_TITLE)
     ax.set_ylabel(f"probability density (1/{q.unit_text})" if q.unit_text
-                  else "probability density")
-    ax.set_title(q.title if len(q.title) <= 34 else q.symbol, fontsize=9.5, loc="left")
+                  else "probability density", fontsize=_TITLE)
+    ax.set_title(q.title if len(q.title) <= 40 else q.symbol, fontsize=_TITLE, loc="left")
 
 
 def _legend(fig, results, *, title: str) -> None:
@@ -132,11 +138,11 @@ def _legend(fig, results, *, title: str) -> None:
                 Line2D([], [], ls="none", marker=style.OBSERVED["fmt"],
                        color=style.OBSERVED["color"], mfc=style.OBSERVED["mfc"],
                        ms=style.OBSERVED["ms"])]
-    labels += ["prior (dashed; in the scenario's colour where priors differ)",
+    labels += ["prior (dashed; in the scenario's\ncolour where priors differ)",
                "fixed value (dotted)", "observed ± 1σ"]
-    fig.legend(handles, labels, loc="outside upper center", ncols=min(len(labels), 6),
-               fontsize=8.5, frameon=False, title=textwrap.fill(title, width=120),
-               title_fontsize=12)
+    fig.legend(handles, labels, loc="outside upper center", ncols=min(len(labels), 3),
+               fontsize=8, frameon=False, title=textwrap.fill(title, width=80),
+               title_fontsize=10)
 
 
 def _axis_range(results, name: str) -> tuple[float, float]:
@@ -167,9 +173,11 @@ def _draw_probabilities(ax, comparison) -> None:
         ax.text(min(pk + 0.03, 0.8), yk, _percent(pk), va="center", fontsize=8.5)
     ax.set_yticks(y, names)
     ax.set_xlim(0.0, 1.0)
-    ax.set_xlabel("posterior probability of the scenario (dimensionless; bars: 68 % range "
-                  "from the ln Z errors)")
-    ax.set_title("Evidence: scenario probabilities", fontsize=9.5, loc="left")
+    # a no-break space keeps "68 %" on one line
+    ax.set_xlabel(textwrap.fill("posterior probability of the scenario (dimensionless; bars: "
+                                "68\N{NO-BREAK SPACE}% range from the ln Z errors)",
+                                _HALF_CHARS), fontsize=_TITLE)
+    ax.set_title("Evidence: scenario probabilities", fontsize=_TITLE, loc="left")
     ax.grid(axis="x", alpha=0.3, lw=0.5)
 
 
@@ -195,9 +203,11 @@ def _draw_loo(ax, comparison) -> None:
         ax.set_xlim(-max(1.0, span) * 1.2, max(1.0, span) * 0.25)
     ax.set_yticks(y, names)
     ax.set_ylim(y.min() - 0.6, y.max() + 0.6)
-    ax.set_xlabel("elpd_loo minus the best (nats; bars: ±1 standard error of the difference"
-                  + ("; symmetric log axis)" if span > 20 else ")"))
-    ax.set_title("Leave-one-out: predictive accuracy (0 = best)", fontsize=9.5, loc="left")
+    ax.set_xlabel(textwrap.fill("elpd_loo minus the best (nats; bars: ±1 standard error of "
+                                "the difference" + ("; symmetric log axis)" if span > 20
+                                                    else ")"), _HALF_CHARS), fontsize=_TITLE)
+    ax.set_title(textwrap.fill("Leave-one-out: predictive accuracy (0 = best)", _HALF_CHARS),
+                 fontsize=_TITLE, loc="left")
     ax.grid(axis="x", alpha=0.3, lw=0.5)
 
 
@@ -243,11 +253,11 @@ def _draw_predictive(ax, results, panels) -> None:
                 label="observed ± 1σ", zorder=4, **style.OBSERVED)
     ax.set_xticks(x, first["names"], rotation=25, ha="right", fontsize=8)
     ax.set_xlim(-0.6, len(x) - 0.4)
-    ax.set_ylabel(first["ylabel"])
+    ax.set_ylabel(first["ylabel"], fontsize=_TITLE)
     ax.set_title(textwrap.fill(f"{first['title']}: observed against each scenario's "
                                "posterior predictive (data simulated from its posterior; "
-                               "thick 68 %, thin 95 %, tick median)", width=170),
-                 fontsize=9.5, loc="left")  # 170 characters of 9.5 pt fill the 15 in width
+                               "thick 68 %, thin 95 %, tick median)", width=_FULL_CHARS),
+                 fontsize=_TITLE, loc="left")
     ax.grid(axis="y", alpha=0.3, lw=0.5)
     if first.get("log"):
         plain_log_axis(ax)

@@ -33,6 +33,7 @@ from ...forward.figure_output import DOUBLE_COLUMN, figure_bytes, figure_name
 from ...forward.quantities import quantity, unit_text
 from ..study.priors import LogUniform
 from .report import decimals, estimate
+from .sample_labels import place_labels
 
 __all__ = ["corner_figure", "figure_files", "fit_figure", "pt_figure"]
 
@@ -93,8 +94,9 @@ def corner_figure(posterior) -> Figure:
     for k in range(ndim):
         axes[k, 0].yaxis.set_label_coords(-0.75 / cell_w, 0.5)
         axes[ndim - 1, k].xaxis.set_label_coords(0.5, -0.72 / cell_h)
-    fig.legend(handles=_corner_legend(ndim), loc="upper right", fontsize=8, frameon=False,
-               bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
+    handles, labels, handler_map = _corner_legend(ndim)
+    fig.legend(handles, labels, handler_map=handler_map, loc="upper right", fontsize=8,
+               frameon=False, bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
     fig.suptitle(textwrap.fill(posterior.study.name, width=int(7 * size))
                  + "\nposterior of the free parameters",
                  fontsize=10, x=0.02, ha="left", y=1 - 0.12 / height, va="top")
@@ -143,6 +145,11 @@ _QUANTILE = dict(color=style.INK, lw=0.9, ls=(0, (3, 2)))
 
 
 def _corner_legend(ndim: int):
+    """The corner figure's legend: each thing drawn is named once (the MAP by both its
+    markers, the triangle of the 1-D panels and the diamond of the 2-D ones)."""
+    from matplotlib.legend_handler import HandlerTuple
+
+    top = Line2D([], [], color=style.MAP, marker="v", ls="", ms=7)
     handles = [
         Patch(facecolor="none", edgecolor=style.POSTERIOR, lw=1.3,
               label="posterior (histogram of the samples)"),
@@ -152,16 +159,15 @@ def _corner_legend(ndim: int):
                label="posterior median (vertical line)"),
         Line2D([], [], marker="|", ls="", ms=11, mew=0.9, color=_QUANTILE["color"],
                label="16 and 84 % quantiles (dashed vertical lines)"),
-        Line2D([], [], color=style.MAP, marker="v", ls="", ms=7, label="MAP (top edge)"),
     ]
-    if ndim > 1:
-        handles += [
-            Patch(color=style.POSTERIOR, alpha=0.6, label="39 % and 86 % regions "
-                  "(1σ, 2σ in 2-D)"),
-            Line2D([], [], color=style.MAP, marker="D", ls="", mec="white", ms=6,
-                   label="MAP"),
-        ]
-    return handles
+    if ndim == 1:
+        return handles + [top], [h.get_label() for h in handles] + ["MAP (top edge)"], {}
+    handles.append(Patch(color=style.POSTERIOR, alpha=0.6,
+                         label="39 % and 86 % regions (1σ, 2σ in 2-D)"))
+    diamond = Line2D([], [], color=style.MAP, marker="D", ls="", mec="white", ms=6)
+    labels = [h.get_label() for h in handles]
+    labels.append("MAP (on the top edge in 1-D; a point in 2-D)")
+    return handles + [(top, diamond)], labels, {tuple: HandlerTuple(ndivide=None, pad=0.6)}
 
 
 # ---- fit --------------------------------------------------------------------------------
@@ -354,7 +360,7 @@ def _draw_joint_panel(ax, block, *, observed, p, t):
     Returns the function that places the sample labels once the layout is fixed.
     """
     ax.plot(t, p, ".", color=style.POSTERIOR, ms=2, alpha=0.12, zorder=1)
-    _draw_pt_ellipses(ax, observed, label=None)
+    outlines, markers = _draw_pt_ellipses(ax, observed, label=None)
     ax.invert_yaxis()
     ax.set_xlabel(quantity("temperature").axis_label())
     ax.set_ylabel(quantity("pressure").axis_label())
@@ -367,52 +373,7 @@ def _draw_joint_panel(ax, block, *, observed, p, t):
                           fontsize=6.5, color=style.INK)
               for name, tx, py in zip(block.ids, observed["temperature"],
                                       observed["pressure"], strict=True)]
-    return lambda renderer: _place_labels(ax, labels, renderer)
-
-
-#: Offsets (points) and alignments tried for a sample label, nearest first.
-_LABEL_SPOTS = [((4, 3), "left", "bottom"), ((4, -3), "left", "top"),
-                ((-4, 3), "right", "bottom"), ((-4, -3), "right", "top"),
-                ((0, 7), "center", "bottom"), ((0, -7), "center", "top"),
-                ((10, 0), "left", "center"), ((-10, 0), "right", "center"),
-                ((12, 12), "left", "bottom"), ((-12, -12), "right", "top"),
-                ((12, -12), "left", "top"), ((-12, 12), "right", "bottom")]
-
-
-def _place_labels(ax, labels, renderer) -> None:
-    """Move each label to the first spot where it overlaps no placed label (greedy).
-
-    Labels are placed from the top of the axes down; a label with no free spot keeps
-    the spot of least overlap, so every sample stays named.
-    """
-    placed = []
-    inside = ax.get_window_extent(renderer)
-    order = sorted(labels, key=lambda a: -ax.transData.transform(a.xy)[1])
-    for label in order:
-        best, best_cost = None, np.inf
-        for offset, ha, va in _LABEL_SPOTS:
-            label.set_position(offset)
-            label.set_ha(ha)
-            label.set_va(va)
-            box = label.get_window_extent(renderer).expanded(1.08, 1.15)
-            cost = sum(_overlap(box, other) for other in placed)
-            cost += 4 * (box.width * box.height - _overlap(box, inside))  # outside the axes
-            if cost < best_cost:
-                best, best_cost = (offset, ha, va, box), cost
-            if cost == 0:
-                break
-        offset, ha, va, box = best
-        label.set_position(offset)
-        label.set_ha(ha)
-        label.set_va(va)
-        placed.append(box)
-
-
-def _overlap(a, b) -> float:
-    """Area (display units) shared by two bounding boxes."""
-    w = min(a.x1, b.x1) - max(a.x0, b.x0)
-    h = min(a.y1, b.y1) - max(a.y0, b.y0)
-    return max(w, 0.0) * max(h, 0.0)
+    return lambda renderer: place_labels(ax, labels, outlines, markers, renderer)
 
 
 def _ellipse_xy(x, y, sx, sy, rho, num: int = 64) -> tuple[np.ndarray, np.ndarray]:
@@ -427,18 +388,23 @@ def _ellipse_xy(x, y, sx, sy, rho, num: int = 64) -> tuple[np.ndarray, np.ndarra
     return x + sx * u, y + sy * (rho * u + np.sqrt(1.0 - rho * rho) * v)
 
 
-def _draw_pt_ellipses(ax, observed, *, label: str | None) -> None:
-    """Each observed P-T point with its 1-sigma error ellipse (correlation included)."""
+def _draw_pt_ellipses(ax, observed, *, label: str | None) -> tuple[list, Line2D]:
+    """Each observed P-T point with its 1-sigma error ellipse (correlation included).
+
+    Returns the ellipse outlines (one Line2D per sample) and the markers (one Line2D).
+    """
     rho = observed.get("correlation", np.zeros_like(observed["pressure"]))
+    outlines = []
     for k, (t, p, st, sp, r) in enumerate(zip(
             observed["temperature"], observed["pressure"], observed["temperature_sigma"],
             observed["pressure_sigma"], rho, strict=True)):
         ex, ey = _ellipse_xy(t, p, st, sp, r)
         ax.fill(ex, ey, color=style.INK, alpha=0.07, lw=0, zorder=5)
-        ax.plot(ex, ey, color=style.INK, lw=0.9, zorder=5,
-                label=label if k == 0 else None)
-    ax.plot(observed["temperature"], observed["pressure"], ls="", marker="D", ms=4.5,
-            mfc="white", mec=style.INK, mew=1.0, zorder=6)
+        outlines += ax.plot(ex, ey, color=style.INK, lw=0.9, zorder=5,
+                            label=label if k == 0 else None)
+    markers, = ax.plot(observed["temperature"], observed["pressure"], ls="", marker="D",
+                       ms=4.5, mfc="white", mec=style.INK, mew=1.0, zorder=6)
+    return outlines, markers
 
 
 # ---- P-T --------------------------------------------------------------------------------
