@@ -218,12 +218,14 @@ def fast_trace_elements(
     shape = np.shape(column.top_pressure)
     points = _Points.of(column)
     e, size = len(picked), points.top.size
-    melt, residue, mass = np.empty((e, size)), np.empty((e, size)), np.empty(size)
-    # in blocks: whole-array temporaries of many MB each cost fresh pages every call
-    for start in range(0, size, _BLOCK):
-        stop = min(start + _BLOCK, size)
-        melt[:, start:stop], residue[:, start:stop], mass[start:stop] = _pooled(
-            points.part(start, stop), region, lo, hi, picked)
+    if size <= _BLOCK:
+        melt, residue, mass = _pooled(points, region, lo, hi, picked)
+    else:  # in blocks: whole-array temporaries of many MB each cost fresh pages every call
+        melt, residue, mass = np.empty((e, size)), np.empty((e, size)), np.empty(size)
+        for start in range(0, size, _BLOCK):
+            stop = min(start + _BLOCK, size)
+            melt[:, start:stop], residue[:, start:stop], mass[start:stop] = _pooled(
+                points.part(start, stop), region, lo, hi, picked)
     if c0.ndim == 1:  # one source: scaled while elements lead (long inner loops)
         melt, residue = melt * c0[:, None], residue * c0[:, None]
     melt, residue = (np.moveaxis(a, 0, -1).reshape(shape + (e,)) for a in (melt, residue))

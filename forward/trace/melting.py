@@ -12,7 +12,7 @@ elements along the melting path".
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import cached_property
+from functools import cache, cached_property
 
 import numpy as np
 
@@ -75,7 +75,7 @@ class TraceElements:
     @cached_property
     def normalised(self) -> np.ndarray:
         """The melt over CI chondrite (Sun & McDonough 1989), shape (..., e)."""
-        return self.melt / chondrite()[[ELEMENTS.index(e) for e in self.elements]]
+        return self.melt / _chondrite_of(self.elements)
 
     @property
     def la_yb(self) -> np.ndarray:
@@ -88,6 +88,14 @@ class TraceElements:
     @property
     def dy_yb(self) -> np.ndarray:
         return self.ratio("Dy", "Yb")
+
+
+@cache
+def _chondrite_of(elements: tuple[str, ...]) -> np.ndarray:
+    """CI chondrite of ``elements`` (read-only, computed once per tuple)."""
+    out = chondrite()[[ELEMENTS.index(e) for e in elements]]
+    out.flags.writeable = False
+    return out
 
 
 def pooled_trace_elements(

@@ -94,6 +94,8 @@ class RareEarthRatios(ObservationSet):
                                                               for e in ELEMENTS}
         self.transition = tuple(float(v) for v in transition)
         self.ratios = tuple(k for k in RATIOS if f"{k}_cn" in data.columns)
+        # only the elements of the table's ratios: each element is computed on its own
+        self._elements = tuple(sorted({e for k in self.ratios for e in RATIOS[k]}))
         observed = {k: np.asarray(data[f"{k}_cn"], float) for k in self.ratios}
         stated = {k: np.asarray(data[f"{k}_sigma_cn"], float) / observed[k]
                   for k in self.ratios}
@@ -132,10 +134,8 @@ class RareEarthRatios(ObservationSet):
         return combine_sigma(self._log_stated[key], self.model_error, "model_error", errors)
 
     def _model(self, column) -> dict[str, np.ndarray]:
-        # only the elements of the table's ratios: each element is computed on its own
-        used = {e for k in self.ratios for e in RATIOS[k]}
         pooled = fast_trace_elements(column, source=self.source, transition=self.transition,
-                                     elements=tuple(used))
+                                     elements=self._elements)
         return {k: pooled.ratio(*RATIOS[k], normalised=True) for k in self.ratios}
 
     def pointwise_log_likelihood(self, column, *, parameters: Mapping | None = None,
