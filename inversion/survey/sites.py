@@ -7,13 +7,9 @@ Columns: ``site`` (name), then the columns of each observation kind a survey rea
 with ``temperature_sigma_c`` (only beside a pressure) and ``pt_correlation`` (only beside
 a temperature); optional ``la_yb_cn`` with ``la_yb_sigma_cn`` and, beside them,
 ``sm_yb_cn``/``sm_yb_sigma_cn`` and ``dy_yb_cn``/``dy_yb_sigma_cn`` (chondrite-normalised
-<<<<<<< HEAD
-rare-earth ratios, kind ``rare_earths``, with the ``[survey]`` source and transition); optional
-=======
-rare-earth ratios, kind ``rare_earths``, default source and transition; the kind fits
-Sm/Yb and Dy/Yb only beside La/Yb, so a header with them and no ``la_yb_cn`` is refused,
-and so is a row giving them without La/Yb); optional
->>>>>>> survfix
+rare-earth ratios, kind ``rare_earths``, with the ``[survey]`` source and transition;
+the kind fits Sm/Yb and Dy/Yb only beside La/Yb, so a header with them and no
+``la_yb_cn`` is refused, and so is a row giving them without La/Yb); optional
 ``position_km`` (distance along the study area, for the profile
 figure). Columns starting with ``note`` are remarks; any other column is refused. A line
 whose first non-blank character is ``#`` is a comment and skipped, so a site name must not
