@@ -83,3 +83,11 @@ def test_docs_code_and_data_of_the_repository():
     assert any(p.name == "README.md" for p in files)
     for path in files:
         _assert_clean(path.read_text(encoding="utf-8", errors="replace"), str(path))
+
+
+def test_no_merge_conflict_markers_in_tracked_files():
+    # a marker left by a merge is neither code nor prose (common practice: git's markers)
+    marker = re.compile(r"^(<{7} |>{7} |={7}$)", re.M)
+    for path in _tracked_text_files():
+        text = path.read_text(encoding="utf-8", errors="replace")
+        assert not marker.search(text), f"{path}: merge conflict marker"
