@@ -115,6 +115,9 @@ class Quantity:
         Which question the quantity answers (a key of `GROUPS`).
     math : str
         Label in matplotlib mathtext (defaults to `short`).
+    significant : int
+        When > 0, tables show this many significant digits instead of `decimals` (for
+        values spanning decades, such as concentrations in ppm).
     """
 
     key: str
@@ -124,6 +127,7 @@ class Quantity:
     decimals: int
     group: str
     math: str = ""
+    significant: int = 0
 
     @property
     def unit_text(self) -> str:
@@ -141,7 +145,18 @@ class Quantity:
         return self.math or self.short
 
     def format(self, value: float, decimals: int | None = None) -> str:
-        """`value` with this quantity's decimals (U+2212 minus sign for negatives)."""
+        """`value` with this quantity's decimals or significant digits (U+2212 minus sign
+        for negatives).
+
+        Examples
+        --------
+        >>> [quantity("la").format(v) for v in (15.237, 2.3456, 0.33341, 9.9996)]
+        ['15.2', '2.35', '0.333', '10.0']
+        """
+        if decimals is None and self.significant and value is not None \
+                and math.isfinite(value) and value != 0.0:
+            rounded = float(f"{float(value):.{self.significant}g}")  # 9.9996 -> 10.0
+            decimals = max(0, self.significant - 1 - math.floor(math.log10(abs(rounded))))
         return format_signed(value, self.decimals if decimals is None else decimals)
 
     @property
@@ -174,8 +189,15 @@ GROUPS = {
 }
 
 
-def _q(key, unit, short, name, decimals, group, math="") -> Quantity:
-    return Quantity(key, unit, short, name, decimals, group, math)
+def _q(key, unit, short, name, decimals, group, math="", significant=0) -> Quantity:
+    return Quantity(key, unit, short, name, decimals, group, math, significant)
+
+
+def _rare_earth(element: str) -> Quantity:
+    """An element of the pooled melt in ppm (``la`` -> column ``la_ppm``), 3 significant
+    digits: pooled melts hold from tenths of a ppm (Lu) to tens of ppm (La, small F)."""
+    return _q(element.lower(), "ppm", element, f"{element} of the pooled melt", 2, "melt",
+              element, 3)
 
 
 _ALL = (
@@ -218,6 +240,8 @@ _ALL = (
        "(Sm/Yb)$_N$"),
     _q("dy_yb", "cn", "Dy/Yb", "chondrite-normalised Dy/Yb of the pooled melt", 3, "melt",
        "(Dy/Yb)$_N$"),
+    # rare earths of the pooled melt (forward.trace.ELEMENTS)
+    *(_rare_earth(e) for e in ("La", "Ce", "Nd", "Sm", "Eu", "Gd", "Dy", "Er", "Yb", "Lu")),
     # axes and observed quantities
     _q("pressure", "GPa", "P", "pressure", 2, "data"),
     _q("temperature", "degC", "T", "temperature", 0, "data"),
