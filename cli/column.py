@@ -12,6 +12,7 @@ import os
 import sys
 import textwrap
 from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 
@@ -20,7 +21,8 @@ import numpy as np
 from ..forward.column import MELTING_REGIONS, melt_column
 from ..forward.parameterizations import PARAMETERIZATIONS, get_parameterization
 from ..forward.quantities import GROUPS, quantity
-from ..inversion.errors import InputError
+from ..forward.trace import DEFAULT_TRANSITION, ELEMENTS, SOURCES
+from ..inversion.errors import InputError, suggest
 from ..inversion.study.keys import parse_number
 
 # option name (= melt_column argument) -> default
@@ -40,6 +42,11 @@ OUTPUT_KEYS = ("onset_depth", "top_depth", "melt_thickness", "crustal_thickness"
                "mean_melting_pressure")
 #: With --trace-elements: chondrite-normalised ratios of the pooled melt (key -> elements).
 TRACE_KEYS = {"la_yb": ("La", "Yb"), "sm_yb": ("Sm", "Yb"), "dy_yb": ("Dy", "Yb")}
+#: With --trace-elements all, also the pooled melt's concentrations (key -> element), ppm.
+CONCENTRATION_KEYS = {e.lower(): e for e in ELEMENTS}
+#: What --trace-elements adds: "ratios" (also the bare flag) or "all".
+TRACE_CHOICES = ("ratios", "all")
+_DEFAULT_SOURCE = "workman_hart_2005"  # that of forward.trace and of a rare_earths block
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -62,11 +69,21 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         parser.add_argument(f"--{name.replace('_', '-')}", type=float, default=default,
                             metavar="RHO", help=f"{quantity(name).name} "
                             f"({quantity(name).unit_text}; default {default:g})")
-    parser.add_argument("--trace-elements", action="store_true",
-                        help="also give the pooled melt's chondrite-normalised La/Yb, Sm/Yb "
-                        "and Dy/Yb (fractional melting of a Workman & Hart 2005 source, "
-                        "spinel-garnet transition 2.5-3.0 GPa; Sun & McDonough 1989 CI "
-                        "chondrite; empty where nothing melts)")
+    parser.add_argument("--trace-elements", nargs="?", const="ratios", default=None,
+                        metavar="WHAT",
+                        help="also give the rare earths of the pooled melt (Shaw 1970 "
+                        "fractional melting; empty where nothing melts): 'ratios' (also "
+                        "the bare flag) adds the chondrite-normalised La/Yb, Sm/Yb and "
+                        "Dy/Yb (Sun & McDonough 1989 CI chondrite); 'all' adds La, Ce, Nd, "
+                        "Sm, Eu, Gd, Dy, Er, Yb and Lu in ppm too")
+    parser.add_argument("--trace-source", metavar="NAME",
+                        help="mantle source of the rare earths, with --trace-elements: "
+                        f"{', '.join(SOURCES)} (default {_DEFAULT_SOURCE})")
+    lo, hi = DEFAULT_TRANSITION
+    parser.add_argument("--trace-transition", metavar="LO:HI",
+                        help="spinel-garnet transition in GPa, with --trace-elements: "
+                        f"garnet comes in linearly from LO to HI, 0 <= LO < HI <= 10 "
+                        f"(default {lo:g}:{hi:g})")
     parser.add_argument("--format", choices=("table", "csv", "json"), default="table",
                         help="output format: aligned table for people (default), or CSV / "
                         "JSON at full precision with the same keys")
@@ -115,6 +132,76 @@ def _names(text: str, allowed, option: str) -> list[str]:
     return names
 
 
+@dataclass(frozen=True)
+class TraceSettings:
+    """How ``lidmelt column`` computes its rare-earth columns.
+
+    Attributes
+    ----------
+    what : {"ratios", "all"}
+        The three chondrite-normalised ratios, or those and the ten concentrations.
+    source : str
+        A packaged source (`forward.trace.SOURCES`).
+    transition : (float, float)
+        The spinel-garnet transition, GPa.
+    """
+
+    what: str
+    source: str
+    transition: tuple[float, float]
+
+    @property
+    def keys(self) -> tuple[str, ...]:
+        """Output keys of the rare-earth columns, in table order."""
+        return (*TRACE_KEYS, *(CONCENTRATION_KEYS if self.what == "all" else ()))
+
+    def sentence(self) -> str:
+        """What the columns were computed with, for the line above the table."""
+        lo, hi = self.transition
+        return (f"Rare earths: fractional melting of source {self.source}, spinel–garnet "
+                f"transition {lo:.2f}–{hi:.2f} GPa, ratios normalised to CI chondrite "
+                "(Sun & McDonough 1989).")
+
+
+def trace_settings(args) -> TraceSettings | None:
+    """The rare-earth options of `args`, checked; None without ``--trace-elements``.
+
+    ``trace_elements`` may also be True (the bare flag, from Python). Each mistake is
+    an `InputError` naming the option and its rule.
+    """
+    what = getattr(args, "trace_elements", None)
+    source = getattr(args, "trace_source", None)
+    transition = getattr(args, "trace_transition", None)
+    if what is None or what is False:
+        for option, value in (("trace-source", source), ("trace-transition", transition)):
+            if value is not None:
+                raise InputError(f"--{option}: give it with --trace-elements (it sets how "
+                                 "the rare-earth columns are computed)")
+        return None
+    what = "ratios" if what is True else what
+    if what not in TRACE_CHOICES:
+        raise InputError(f"--trace-elements: unknown {what!r}; choose ratios or all (the "
+                         "bare flag gives the ratios)")
+    if source is None:
+        source = _DEFAULT_SOURCE
+    elif source not in SOURCES:
+        raise InputError(f"--trace-source: unknown source {source!r}"
+                         + suggest(source, SOURCES))
+    return TraceSettings(what, source, DEFAULT_TRANSITION if transition is None
+                         else _transition(transition))
+
+
+def _transition(text: str) -> tuple[float, float]:
+    """``LO:HI`` in GPa under the rule of a rare_earths study block (`parse_transition`)."""
+    from ..inversion.observations.rare_earths import parse_transition
+
+    rule = "must be LO:HI in GPa with 0 <= LO < HI <= 10 (the spinel-garnet transition)"
+    try:
+        return parse_transition([parse_number(x) for x in text.split(":")], "transition")
+    except (InputError, ValueError):
+        raise InputError(f"--trace-transition: {rule}, not {text!r}") from None
+
+
 #: Rows computed and written at a time: memory stays bounded whatever the row count.
 CHUNK_ROWS = 20_000
 
@@ -140,9 +227,10 @@ class Combinations:
         self.densities = {"crust_density": args.crust_density,
                           "mantle_density": args.mantle_density}
         self.shape = tuple(len(v) for v in self.numeric.values())
-        self.trace = bool(getattr(args, "trace_elements", False))
+        #: The rare-earth columns' settings, None without them.
+        self.trace = trace_settings(args)
         #: Output keys of every row, in table order.
-        self.outputs = (*OUTPUT_KEYS, *(TRACE_KEYS if self.trace else ()))
+        self.outputs = (*OUTPUT_KEYS, *(self.trace.keys if self.trace else ()))
 
     def __len__(self) -> int:
         return len(self.params) * len(self.regions) * math.prod(self.shape)
@@ -169,8 +257,10 @@ class Combinations:
         probe = argparse.Namespace(**{k: ",".join(repr(x) for x in v) for k, v in ends.items()},
                                    melting_region=",".join(self.regions),
                                    parameterization=",".join(self.params),
-                                   trace_elements=self.trace, **self.densities)
-        return [row for chunk in Combinations(probe).chunks() for row in chunk]
+                                   **self.densities)
+        combos = Combinations(probe)
+        combos.trace, combos.outputs = self.trace, self.outputs  # already checked
+        return [row for chunk in combos.chunks() for row in chunk]
 
     def chunks(self, size: int | None = None) -> Iterator[list[dict]]:
         """Lists of at most `size` rows (default `CHUNK_ROWS`), each row a dict of
@@ -187,8 +277,8 @@ class Combinations:
                 columns = {k: v.tolist() for k, v in inputs.items()}
                 columns |= {k: np.broadcast_to(getattr(res, k), index[0].shape).tolist()
                             for k in OUTPUT_KEYS}
-                if self.trace:
-                    columns |= _trace_columns(res)
+                if self.trace is not None:
+                    columns |= _trace_columns(res, self.trace)
                 fixed = {"parameterization": param, "melting_region": region,
                          **self.densities}
                 yield [{**{k: columns[k][i] for k in _NUMERIC}, **fixed,
@@ -196,20 +286,27 @@ class Combinations:
                        for i in range(index[0].size)]
 
 
-def _trace_columns(res) -> dict[str, list]:
-    """`TRACE_KEYS` of the pooled melt of `res` (fast route), None where nothing melts.
+def _trace_columns(res, trace: TraceSettings) -> dict[str, list]:
+    """The rare-earth columns (`trace.keys`) of the pooled melt of `res`, None where
+    nothing melts.
 
-    Ratios of chondrite-normalised concentrations (Sun & McDonough 1989), from
-    `forward.trace.fast_trace_elements` with its defaults (docs/model.md, "Rare-earth
-    elements along the melting path").
+    From `forward.trace.fast_trace_elements` with the chosen source and transition
+    (docs/model.md, "Rare-earth elements along the melting path"): ratios of
+    chondrite-normalised concentrations (Sun & McDonough 1989) and, with ``all``, the
+    concentrations in ppm. The ratios alone need four elements, so only those are computed.
     """
     from ..forward.trace import fast_trace_elements
 
-    pooled = fast_trace_elements(res)
-    melts = np.asarray(res.melt_thickness) > 0.0
-    return {key: [float(v) if m else None for v, m in zip(
-                np.ravel(pooled.ratio(*pair, normalised=True)), np.ravel(melts), strict=True)]
-            for key, pair in TRACE_KEYS.items()}
+    elements = None if trace.what == "all" else ("La", "Sm", "Dy", "Yb")
+    pooled = fast_trace_elements(res, source=trace.source, transition=trace.transition,
+                                 elements=elements)
+    melts = np.ravel(np.asarray(res.melt_thickness) > 0.0)
+    values = {key: pooled.ratio(*pair, normalised=True) for key, pair in TRACE_KEYS.items()}
+    if trace.what == "all":
+        values |= {key: pooled.melt[..., pooled.elements.index(element)]
+                   for key, element in CONCENTRATION_KEYS.items()}
+    return {key: [float(v) if m else None for v, m in zip(np.ravel(v), melts, strict=True)]
+            for key, v in values.items()}
 
 
 def tabulate(args) -> list[dict]:
@@ -223,8 +320,10 @@ def _cell(key: str, value) -> str:
     return str(value)
 
 
-def _constant_line(first: dict, varying: list[str]) -> str:
-    """The inputs shared by every row, said once above the table."""
+def _constant_line(first: dict, varying: list[str],
+                   trace: TraceSettings | None = None) -> str:
+    """The inputs shared by every row, said once above the table, and what the
+    rare-earth columns were computed with (`trace`)."""
     words = []
     for key in INPUT_KEYS:
         if key in varying:
@@ -236,12 +335,20 @@ def _constant_line(first: dict, varying: list[str]) -> str:
             words.append(f"{value} melting region")
         else:
             words.append(f"{quantity(key).name} {quantity(key).with_value(value)}")
-    return textwrap.fill("Same on every row: " + ", ".join(words) + ".", width=96)
+    text = "Same on every row: " + ", ".join(words) + "."
+    if trace is not None:
+        text += " " + trace.sentence()
+    return textwrap.fill(text, width=96)
 
 
 def _legend(keys: list[str], width: int = 96) -> str:
-    """``label = prose name`` for each column, wrapped between entries."""
-    entries = [f"{quantity(k).short} = {quantity(k).name}" for k in keys]
+    """``label = prose name`` for each column, wrapped between entries; the rare-earth
+    concentrations share one entry."""
+    entries = [f"{quantity(k).short} = {quantity(k).name}" for k in keys
+               if k not in CONCENTRATION_KEYS]
+    shown = [quantity(k).short for k in keys if k in CONCENTRATION_KEYS]
+    if shown:
+        entries.append(f"{shown[0]}–{shown[-1]} = concentrations in the pooled melt")
     lines = [entries[0]]
     for entry in entries[1:]:
         if len(lines[-1]) + 2 + len(entry) > width:
@@ -296,7 +403,8 @@ def _csv_cell(value):
 
 def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
                varying: list[str], extremes: list[dict] = (),
-               outputs: tuple[str, ...] = OUTPUT_KEYS) -> None:
+               outputs: tuple[str, ...] = OUTPUT_KEYS,
+               trace: TraceSettings | None = None) -> None:
     """Write the rows chunk by chunk: an aligned table for people, or CSV / JSON at full
     precision (floats written by ``repr``, which reads back to the same number).
 
@@ -309,7 +417,8 @@ def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
     a header line and a legend below; `varying` are the inputs that differ between rows.
     Its column widths come from the first chunk and the `extremes` rows (not written).
     `outputs` are the output keys of the rows (`Combinations.outputs`); a missing value
-    (None) is an empty CSV cell, JSON null and the table's missing mark.
+    (None) is an empty CSV cell, JSON null and the table's missing mark. `trace` (the
+    rare-earth settings) is said above the table.
     """
     keys = [*INPUT_KEYS, *outputs]
     if fmt == "csv":
@@ -337,18 +446,21 @@ def write_rows(chunks: Iterable[list[dict]], fmt: str, out: TextIO, *,
     for rows in chunks:
         if layout is None:
             layout = _Layout([*rows, *extremes], shown)
-            out.write("\n".join([_constant_line(rows[0], varying), "", *layout.header()]))
+            out.write("\n".join([_constant_line(rows[0], varying, trace), "",
+                                 *layout.header()]))
         out.write("\n" + "\n".join(layout.body(rows)))
     legend = _legend([k for k in shown if k not in ("parameterization", "melting_region")])
     out.write("\n\n" + legend + "\n")
 
 
-def format_rows(rows: list[dict], fmt: str) -> str:
-    """The rows as one string, in the format of `write_rows`."""
+def format_rows(rows: list[dict], fmt: str, *, trace: TraceSettings | None = None) -> str:
+    """The rows as one string, in the format of `write_rows` (`trace`: the rare-earth
+    settings the rows were computed with, said above the table)."""
     buffer = io.StringIO()
     varying = [k for k in INPUT_KEYS if len({r[k] for r in rows}) > 1]
-    outputs = (*OUTPUT_KEYS, *(k for k in TRACE_KEYS if rows and k in rows[0]))
-    write_rows([rows], fmt, buffer, varying=varying, outputs=outputs)
+    outputs = (*OUTPUT_KEYS, *(k for k in (*TRACE_KEYS, *CONCENTRATION_KEYS)
+                               if rows and k in rows[0]))
+    write_rows([rows], fmt, buffer, varying=varying, outputs=outputs, trace=trace)
     return buffer.getvalue().rstrip("\n")
 
 
@@ -406,7 +518,7 @@ def run(args) -> int:
             extremes = combos.corners() if len(combos) > CHUNK_ROWS else []
             write_rows(chunks, args.format, sys.stdout, varying=combos.varying,
                        extremes=extremes if args.format == "table" else [],
-                       outputs=combos.outputs)
+                       outputs=combos.outputs, trace=combos.trace)
             sys.stdout.flush()
         except BrokenPipeError:  # the reader has seen enough (`| head`): stop quietly
             os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
@@ -422,5 +534,6 @@ def run(args) -> int:
     return 0
 
 
-__all__ = ["CHUNK_ROWS", "INPUT_KEYS", "OUTPUT_KEYS", "TRACE_KEYS", "Combinations", "add_arguments",
-           "format_rows", "parse_values", "run", "tabulate", "write_rows"]
+__all__ = ["CHUNK_ROWS", "CONCENTRATION_KEYS", "INPUT_KEYS", "OUTPUT_KEYS", "TRACE_CHOICES",
+           "TRACE_KEYS", "Combinations", "TraceSettings", "add_arguments", "format_rows",
+           "parse_values", "run", "tabulate", "trace_settings", "write_rows"]

@@ -178,3 +178,126 @@ def test_trace_elements_adds_the_pooled_melts_ratios(capsys):
     assert "La/Yb" in capsys.readouterr().out
     assert main(argv[:-1] + ["--format", "csv"]) == 0  # without the option: no ratio columns
     assert "la_yb_cn" not in capsys.readouterr().out
+
+
+# The ten rare earths of the pooled melt, as --trace-elements all gives them (CSV names).
+_PPM = ("la_ppm", "ce_ppm", "nd_ppm", "sm_ppm", "eu_ppm", "gd_ppm", "dy_ppm", "er_ppm",
+        "yb_ppm", "lu_ppm")
+_REE_GRID = ["column", "--potential-temperature", "1250,1400", "--lithosphere-thickness",
+             "46,100", "--water", "150"]
+
+
+def _csv_rows(capsys, *argv) -> list[dict]:
+    assert main([*argv, "--format", "csv"]) == 0
+    return list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
+
+
+def test_trace_elements_all_gives_the_fast_routes_ppm_with_the_chosen_source(capsys):
+    from lidmelt.forward.trace import ELEMENTS, fast_trace_elements
+
+    rows = _csv_rows(capsys, *_REE_GRID, "--trace-elements", "all", "--trace-source",
+                     "salters_stracke_2004", "--trace-transition", "2.0:2.8")
+    assert list(rows[0])[-13:] == ["la_yb_cn", "sm_yb_cn", "dy_yb_cn", *_PPM]
+    melted = 0
+    for row in rows:
+        res = melt_column(float(row["potential_temperature_c"]),
+                          float(row["lithosphere_thickness_km"]), water=150.0)
+        if res.melt_thickness == 0.0:  # nothing melts: empty cells, as for the ratios
+            assert all(row[k] == "" for k in _PPM)
+            continue
+        melted += 1
+        melt = fast_trace_elements(res, source="salters_stracke_2004",
+                                   transition=(2.0, 2.8)).melt
+        for column, value in zip(_PPM, melt, strict=True):
+            # the same computation on a batch of points and on one: only the order of
+            # floating-point sums may differ
+            assert float(row[column]) == pytest.approx(value, rel=1e-12)
+        assert float(row["la_yb_cn"]) == pytest.approx(
+            (melt[0] / melt[8]) * (0.170 / 0.237), rel=1e-12)  # CI La, Yb: Sun & McDonough
+        # 1989 (value from memory; the model's own file holds the same numbers)
+        # Mass balance (common practice): the melt extracted, a mass F_max per unit of
+        # source, cannot carry more of an element than the source held, and La, far more
+        # incompatible than the melt fraction is large (bulk D ~ 0.01), is nearly all in it
+        # once F >= 0.1. DM, Salters & Stracke 2004, Table 5, ppm (value from memory)
+        f_max = float(row["max_melt_fraction"])
+        source = (0.234, 0.772, 0.713, 0.270, 0.107, 0.395, 0.531, 0.371, 0.401, 0.063)
+        shares = [float(row[c]) * f_max / c0 for c, c0 in zip(_PPM, source, strict=True)]
+        assert all(0.0 < s <= 1.0 + 1e-12 for s in shares), shares
+        if f_max >= 0.1:
+            assert shares[0] > 0.99, shares
+    assert melted == 3
+    assert [c.removesuffix("_ppm") for c in _PPM] == [e.lower() for e in ELEMENTS]
+
+
+def test_concentrations_scale_with_the_source_as_fractional_melting_is_linear(capsys):
+    # Shaw 1970: the fractional melt is C0 times a function of D and F alone, so two
+    # sources give concentrations in the ratio of their source values, element by element.
+    # DMM, Workman & Hart 2005 (EPSL 231), Table 1, ppm (value from memory)
+    workman_hart = {"la": 0.192, "ce": 0.550, "nd": 0.581, "sm": 0.239, "eu": 0.096,
+                    "gd": 0.358, "dy": 0.505, "er": 0.348, "yb": 0.365, "lu": 0.058}
+    # DM, Salters & Stracke 2004 (G-cubed 5), Table 5, ppm (value from memory)
+    salters_stracke = {"la": 0.234, "ce": 0.772, "nd": 0.713, "sm": 0.270, "eu": 0.107,
+                       "gd": 0.395, "dy": 0.531, "er": 0.371, "yb": 0.401, "lu": 0.063}
+    grid = ["column", "--potential-temperature", "1300:1500:100", "--lithosphere-thickness",
+            "0,60,90", "--melting-region", "column,triangle", "--trace-elements", "all"]
+    wh = _csv_rows(capsys, *grid)  # the default source: Workman & Hart 2005
+    ss = _csv_rows(capsys, *grid, "--trace-source", "salters_stracke_2004")
+    assert len(wh) == len(ss) == 18
+    for a, b in zip(wh, ss, strict=True):
+        if a["la_ppm"] == "":
+            assert b["la_ppm"] == ""
+            continue
+        for element, c0 in workman_hart.items():
+            expected = salters_stracke[element] / c0
+            assert float(b[f"{element}_ppm"]) / float(a[f"{element}_ppm"]) == pytest.approx(
+                expected, rel=1e-9)
+        # and each ratio by the ratio of the two sources' ratios
+        for num in ("la", "sm", "dy"):
+            expected = (salters_stracke[num] / salters_stracke["yb"]) / (
+                workman_hart[num] / workman_hart["yb"])
+            assert float(b[f"{num}_yb_cn"]) / float(a[f"{num}_yb_cn"]) == pytest.approx(
+                expected, rel=1e-9)
+    assert sum(r["la_ppm"] != "" for r in wh) >= 12
+
+
+def test_the_table_says_which_source_and_transition(capsys, monkeypatch):
+    from lidmelt.cli import column
+
+    argv = [*_REE_GRID, "--trace-elements", "all", "--trace-transition", "2.2:2.9"]
+    assert main(argv) == 0
+    table = capsys.readouterr().out
+    head = " ".join(table.split("\n\n")[0].split())
+    assert "workman_hart_2005" in head and "2.20–2.90 GPa" in head
+    assert "La–Lu = concentrations in the pooled melt" in " ".join(table.split())
+    # in chunks of one row the text is the same (the widths come from the extreme rows)
+    monkeypatch.setattr(column, "CHUNK_ROWS", 1)
+    assert main(argv) == 0
+    assert capsys.readouterr().out == table
+    # bare --trace-elements: the ratios only, as before; "ratios" says the same
+    assert main([*_REE_GRID, "--trace-elements", "--format", "json"]) == 0
+    bare = capsys.readouterr().out
+    assert '"la_yb"' in bare and '"la"' not in bare
+    assert main([*_REE_GRID, "--trace-elements", "ratios", "--format", "json"]) == 0
+    assert capsys.readouterr().out == bare
+    assert main([*_REE_GRID, "--trace-elements", "all", "--format", "json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["units"]["la"] == "ppm" and data["columns"]["lu"] == "lu_ppm"
+    assert sum(r["yb"] is None for r in data["rows"]) == 1
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["--trace-source", "salters_stracke_2004"],
+     "--trace-source: give it with --trace-elements"),
+    (["--trace-transition", "2:3"], "--trace-transition: give it with --trace-elements"),
+    (["--trace-elements", "--trace-source", "workman_hart"],
+     "--trace-source: unknown source 'workman_hart'"),
+    (["--trace-elements", "--trace-transition", "3.0:2.5"],
+     "--trace-transition: must be LO:HI in GPa with 0 <= LO < HI <= 10"),
+    (["--trace-elements", "--trace-transition", "2.5:12"], "0 <= LO < HI <= 10"),
+    (["--trace-elements", "--trace-transition", "2.5"], "must be LO:HI in GPa"),
+    (["--trace-elements", "some"], "--trace-elements: unknown 'some'; choose ratios or all"),
+])
+def test_trace_options_refused_with_one_line(argv, message, capsys):
+    from helpers import cli_refused
+
+    assert message in cli_refused(capsys, "column", *argv)
