@@ -83,7 +83,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--trace-transition", metavar="LO:HI",
                         help="spinel-garnet transition in GPa, with --trace-elements: "
                         f"garnet comes in linearly from LO to HI, 0 <= LO < HI <= 10 "
-                        f"(default {lo:g}:{hi:g})")
+                        f"(default {lo}:{hi})")
     parser.add_argument("--format", choices=("table", "csv", "json"), default="table",
                         help="output format: aligned table for people (default), or CSV / "
                         "JSON at full precision with the same keys")
