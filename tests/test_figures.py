@@ -225,6 +225,25 @@ def test_corner_legend_names_each_thing_once(two):
     assert sum(t.startswith("MAP") for t in texts) == 1
 
 
+@pytest.mark.parametrize("case", ["two", "demo"])
+def test_corner_legend_keeps_off_the_panels_and_their_titles(case, request):
+    # the legend sits in the empty upper-right triangle, clear of every drawn panel and
+    # of the summary line above each diagonal panel, and inside the figure
+    fig = figures.corner_figure(request.getfixturevalue(case))
+    FigureCanvasAgg(fig).draw()
+    (legend,) = fig.legends
+    box = legend.get_window_extent()
+    assert _inside(fig, legend)
+    assert not box.overlaps(fig._suptitle.get_window_extent())
+    for ax in fig.axes:
+        if not ax.get_visible() or not ax.axison or not ax.get_frame_on():
+            continue  # corner's empty upper-right cells
+        assert not box.overlaps(ax.get_window_extent()), ax.get_title()
+        for text in (ax.title, *ax.texts):
+            if text.get_text():
+                assert not box.overlaps(text.get_window_extent()), text.get_text()
+
+
 def _crowded_pt_panel(correlation: float, step: float):
     """Eight samples whose 1σ ellipses overlap their neighbours', on a diagonal with free
     room on both sides, as the joint P-T panel of fit.png draws them (invented data)."""

@@ -56,6 +56,10 @@ def figure_files(posterior, *, figure_format: str = "png") -> dict[str, bytes]:
 
 # ---- corner -----------------------------------------------------------------------------
 
+_CHAR_INCH_8PT = 0.062  # mean width of a character at 8 pt (DejaVu Sans), inches
+_LEGEND_HANDLE_INCH = 0.55  # a legend entry's marker and the gaps around it, inches
+
+
 def corner_figure(posterior) -> Figure:
     """Marginals of the free parameters: priors, median, 68 % interval and MAP marked."""
     names, units = posterior.names, posterior.logpost.units
@@ -95,6 +99,10 @@ def corner_figure(posterior) -> Figure:
         axes[k, 0].yaxis.set_label_coords(-0.75 / cell_w, 0.5)
         axes[ndim - 1, k].xaxis.set_label_coords(0.5, -0.72 / cell_h)
     handles, labels, handler_map = _corner_legend(ndim)
+    if ndim > 1:  # within the empty upper-right triangle: labels wrapped to its width
+        x0 = axes[0, 1].get_position().x0
+        room = int(((1 - 0.08 / size - x0) * size - _LEGEND_HANDLE_INCH) / _CHAR_INCH_8PT)
+        labels = [textwrap.fill(label, room) for label in labels]
     fig.legend(handles, labels, handler_map=handler_map, loc="upper right", fontsize=8,
                frameon=False, bbox_to_anchor=(1 - 0.08 / size, 1 - 0.08 / height))
     fig.suptitle(textwrap.fill(posterior.study.name, width=int(7 * size))
